@@ -1,0 +1,1 @@
+//! Empirical-Bayes priors fitted across levels (filled in below).

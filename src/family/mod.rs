@@ -1,0 +1,159 @@
+//! Pure conjugate-family mathematics: no Arrow, no DataFusion.
+//!
+//! Each family keeps a prior plus weighted sufficient statistics. States with the
+//! same prior merge by adding evidence, so they can be combined across partitions,
+//! days and machines; `subtract` removes evidence for out-of-fold and
+//! leave-one-out encodings. Readers act on a one-dimensional [`Marginal`].
+
+pub mod beta;
+pub mod dirichlet;
+pub mod dist;
+pub mod empirical;
+pub mod gamma;
+pub mod nig;
+pub mod rng;
+pub mod special;
+
+pub use beta::{BetaPosterior, BetaPrior};
+pub use dirichlet::{DirichletPosterior, DirichletPrior};
+pub use dist::Marginal;
+pub use gamma::{GammaPosterior, GammaPrior};
+pub use nig::{NigPosterior, NigPrior, NigStats};
+
+use std::fmt;
+
+/// Every way the family mathematics can refuse an input.
+#[derive(Debug, Clone, PartialEq)]
+pub enum FamilyError {
+    /// A prior or reader parameter outside its allowed range.
+    InvalidParameter {
+        name: &'static str,
+        value: f64,
+        allowed: &'static str,
+    },
+    /// An observation (outcome, value, weight, exposure) outside its allowed range.
+    InvalidObservation {
+        name: &'static str,
+        value: f64,
+        allowed: &'static str,
+    },
+    /// Two states with different priors cannot be merged or subtracted.
+    PriorMismatch { left: String, right: String },
+    /// More evidence would be removed than the state holds.
+    InsufficientEvidence(String),
+    /// A Dirichlet class list that is empty, has duplicates or lacks a class.
+    InvalidClasses(String),
+}
+
+impl fmt::Display for FamilyError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        match self {
+            FamilyError::InvalidParameter {
+                name,
+                value,
+                allowed,
+            } => write!(f, "argument {name} = {value} is out of range; allowed: {allowed}"),
+            FamilyError::InvalidObservation {
+                name,
+                value,
+                allowed,
+            } => write!(f, "{name} = {value} is not allowed; allowed: {allowed}"),
+            FamilyError::PriorMismatch { left, right } => write!(
+                f,
+                "the two posteriors have different priors ({left} vs {right}); \
+                 re-prior one with posterior_with_prior first"
+            ),
+            FamilyError::InsufficientEvidence(detail) => {
+                write!(f, "cannot remove more evidence than the posterior holds: {detail}")
+            }
+            FamilyError::InvalidClasses(detail) => write!(f, "{detail}"),
+        }
+    }
+}
+
+impl std::error::Error for FamilyError {}
+
+pub type Result<T> = std::result::Result<T, FamilyError>;
+
+/// Operations shared by every conjugate state.
+pub trait Conjugate: Sized + Clone {
+    /// Combine the evidence of two states that share a prior.
+    fn merge(&self, other: &Self) -> Result<Self>;
+    /// Remove the evidence of `other` (a subset of this state's data).
+    fn subtract(&self, other: &Self) -> Result<Self>;
+    /// Multiply the evidence by `factor` in [0, 1] (discounting).
+    fn scale(&self, factor: f64) -> Result<Self>;
+    /// Effective number of observations.
+    fn evidence(&self) -> f64;
+    /// Log marginal likelihood of the data under the prior (up to terms that depend
+    /// only on the data), used to fit priors.
+    fn log_marginal_likelihood(&self) -> f64;
+}
+
+/// Require `value` finite and > 0.
+pub(crate) fn positive(name: &'static str, value: f64) -> Result<f64> {
+    if value.is_finite() && value > 0.0 {
+        Ok(value)
+    } else {
+        Err(FamilyError::InvalidParameter {
+            name,
+            value,
+            allowed: "a finite number > 0",
+        })
+    }
+}
+
+/// Require `value` finite.
+pub(crate) fn finite(name: &'static str, value: f64) -> Result<f64> {
+    if value.is_finite() {
+        Ok(value)
+    } else {
+        Err(FamilyError::InvalidParameter {
+            name,
+            value,
+            allowed: "a finite number",
+        })
+    }
+}
+
+/// Require a weight finite and >= 0.
+pub(crate) fn weight(name: &'static str, value: f64) -> Result<f64> {
+    if value.is_finite() && value >= 0.0 {
+        Ok(value)
+    } else {
+        Err(FamilyError::InvalidObservation {
+            name,
+            value,
+            allowed: "a finite number >= 0",
+        })
+    }
+}
+
+/// Require a discount factor in [0, 1].
+pub(crate) fn factor(value: f64) -> Result<f64> {
+    if (0.0..=1.0).contains(&value) {
+        Ok(value)
+    } else {
+        Err(FamilyError::InvalidParameter {
+            name: "factor",
+            value,
+            allowed: "a number in [0, 1]",
+        })
+    }
+}
+
+/// Evidence left after a subtraction: tiny negative rounding residue becomes 0,
+/// anything beyond that is an error.
+pub(crate) fn remaining(name: &str, total: f64, removed: f64) -> Result<f64> {
+    let left = total - removed;
+    let tolerance = 1e-9 * total.abs().max(removed.abs()).max(1.0);
+    if left >= 0.0 {
+        Ok(left)
+    } else if left >= -tolerance {
+        Ok(0.0)
+    } else {
+        Err(FamilyError::InsufficientEvidence(format!(
+            "{name}: {removed} removed from {total}"
+        )))
+    }
+}

@@ -1,0 +1,258 @@
+//! Normal-Inverse-Gamma prior on (mean, variance) of a Normal outcome.
+//!
+//! Update formulas: K. P. Murphy (2007), "Conjugate Bayesian analysis of the
+//! Gaussian distribution", section 6 (eqs. 85-89 and the marginal of the mean, a
+//! Student-t with 2 alpha_n degrees of freedom). Data statistics are kept as a
+//! weighted count, mean and sum of squared deviations, updated with West's (1979)
+//! weighted Welford step and merged with Chan, Golub & LeVeque's (1979) pairwise
+//! formula, so values near 1e9 with spread 1e-3 lose no digits.
+
+use super::special::{ln_gamma, LN_2PI};
+use super::{finite, positive, remaining, weight, Conjugate, FamilyError, Marginal, Result};
+
+/// NIG(mu0, kappa0, alpha0, beta0) prior.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct NigPrior {
+    pub mu0: f64,
+    pub kappa0: f64,
+    pub alpha0: f64,
+    pub beta0: f64,
+}
+
+impl NigPrior {
+    /// Default NIG(0, 1e-4, 1.5, 1): vague about the mean, proper, with finite
+    /// variance of the mean for an unseen level. It assumes outcomes of order one;
+    /// pass a prior (or fit one) for other scales.
+    pub const DEFAULT: NigPrior = NigPrior {
+        mu0: 0.0,
+        kappa0: 1e-4,
+        alpha0: 1.5,
+        beta0: 1.0,
+    };
+
+    pub fn new(mu0: f64, kappa0: f64, alpha0: f64, beta0: f64) -> Result<Self> {
+        Ok(NigPrior {
+            mu0: finite("mu0", mu0)?,
+            kappa0: positive("kappa0", kappa0)?,
+            alpha0: positive("alpha0", alpha0)?,
+            beta0: positive("beta0", beta0)?,
+        })
+    }
+}
+
+/// Weighted data statistics: total weight, weighted mean, weighted sum of squared deviations.
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub struct NigStats {
+    pub n: f64,
+    pub mean: f64,
+    pub m2: f64,
+}
+
+impl NigStats {
+    /// West's weighted Welford step.
+    pub fn push(&mut self, x: f64, w: f64) {
+        if w == 0.0 {
+            return;
+        }
+        let n = self.n + w;
+        let delta = x - self.mean;
+        let mean = self.mean + delta * (w / n);
+        self.m2 += w * delta * (x - mean);
+        self.n = n;
+        self.mean = mean;
+    }
+
+    /// Chan et al.'s pairwise merge.
+    pub fn merge(&self, other: &NigStats) -> NigStats {
+        if other.n == 0.0 {
+            return *self;
+        }
+        if self.n == 0.0 {
+            return *other;
+        }
+        let n = self.n + other.n;
+        let delta = other.mean - self.mean;
+        NigStats {
+            n,
+            mean: self.mean + delta * (other.n / n),
+            m2: self.m2 + other.m2 + delta * delta * (self.n / n) * other.n,
+        }
+    }
+
+    /// Inverse of [`NigStats::merge`]: the statistics of the rest once `part` is removed.
+    pub fn remove(&self, part: &NigStats) -> Result<NigStats> {
+        if part.n == 0.0 {
+            return Ok(*self);
+        }
+        let n = remaining("n", self.n, part.n)?;
+        if n <= 1e-12 * self.n.max(1.0) {
+            remaining("m2", self.m2, part.m2)?;
+            return Ok(NigStats::default());
+        }
+        let mean = self.mean + (self.mean - part.mean) * (part.n / n);
+        let delta = part.mean - mean;
+        let m2 = self.m2 - part.m2 - delta * delta * (n / self.n) * part.n;
+        let m2 = remaining("m2", self.m2, self.m2 - m2)?;
+        Ok(NigStats { n, mean, m2 })
+    }
+}
+
+/// A Normal-Inverse-Gamma posterior.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct NigPosterior {
+    pub prior: NigPrior,
+    pub stats: NigStats,
+}
+
+/// Posterior parameters (mu_n, kappa_n, alpha_n, beta_n).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct NigParams {
+    pub mu: f64,
+    pub kappa: f64,
+    pub alpha: f64,
+    pub beta: f64,
+}
+
+impl NigPosterior {
+    pub fn new(prior: NigPrior) -> Self {
+        NigPosterior {
+            prior,
+            stats: NigStats::default(),
+        }
+    }
+
+    pub fn from_parts(prior: NigPrior, n: f64, mean: f64, m2: f64) -> Result<Self> {
+        let n = weight("n", n)?;
+        let mean = finite("mean", mean)?;
+        let m2 = weight("m2", m2)?;
+        Ok(NigPosterior {
+            prior,
+            stats: NigStats { n, mean, m2 },
+        })
+    }
+
+    /// Add one value with a weight.
+    pub fn observe(&mut self, x: f64, w: f64) -> Result<()> {
+        let x = check_value(x)?;
+        let w = weight("weight", w)?;
+        self.stats.push(x, w);
+        Ok(())
+    }
+
+    pub fn without(&self, x: f64, w: f64) -> Result<Self> {
+        let x = check_value(x)?;
+        let w = weight("weight", w)?;
+        let part = NigStats { n: w, mean: x, m2: 0.0 };
+        Ok(NigPosterior {
+            prior: self.prior,
+            stats: self.stats.remove(&part)?,
+        })
+    }
+
+    pub fn with_prior(&self, prior: NigPrior) -> Self {
+        NigPosterior { prior, ..*self }
+    }
+
+    /// Murphy (2007) eqs. 86-89, with mu_n written as mu0 + n (xbar - mu0) / kappa_n.
+    pub fn params(&self) -> NigParams {
+        let NigPrior {
+            mu0,
+            kappa0,
+            alpha0,
+            beta0,
+        } = self.prior;
+        let NigStats { n, mean, m2 } = self.stats;
+        let kappa = kappa0 + n;
+        let d = mean - mu0;
+        NigParams {
+            mu: if n > 0.0 { mu0 + d * (n / kappa) } else { mu0 },
+            kappa,
+            alpha: alpha0 + 0.5 * n,
+            beta: beta0 + 0.5 * m2 + 0.5 * d * d * (kappa0 * n / kappa),
+        }
+    }
+
+    /// Marginal posterior of the mean: mu_n + sqrt(beta_n / (alpha_n kappa_n)) t_{2 alpha_n}.
+    pub fn marginal(&self) -> Marginal {
+        let p = self.params();
+        Marginal::StudentT {
+            loc: p.mu,
+            scale: (p.beta / (p.alpha * p.kappa)).sqrt(),
+            dof: 2.0 * p.alpha,
+        }
+    }
+
+    fn same_prior(&self, other: &Self) -> Result<()> {
+        if self.prior == other.prior {
+            Ok(())
+        } else {
+            let show = |p: &NigPrior| {
+                format!("nig_prior({}, {}, {}, {})", p.mu0, p.kappa0, p.alpha0, p.beta0)
+            };
+            Err(FamilyError::PriorMismatch {
+                left: show(&self.prior),
+                right: show(&other.prior),
+            })
+        }
+    }
+}
+
+fn check_value(x: f64) -> Result<f64> {
+    if x.is_finite() {
+        Ok(x)
+    } else {
+        Err(FamilyError::InvalidObservation {
+            name: "value",
+            value: x,
+            allowed: "a finite number",
+        })
+    }
+}
+
+impl Conjugate for NigPosterior {
+    fn merge(&self, other: &Self) -> Result<Self> {
+        self.same_prior(other)?;
+        Ok(NigPosterior {
+            prior: self.prior,
+            stats: self.stats.merge(&other.stats),
+        })
+    }
+
+    fn subtract(&self, other: &Self) -> Result<Self> {
+        self.same_prior(other)?;
+        Ok(NigPosterior {
+            prior: self.prior,
+            stats: self.stats.remove(&other.stats)?,
+        })
+    }
+
+    fn scale(&self, f: f64) -> Result<Self> {
+        let f = super::factor(f)?;
+        Ok(NigPosterior {
+            prior: self.prior,
+            stats: NigStats {
+                n: self.stats.n * f,
+                mean: if f == 0.0 { 0.0 } else { self.stats.mean },
+                m2: self.stats.m2 * f,
+            },
+        })
+    }
+
+    fn evidence(&self) -> f64 {
+        self.stats.n
+    }
+
+    /// Murphy (2007) eq. 95: lnΓ(αn) - lnΓ(α0) + α0 ln β0 - αn ln βn + ½ ln(κ0/κn) - (n/2) ln 2π.
+    fn log_marginal_likelihood(&self) -> f64 {
+        let p = self.params();
+        let NigPrior {
+            kappa0,
+            alpha0,
+            beta0,
+            ..
+        } = self.prior;
+        ln_gamma(p.alpha) - ln_gamma(alpha0) + alpha0 * beta0.ln() - p.alpha * p.beta.ln()
+            + 0.5 * (kappa0.ln() - p.kappa.ln())
+            - 0.5 * self.stats.n * LN_2PI
+    }
+}

@@ -1,0 +1,127 @@
+//! Accuracy of CDFs and quantiles against tests/reference/quantiles.csv, a table
+//! generated with mpmath (arbitrary precision) by tests/reference/generate_quantiles.py.
+//!
+//! Measured state (see the issue notes): most points agree to 1e-12 relative; the
+//! remaining gap is the incomplete-beta continued fraction when one shape is above
+//! about 1e5 and the other below about 10 with x within 1e-4 of 1 (Student-t with
+//! millions of degrees of freedom), where errors reach a few 1e-10. The thresholds
+//! below pin that state so any regression fails.
+
+use posterity::family::Marginal;
+
+struct Row {
+    family: String,
+    p1: f64,
+    p2: f64,
+    q: f64,
+    quantile: f64,
+    x: f64,
+    lower: f64,
+    upper: f64,
+}
+
+fn rows() -> Vec<Row> {
+    let text = include_str!("reference/quantiles.csv");
+    text.lines()
+        .filter(|l| !l.starts_with('#') && !l.is_empty())
+        .map(|l| {
+            let f: Vec<&str> = l.split(',').collect();
+            let n = |i: usize| f[i].parse::<f64>().unwrap();
+            Row {
+                family: f[0].to_string(),
+                p1: n(1),
+                p2: n(2),
+                q: n(3),
+                quantile: n(4),
+                x: n(5),
+                lower: n(6),
+                upper: n(7),
+            }
+        })
+        .collect()
+}
+
+fn marginal(r: &Row) -> Marginal {
+    match r.family.as_str() {
+        "beta" => Marginal::Beta { a: r.p1, b: r.p2 },
+        "gamma" => Marginal::Gamma { shape: r.p1, rate: 1.0 },
+        _ => Marginal::StudentT { loc: 0.0, scale: 1.0, dof: r.p1 },
+    }
+}
+
+fn rel(got: f64, want: f64) -> f64 {
+    if got == want {
+        0.0
+    } else {
+        ((got - want) / want).abs()
+    }
+}
+
+#[test]
+fn table_is_large_enough() {
+    let rows = rows();
+    assert!(rows.len() >= 2000, "{} rows", rows.len());
+    for fam in ["beta", "gamma", "student_t"] {
+        assert!(rows.iter().filter(|r| r.family == fam).count() >= 500);
+    }
+}
+
+#[test]
+fn cdf_and_survival_match_mpmath() {
+    let mut worst = (0.0, String::new());
+    let mut over = 0;
+    let rows = rows();
+    for r in &rows {
+        let (lo, up) = marginal(r).tails(r.x);
+        for (got, want) in [(lo, r.lower), (up, r.upper)] {
+            if want < 1e-280 {
+                continue;
+            }
+            let e = rel(got, want);
+            if e > 1e-12 {
+                over += 1;
+            }
+            if e > worst.0 || e.is_nan() {
+                worst = (e, format!("{} p1={} p2={} x={} got {got} want {want}", r.family, r.p1, r.p2, r.x));
+            }
+        }
+    }
+    eprintln!("tails: worst relative error {:e} at {}; {over} of {} over 1e-12", worst.0, worst.1, 2 * rows.len());
+    assert!(worst.0 <= 1e-9, "worst {:e} at {}", worst.0, worst.1);
+    assert!(over * 100 <= 2 * rows.len() * 8, "{over} tails over 1e-12");
+}
+
+#[test]
+fn quantiles_match_mpmath() {
+    let mut worst = (0.0, String::new());
+    let mut over = 0;
+    let rows = rows();
+    for r in &rows {
+        let got = marginal(r).quantile(r.q);
+        let e = rel(got, r.quantile);
+        if e > 1e-12 || e.is_nan() {
+            over += 1;
+        }
+        if e > worst.0 || e.is_nan() {
+            worst = (e, format!("{} p1={} p2={} q={} got {got} want {}", r.family, r.p1, r.p2, r.q, r.quantile));
+        }
+    }
+    eprintln!("quantiles: worst relative error {:e} at {}; {over} of {} over 1e-12", worst.0, worst.1, rows.len());
+    assert!(worst.0 <= 1e-8, "worst {:e} at {}", worst.0, worst.1);
+    assert!(over * 100 <= rows.len() * 8, "{over} quantiles over 1e-12");
+}
+
+#[test]
+#[ignore]
+fn dump_errors() {
+    for r in rows() {
+        let m = marginal(&r);
+        let (lo, up) = m.tails(r.x);
+        let e1 = if r.lower >= 1e-280 { rel(lo, r.lower) } else { 0.0 };
+        let e2 = if r.upper >= 1e-280 { rel(up, r.upper) } else { 0.0 };
+        let eq = rel(m.quantile(r.q), r.quantile);
+        if e1.max(e2) > 1e-12 || eq > 1e-12 {
+            println!("{} {:e} {:e} x={:e} q={} | tail {:.1e} {:.1e} quant {:.1e}", r.family, r.p1, r.p2, r.x, r.q, e1, e2, eq);
+        }
+    }
+}
