@@ -49,17 +49,17 @@ pub struct NigStats {
 }
 
 impl NigStats {
-    /// West's weighted Welford step.
+    /// West's weighted Welford step, with the m2 increment written as
+    /// w δ² n_old / n so that rounding of the stored mean only enters at second order.
     pub fn push(&mut self, x: f64, w: f64) {
         if w == 0.0 {
             return;
         }
         let n = self.n + w;
         let delta = x - self.mean;
-        let mean = self.mean + delta * (w / n);
-        self.m2 += w * delta * (x - mean);
+        self.mean += delta * (w / n);
+        self.m2 += w * delta * delta * (self.n / n);
         self.n = n;
-        self.mean = mean;
     }
 
     /// Chan et al.'s pairwise merge.
@@ -92,7 +92,7 @@ impl NigStats {
         let mean = self.mean + (self.mean - part.mean) * (part.n / n);
         let delta = part.mean - mean;
         let m2 = self.m2 - part.m2 - delta * delta * (n / self.n) * part.n;
-        let m2 = remaining("m2", self.m2, self.m2 - m2)?;
+        let m2 = remaining("m2", m2 + part.m2, part.m2)?;
         Ok(NigStats { n, mean, m2 })
     }
 }
