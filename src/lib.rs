@@ -1,8 +1,51 @@
 //! posterity: conjugate Bayesian encodings of categorical columns, as DataFusion
 //! SQL functions.
 //!
-//! * [`family`] — the pure mathematics of the four conjugate families.
+//! * [`family`] — the pure mathematics of the four conjugate families;
+//! * [`layout`] — the posterior value format (Arrow structs);
+//! * [`fit`], [`pool`] — aggregate functions; [`scalar`] — scalar functions;
+//! * [`docs`] — the documentation table behind every function.
+//!
+//! ```no_run
+//! # async fn demo() -> datafusion::error::Result<()> {
+//! let ctx = datafusion::prelude::SessionContext::new();
+//! posterity::register(&ctx);
+//! ctx.sql("SELECT posterior_mean(beta_prior(2, 38))").await?.show().await?;
+//! # Ok(()) }
+//! ```
 
+pub mod docs;
 pub mod family;
+pub mod fit;
+pub mod layout;
+pub mod pool;
+pub mod scalar;
 
 pub use datafusion;
+
+use datafusion::logical_expr::AggregateUDF;
+use datafusion::prelude::SessionContext;
+
+use fit::{BetaCounts, BetaOutcomes, DirichletClasses, FitAggregate, GammaCounts, NigValues};
+
+/// Every aggregate function of the SQL surface.
+pub fn aggregates() -> Vec<AggregateUDF> {
+    vec![
+        AggregateUDF::new_from_impl(FitAggregate::<BetaOutcomes>::default()),
+        AggregateUDF::new_from_impl(FitAggregate::<BetaCounts>::default()),
+        AggregateUDF::new_from_impl(FitAggregate::<GammaCounts>::default()),
+        AggregateUDF::new_from_impl(FitAggregate::<NigValues>::default()),
+        AggregateUDF::new_from_impl(FitAggregate::<DirichletClasses>::default()),
+        AggregateUDF::new_from_impl(pool::PosteriorPool::default()),
+    ]
+}
+
+/// Register every posterity function on a DataFusion session.
+pub fn register(ctx: &SessionContext) {
+    for f in scalar::all() {
+        ctx.register_udf(f);
+    }
+    for f in aggregates() {
+        ctx.register_udaf(f);
+    }
+}

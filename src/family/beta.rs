@@ -179,3 +179,8 @@ impl Conjugate for BetaPosterior {
         ln_beta(a, b) - ln_beta(self.prior.a0, self.prior.b0)
     }
 }
+
+/// Weights must be finite and >= 0.
+pub fn check_weight(w: f64) -> Result<f64> {
+    weight("weight", w)
+}

@@ -1,0 +1,351 @@
+//! Documentation of every SQL function, in one table. It feeds DataFusion's
+//! `Documentation` (shown by `SHOW FUNCTIONS` / information_schema), the shell's
+//! `posterity functions`, and the README's function reference (a test keeps the
+//! README in step with this table).
+
+use std::collections::HashMap;
+use std::sync::OnceLock;
+
+use datafusion::logical_expr::{DocSection, Documentation};
+
+/// One function's documentation.
+pub struct FunctionDoc {
+    pub name: &'static str,
+    pub section: &'static str,
+    pub description: &'static str,
+    pub syntax: &'static str,
+    pub arguments: &'static [(&'static str, &'static str)],
+    pub example: &'static str,
+}
+
+const PRIORS: &str = "Priors";
+const FIT: &str = "Fitting posteriors (aggregate and window functions)";
+const COMBINE: &str = "Combining posteriors (aggregate functions)";
+const READ: &str = "Reading posteriors";
+const TRANSFORM: &str = "Transforming posteriors";
+const HELPERS: &str = "Helpers";
+
+const P: (&str, &str) = ("p", "A posterior (or prior) of any family.");
+const CLASS: (&str, &str) = (
+    "class",
+    "Dirichlet posteriors only: the class to read, given right after p.",
+);
+
+/// Every function, in reference order.
+pub const FUNCTIONS: &[FunctionDoc] = &[
+    FunctionDoc {
+        name: "beta_prior",
+        section: PRIORS,
+        description: "A Beta(a, b) prior for 0/1 outcomes: a posterior with zero evidence. \
+            Beta(0.5, 0.5) is Jeffreys' prior (the default of beta_posterior); Beta(1, 1) is uniform.",
+        syntax: "beta_prior(a, b)",
+        arguments: &[("a", "Prior successes, finite and > 0."), ("b", "Prior failures, finite and > 0.")],
+        example: "SELECT posterior_mean(beta_prior(2, 38));  -- 0.05",
+    },
+    FunctionDoc {
+        name: "gamma_prior",
+        section: PRIORS,
+        description: "A Gamma(shape, rate) prior for a Poisson rate per unit of exposure: shape \
+            prior events seen in rate units of exposure. Default of gamma_posterior: Gamma(0.5, 1).",
+        syntax: "gamma_prior(shape, rate)",
+        arguments: &[("shape", "Prior events, finite and > 0."), ("rate", "Prior exposure, finite and > 0.")],
+        example: "SELECT posterior_mean(gamma_prior(3, 2));  -- 1.5 visits per year",
+    },
+    FunctionDoc {
+        name: "nig_prior",
+        section: PRIORS,
+        description: "A Normal-Inverse-Gamma prior for continuous outcomes: the level mean is \
+            centred on mu0 with the weight of kappa0 observations; the variance has an \
+            inverse-gamma(alpha0, beta0) prior. Default of nig_posterior: nig_prior(0, 0.0001, 1.5, 1), \
+            which assumes outcomes of order one: pass a prior on your data's scale or fit one with fit_prior.",
+        syntax: "nig_prior(mu0, kappa0, alpha0, beta0)",
+        arguments: &[
+            ("mu0", "Prior mean, finite."),
+            ("kappa0", "Prior observations behind mu0, finite and > 0."),
+            ("alpha0", "Variance prior shape, finite and > 0."),
+            ("beta0", "Variance prior scale, finite and > 0."),
+        ],
+        example: "SELECT posterior_mean(nig_prior(120, 1, 2, 800));  -- 120",
+    },
+    FunctionDoc {
+        name: "dirichlet_prior",
+        section: PRIORS,
+        description: "A Dirichlet prior over named classes for multi-class outcomes.",
+        syntax: "dirichlet_prior(classes, concentration)",
+        arguments: &[
+            ("classes", "A list of distinct class names, e.g. ['attended', 'no_show']."),
+            ("concentration", "One number for every class, or a list with one number per class; each finite and > 0."),
+        ],
+        example: "SELECT posterior_mean(dirichlet_prior(['attended', 'no_show'], [3, 1]), 'no_show');  -- 0.25",
+    },
+    FunctionDoc {
+        name: "beta_posterior",
+        section: FIT,
+        description: "Fits a Beta posterior from 0/1 outcomes (BOOLEAN, integer or float; anything \
+            but 0/1 is an error). Rows whose outcome or weight is NULL are ignored. Works as a \
+            window function, e.g. OVER (PARTITION BY key ORDER BY t ROWS BETWEEN UNBOUNDED PRECEDING \
+            AND 1 PRECEDING) for as-of encodings. The prior must be a constant.",
+        syntax: "beta_posterior(outcome [, prior [, weight]])",
+        arguments: &[
+            ("outcome", "0/1, false/true."),
+            ("prior", "A constant Beta prior; default beta_prior(0.5, 0.5)."),
+            ("weight", "Row weight, finite and >= 0 (decay weights, pre-aggregated counts); default 1."),
+        ],
+        example: "SELECT breed, beta_posterior(no_show, beta_prior(1, 19)) AS p FROM appointments GROUP BY breed;",
+    },
+    FunctionDoc {
+        name: "beta_posterior_counts",
+        section: FIT,
+        description: "Fits a Beta posterior from pre-aggregated success and trial counts \
+            (0 <= successes <= trials). NULL rows are ignored.",
+        syntax: "beta_posterior_counts(successes, trials [, prior])",
+        arguments: &[
+            ("successes", "Successes in the row, finite, >= 0 and <= trials."),
+            ("trials", "Trials in the row, finite and >= 0."),
+            ("prior", "A constant Beta prior; default beta_prior(0.5, 0.5)."),
+        ],
+        example: "SELECT clinic, beta_posterior_counts(no_shows, bookings) AS p FROM daily GROUP BY clinic;",
+    },
+    FunctionDoc {
+        name: "gamma_posterior",
+        section: FIT,
+        description: "Fits a Gamma posterior for a Poisson rate from event counts and exposures \
+            (events per unit of exposure). NULL rows are ignored.",
+        syntax: "gamma_posterior(events [, exposure [, prior]])",
+        arguments: &[
+            ("events", "Events in the row, finite and >= 0."),
+            ("exposure", "Exposure of the row (e.g. years enrolled), finite and >= 0; default 1."),
+            ("prior", "A constant Gamma prior; default gamma_prior(0.5, 1)."),
+        ],
+        example: "SELECT breed, gamma_posterior(visits, years_enrolled) AS p FROM pets GROUP BY breed;",
+    },
+    FunctionDoc {
+        name: "nig_posterior",
+        section: FIT,
+        description: "Fits a Normal-Inverse-Gamma posterior from continuous values; readers refer \
+            to the level's mean (a Student-t marginal). Statistics are kept with weighted \
+            Welford/Chan updates. NULL rows are ignored; NaN and infinite values are errors.",
+        syntax: "nig_posterior(value [, prior [, weight]])",
+        arguments: &[
+            ("value", "The outcome, finite."),
+            ("prior", "A constant NIG prior; default nig_prior(0, 0.0001, 1.5, 1)."),
+            ("weight", "Row weight, finite and >= 0; default 1."),
+        ],
+        example: "SELECT vet, nig_posterior(amount, nig_prior(80, 1, 2, 2000)) AS p FROM invoices GROUP BY vet;",
+    },
+    FunctionDoc {
+        name: "dirichlet_posterior",
+        section: FIT,
+        description: "Fits a Dirichlet posterior from class labels; a class not in the prior is \
+            an error. NULL rows are ignored.",
+        syntax: "dirichlet_posterior(class, prior [, weight])",
+        arguments: &[
+            ("class", "The observed class (text)."),
+            ("prior", "A constant Dirichlet prior naming the classes."),
+            ("weight", "Row weight, finite and >= 0; default 1."),
+        ],
+        example: "SELECT clinic, dirichlet_posterior(outcome, dirichlet_prior(['attended', 'no_show', 'late_cancel', 'rescheduled'], 1)) AS p FROM appointments GROUP BY clinic;",
+    },
+    FunctionDoc {
+        name: "posterior_pool",
+        section: COMBINE,
+        description: "Sums the evidence of posteriors that share a prior (per-day or per-partition \
+            encodings into one). NULL inputs are skipped; different priors are an error naming both.",
+        syntax: "posterior_pool(p)",
+        arguments: &[P],
+        example: "SELECT breed, posterior_pool(p) AS p FROM daily_encodings GROUP BY breed;",
+    },
+    FunctionDoc {
+        name: "posterior_mean",
+        section: READ,
+        description: "Posterior mean of the success probability (Beta), rate (Gamma), level mean \
+            (NIG; the Student-t centre) or class probability (Dirichlet). NULL posterior gives NULL.",
+        syntax: "posterior_mean(p [, class])",
+        arguments: &[P, CLASS],
+        example: "SELECT posterior_mean(beta_prior(2.5, 1.5));  -- 0.625",
+    },
+    FunctionDoc {
+        name: "posterior_var",
+        section: READ,
+        description: "Posterior variance. For NIG it is the variance of the level mean, infinite \
+            when 2 * alpha_n <= 2.",
+        syntax: "posterior_var(p [, class])",
+        arguments: &[P, CLASS],
+        example: "SELECT posterior_var(beta_prior(2.5, 1.5));  -- 0.046875",
+    },
+    FunctionDoc {
+        name: "posterior_sd",
+        section: READ,
+        description: "Posterior standard deviation (square root of posterior_var).",
+        syntax: "posterior_sd(p [, class])",
+        arguments: &[P, CLASS],
+        example: "SELECT posterior_sd(p) FROM breed_encodings;",
+    },
+    FunctionDoc {
+        name: "posterior_quantile",
+        section: READ,
+        description: "Inverse CDF of the posterior at probability q (accurate in both tails).",
+        syntax: "posterior_quantile(p [, class], q)",
+        arguments: &[P, CLASS, ("q", "Probability strictly between 0 and 1.")],
+        example: "SELECT posterior_quantile(p, 0.05) AS pessimistic FROM breed_encodings;",
+    },
+    FunctionDoc {
+        name: "posterior_interval",
+        section: READ,
+        description: "Equal-tailed credible interval with the given probability content, as a \
+            struct {lower, upper}. It describes sampling uncertainty under the model, not data \
+            quality or drift.",
+        syntax: "posterior_interval(p [, class], level)",
+        arguments: &[P, CLASS, ("level", "Probability content strictly between 0 and 1, e.g. 0.9.")],
+        example: "SELECT posterior_interval(p, 0.9)['lower'] FROM breed_encodings;",
+    },
+    FunctionDoc {
+        name: "posterior_prob_above",
+        section: READ,
+        description: "Posterior probability that the parameter exceeds t, computed directly from \
+            the upper tail.",
+        syntax: "posterior_prob_above(p [, class], t)",
+        arguments: &[P, CLASS, ("t", "Threshold, finite.")],
+        example: "SELECT breed FROM breed_encodings WHERE posterior_prob_above(p, 0.10) > 0.95;",
+    },
+    FunctionDoc {
+        name: "posterior_evidence",
+        section: READ,
+        description: "Evidence behind the posterior: weighted trials (Beta), exposure (Gamma), \
+            weighted count (NIG) or total weighted count (Dirichlet).",
+        syntax: "posterior_evidence(p)",
+        arguments: &[P],
+        example: "SELECT posterior_evidence(p) FROM breed_encodings;",
+    },
+    FunctionDoc {
+        name: "posterior_draw",
+        section: READ,
+        description: "A deterministic draw from the posterior: the quantile at a uniform number \
+            hashed from the seed and the posterior's parameters. Same inputs, same draw.",
+        syntax: "posterior_draw(p [, class], seed)",
+        arguments: &[P, CLASS, ("seed", "Integer seed; vary it per row for independent draws.")],
+        example: "SELECT posterior_draw(p, row_id) FROM training;",
+    },
+    FunctionDoc {
+        name: "posterior_merge",
+        section: TRANSFORM,
+        description: "Adds the evidence of two posteriors with the same prior. A NULL argument \
+            counts as no evidence (the other is returned).",
+        syntax: "posterior_merge(a, b)",
+        arguments: &[("a", "A posterior."), ("b", "A posterior of the same family and prior.")],
+        example: "SELECT posterior_merge(old.p, new.p) FROM old FULL JOIN new USING (breed);",
+    },
+    FunctionDoc {
+        name: "posterior_subtract",
+        section: TRANSFORM,
+        description: "Removes b's evidence from a (b must be part of a's data): the out-of-fold \
+            posterior is total minus the fold's. Removing more than a holds is an error; a NULL b \
+            removes nothing.",
+        syntax: "posterior_subtract(a, b)",
+        arguments: &[("a", "A posterior."), ("b", "A posterior of the same prior, part of a.")],
+        example: "SELECT posterior_subtract(total.p, fold.p) FROM total JOIN fold USING (breed);",
+    },
+    FunctionDoc {
+        name: "posterior_without",
+        section: TRANSFORM,
+        description: "Removes one observation (leave-one-out): an outcome (Beta), events and \
+            exposure (Gamma), a value (NIG) or a class (Dirichlet).",
+        syntax: "posterior_without(p, observation [, weight])",
+        arguments: &[
+            P,
+            ("observation", "The observation to remove."),
+            ("weight", "Its weight (its exposure for Gamma); default 1."),
+        ],
+        example: "SELECT posterior_mean(posterior_without(e.p, a.no_show)) FROM appointments a JOIN enc e USING (breed);",
+    },
+    FunctionDoc {
+        name: "posterior_scale",
+        section: TRANSFORM,
+        description: "Multiplies the evidence by a factor in [0, 1] (discounting; capping a parent \
+            posterior to a few pseudo-observations before using it as a prior).",
+        syntax: "posterior_scale(p, factor)",
+        arguments: &[P, ("factor", "A number in [0, 1].")],
+        example: "SELECT posterior_scale(p, least(1.0, 20 / posterior_evidence(p))) FROM region_enc;",
+    },
+    FunctionDoc {
+        name: "posterior_with_prior",
+        section: TRANSFORM,
+        description: "Keeps p's evidence under a new prior. A prior argument that carries evidence \
+            is used with its evidence folded in (a parent's posterior becomes the child's prior).",
+        syntax: "posterior_with_prior(p, prior)",
+        arguments: &[P, ("prior", "A prior or posterior of the same family.")],
+        example: "SELECT posterior_with_prior(p, (SELECT fit_prior(p) FROM enc)) FROM enc;",
+    },
+    FunctionDoc {
+        name: "fold_of",
+        section: HELPERS,
+        description: "Fold number in 0..k-1 for a key, from a fixed 64-bit hash of its text: stable \
+            across runs, platforms, partitionings and key types (123 and '123' share a fold).",
+        syntax: "fold_of(key [, k [, seed]])",
+        arguments: &[
+            ("key", "Any value; NULL keys give NULL."),
+            ("k", "Number of folds, an integer >= 2; default 5."),
+            ("seed", "Integer seed for a different assignment; default 0."),
+        ],
+        example: "SELECT fold_of(appointment_id, 5) AS fold FROM appointments;",
+    },
+    FunctionDoc {
+        name: "decay_weight",
+        section: HELPERS,
+        description: "Exponential decay weight 0.5^(age / half_life): a row one half-life old counts 0.5.",
+        syntax: "decay_weight(age, half_life)",
+        arguments: &[
+            ("age", "Age of the row, finite and >= 0 (same unit as half_life)."),
+            ("half_life", "Half-life, finite and > 0."),
+        ],
+        example: "SELECT beta_posterior(no_show, beta_prior(1, 19), decay_weight(days_old, 90)) FROM appointments;",
+    },
+];
+
+/// The DataFusion documentation of `name`.
+pub fn get(name: &str) -> Option<&'static Documentation> {
+    static DOCS: OnceLock<HashMap<&'static str, Documentation>> = OnceLock::new();
+    DOCS.get_or_init(|| FUNCTIONS.iter().map(|f| (f.name, to_documentation(f))).collect())
+        .get(name)
+}
+
+fn to_documentation(f: &FunctionDoc) -> Documentation {
+    let section = DocSection {
+        include: true,
+        label: f.section,
+        description: None,
+    };
+    let mut builder = Documentation::builder(section, f.description, f.syntax).with_sql_example(f.example);
+    for (name, text) in f.arguments {
+        builder = builder.with_argument(*name, *text);
+    }
+    builder.build()
+}
+
+/// The function reference as Markdown, generated from [`FUNCTIONS`].
+pub fn reference_markdown() -> String {
+    let mut out = String::new();
+    let mut section = "";
+    for f in FUNCTIONS {
+        if f.section != section {
+            section = f.section;
+            out.push_str(&format!("\n### {section}\n"));
+        }
+        out.push_str(&format!("\n#### `{}`\n\n{}\n\n```sql\n{}\n```\n\n", f.name, f.description, f.syntax));
+        for (name, text) in f.arguments {
+            out.push_str(&format!("- `{name}`: {text}\n"));
+        }
+        out.push_str(&format!("\nExample: `{}`\n", f.example));
+    }
+    out
+}
+
+/// Plain-text help for one function, for the shell.
+pub fn help_text(f: &FunctionDoc) -> String {
+    let mut out = format!("{}\n  {}\n\n  {}\n", f.syntax, f.section, f.description);
+    for (name, text) in f.arguments {
+        out.push_str(&format!("    {name:<14} {text}\n"));
+    }
+    out.push_str(&format!("  example: {}\n", f.example));
+    out
+}

@@ -1,0 +1,950 @@
+//! The fit aggregates: one generic adapter (`FitAggregate<K>`) turns a small
+//! per-family kernel into a DataFusion aggregate with a vectorised
+//! `GroupsAccumulator`, a retractable `Accumulator` for window frames, and a
+//! documented signature.
+//!
+//! Each group keeps `width` f64 statistics in one flat vector; the prior is a
+//! planning-time constant held by the kernel, so nothing per group is boxed.
+
+use std::fmt::Debug;
+use std::hash::Hash;
+use std::sync::Arc;
+
+use datafusion::arrow::array::{
+    Array, ArrayRef, AsArray, BooleanArray, Float64Array, ListArray, StringArray,
+};
+use datafusion::arrow::buffer::OffsetBuffer;
+use datafusion::arrow::compute::cast;
+use datafusion::arrow::datatypes::{DataType, Field, FieldRef, Float64Type};
+use datafusion::common::{exec_err, plan_err, DataFusionError, Result, ScalarValue};
+use datafusion::logical_expr::function::{AccumulatorArgs, StateFieldsArgs};
+use datafusion::logical_expr::{
+    Accumulator, AggregateUDFImpl, Documentation, EmitTo, GroupsAccumulator, Signature,
+    Volatility,
+};
+use datafusion::physical_expr::expressions::Literal;
+
+use crate::family::{
+    beta::check_outcome, BetaPosterior, BetaPrior, DirichletPosterior, DirichletPrior,
+    FamilyError, GammaPosterior, GammaPrior, NigPosterior, NigPrior, NigStats,
+};
+use crate::layout::{build, build_floats, AnyPosterior, Kind, PosteriorColumn};
+
+/// Wrap a family error with the function's name.
+pub fn family_error(function: &str, e: FamilyError) -> DataFusionError {
+    DataFusionError::Execution(format!("{function}: {e}"))
+}
+
+/// What a family contributes to a fit aggregate.
+pub trait FitKernel: Debug + Clone + Send + Sync + 'static {
+    /// The SQL function name.
+    const NAME: &'static str;
+    /// Family of the result.
+    const KIND: Kind;
+    /// Index of the prior among the arguments, if the function takes one.
+    const PRIOR_ARG: usize;
+    /// Build from the prior (or the default when `None`).
+    fn new(prior: Option<AnyPosterior>) -> Result<Self>;
+    /// Plan-time argument checks and coercions (prior argument excluded).
+    fn coerce(arg_types: &[DataType]) -> Result<Vec<DataType>>;
+    /// Statistics per group.
+    fn width(&self) -> usize;
+    /// Add (or with `retract`, remove) a batch of rows into `stats`.
+    fn apply(
+        &self,
+        values: &[ArrayRef],
+        groups: &[usize],
+        filter: Option<&BooleanArray>,
+        stats: &mut [f64],
+        retract: bool,
+    ) -> Result<()>;
+    /// Merge one group's statistics `other` into `into`.
+    fn merge(&self, into: &mut [f64], other: &[f64]);
+    /// The result column for `stats` (groups × width).
+    fn finish(&self, stats: &[f64]) -> Result<ArrayRef>;
+}
+
+/// `true` for rows that take part: inside the filter and with no NULL argument.
+fn row_ok(filter: Option<&BooleanArray>, columns: &[&dyn Array], i: usize) -> bool {
+    filter.is_none_or(|f| f.is_valid(i) && f.value(i)) && columns.iter().all(|c| c.is_valid(i))
+}
+
+fn f64_column(values: &[ArrayRef], i: usize) -> Result<Float64Array> {
+    Ok(cast(&values[i], &DataType::Float64)?.as_primitive::<Float64Type>().clone())
+}
+
+/// Numeric and boolean inputs coerce to Float64; anything else is a plan error.
+fn numeric(function: &str, argument: &str, t: &DataType) -> Result<DataType> {
+    if t.is_numeric() || matches!(t, DataType::Boolean | DataType::Null) {
+        Ok(DataType::Float64)
+    } else {
+        plan_err!("{function}: argument {argument} has type {t}; expected a number or boolean")
+    }
+}
+
+fn prior_type(function: &str, kind: Kind, t: &DataType) -> Result<DataType> {
+    match Kind::detect(t) {
+        Some(k) if k == kind => Ok(t.clone()),
+        _ => plan_err!(
+            "{function}: argument prior has type {t}; expected a {} prior such as {}",
+            kind.name(),
+            match kind {
+                Kind::Beta => "beta_prior(0.5, 0.5)",
+                Kind::Gamma => "gamma_prior(0.5, 1)",
+                Kind::Nig => "nig_prior(0, 0.0001, 1.5, 1)",
+                Kind::Dirichlet => "dirichlet_prior(['a', 'b'], 1)",
+            }
+        ),
+    }
+}
+
+fn arity(function: &str, n: usize, min: usize, max: usize, syntax: &str) -> Result<()> {
+    if n < min || n > max {
+        plan_err!("{function}: takes {min} to {max} arguments, got {n}; usage: {syntax}")
+    } else {
+        Ok(())
+    }
+}
+
+/// Subtract with the same rounding tolerance as the family code.
+fn take(stat: &mut f64, amount: f64) {
+    *stat -= amount;
+    if *stat < 0.0 && *stat > -1e-9 * amount.abs().max(1.0) {
+        *stat = 0.0;
+    }
+}
+
+// ---------------------------------------------------------------- Beta (0/1 rows)
+
+#[derive(Debug, Clone)]
+pub struct BetaOutcomes {
+    prior: BetaPrior,
+}
+
+fn beta_prior_of(p: Option<AnyPosterior>) -> Result<BetaPrior> {
+    match p {
+        None => Ok(BetaPrior::JEFFREYS),
+        Some(AnyPosterior::Beta(b)) => {
+            let (a, b) = b.params();
+            Ok(BetaPrior { a0: a, b0: b })
+        }
+        Some(other) => plan_err!("expected a Beta prior, got {}", other.kind().name()),
+    }
+}
+
+fn beta_finish(prior: &BetaPrior, stats: &[f64]) -> Result<ArrayRef> {
+    let groups = stats.len() / 2;
+    let mut successes = Vec::with_capacity(groups);
+    let mut trials = Vec::with_capacity(groups);
+    for s in stats.chunks_exact(2) {
+        successes.push(s[0]);
+        trials.push(s[1]);
+    }
+    build_floats(
+        Kind::Beta,
+        vec![vec![prior.a0; groups], vec![prior.b0; groups], successes, trials],
+    )
+}
+
+impl FitKernel for BetaOutcomes {
+    const NAME: &'static str = "beta_posterior";
+    const KIND: Kind = Kind::Beta;
+    const PRIOR_ARG: usize = 1;
+
+    fn new(prior: Option<AnyPosterior>) -> Result<Self> {
+        Ok(BetaOutcomes {
+            prior: beta_prior_of(prior)?,
+        })
+    }
+
+    fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
+        arity(Self::NAME, t.len(), 1, 3, "beta_posterior(outcome [, prior [, weight]])")?;
+        let mut out = vec![numeric(Self::NAME, "outcome", &t[0])?];
+        if t.len() > 1 {
+            out.push(prior_type(Self::NAME, Kind::Beta, &t[1])?);
+        }
+        if t.len() > 2 {
+            out.push(numeric(Self::NAME, "weight", &t[2])?);
+        }
+        Ok(out)
+    }
+
+    fn width(&self) -> usize {
+        2
+    }
+
+    fn apply(
+        &self,
+        values: &[ArrayRef],
+        groups: &[usize],
+        filter: Option<&BooleanArray>,
+        stats: &mut [f64],
+        retract: bool,
+    ) -> Result<()> {
+        let y = f64_column(values, 0)?;
+        let w = if values.len() > 2 { Some(f64_column(values, 2)?) } else { None };
+        let sign = if retract { -1.0 } else { 1.0 };
+        if filter.is_none() && w.is_none() && y.null_count() == 0 && !retract {
+            // Hot path: every row counts with weight one; validate after the loop.
+            let mut bad = false;
+            for (&g, &v) in groups.iter().zip(y.values().iter()) {
+                bad |= v != 0.0 && v != 1.0;
+                stats[2 * g] += v;
+                stats[2 * g + 1] += 1.0;
+            }
+            if bad {
+                let v = y.values().iter().find(|v| **v != 0.0 && **v != 1.0).copied();
+                return Err(family_error(Self::NAME, check_outcome(v.unwrap_or(f64::NAN)).unwrap_err()));
+            }
+            return Ok(());
+        }
+        for (i, &g) in groups.iter().enumerate() {
+            let cols: Vec<&dyn Array> = match &w {
+                Some(w) => vec![&y, w],
+                None => vec![&y],
+            };
+            if !row_ok(filter, &cols, i) {
+                continue;
+            }
+            let v = check_outcome(y.value(i)).map_err(|e| family_error(Self::NAME, e))?;
+            let wt = match &w {
+                Some(w) => crate::family::beta::check_weight(w.value(i))
+                    .map_err(|e| family_error(Self::NAME, e))?,
+                None => 1.0,
+            };
+            if retract {
+                take(&mut stats[2 * g], v * wt);
+                take(&mut stats[2 * g + 1], wt);
+            } else {
+                stats[2 * g] += sign * v * wt;
+                stats[2 * g + 1] += sign * wt;
+            }
+        }
+        Ok(())
+    }
+
+    fn merge(&self, into: &mut [f64], other: &[f64]) {
+        into[0] += other[0];
+        into[1] += other[1];
+    }
+
+    fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
+        beta_finish(&self.prior, stats)
+    }
+
+}
+
+// ------------------------------------------------------ Beta (pre-aggregated counts)
+
+#[derive(Debug, Clone)]
+pub struct BetaCounts {
+    prior: BetaPrior,
+}
+
+impl FitKernel for BetaCounts {
+    const NAME: &'static str = "beta_posterior_counts";
+    const KIND: Kind = Kind::Beta;
+    const PRIOR_ARG: usize = 2;
+
+    fn new(prior: Option<AnyPosterior>) -> Result<Self> {
+        Ok(BetaCounts {
+            prior: beta_prior_of(prior)?,
+        })
+    }
+
+    fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
+        arity(Self::NAME, t.len(), 2, 3, "beta_posterior_counts(successes, trials [, prior])")?;
+        let mut out = vec![
+            numeric(Self::NAME, "successes", &t[0])?,
+            numeric(Self::NAME, "trials", &t[1])?,
+        ];
+        if t.len() > 2 {
+            out.push(prior_type(Self::NAME, Kind::Beta, &t[2])?);
+        }
+        Ok(out)
+    }
+
+    fn width(&self) -> usize {
+        2
+    }
+
+    fn apply(
+        &self,
+        values: &[ArrayRef],
+        groups: &[usize],
+        filter: Option<&BooleanArray>,
+        stats: &mut [f64],
+        retract: bool,
+    ) -> Result<()> {
+        let s = f64_column(values, 0)?;
+        let n = f64_column(values, 1)?;
+        for (i, &g) in groups.iter().enumerate() {
+            if !row_ok(filter, &[&s, &n], i) {
+                continue;
+            }
+            let mut one = BetaPosterior::new(self.prior);
+            one.observe_counts(s.value(i), n.value(i))
+                .map_err(|e| family_error(Self::NAME, e))?;
+            if retract {
+                take(&mut stats[2 * g], one.successes);
+                take(&mut stats[2 * g + 1], one.trials);
+            } else {
+                stats[2 * g] += one.successes;
+                stats[2 * g + 1] += one.trials;
+            }
+        }
+        Ok(())
+    }
+
+    fn merge(&self, into: &mut [f64], other: &[f64]) {
+        into[0] += other[0];
+        into[1] += other[1];
+    }
+
+    fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
+        beta_finish(&self.prior, stats)
+    }
+
+}
+
+// ------------------------------------------------------------------------- Gamma
+
+#[derive(Debug, Clone)]
+pub struct GammaCounts {
+    prior: GammaPrior,
+}
+
+impl FitKernel for GammaCounts {
+    const NAME: &'static str = "gamma_posterior";
+    const KIND: Kind = Kind::Gamma;
+    const PRIOR_ARG: usize = 2;
+
+    fn new(prior: Option<AnyPosterior>) -> Result<Self> {
+        let prior = match prior {
+            None => GammaPrior::DEFAULT,
+            Some(AnyPosterior::Gamma(g)) => {
+                let (shape, rate) = g.params();
+                GammaPrior {
+                    shape0: shape,
+                    rate0: rate,
+                }
+            }
+            Some(other) => return plan_err!("expected a Gamma prior, got {}", other.kind().name()),
+        };
+        Ok(GammaCounts { prior })
+    }
+
+    fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
+        arity(Self::NAME, t.len(), 1, 3, "gamma_posterior(events [, exposure [, prior]])")?;
+        let mut out = vec![numeric(Self::NAME, "events", &t[0])?];
+        if t.len() > 1 {
+            out.push(numeric(Self::NAME, "exposure", &t[1])?);
+        }
+        if t.len() > 2 {
+            out.push(prior_type(Self::NAME, Kind::Gamma, &t[2])?);
+        }
+        Ok(out)
+    }
+
+    fn width(&self) -> usize {
+        2
+    }
+
+    fn apply(
+        &self,
+        values: &[ArrayRef],
+        groups: &[usize],
+        filter: Option<&BooleanArray>,
+        stats: &mut [f64],
+        retract: bool,
+    ) -> Result<()> {
+        let events = f64_column(values, 0)?;
+        let exposure = if values.len() > 1 { Some(f64_column(values, 1)?) } else { None };
+        for (i, &g) in groups.iter().enumerate() {
+            let ok = match &exposure {
+                Some(t) => row_ok(filter, &[&events, t], i),
+                None => row_ok(filter, &[&events], i),
+            };
+            if !ok {
+                continue;
+            }
+            let mut one = GammaPosterior::new(self.prior);
+            let t = exposure.as_ref().map_or(1.0, |t| t.value(i));
+            one.observe(events.value(i), t)
+                .map_err(|e| family_error(Self::NAME, e))?;
+            if retract {
+                take(&mut stats[2 * g], one.events);
+                take(&mut stats[2 * g + 1], one.exposure);
+            } else {
+                stats[2 * g] += one.events;
+                stats[2 * g + 1] += one.exposure;
+            }
+        }
+        Ok(())
+    }
+
+    fn merge(&self, into: &mut [f64], other: &[f64]) {
+        into[0] += other[0];
+        into[1] += other[1];
+    }
+
+    fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
+        let groups = stats.len() / 2;
+        let (mut events, mut exposure) = (Vec::with_capacity(groups), Vec::with_capacity(groups));
+        for s in stats.chunks_exact(2) {
+            events.push(s[0]);
+            exposure.push(s[1]);
+        }
+        build_floats(
+            Kind::Gamma,
+            vec![
+                vec![self.prior.shape0; groups],
+                vec![self.prior.rate0; groups],
+                events,
+                exposure,
+            ],
+        )
+    }
+
+}
+
+// --------------------------------------------------------------------------- NIG
+
+#[derive(Debug, Clone)]
+pub struct NigValues {
+    prior: NigPrior,
+}
+
+impl FitKernel for NigValues {
+    const NAME: &'static str = "nig_posterior";
+    const KIND: Kind = Kind::Nig;
+    const PRIOR_ARG: usize = 1;
+
+    fn new(prior: Option<AnyPosterior>) -> Result<Self> {
+        let prior = match prior {
+            None => NigPrior::DEFAULT,
+            Some(AnyPosterior::Nig(p)) => {
+                let q = p.params();
+                NigPrior {
+                    mu0: q.mu,
+                    kappa0: q.kappa,
+                    alpha0: q.alpha,
+                    beta0: q.beta,
+                }
+            }
+            Some(other) => {
+                return plan_err!("expected a Normal-Inverse-Gamma prior, got {}", other.kind().name())
+            }
+        };
+        Ok(NigValues { prior })
+    }
+
+    fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
+        arity(Self::NAME, t.len(), 1, 3, "nig_posterior(value [, prior [, weight]])")?;
+        let mut out = vec![numeric(Self::NAME, "value", &t[0])?];
+        if t.len() > 1 {
+            out.push(prior_type(Self::NAME, Kind::Nig, &t[1])?);
+        }
+        if t.len() > 2 {
+            out.push(numeric(Self::NAME, "weight", &t[2])?);
+        }
+        Ok(out)
+    }
+
+    fn width(&self) -> usize {
+        3
+    }
+
+    fn apply(
+        &self,
+        values: &[ArrayRef],
+        groups: &[usize],
+        filter: Option<&BooleanArray>,
+        stats: &mut [f64],
+        retract: bool,
+    ) -> Result<()> {
+        let x = f64_column(values, 0)?;
+        let w = if values.len() > 2 { Some(f64_column(values, 2)?) } else { None };
+        for (i, &g) in groups.iter().enumerate() {
+            let ok = match &w {
+                Some(w) => row_ok(filter, &[&x, w], i),
+                None => row_ok(filter, &[&x], i),
+            };
+            if !ok {
+                continue;
+            }
+            let wt = w.as_ref().map_or(1.0, |w| w.value(i));
+            let s = &mut stats[3 * g..3 * g + 3];
+            let mut p = NigPosterior {
+                prior: self.prior,
+                stats: NigStats {
+                    n: s[0],
+                    mean: s[1],
+                    m2: s[2],
+                },
+            };
+            if retract {
+                p = p.without(x.value(i), wt).map_err(|e| family_error(Self::NAME, e))?;
+            } else {
+                p.observe(x.value(i), wt).map_err(|e| family_error(Self::NAME, e))?;
+            }
+            s.copy_from_slice(&[p.stats.n, p.stats.mean, p.stats.m2]);
+        }
+        Ok(())
+    }
+
+    fn merge(&self, into: &mut [f64], other: &[f64]) {
+        let a = NigStats {
+            n: into[0],
+            mean: into[1],
+            m2: into[2],
+        };
+        let b = NigStats {
+            n: other[0],
+            mean: other[1],
+            m2: other[2],
+        };
+        let m = a.merge(&b);
+        into.copy_from_slice(&[m.n, m.mean, m.m2]);
+    }
+
+    fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
+        let groups = stats.len() / 3;
+        let mut cols = vec![
+            vec![self.prior.mu0; groups],
+            vec![self.prior.kappa0; groups],
+            vec![self.prior.alpha0; groups],
+            vec![self.prior.beta0; groups],
+            Vec::with_capacity(groups),
+            Vec::with_capacity(groups),
+            Vec::with_capacity(groups),
+        ];
+        for s in stats.chunks_exact(3) {
+            cols[4].push(s[0]);
+            cols[5].push(s[1]);
+            cols[6].push(s[2]);
+        }
+        build_floats(Kind::Nig, cols)
+    }
+
+}
+
+// --------------------------------------------------------------------- Dirichlet
+
+#[derive(Debug, Clone)]
+pub struct DirichletClasses {
+    prior: DirichletPrior,
+}
+
+impl FitKernel for DirichletClasses {
+    const NAME: &'static str = "dirichlet_posterior";
+    const KIND: Kind = Kind::Dirichlet;
+    const PRIOR_ARG: usize = 1;
+
+    fn new(prior: Option<AnyPosterior>) -> Result<Self> {
+        match prior {
+            Some(AnyPosterior::Dirichlet(p)) => Ok(DirichletClasses {
+                prior: DirichletPrior {
+                    classes: p.prior.classes.clone(),
+                    alpha0: p.params(),
+                },
+            }),
+            Some(other) => plan_err!("expected a Dirichlet prior, got {}", other.kind().name()),
+            None => plan_err!(
+                "dirichlet_posterior: a prior naming the classes is required, e.g. \
+                 dirichlet_posterior(outcome, dirichlet_prior(['attended', 'no_show'], 1))"
+            ),
+        }
+    }
+
+    fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
+        arity(Self::NAME, t.len(), 2, 3, "dirichlet_posterior(class, prior [, weight])")?;
+        let mut out = vec![DataType::Utf8, prior_type(Self::NAME, Kind::Dirichlet, &t[1])?];
+        if t.len() > 2 {
+            out.push(numeric(Self::NAME, "weight", &t[2])?);
+        }
+        Ok(out)
+    }
+
+    fn width(&self) -> usize {
+        self.prior.classes.len()
+    }
+
+    fn apply(
+        &self,
+        values: &[ArrayRef],
+        groups: &[usize],
+        filter: Option<&BooleanArray>,
+        stats: &mut [f64],
+        retract: bool,
+    ) -> Result<()> {
+        let class = cast(&values[0], &DataType::Utf8)?;
+        let class: &StringArray = class.as_string::<i32>();
+        let w = if values.len() > 2 { Some(f64_column(values, 2)?) } else { None };
+        let k = self.width();
+        for (i, &g) in groups.iter().enumerate() {
+            let ok = match &w {
+                Some(w) => row_ok(filter, &[class, w], i),
+                None => row_ok(filter, &[class], i),
+            };
+            if !ok {
+                continue;
+            }
+            let c = self
+                .prior
+                .index_of(class.value(i))
+                .map_err(|e| family_error(Self::NAME, e))?;
+            let wt = match &w {
+                Some(w) => crate::family::beta::check_weight(w.value(i))
+                    .map_err(|e| family_error(Self::NAME, e))?,
+                None => 1.0,
+            };
+            if retract {
+                take(&mut stats[k * g + c], wt);
+            } else {
+                stats[k * g + c] += wt;
+            }
+        }
+        Ok(())
+    }
+
+    fn merge(&self, into: &mut [f64], other: &[f64]) {
+        for (a, b) in into.iter_mut().zip(other) {
+            *a += b;
+        }
+    }
+
+    fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
+        let rows: Vec<Option<AnyPosterior>> = stats
+            .chunks_exact(self.width())
+            .map(|c| {
+                Some(AnyPosterior::Dirichlet(DirichletPosterior {
+                    prior: self.prior.clone(),
+                    counts: c.to_vec(),
+                }))
+            })
+            .collect();
+        build(Kind::Dirichlet, &rows)
+    }
+
+}
+
+// ------------------------------------------------------------ the generic adapter
+
+/// A fit aggregate for kernel `K`.
+#[derive(Debug)]
+pub struct FitAggregate<K: FitKernel> {
+    signature: Signature,
+    _kernel: std::marker::PhantomData<K>,
+}
+
+impl<K: FitKernel> PartialEq for FitAggregate<K> {
+    fn eq(&self, other: &Self) -> bool {
+        self.signature == other.signature
+    }
+}
+impl<K: FitKernel> Eq for FitAggregate<K> {}
+impl<K: FitKernel> Hash for FitAggregate<K> {
+    fn hash<H: std::hash::Hasher>(&self, state: &mut H) {
+        K::NAME.hash(state);
+    }
+}
+
+impl<K: FitKernel> Default for FitAggregate<K> {
+    fn default() -> Self {
+        FitAggregate {
+            signature: Signature::user_defined(Volatility::Immutable),
+            _kernel: std::marker::PhantomData,
+        }
+    }
+}
+
+impl<K: FitKernel> FitAggregate<K> {
+    /// The kernel for one call: the prior argument must be a planning-time constant.
+    fn kernel(args: &AccumulatorArgs) -> Result<K> {
+        let Some(expr) = args.exprs.get(K::PRIOR_ARG) else {
+            return K::new(None);
+        };
+        let Some(literal) = expr.downcast_ref::<Literal>() else {
+            return plan_err!(
+                "{}: the prior (argument {}) must be a constant such as beta_prior(1, 1); to give \
+                 levels different priors, fit with one prior and re-prior the result with \
+                 posterior_with_prior",
+                K::NAME,
+                K::PRIOR_ARG + 1
+            );
+        };
+        let array = literal.value().to_array()?;
+        let column = PosteriorColumn::new(K::NAME, &array)?;
+        match column.get(0).map_err(|e| family_error(K::NAME, e))? {
+            Some(p) => K::new(Some(p)),
+            None => K::new(None),
+        }
+    }
+
+    fn state_fields_for(name: &str) -> Vec<FieldRef> {
+        if K::KIND == Kind::Dirichlet {
+            vec![Arc::new(Field::new(
+                format!("{name}[counts]"),
+                DataType::List(Arc::new(Field::new_list_field(DataType::Float64, true))),
+                true,
+            ))]
+        } else {
+            (0..stat_names(K::KIND).len())
+                .map(|i| {
+                    Arc::new(Field::new(
+                        format!("{name}[{}]", stat_names(K::KIND)[i]),
+                        DataType::Float64,
+                        true,
+                    ))
+                })
+                .collect()
+        }
+    }
+}
+
+fn stat_names(kind: Kind) -> &'static [&'static str] {
+    match kind {
+        Kind::Beta => &["successes", "trials"],
+        Kind::Gamma => &["events", "exposure"],
+        Kind::Nig => &["n", "mean", "m2"],
+        Kind::Dirichlet => &["counts"],
+    }
+}
+
+impl<K: FitKernel> AggregateUDFImpl for FitAggregate<K> {
+    fn name(&self) -> &str {
+        K::NAME
+    }
+
+    fn signature(&self) -> &Signature {
+        &self.signature
+    }
+
+    fn coerce_types(&self, arg_types: &[DataType]) -> Result<Vec<DataType>> {
+        K::coerce(arg_types)
+    }
+
+    fn return_type(&self, _arg_types: &[DataType]) -> Result<DataType> {
+        Ok(K::KIND.data_type())
+    }
+
+    fn is_nullable(&self) -> bool {
+        false
+    }
+
+    fn accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {
+        Ok(Box::new(FitAccumulator {
+            groups: FitGroups::new(Self::kernel(&args)?),
+        }))
+    }
+
+    fn state_fields(&self, args: StateFieldsArgs) -> Result<Vec<FieldRef>> {
+        Ok(Self::state_fields_for(args.name))
+    }
+
+    fn groups_accumulator_supported(&self, _args: AccumulatorArgs) -> bool {
+        true
+    }
+
+    fn create_groups_accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn GroupsAccumulator>> {
+        Ok(Box::new(FitGroups::new(Self::kernel(&args)?)))
+    }
+
+    fn create_sliding_accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {
+        self.accumulator(args)
+    }
+
+    fn default_value(&self, _data_type: &DataType) -> Result<ScalarValue> {
+        // An empty input still has a posterior: the default prior.
+        let kernel = K::new(None);
+        match kernel {
+            Ok(k) => ScalarValue::try_from_array(&k.finish(&vec![0.0; k.width()])?, 0),
+            Err(_) => ScalarValue::try_from(&K::KIND.data_type()),
+        }
+    }
+
+    fn documentation(&self) -> Option<&Documentation> {
+        crate::docs::get(K::NAME)
+    }
+}
+
+/// Per-group statistics in one flat vector.
+#[derive(Debug)]
+pub struct FitGroups<K: FitKernel> {
+    kernel: K,
+    stats: Vec<f64>,
+}
+
+impl<K: FitKernel> FitGroups<K> {
+    fn new(kernel: K) -> Self {
+        FitGroups {
+            kernel,
+            stats: Vec::new(),
+        }
+    }
+
+    fn resize(&mut self, groups: usize) {
+        let w = self.kernel.width();
+        if self.stats.len() < groups * w {
+            self.stats.resize(groups * w, 0.0);
+        }
+    }
+
+    fn take(&mut self, emit_to: EmitTo) -> Vec<f64> {
+        let w = self.kernel.width();
+        match emit_to {
+            EmitTo::All => std::mem::take(&mut self.stats),
+            EmitTo::First(n) => {
+                let rest = self.stats.split_off(n * w);
+                std::mem::replace(&mut self.stats, rest)
+            }
+        }
+    }
+
+    fn state_arrays(&self, stats: Vec<f64>) -> Result<Vec<ArrayRef>> {
+        let w = self.kernel.width();
+        if K::KIND == Kind::Dirichlet {
+            let groups = stats.len() / w;
+            let offsets = OffsetBuffer::from_lengths(std::iter::repeat_n(w, groups));
+            let values = Arc::new(Float64Array::from(stats));
+            let field = Arc::new(Field::new_list_field(DataType::Float64, true));
+            Ok(vec![Arc::new(ListArray::try_new(field, offsets, values, None)?)])
+        } else {
+            Ok((0..w)
+                .map(|j| {
+                    let col: Float64Array = stats.iter().skip(j).step_by(w).copied().collect();
+                    Arc::new(col) as ArrayRef
+                })
+                .collect())
+        }
+    }
+
+    /// Statistics of row `i` of a state batch.
+    fn state_row(&self, values: &[ArrayRef], i: usize, out: &mut Vec<f64>) -> Result<()> {
+        out.clear();
+        if K::KIND == Kind::Dirichlet {
+            let list = values[0].as_list::<i32>();
+            if list.is_null(i) {
+                out.resize(self.kernel.width(), 0.0);
+            } else {
+                let row = list.value(i);
+                out.extend(row.as_primitive::<Float64Type>().values().iter());
+                if out.len() != self.kernel.width() {
+                    return exec_err!("{}: state has {} classes, expected {}", K::NAME, out.len(), self.kernel.width());
+                }
+            }
+        } else {
+            for v in values {
+                let v = v.as_primitive::<Float64Type>();
+                out.push(if v.is_null(i) { 0.0 } else { v.value(i) });
+            }
+        }
+        Ok(())
+    }
+}
+
+impl<K: FitKernel> GroupsAccumulator for FitGroups<K> {
+    fn update_batch(
+        &mut self,
+        values: &[ArrayRef],
+        group_indices: &[usize],
+        opt_filter: Option<&BooleanArray>,
+        total_num_groups: usize,
+    ) -> Result<()> {
+        self.resize(total_num_groups);
+        self.kernel
+            .apply(values, group_indices, opt_filter, &mut self.stats, false)
+    }
+
+    fn evaluate(&mut self, emit_to: EmitTo) -> Result<ArrayRef> {
+        let stats = self.take(emit_to);
+        self.kernel.finish(&stats)
+    }
+
+    fn state(&mut self, emit_to: EmitTo) -> Result<Vec<ArrayRef>> {
+        let stats = self.take(emit_to);
+        self.state_arrays(stats)
+    }
+
+    fn merge_batch(
+        &mut self,
+        values: &[ArrayRef],
+        group_indices: &[usize],
+        total_num_groups: usize,
+    ) -> Result<()> {
+        self.resize(total_num_groups);
+        let w = self.kernel.width();
+        let mut row = Vec::with_capacity(w);
+        for (i, &g) in group_indices.iter().enumerate() {
+            self.state_row(values, i, &mut row)?;
+            let kernel = &self.kernel;
+            kernel.merge(&mut self.stats[g * w..(g + 1) * w], &row);
+        }
+        Ok(())
+    }
+
+    fn convert_to_state(&self, values: &[ArrayRef], opt_filter: Option<&BooleanArray>) -> Result<Vec<ArrayRef>> {
+        let rows = values.first().map_or(0, |v| v.len());
+        let mut stats = vec![0.0; rows * self.kernel.width()];
+        let groups: Vec<usize> = (0..rows).collect();
+        self.kernel.apply(values, &groups, opt_filter, &mut stats, false)?;
+        self.state_arrays(stats)
+    }
+
+    fn size(&self) -> usize {
+        self.stats.capacity() * std::mem::size_of::<f64>() + std::mem::size_of::<Self>()
+    }
+}
+
+/// One group, for plain and window aggregation (supports retraction).
+#[derive(Debug)]
+pub struct FitAccumulator<K: FitKernel> {
+    groups: FitGroups<K>,
+}
+
+impl<K: FitKernel> Accumulator for FitAccumulator<K> {
+    fn update_batch(&mut self, values: &[ArrayRef]) -> Result<()> {
+        let n = values.first().map_or(0, |v| v.len());
+        self.groups.resize(1);
+        self.groups
+            .kernel
+            .apply(values, &vec![0; n], None, &mut self.groups.stats, false)
+    }
+
+    fn retract_batch(&mut self, values: &[ArrayRef]) -> Result<()> {
+        let n = values.first().map_or(0, |v| v.len());
+        self.groups.resize(1);
+        self.groups
+            .kernel
+            .apply(values, &vec![0; n], None, &mut self.groups.stats, true)
+    }
+
+    fn supports_retract_batch(&self) -> bool {
+        true
+    }
+
+    fn evaluate(&mut self) -> Result<ScalarValue> {
+        self.groups.resize(1);
+        let array = self.groups.kernel.finish(&self.groups.stats)?;
+        ScalarValue::try_from_array(&array, 0)
+    }
+
+    fn size(&self) -> usize {
+        self.groups.size()
+    }
+
+    fn state(&mut self) -> Result<Vec<ScalarValue>> {
+        self.groups.resize(1);
+        let arrays = self.groups.state_arrays(self.groups.stats.clone())?;
+        arrays
+            .iter()
+            .map(|a| ScalarValue::try_from_array(a, 0))
+            .collect()
+    }
+
+    fn merge_batch(&mut self, states: &[ArrayRef]) -> Result<()> {
+        let n = states.first().map_or(0, |v| v.len());
+        GroupsAccumulator::merge_batch(&mut self.groups, states, &vec![0; n], 1)
+    }
+}

@@ -1,0 +1,414 @@
+//! The posterior value format (version 1): one Arrow struct shape per family.
+//! Field names identify the family, so every reader and transform serves all of
+//! them; a prior is the same shape with zero evidence.
+//!
+//! | family    | fields (Float64 unless noted)                                   |
+//! |-----------|-----------------------------------------------------------------|
+//! | Beta      | a0, b0, successes, trials                                       |
+//! | Gamma     | shape0, rate0, events, exposure                                 |
+//! | NIG       | mu0, kappa0, alpha0, beta0, n, mean, m2                         |
+//! | Dirichlet | classes: List<Utf8>, a0: List<Float64>, counts: List<Float64>   |
+
+use std::sync::Arc;
+
+use datafusion::arrow::array::{
+    Array, ArrayRef, AsArray, Float64Array, Float64Builder, ListArray, ListBuilder, StringBuilder,
+    StructArray,
+};
+use datafusion::arrow::buffer::NullBuffer;
+use datafusion::arrow::compute::cast;
+use datafusion::arrow::datatypes::{DataType, Field, Fields};
+use datafusion::common::{exec_datafusion_err, plan_err, Result};
+
+use crate::family::{
+    BetaPosterior, BetaPrior, Conjugate, DirichletPosterior, DirichletPrior, FamilyError,
+    GammaPosterior, GammaPrior, Marginal, NigPosterior, NigPrior,
+};
+
+pub const BETA_FIELDS: [&str; 4] = ["a0", "b0", "successes", "trials"];
+pub const GAMMA_FIELDS: [&str; 4] = ["shape0", "rate0", "events", "exposure"];
+pub const NIG_FIELDS: [&str; 7] = ["mu0", "kappa0", "alpha0", "beta0", "n", "mean", "m2"];
+pub const DIRICHLET_FIELDS: [&str; 3] = ["classes", "a0", "counts"];
+
+/// The shapes a posterior argument may have, for error messages.
+pub const ACCEPTED_SHAPES: &str = "a posterior struct: Beta {a0, b0, successes, trials}, \
+Gamma {shape0, rate0, events, exposure}, Normal-Inverse-Gamma {mu0, kappa0, alpha0, beta0, n, \
+mean, m2} or Dirichlet {classes, a0, counts}";
+
+/// The four conjugate families.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Kind {
+    Beta,
+    Gamma,
+    Nig,
+    Dirichlet,
+}
+
+impl Kind {
+    pub fn name(self) -> &'static str {
+        match self {
+            Kind::Beta => "Beta",
+            Kind::Gamma => "Gamma",
+            Kind::Nig => "Normal-Inverse-Gamma",
+            Kind::Dirichlet => "Dirichlet",
+        }
+    }
+
+    /// The canonical Arrow type of this family's posterior.
+    pub fn data_type(self) -> DataType {
+        let float_fields = |names: &[&str]| {
+            Fields::from(
+                names
+                    .iter()
+                    .map(|n| Field::new(*n, DataType::Float64, true))
+                    .collect::<Vec<_>>(),
+            )
+        };
+        match self {
+            Kind::Beta => DataType::Struct(float_fields(&BETA_FIELDS)),
+            Kind::Gamma => DataType::Struct(float_fields(&GAMMA_FIELDS)),
+            Kind::Nig => DataType::Struct(float_fields(&NIG_FIELDS)),
+            Kind::Dirichlet => DataType::Struct(Fields::from(vec![
+                Field::new("classes", list_of(DataType::Utf8), true),
+                Field::new("a0", list_of(DataType::Float64), true),
+                Field::new("counts", list_of(DataType::Float64), true),
+            ])),
+        }
+    }
+
+    /// Recognise a family from a struct's field names (order and extra fields ignored).
+    pub fn detect(data_type: &DataType) -> Option<Kind> {
+        let DataType::Struct(fields) = data_type else {
+            return None;
+        };
+        let has = |names: &[&str]| names.iter().all(|n| fields.find(n).is_some());
+        if has(&NIG_FIELDS) {
+            Some(Kind::Nig)
+        } else if has(&DIRICHLET_FIELDS) {
+            Some(Kind::Dirichlet)
+        } else if has(&BETA_FIELDS) {
+            Some(Kind::Beta)
+        } else if has(&GAMMA_FIELDS) {
+            Some(Kind::Gamma)
+        } else {
+            None
+        }
+    }
+
+    /// Like [`Kind::detect`], with a plan-time error naming the function and argument.
+    pub fn expect(function: &str, argument: &str, data_type: &DataType) -> Result<Kind> {
+        match Kind::detect(data_type) {
+            Some(kind) => Ok(kind),
+            None => plan_err!(
+                "{function}: argument {argument} has type {data_type}; expected {ACCEPTED_SHAPES}"
+            ),
+        }
+    }
+}
+
+fn list_of(item: DataType) -> DataType {
+    DataType::List(Arc::new(Field::new_list_field(item, true)))
+}
+
+/// A posterior of any family.
+#[derive(Debug, Clone, PartialEq)]
+pub enum AnyPosterior {
+    Beta(BetaPosterior),
+    Gamma(GammaPosterior),
+    Nig(NigPosterior),
+    Dirichlet(DirichletPosterior),
+}
+
+impl AnyPosterior {
+    pub fn kind(&self) -> Kind {
+        match self {
+            AnyPosterior::Beta(_) => Kind::Beta,
+            AnyPosterior::Gamma(_) => Kind::Gamma,
+            AnyPosterior::Nig(_) => Kind::Nig,
+            AnyPosterior::Dirichlet(_) => Kind::Dirichlet,
+        }
+    }
+
+    /// The marginal a reader looks at; Dirichlet posteriors need a class.
+    pub fn marginal(&self, class: Option<&str>) -> Result<Marginal, FamilyError> {
+        Ok(match self {
+            AnyPosterior::Beta(p) => p.marginal(),
+            AnyPosterior::Gamma(p) => p.marginal(),
+            AnyPosterior::Nig(p) => p.marginal(),
+            AnyPosterior::Dirichlet(p) => {
+                let class = class.ok_or_else(|| {
+                    FamilyError::InvalidClasses("a Dirichlet posterior needs a class argument".into())
+                })?;
+                p.marginal(p.prior.index_of(class)?)
+            }
+        })
+    }
+
+    pub fn evidence(&self) -> f64 {
+        match self {
+            AnyPosterior::Beta(p) => p.evidence(),
+            AnyPosterior::Gamma(p) => p.evidence(),
+            AnyPosterior::Nig(p) => p.evidence(),
+            AnyPosterior::Dirichlet(p) => p.evidence(),
+        }
+    }
+
+    /// Apply a binary family operation to two posteriors of the same family.
+    pub fn combine(
+        &self,
+        other: &AnyPosterior,
+        op: Combine,
+    ) -> Result<AnyPosterior, FamilyError> {
+        fn run<P: Conjugate>(a: &P, b: &P, op: Combine) -> Result<P, FamilyError> {
+            match op {
+                Combine::Merge => a.merge(b),
+                Combine::Subtract => a.subtract(b),
+            }
+        }
+        Ok(match (self, other) {
+            (AnyPosterior::Beta(a), AnyPosterior::Beta(b)) => AnyPosterior::Beta(run(a, b, op)?),
+            (AnyPosterior::Gamma(a), AnyPosterior::Gamma(b)) => AnyPosterior::Gamma(run(a, b, op)?),
+            (AnyPosterior::Nig(a), AnyPosterior::Nig(b)) => AnyPosterior::Nig(run(a, b, op)?),
+            (AnyPosterior::Dirichlet(a), AnyPosterior::Dirichlet(b)) => {
+                AnyPosterior::Dirichlet(run(a, b, op)?)
+            }
+            (a, b) => {
+                return Err(FamilyError::PriorMismatch {
+                    left: a.kind().name().into(),
+                    right: b.kind().name().into(),
+                })
+            }
+        })
+    }
+
+    pub fn scale(&self, factor: f64) -> Result<AnyPosterior, FamilyError> {
+        Ok(match self {
+            AnyPosterior::Beta(p) => AnyPosterior::Beta(p.scale(factor)?),
+            AnyPosterior::Gamma(p) => AnyPosterior::Gamma(p.scale(factor)?),
+            AnyPosterior::Nig(p) => AnyPosterior::Nig(p.scale(factor)?),
+            AnyPosterior::Dirichlet(p) => AnyPosterior::Dirichlet(p.scale(factor)?),
+        })
+    }
+
+    /// Replace the prior by `prior`'s full posterior (a posterior serves as a prior
+    /// for new data), keeping this state's evidence.
+    pub fn with_prior(&self, prior: &AnyPosterior) -> Result<AnyPosterior, FamilyError> {
+        Ok(match (self, prior.as_prior()?) {
+            (AnyPosterior::Beta(p), AnyPosterior::Beta(q)) => AnyPosterior::Beta(p.with_prior(q.prior)),
+            (AnyPosterior::Gamma(p), AnyPosterior::Gamma(q)) => {
+                AnyPosterior::Gamma(p.with_prior(q.prior))
+            }
+            (AnyPosterior::Nig(p), AnyPosterior::Nig(q)) => AnyPosterior::Nig(p.with_prior(q.prior)),
+            (AnyPosterior::Dirichlet(p), AnyPosterior::Dirichlet(q)) => {
+                AnyPosterior::Dirichlet(p.with_prior(q.prior)?)
+            }
+            (a, b) => {
+                return Err(FamilyError::PriorMismatch {
+                    left: a.kind().name().into(),
+                    right: b.kind().name().into(),
+                })
+            }
+        })
+    }
+
+    /// Fold the evidence into the prior: the posterior as a prior with zero evidence.
+    pub fn as_prior(&self) -> Result<AnyPosterior, FamilyError> {
+        Ok(match self {
+            AnyPosterior::Beta(p) => {
+                let (a, b) = p.params();
+                AnyPosterior::Beta(BetaPosterior::new(BetaPrior::new(a, b)?))
+            }
+            AnyPosterior::Gamma(p) => {
+                let (shape, rate) = p.params();
+                AnyPosterior::Gamma(GammaPosterior::new(GammaPrior::new(shape, rate)?))
+            }
+            AnyPosterior::Nig(p) => {
+                let q = p.params();
+                AnyPosterior::Nig(NigPosterior::new(NigPrior::new(q.mu, q.kappa, q.alpha, q.beta)?))
+            }
+            AnyPosterior::Dirichlet(p) => AnyPosterior::Dirichlet(DirichletPosterior::new(
+                DirichletPrior::new(p.prior.classes.clone(), p.params())?,
+            )),
+        })
+    }
+}
+
+/// The binary operations of [`AnyPosterior::combine`].
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
+pub enum Combine {
+    Merge,
+    Subtract,
+}
+
+/// A column of posteriors, decoded lazily row by row.
+pub struct PosteriorColumn {
+    kind: Kind,
+    nulls: Option<NullBuffer>,
+    floats: Vec<Float64Array>,
+    lists: Option<(ListArray, ListArray, ListArray)>,
+}
+
+impl PosteriorColumn {
+    /// Decode a struct column; `function` names the caller in errors.
+    pub fn new(function: &str, array: &ArrayRef) -> Result<Self> {
+        let kind = Kind::detect(array.data_type()).ok_or_else(|| {
+            exec_datafusion_err!(
+                "{function}: got {}; expected {ACCEPTED_SHAPES}",
+                array.data_type()
+            )
+        })?;
+        let st = array.as_struct();
+        let column = |name: &str| -> Result<ArrayRef> {
+            st.column_by_name(name)
+                .cloned()
+                .ok_or_else(|| exec_datafusion_err!("{function}: field {name} missing"))
+        };
+        let as_f64 = |name: &str| -> Result<Float64Array> {
+            Ok(cast(&column(name)?, &DataType::Float64)?.as_primitive().clone())
+        };
+        let names: &[&str] = match kind {
+            Kind::Beta => &BETA_FIELDS,
+            Kind::Gamma => &GAMMA_FIELDS,
+            Kind::Nig => &NIG_FIELDS,
+            Kind::Dirichlet => &[],
+        };
+        let floats = names.iter().map(|n| as_f64(n)).collect::<Result<Vec<_>>>()?;
+        let lists = if kind == Kind::Dirichlet {
+            let list = |name: &str, item: DataType| -> Result<ListArray> {
+                Ok(cast(&column(name)?, &list_of(item))?.as_list::<i32>().clone())
+            };
+            Some((
+                list("classes", DataType::Utf8)?,
+                list("a0", DataType::Float64)?,
+                list("counts", DataType::Float64)?,
+            ))
+        } else {
+            None
+        };
+        Ok(PosteriorColumn {
+            kind,
+            nulls: st.nulls().cloned(),
+            floats,
+            lists,
+        })
+    }
+
+    pub fn kind(&self) -> Kind {
+        self.kind
+    }
+
+    /// Row `i`: `Ok(None)` for a NULL posterior (or a NULL field), an error for
+    /// stored values that are not a valid posterior.
+    pub fn get(&self, i: usize) -> Result<Option<AnyPosterior>, FamilyError> {
+        if self.nulls.as_ref().is_some_and(|n| n.is_null(i)) {
+            return Ok(None);
+        }
+        if self.floats.iter().any(|f| f.is_null(i)) {
+            return Ok(None);
+        }
+        let v = |k: usize| self.floats[k].value(i);
+        Ok(Some(match self.kind {
+            Kind::Beta => AnyPosterior::Beta(BetaPosterior::from_parts(v(0), v(1), v(2), v(3))?),
+            Kind::Gamma => AnyPosterior::Gamma(GammaPosterior::from_parts(v(0), v(1), v(2), v(3))?),
+            Kind::Nig => AnyPosterior::Nig(NigPosterior::from_parts(
+                NigPrior::new(v(0), v(1), v(2), v(3))?,
+                v(4),
+                v(5),
+                v(6),
+            )?),
+            Kind::Dirichlet => {
+                let (classes, a0, counts) = self.lists.as_ref().expect("dirichlet lists");
+                if classes.is_null(i) || a0.is_null(i) || counts.is_null(i) {
+                    return Ok(None);
+                }
+                let names = classes.value(i);
+                let names = names.as_string::<i32>();
+                let names: Vec<String> = (0..names.len())
+                    .map(|k| names.value(k).to_string())
+                    .collect();
+                let floats = |l: &ListArray| -> Vec<f64> {
+                    let v = l.value(i);
+                    v.as_primitive::<datafusion::arrow::datatypes::Float64Type>()
+                        .iter()
+                        .map(|x| x.unwrap_or(f64::NAN))
+                        .collect()
+                };
+                let prior = DirichletPrior::new(names, floats(a0))?;
+                AnyPosterior::Dirichlet(DirichletPosterior::from_parts(prior, floats(counts))?)
+            }
+        }))
+    }
+}
+
+/// Build a column of `kind` from optional posteriors (None becomes NULL).
+pub fn build(kind: Kind, rows: &[Option<AnyPosterior>]) -> Result<ArrayRef> {
+    let DataType::Struct(fields) = kind.data_type() else {
+        unreachable!("posterior types are structs")
+    };
+    let nulls = NullBuffer::from(rows.iter().map(Option::is_some).collect::<Vec<bool>>());
+    let columns: Vec<ArrayRef> = if kind == Kind::Dirichlet {
+        let mut classes = ListBuilder::new(StringBuilder::new());
+        let mut a0 = ListBuilder::new(Float64Builder::new());
+        let mut counts = ListBuilder::new(Float64Builder::new());
+        for row in rows {
+            if let Some(AnyPosterior::Dirichlet(p)) = row {
+                for c in &p.prior.classes {
+                    classes.values().append_value(c);
+                }
+                a0.values().append_slice(&p.prior.alpha0);
+                counts.values().append_slice(&p.counts);
+            }
+            classes.append(true);
+            a0.append(true);
+            counts.append(true);
+        }
+        vec![
+            Arc::new(classes.finish()),
+            Arc::new(a0.finish()),
+            Arc::new(counts.finish()),
+        ]
+    } else {
+        let width = fields.len();
+        let mut cols: Vec<Vec<f64>> = vec![Vec::with_capacity(rows.len()); width];
+        for row in rows {
+            let values: Vec<f64> = match row {
+                Some(AnyPosterior::Beta(p)) => {
+                    vec![p.prior.a0, p.prior.b0, p.successes, p.trials]
+                }
+                Some(AnyPosterior::Gamma(p)) => {
+                    vec![p.prior.shape0, p.prior.rate0, p.events, p.exposure]
+                }
+                Some(AnyPosterior::Nig(p)) => vec![
+                    p.prior.mu0,
+                    p.prior.kappa0,
+                    p.prior.alpha0,
+                    p.prior.beta0,
+                    p.stats.n,
+                    p.stats.mean,
+                    p.stats.m2,
+                ],
+                _ => vec![0.0; width],
+            };
+            for (col, v) in cols.iter_mut().zip(values) {
+                col.push(v);
+            }
+        }
+        cols.into_iter()
+            .map(|c| Arc::new(Float64Array::from(c)) as ArrayRef)
+            .collect()
+    };
+    Ok(Arc::new(StructArray::try_new(fields, columns, Some(nulls))?))
+}
+
+/// Build a struct column of a float-field family directly from per-row field
+/// values laid out field-major (`columns[field][row]`): the fast path of the fits.
+pub fn build_floats(kind: Kind, columns: Vec<Vec<f64>>) -> Result<ArrayRef> {
+    let DataType::Struct(fields) = kind.data_type() else {
+        unreachable!("posterior types are structs")
+    };
+    let arrays = columns
+        .into_iter()
+        .map(|c| Arc::new(Float64Array::from(c)) as ArrayRef)
+        .collect();
+    Ok(Arc::new(StructArray::try_new(fields, arrays, None)?))
+}

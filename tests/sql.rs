@@ -1,0 +1,246 @@
+//! SQL-level tests of the registered functions on small tables.
+
+use datafusion::arrow::array::{Array, AsArray, Float64Array, RecordBatch};
+use datafusion::arrow::datatypes::Float64Type;
+use datafusion::prelude::{SessionConfig, SessionContext};
+
+async fn ctx_with(partitions: usize, batch: usize) -> SessionContext {
+    let config = SessionConfig::new()
+        .with_target_partitions(partitions)
+        .with_batch_size(batch)
+        .with_information_schema(true);
+    let ctx = SessionContext::new_with_config(config);
+    posterity::register(&ctx);
+    // 40 appointments over 4 breeds; no_show pattern chosen by hand.
+    let mut rows = Vec::new();
+    for i in 0..40 {
+        let breed = ["beagle", "poodle", "boxer", "collie"][i % 4];
+        let no_show = i32::from(i % 3 == 0 || (i % 4 == 1 && i % 5 == 0));
+        let amount = 50.0 + (i as f64) * 1.5 + if i % 4 == 2 { 30.0 } else { 0.0 };
+        let outcome = ["attended", "no_show", "late_cancel"][(i * 7) % 3];
+        rows.push(format!("('{breed}', {no_show}, {amount}, '{outcome}', {i}, {})", i % 5 + 1));
+    }
+    ctx.sql(&format!(
+        "CREATE TABLE appts (breed VARCHAR, no_show INT, amount DOUBLE, outcome VARCHAR, t INT, visits INT) AS VALUES {}",
+        rows.join(", ")
+    ))
+    .await
+    .unwrap();
+    ctx
+}
+
+async fn ctx() -> SessionContext {
+    ctx_with(4, 8192).await
+}
+
+async fn query(ctx: &SessionContext, sql: &str) -> Vec<RecordBatch> {
+    ctx.sql(sql).await.unwrap_or_else(|e| panic!("{sql}: {e}")).collect().await.unwrap_or_else(|e| panic!("{sql}: {e}"))
+}
+
+async fn error(ctx: &SessionContext, sql: &str) -> String {
+    match ctx.sql(sql).await {
+        Err(e) => e.to_string(),
+        Ok(df) => match df.collect().await {
+            Err(e) => e.to_string(),
+            Ok(_) => panic!("expected an error from {sql}"),
+        },
+    }
+}
+
+/// All Float64 values of column `col`, in row order.
+async fn floats(ctx: &SessionContext, sql: &str) -> Vec<Option<f64>> {
+    let batches = query(ctx, sql).await;
+    let mut out = Vec::new();
+    for b in batches {
+        let c = b.column(0).as_primitive::<Float64Type>();
+        out.extend((0..c.len()).map(|i| c.is_valid(i).then(|| c.value(i))));
+    }
+    out
+}
+
+async fn one(ctx: &SessionContext, sql: &str) -> f64 {
+    floats(ctx, sql).await[0].expect("a value")
+}
+
+fn close(got: f64, want: f64, tol: f64) {
+    assert!((got - want).abs() <= tol * want.abs().max(1.0), "got {got}, want {want}");
+}
+
+// Jeffreys Beta(1/2, 1/2) + 2 successes, 1 failure = Beta(5/2, 3/2): mean 0.625,
+// variance 0.046875 (exact arithmetic).
+#[tokio::test]
+async fn exact_beta_from_sql() {
+    let c = ctx().await;
+    let sql = "SELECT posterior_mean(p), posterior_var(p) FROM (SELECT beta_posterior(y) AS p FROM (VALUES (1), (1), (0)) t(y))";
+    let b = query(&c, sql).await;
+    close(b[0].column(0).as_primitive::<Float64Type>().value(0), 0.625, 1e-15);
+    close(b[0].column(1).as_primitive::<Float64Type>().value(0), 0.046875, 1e-15);
+    // Booleans and floats are accepted as outcomes.
+    close(one(&c, "SELECT posterior_mean(beta_posterior(y)) FROM (VALUES (true), (true), (false)) t(y)").await, 0.625, 1e-15);
+    close(one(&c, "SELECT posterior_mean(beta_posterior(y)) FROM (VALUES (1.0), (1.0), (0.0)) t(y)").await, 0.625, 1e-15);
+}
+
+#[tokio::test]
+async fn fit_matches_count_and_sum() {
+    let c = ctx().await;
+    let sql = "SELECT posterior_mean(beta_posterior(no_show, beta_prior(1, 3))) - (SUM(no_show) + 1.0) / (COUNT(*) + 4.0) FROM appts GROUP BY breed";
+    for d in floats(&c, sql).await {
+        assert!(d.unwrap().abs() < 1e-15);
+    }
+    let sql = "SELECT posterior_evidence(beta_posterior(no_show)) - COUNT(*) FROM appts GROUP BY breed";
+    for d in floats(&c, sql).await {
+        assert_eq!(d.unwrap(), 0.0);
+    }
+}
+
+#[tokio::test]
+async fn unseen_levels_fall_back_to_the_prior() {
+    let c = ctx().await;
+    query(&c, "CREATE TABLE enc AS SELECT breed, beta_posterior(no_show, beta_prior(1, 3)) AS p FROM appts GROUP BY breed").await;
+    let sql = "SELECT posterior_mean(COALESCE(enc.p, beta_prior(1, 3))) FROM (VALUES ('husky')) s(breed) LEFT JOIN enc USING (breed)";
+    close(one(&c, sql).await, 0.25, 1e-15);
+}
+
+async fn summary(ctx: &SessionContext) -> Vec<Option<f64>> {
+    let sql = "SELECT posterior_mean(b) + posterior_quantile(n, 0.9) + posterior_mean(g) + posterior_mean(d, 'no_show') + posterior_sd(n) FROM (
+        SELECT breed, beta_posterior(no_show) AS b, nig_posterior(amount, nig_prior(60, 1, 2, 100)) AS n,
+               gamma_posterior(visits, 1.0) AS g,
+               dirichlet_posterior(outcome, dirichlet_prior(['attended', 'no_show', 'late_cancel'], 1)) AS d
+        FROM appts GROUP BY breed) ORDER BY breed";
+    floats(ctx, sql).await
+}
+
+#[tokio::test]
+async fn partition_and_batch_invariance() {
+    let reference = summary(&ctx_with(1, 8192).await).await;
+    for (p, b) in [(2, 7), (8, 1), (8, 8192), (3, 7)] {
+        let got = summary(&ctx_with(p, b).await).await;
+        for (x, y) in got.iter().zip(&reference) {
+            close(x.unwrap(), y.unwrap(), 1e-12);
+        }
+    }
+}
+
+// As-of encodings: each row sees only earlier rows of its level.
+#[tokio::test]
+async fn window_as_of_and_sliding() {
+    let c = ctx().await;
+    let sql = "SELECT posterior_evidence(beta_posterior(no_show) OVER (PARTITION BY breed ORDER BY t ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)) FROM appts WHERE breed = 'beagle' ORDER BY t";
+    let got = floats(&c, sql).await;
+    let want: Vec<Option<f64>> = (0..10).map(|i| Some(i as f64)).collect();
+    assert_eq!(got, want);
+    // Same as an explicit self-join aggregate.
+    let window = "SELECT posterior_mean(beta_posterior(no_show) OVER (PARTITION BY breed ORDER BY t ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)) FROM appts ORDER BY t";
+    let joined = "SELECT posterior_mean(beta_posterior(b.no_show)) FROM appts a LEFT JOIN appts b ON a.breed = b.breed AND b.t < a.t GROUP BY a.t ORDER BY a.t";
+    for (x, y) in floats(&c, window).await.iter().zip(floats(&c, joined).await) {
+        close(x.unwrap(), y.unwrap(), 1e-12);
+    }
+    // Sliding RANGE frame (retraction) against a direct computation.
+    let sliding = "SELECT posterior_mean(nig_posterior(amount, nig_prior(0, 1, 2, 1)) OVER (ORDER BY t RANGE BETWEEN 5 PRECEDING AND 1 PRECEDING)) FROM appts ORDER BY t";
+    let direct = "SELECT posterior_mean(nig_posterior(b.amount, nig_prior(0, 1, 2, 1))) FROM appts a LEFT JOIN appts b ON b.t BETWEEN a.t - 5 AND a.t - 1 GROUP BY a.t ORDER BY a.t";
+    for (x, y) in floats(&c, sliding).await.iter().zip(floats(&c, direct).await) {
+        close(x.unwrap(), y.unwrap(), 1e-9);
+    }
+}
+
+#[tokio::test]
+async fn pooled_days_equal_a_full_fit() {
+    let c = ctx().await;
+    let pooled = "SELECT posterior_mean(posterior_pool(p)) FROM (SELECT breed, t % 3 AS day, nig_posterior(amount) AS p FROM appts GROUP BY breed, t % 3) GROUP BY breed ORDER BY breed";
+    let full = "SELECT posterior_mean(nig_posterior(amount)) FROM appts GROUP BY breed ORDER BY breed";
+    for (x, y) in floats(&c, pooled).await.iter().zip(floats(&c, full).await) {
+        close(x.unwrap(), y.unwrap(), 1e-12);
+    }
+}
+
+// Out-of-fold = total minus the fold's own evidence = a fit on the other folds.
+#[tokio::test]
+async fn out_of_fold_by_subtraction() {
+    let c = ctx().await;
+    let oof = "WITH f AS (SELECT *, fold_of(t, 4) AS fold FROM appts),
+        total AS (SELECT breed, beta_posterior(no_show) AS p FROM f GROUP BY breed),
+        per_fold AS (SELECT breed, fold, beta_posterior(no_show) AS p FROM f GROUP BY breed, fold)
+        SELECT posterior_mean(posterior_subtract(total.p, per_fold.p)) FROM total JOIN per_fold USING (breed) ORDER BY breed, fold";
+    let direct = "WITH f AS (SELECT *, fold_of(t, 4) AS fold FROM appts),
+        keys AS (SELECT DISTINCT breed, fold FROM f)
+        SELECT posterior_mean(beta_posterior(f.no_show)) FROM keys k LEFT JOIN f ON f.breed = k.breed AND f.fold <> k.fold GROUP BY k.breed, k.fold ORDER BY k.breed, k.fold";
+    let (a, b) = (floats(&c, oof).await, floats(&c, direct).await);
+    assert_eq!(a.len(), b.len());
+    for (x, y) in a.iter().zip(b) {
+        close(x.unwrap(), y.unwrap(), 1e-12);
+    }
+    // Leave-one-out equals the fit without that row.
+    let loo = "SELECT posterior_mean(posterior_without(e.p, a.no_show)) FROM appts a JOIN (SELECT breed, beta_posterior(no_show) AS p FROM appts GROUP BY breed) e USING (breed) ORDER BY a.t";
+    let direct = "SELECT posterior_mean(beta_posterior(b.no_show)) FROM appts a LEFT JOIN appts b ON a.breed = b.breed AND b.t <> a.t GROUP BY a.t ORDER BY a.t";
+    for (x, y) in floats(&c, loo).await.iter().zip(floats(&c, direct).await) {
+        close(x.unwrap(), y.unwrap(), 1e-12);
+    }
+}
+
+#[tokio::test]
+async fn parquet_round_trip() {
+    let c = ctx().await;
+    let dir = std::env::temp_dir().join(format!("posterity-rt-{}", std::process::id()));
+    let path = dir.join("enc.parquet");
+    std::fs::create_dir_all(&dir).unwrap();
+    query(&c, &format!("COPY (SELECT breed, beta_posterior(no_show) AS b, nig_posterior(amount) AS n, dirichlet_posterior(outcome, dirichlet_prior(['attended', 'no_show', 'late_cancel'], 0.5)) AS d FROM appts GROUP BY breed) TO '{}' STORED AS PARQUET", path.display())).await;
+    query(&c, &format!("CREATE EXTERNAL TABLE back STORED AS PARQUET LOCATION '{}'", path.display())).await;
+    let a = floats(&c, "SELECT posterior_mean(b) + posterior_mean(n) + posterior_mean(d, 'late_cancel') FROM back ORDER BY breed").await;
+    let b = floats(&c, "SELECT posterior_mean(beta_posterior(no_show)) + posterior_mean(nig_posterior(amount)) + posterior_mean(dirichlet_posterior(outcome, dirichlet_prior(['attended', 'no_show', 'late_cancel'], 0.5)), 'late_cancel') FROM appts GROUP BY breed ORDER BY breed").await;
+    assert_eq!(a, b);
+    std::fs::remove_dir_all(&dir).ok();
+}
+
+#[tokio::test]
+async fn clear_errors() {
+    let c = ctx().await;
+    let e = error(&c, "SELECT beta_posterior(y) FROM (VALUES (2)) t(y)").await;
+    assert!(e.contains("beta_posterior") && e.contains("outcome = 2"), "{e}");
+    let e = error(&c, "SELECT posterior_mean(named_struct('x', 1.0))").await;
+    assert!(e.contains("posterior_mean") && e.contains("expected a posterior struct"), "{e}");
+    let e = error(&c, "SELECT posterior_mean(0.5)").await;
+    assert!(e.contains("posterior_mean"), "{e}");
+    let e = error(&c, "SELECT posterior_quantile(beta_prior(1, 1), 1.5)").await;
+    assert!(e.contains("q = 1.5") && e.contains("strictly between 0 and 1"), "{e}");
+    let e = error(&c, "SELECT beta_prior(0, 1)").await;
+    assert!(e.contains("beta_prior") && e.contains("a = 0"), "{e}");
+    let e = error(&c, "SELECT posterior_merge(beta_prior(1, 1), beta_prior(1, 2))").await;
+    assert!(e.contains("beta_prior(1, 1)") && e.contains("beta_prior(1, 2)"), "{e}");
+    let e = error(&c, "SELECT fold_of('x', 0)").await;
+    assert!(e.contains("fold_of") && e.contains("k = 0"), "{e}");
+    let e = error(&c, "SELECT dirichlet_posterior(outcome, dirichlet_prior(['attended'], 1)) FROM appts").await;
+    assert!(e.contains("no_show") || e.contains("late_cancel"), "{e}");
+    let e = error(&c, "SELECT beta_posterior(no_show, p) FROM appts, (SELECT beta_prior(1, 1) AS p)").await;
+    assert!(e.contains("must be a constant"), "{e}");
+}
+
+#[tokio::test]
+async fn nulls_are_ignored_or_propagated() {
+    let c = ctx().await;
+    close(one(&c, "SELECT posterior_evidence(beta_posterior(y)) FROM (VALUES (1), (NULL), (0)) t(y)").await, 2.0, 0.0);
+    assert_eq!(floats(&c, "SELECT posterior_mean(CASE WHEN false THEN beta_prior(1, 1) END)").await, vec![None]);
+    // An empty input still yields the prior.
+    close(one(&c, "SELECT posterior_mean(beta_posterior(no_show, beta_prior(1, 3))) FROM appts WHERE t < 0").await, 0.25, 1e-15);
+}
+
+#[tokio::test]
+async fn decay_and_folds() {
+    let c = ctx().await;
+    close(one(&c, "SELECT decay_weight(90, 90)").await, 0.5, 0.0);
+    close(one(&c, "SELECT decay_weight(0, 7)").await, 1.0, 0.0);
+    let b = query(&c, "SELECT fold_of('123', 5) = fold_of(123, 5), fold_of('beagle', 5, 1) BETWEEN 0 AND 4").await;
+    assert!(b[0].column(0).as_boolean().value(0));
+    assert!(b[0].column(1).as_boolean().value(0));
+}
+
+#[tokio::test]
+async fn functions_are_documented_in_information_schema() {
+    let c = ctx().await;
+    let b = query(&c, "SELECT DISTINCT routine_name FROM information_schema.routines WHERE (routine_name LIKE 'posterior_%' OR routine_name LIKE '%_prior' OR routine_name LIKE '%_posterior%') AND length(description) > 20 AND syntax_example LIKE '%(%'").await;
+    let n: usize = b.iter().map(|b| b.num_rows()).sum();
+    assert!(n >= 20, "{n} functions listed");
+    for f in posterity::docs::FUNCTIONS {
+        assert!(posterity::docs::get(f.name).is_some());
+    }
+    let _ = Float64Array::from(vec![1.0]);
+}
