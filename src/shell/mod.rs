@@ -1,0 +1,360 @@
+//! The `posterity` shell: a DataFusion session with every posterity function
+//! registered, tables from files, SQL from flags, files, standard input or an
+//! interactive prompt. It reads and writes local paths only, runs no shell
+//! commands and opens no network connection.
+
+pub mod demo;
+pub mod output;
+pub mod split;
+
+use std::io::{IsTerminal, Read};
+use std::path::Path;
+use std::time::Instant;
+
+use datafusion::arrow::array::RecordBatch;
+use datafusion::datasource::file_format::options::{CsvReadOptions, JsonReadOptions, ParquetReadOptions};
+use datafusion::execution::runtime_env::RuntimeEnvBuilder;
+use datafusion::prelude::{SessionConfig, SessionContext};
+
+use output::Format;
+
+/// How tables from CSV files are read.
+#[derive(Debug, Clone)]
+pub struct CsvOptions {
+    pub header: bool,
+    pub delimiter: u8,
+    pub null: Option<String>,
+}
+
+/// Settings shared by every way of running SQL.
+pub struct Shell {
+    pub ctx: SessionContext,
+    pub format: Format,
+    pub output: Option<std::path::PathBuf>,
+    pub quiet: bool,
+    pub csv: CsvOptions,
+}
+
+/// An error already phrased for the user, with its exit code.
+#[derive(Debug)]
+pub struct Failure {
+    pub message: String,
+    pub code: i32,
+}
+
+impl Failure {
+    pub fn query(message: impl Into<String>) -> Self {
+        Failure { message: one_line(&message.into()), code: 1 }
+    }
+    pub fn usage(message: impl Into<String>) -> Self {
+        Failure { message: one_line(&message.into()), code: 2 }
+    }
+}
+
+/// Errors print on one line.
+fn one_line(s: &str) -> String {
+    s.split_whitespace().collect::<Vec<_>>().join(" ")
+}
+
+/// Parse a size such as 512M, 2G or 1048576.
+pub fn parse_size(s: &str) -> Result<usize, String> {
+    let t = s.trim().to_ascii_uppercase();
+    let (digits, mult) = match t.chars().last() {
+        Some('K') => (&t[..t.len() - 1], 1usize << 10),
+        Some('M') => (&t[..t.len() - 1], 1 << 20),
+        Some('G') => (&t[..t.len() - 1], 1 << 30),
+        _ => (t.as_str(), 1),
+    };
+    digits
+        .parse::<f64>()
+        .ok()
+        .filter(|v| v.is_finite() && *v > 0.0)
+        .map(|v| (v * mult as f64) as usize)
+        .ok_or_else(|| format!("invalid size '{s}'; use a number with an optional K, M or G suffix, e.g. 2G"))
+}
+
+/// A session with posterity registered, the memory limit and thread count applied.
+pub fn session(memory_limit: Option<usize>, threads: Option<usize>) -> Result<SessionContext, Failure> {
+    let mut config = SessionConfig::new().with_information_schema(true);
+    if let Some(n) = threads {
+        config = config.with_target_partitions(n.max(1));
+    }
+    let mut runtime = RuntimeEnvBuilder::new();
+    if let Some(bytes) = memory_limit {
+        runtime = runtime.with_memory_limit(bytes, 1.0);
+    }
+    let runtime = runtime.build_arc().map_err(|e| Failure::usage(e.to_string()))?;
+    let ctx = SessionContext::new_with_config_rt(config, runtime);
+    posterity::register(&ctx);
+    Ok(ctx)
+}
+
+impl Shell {
+    /// Register `NAME=PATH` (a file, a directory of files or a glob).
+    pub async fn register_table(&self, spec: &str) -> Result<(), Failure> {
+        let Some((name, path)) = spec.split_once('=') else {
+            return Err(Failure::usage(format!("--table expects NAME=PATH, got '{spec}'")));
+        };
+        let (name, path) = (name.trim(), path.trim());
+        if name.is_empty() || path.is_empty() {
+            return Err(Failure::usage(format!("--table expects NAME=PATH, got '{spec}'")));
+        }
+        let format = file_kind(path).ok_or_else(|| {
+            Failure::usage(format!(
+                "--table {name}: cannot tell the format of '{path}'; use a .parquet, .csv, .tsv, .json or .ndjson path"
+            ))
+        })?;
+        if !path.contains('*') && !Path::new(path).exists() {
+            return Err(Failure::query(format!("--table {name}: '{path}' does not exist")));
+        }
+        let result = match format {
+            FileKind::Parquet => {
+                let ext = extension_of(path, ".parquet");
+                self.ctx.register_parquet(name, path, ParquetReadOptions::default().file_extension(&ext)).await
+            }
+            FileKind::Csv | FileKind::Tsv => {
+                let ext = extension_of(path, if format == FileKind::Tsv { ".tsv" } else { ".csv" });
+                let delimiter = if format == FileKind::Tsv { b'\t' } else { self.csv.delimiter };
+                let mut options = CsvReadOptions::new()
+                    .has_header(self.csv.header)
+                    .delimiter(delimiter)
+                    .file_extension(&ext);
+                if let Some(null) = &self.csv.null {
+                    options = options.null_regex(Some(regex_escape(null)));
+                }
+                self.ctx.register_csv(name, path, options).await
+            }
+            FileKind::Json => {
+                let ext = extension_of(path, ".json");
+                self.ctx.register_json(name, path, JsonReadOptions::default().file_extension(&ext)).await
+            }
+        };
+        result.map_err(|e| Failure::query(format!("--table {name} ({path}): {e}")))
+    }
+
+    /// Run every statement of `script`; stop at the first error.
+    pub async fn run_script(&self, script: &str, source: &str) -> Result<(), Failure> {
+        let (statements, _) = split::statements(script);
+        for sql in statements {
+            self.run(&sql).await.map_err(|e| Failure::query(format!("{source}: {}", e.message)))?;
+        }
+        Ok(())
+    }
+
+    /// Run one statement and print (or write) its result.
+    pub async fn run(&self, sql: &str) -> Result<(), Failure> {
+        let started = Instant::now();
+        let batches = self.collect(sql).await?;
+        let rows: usize = batches.iter().map(RecordBatch::num_rows).sum();
+        let shows_rows = !batches.is_empty() && batches[0].num_columns() > 0;
+        if shows_rows {
+            let text = output::render(&batches, self.format).map_err(Failure::query)?;
+            match &self.output {
+                Some(path) => output::write_atomically(path, &text)
+                    .map_err(|e| Failure::query(format!("cannot write {}: {e}", path.display())))?,
+                None => print!("{text}"),
+            }
+        }
+        if !self.quiet && std::io::stderr().is_terminal() {
+            eprintln!("{rows} row(s) in {:.3} s", started.elapsed().as_secs_f64());
+        }
+        Ok(())
+    }
+
+    pub async fn collect(&self, sql: &str) -> Result<Vec<RecordBatch>, Failure> {
+        let df = self.ctx.sql(sql).await.map_err(|e| Failure::query(clean(e)))?;
+        df.collect().await.map_err(|e| Failure::query(clean(e)))
+    }
+
+    /// SQL from standard input when it is not a terminal, else the prompt.
+    pub async fn run_stdin_or_prompt(&self) -> Result<(), Failure> {
+        if std::io::stdin().is_terminal() {
+            self.prompt().await
+        } else {
+            let mut script = String::new();
+            std::io::stdin()
+                .read_to_string(&mut script)
+                .map_err(|e| Failure::query(format!("cannot read standard input: {e}")))?;
+            self.run_script(&script, "stdin").await
+        }
+    }
+
+    /// The interactive prompt: statements end at `;`; errors are reported and the
+    /// prompt goes on. Commands start with a colon.
+    async fn prompt(&self) -> Result<(), Failure> {
+        let mut editor = rustyline::DefaultEditor::new().map_err(|e| Failure::query(e.to_string()))?;
+        let history = std::env::var_os("HOME").map(|h| Path::new(&h).join(".posterity_history"));
+        if let Some(h) = &history {
+            editor.load_history(h).ok();
+        }
+        println!("posterity {} — SQL ends with ';'. Type :help for commands.", env!("CARGO_PKG_VERSION"));
+        let mut pending = String::new();
+        loop {
+            let prompt = if pending.is_empty() { "posterity> " } else { "      ...> " };
+            let line = match editor.readline(prompt) {
+                Ok(line) => line,
+                Err(rustyline::error::ReadlineError::Interrupted) => {
+                    pending.clear();
+                    continue;
+                }
+                Err(_) => break,
+            };
+            if pending.is_empty() && line.trim_start().starts_with(':') {
+                editor.add_history_entry(line.as_str()).ok();
+                if !self.command(line.trim()).await {
+                    break;
+                }
+                continue;
+            }
+            pending.push_str(&line);
+            pending.push('\n');
+            let (statements, unfinished) = split::statements(&pending);
+            if unfinished {
+                continue;
+            }
+            editor.add_history_entry(pending.trim()).ok();
+            for sql in statements {
+                if let Err(e) = self.run(&sql).await {
+                    eprintln!("error: {}", e.message);
+                }
+            }
+            pending.clear();
+        }
+        if let Some(h) = &history {
+            editor.save_history(h).ok();
+        }
+        Ok(())
+    }
+
+    /// Prompt commands; returns false to quit.
+    async fn command(&self, line: &str) -> bool {
+        let mut words = line.split_whitespace();
+        let result = match words.next().unwrap_or("") {
+            ":quit" | ":q" | ":exit" => return false,
+            ":help" => {
+                println!(
+                    ":tables            list tables\n:describe NAME     columns of a table\n\
+                     :functions [NAME]  posterity function reference\n:quit              leave\n\
+                     Anything else is SQL, ending with ';'."
+                );
+                Ok(())
+            }
+            ":tables" => self.run("SELECT table_name, table_type FROM information_schema.tables WHERE table_schema = 'public' ORDER BY table_name").await,
+            ":describe" => match words.next() {
+                Some(name) => self.run(&format!("DESCRIBE \"{}\"", name.replace('"', "\"\""))).await,
+                None => Err(Failure::usage(":describe needs a table name")),
+            },
+            ":functions" => {
+                print!("{}", functions_help(words.next()).unwrap_or_else(|e| e.message));
+                Ok(())
+            }
+            other => Err(Failure::usage(format!("unknown command {other}; type :help"))),
+        };
+        if let Err(e) = result {
+            eprintln!("error: {}", e.message);
+        }
+        true
+    }
+}
+
+/// `posterity functions [NAME]`: the reference from the functions' documentation.
+pub fn functions_help(name: Option<&str>) -> Result<String, Failure> {
+    let functions = posterity::docs::FUNCTIONS;
+    match name {
+        Some(n) => functions
+            .iter()
+            .find(|f| f.name.eq_ignore_ascii_case(n))
+            .map(posterity::docs::help_text)
+            .ok_or_else(|| Failure::usage(format!("no posterity function named '{n}'; run 'posterity functions' for the list"))),
+        None => {
+            let mut out = String::new();
+            let mut section = "";
+            for f in functions {
+                if f.section != section {
+                    section = f.section;
+                    out.push_str(&format!("\n{section}\n"));
+                }
+                out.push_str(&format!("  {:<52} {}\n", f.syntax, first_sentence(f.description)));
+            }
+            out.push_str("\nDetails: posterity functions NAME\n");
+            Ok(out)
+        }
+    }
+}
+
+fn first_sentence(s: &str) -> &str {
+    s.split(". ").next().unwrap_or(s).trim_end_matches('.')
+}
+
+/// DataFusion errors without the engine's internal prefixes or backtraces.
+fn clean(e: datafusion::error::DataFusionError) -> String {
+    let text = e.to_string();
+    let text = text.split("\n\nbacktrace").next().unwrap_or(&text).to_string();
+    text.replace("Execution error: ", "").replace("Error during planning: ", "")
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum FileKind {
+    Parquet,
+    Csv,
+    Tsv,
+    Json,
+}
+
+fn kind_of_name(name: &str) -> Option<FileKind> {
+    let lower = name.to_ascii_lowercase();
+    if lower.ends_with(".parquet") || lower.ends_with(".parq") {
+        Some(FileKind::Parquet)
+    } else if lower.ends_with(".csv") {
+        Some(FileKind::Csv)
+    } else if lower.ends_with(".tsv") {
+        Some(FileKind::Tsv)
+    } else if lower.ends_with(".json") || lower.ends_with(".ndjson") || lower.ends_with(".jsonl") {
+        Some(FileKind::Json)
+    } else {
+        None
+    }
+}
+
+/// The format of a file, glob or directory (from its first data file).
+fn file_kind(path: &str) -> Option<FileKind> {
+    if let Some(k) = kind_of_name(path) {
+        return Some(k);
+    }
+    let dir = Path::new(path);
+    if dir.is_dir() {
+        let mut names: Vec<String> = std::fs::read_dir(dir)
+            .ok()?
+            .filter_map(|e| e.ok())
+            .map(|e| e.file_name().to_string_lossy().to_string())
+            .filter(|n| !n.starts_with('.') && !n.starts_with('_'))
+            .collect();
+        names.sort();
+        return names.iter().find_map(|n| kind_of_name(n));
+    }
+    None
+}
+
+/// The extension a listing should match: the path's own when it names a file.
+fn extension_of(path: &str, default: &str) -> String {
+    let p = Path::new(path);
+    if !p.is_dir() {
+        if let Some(ext) = p.extension() {
+            return format!(".{}", ext.to_string_lossy());
+        }
+    }
+    default.to_string()
+}
+
+fn regex_escape(s: &str) -> String {
+    let mut out = String::from("^");
+    for c in s.chars() {
+        if "\\.+*?()|[]{}^$".contains(c) {
+            out.push('\\');
+        }
+        out.push(c);
+    }
+    out.push('$');
+    out
+}
+

@@ -1,0 +1,151 @@
+//! Rendering query results: table, CSV, TSV, JSON and NDJSON, written atomically
+//! when they go to a file.
+
+use std::io::Write;
+use std::path::Path;
+
+use datafusion::arrow::array::{Array, ArrayRef, AsArray, RecordBatch};
+use datafusion::arrow::datatypes::{DataType, Float64Type};
+use datafusion::arrow::util::display::{ArrayFormatter, FormatOptions};
+use datafusion::arrow::util::pretty::pretty_format_batches_with_options;
+use serde_json::{Map, Number, Value};
+
+/// Output formats of the shell.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum Format {
+    Table,
+    Csv,
+    Tsv,
+    Json,
+    Ndjson,
+}
+
+/// Render `batches` in `format`.
+pub fn render(batches: &[RecordBatch], format: Format) -> Result<String, String> {
+    match format {
+        Format::Table => {
+            if batches.iter().all(|b| b.num_rows() == 0) && batches.is_empty() {
+                return Ok(String::new());
+            }
+            let options = FormatOptions::default().with_null("NULL");
+            pretty_format_batches_with_options(batches, &options)
+                .map(|t| format!("{t}\n"))
+                .map_err(|e| e.to_string())
+        }
+        Format::Csv => delimited(batches, ','),
+        Format::Tsv => delimited(batches, '\t'),
+        Format::Json => {
+            let rows = json_rows(batches)?;
+            Ok(format!("{}\n", Value::Array(rows)))
+        }
+        Format::Ndjson => Ok(json_rows(batches)?
+            .into_iter()
+            .map(|r| format!("{r}\n"))
+            .collect()),
+    }
+}
+
+fn delimited(batches: &[RecordBatch], sep: char) -> Result<String, String> {
+    let mut out = String::new();
+    let Some(first) = batches.first() else {
+        return Ok(out);
+    };
+    let quote = |s: &str| -> String {
+        if s.contains(sep) || s.contains('"') || s.contains('\n') {
+            format!("\"{}\"", s.replace('"', "\"\""))
+        } else {
+            s.to_string()
+        }
+    };
+    let header: Vec<String> = first.schema().fields().iter().map(|f| quote(f.name())).collect();
+    out.push_str(&header.join(&sep.to_string()));
+    out.push('\n');
+    let options = FormatOptions::default();
+    for batch in batches {
+        let formatters = batch
+            .columns()
+            .iter()
+            .map(|c| ArrayFormatter::try_new(c.as_ref(), &options))
+            .collect::<Result<Vec<_>, _>>()
+            .map_err(|e| e.to_string())?;
+        for row in 0..batch.num_rows() {
+            let cells: Vec<String> = formatters
+                .iter()
+                .zip(batch.columns())
+                .map(|(f, c)| if c.is_null(row) { String::new() } else { quote(&f.value(row).to_string()) })
+                .collect();
+            out.push_str(&cells.join(&sep.to_string()));
+            out.push('\n');
+        }
+    }
+    Ok(out)
+}
+
+fn json_rows(batches: &[RecordBatch]) -> Result<Vec<Value>, String> {
+    let mut rows = Vec::new();
+    for batch in batches {
+        let schema = batch.schema();
+        for row in 0..batch.num_rows() {
+            let mut object = Map::new();
+            for (field, column) in schema.fields().iter().zip(batch.columns()) {
+                object.insert(field.name().clone(), json_value(column, row)?);
+            }
+            rows.push(Value::Object(object));
+        }
+    }
+    Ok(rows)
+}
+
+/// One cell as JSON: numbers stay numbers, structs become objects, lists arrays.
+fn json_value(column: &ArrayRef, row: usize) -> Result<Value, String> {
+    if column.is_null(row) {
+        return Ok(Value::Null);
+    }
+    Ok(match column.data_type() {
+        DataType::Struct(fields) => {
+            let st = column.as_struct();
+            let mut object = Map::new();
+            for (f, c) in fields.iter().zip(st.columns()) {
+                object.insert(f.name().clone(), json_value(c, row)?);
+            }
+            Value::Object(object)
+        }
+        DataType::List(_) => {
+            let list = column.as_list::<i32>().value(row);
+            Value::Array((0..list.len()).map(|i| json_value(&list, i)).collect::<Result<_, _>>()?)
+        }
+        DataType::Boolean => Value::Bool(column.as_boolean().value(row)),
+        t if t.is_integer() => {
+            let v = datafusion::arrow::compute::cast(&column.slice(row, 1), &DataType::Int64).map_err(|e| e.to_string())?;
+            Value::from(v.as_primitive::<datafusion::arrow::datatypes::Int64Type>().value(0))
+        }
+        t if t.is_floating() => {
+            let v = datafusion::arrow::compute::cast(&column.slice(row, 1), &DataType::Float64).map_err(|e| e.to_string())?;
+            let x = v.as_primitive::<Float64Type>().value(0);
+            Number::from_f64(x).map_or_else(|| Value::String(x.to_string()), Value::Number)
+        }
+        _ => {
+            let options = FormatOptions::default();
+            let f = ArrayFormatter::try_new(column.as_ref(), &options).map_err(|e| e.to_string())?;
+            Value::String(f.value(row).to_string())
+        }
+    })
+}
+
+/// Write `text` to `path` through a temporary file in the same directory and a
+/// rename, so a failure never leaves a partial file and the old one stays intact.
+pub fn write_atomically(path: &Path, text: &str) -> std::io::Result<()> {
+    let dir = path.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
+    let name = path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_else(|| "output".into());
+    let tmp = dir.join(format!(".{name}.{}.tmp", std::process::id()));
+    let result = (|| {
+        let mut f = std::fs::File::create(&tmp)?;
+        f.write_all(text.as_bytes())?;
+        f.sync_all()?;
+        std::fs::rename(&tmp, path)
+    })();
+    if result.is_err() {
+        std::fs::remove_file(&tmp).ok();
+    }
+    result
+}
