@@ -305,8 +305,13 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
 /// The DataFusion documentation of `name`.
 pub fn get(name: &str) -> Option<&'static Documentation> {
     static DOCS: OnceLock<HashMap<&'static str, Documentation>> = OnceLock::new();
-    DOCS.get_or_init(|| FUNCTIONS.iter().map(|f| (f.name, to_documentation(f))).collect())
-        .get(name)
+    DOCS.get_or_init(|| {
+        FUNCTIONS
+            .iter()
+            .map(|f| (f.name, to_documentation(f)))
+            .collect()
+    })
+    .get(name)
 }
 
 fn to_documentation(f: &FunctionDoc) -> Documentation {
@@ -315,7 +320,8 @@ fn to_documentation(f: &FunctionDoc) -> Documentation {
         label: f.section,
         description: None,
     };
-    let mut builder = Documentation::builder(section, f.description, f.syntax).with_sql_example(f.example);
+    let mut builder =
+        Documentation::builder(section, f.description, f.syntax).with_sql_example(f.example);
     for (name, text) in f.arguments {
         builder = builder.with_argument(*name, *text);
     }
@@ -331,7 +337,10 @@ pub fn reference_markdown() -> String {
             section = f.section;
             out.push_str(&format!("\n### {section}\n"));
         }
-        out.push_str(&format!("\n#### `{}`\n\n{}\n\n```sql\n{}\n```\n\n", f.name, f.description, f.syntax));
+        out.push_str(&format!(
+            "\n#### `{}`\n\n{}\n\n```sql\n{}\n```\n\n",
+            f.name, f.description, f.syntax
+        ));
         for (name, text) in f.arguments {
             out.push_str(&format!("- `{name}`: {text}\n"));
         }

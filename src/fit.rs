@@ -19,14 +19,13 @@ use datafusion::arrow::datatypes::{DataType, Field, FieldRef, Float64Type};
 use datafusion::common::{exec_err, plan_err, DataFusionError, Result, ScalarValue};
 use datafusion::logical_expr::function::{AccumulatorArgs, StateFieldsArgs};
 use datafusion::logical_expr::{
-    Accumulator, AggregateUDFImpl, Documentation, EmitTo, GroupsAccumulator, Signature,
-    Volatility,
+    Accumulator, AggregateUDFImpl, Documentation, EmitTo, GroupsAccumulator, Signature, Volatility,
 };
 use datafusion::physical_expr::expressions::Literal;
 
 use crate::family::{
-    beta::check_outcome, BetaPosterior, BetaPrior, DirichletPosterior, DirichletPrior,
-    FamilyError, GammaPosterior, GammaPrior, NigPosterior, NigPrior, NigStats,
+    beta::check_outcome, BetaPosterior, BetaPrior, DirichletPosterior, DirichletPrior, FamilyError,
+    GammaPosterior, GammaPrior, NigPosterior, NigPrior, NigStats,
 };
 use crate::layout::{build, build_floats, AnyPosterior, Kind, PosteriorColumn};
 
@@ -70,7 +69,9 @@ fn row_ok(filter: Option<&BooleanArray>, columns: &[&dyn Array], i: usize) -> bo
 }
 
 fn f64_column(values: &[ArrayRef], i: usize) -> Result<Float64Array> {
-    Ok(cast(&values[i], &DataType::Float64)?.as_primitive::<Float64Type>().clone())
+    Ok(cast(&values[i], &DataType::Float64)?
+        .as_primitive::<Float64Type>()
+        .clone())
 }
 
 /// Numeric and boolean inputs coerce to Float64; anything else is a plan error.
@@ -142,7 +143,12 @@ fn beta_finish(prior: &BetaPrior, stats: &[f64]) -> Result<ArrayRef> {
     }
     build_floats(
         Kind::Beta,
-        vec![vec![prior.a0; groups], vec![prior.b0; groups], successes, trials],
+        vec![
+            vec![prior.a0; groups],
+            vec![prior.b0; groups],
+            successes,
+            trials,
+        ],
     )
 }
 
@@ -158,7 +164,13 @@ impl FitKernel for BetaOutcomes {
     }
 
     fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
-        arity(Self::NAME, t.len(), 1, 3, "beta_posterior(outcome [, prior [, weight]])")?;
+        arity(
+            Self::NAME,
+            t.len(),
+            1,
+            3,
+            "beta_posterior(outcome [, prior [, weight]])",
+        )?;
         let mut out = vec![numeric(Self::NAME, "outcome", &t[0])?];
         if t.len() > 1 {
             out.push(prior_type(Self::NAME, Kind::Beta, &t[1])?);
@@ -182,7 +194,11 @@ impl FitKernel for BetaOutcomes {
         retract: bool,
     ) -> Result<()> {
         let y = f64_column(values, 0)?;
-        let w = if values.len() > 2 { Some(f64_column(values, 2)?) } else { None };
+        let w = if values.len() > 2 {
+            Some(f64_column(values, 2)?)
+        } else {
+            None
+        };
         let sign = if retract { -1.0 } else { 1.0 };
         if filter.is_none() && w.is_none() && y.null_count() == 0 && !retract {
             // Hot path: every row counts with weight one; validate after the loop.
@@ -193,8 +209,15 @@ impl FitKernel for BetaOutcomes {
                 stats[2 * g + 1] += 1.0;
             }
             if bad {
-                let v = y.values().iter().find(|v| **v != 0.0 && **v != 1.0).copied();
-                return Err(family_error(Self::NAME, check_outcome(v.unwrap_or(f64::NAN)).unwrap_err()));
+                let v = y
+                    .values()
+                    .iter()
+                    .find(|v| **v != 0.0 && **v != 1.0)
+                    .copied();
+                return Err(family_error(
+                    Self::NAME,
+                    check_outcome(v.unwrap_or(f64::NAN)).unwrap_err(),
+                ));
             }
             return Ok(());
         }
@@ -231,7 +254,6 @@ impl FitKernel for BetaOutcomes {
     fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
         beta_finish(&self.prior, stats)
     }
-
 }
 
 // ------------------------------------------------------ Beta (pre-aggregated counts)
@@ -253,7 +275,13 @@ impl FitKernel for BetaCounts {
     }
 
     fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
-        arity(Self::NAME, t.len(), 2, 3, "beta_posterior_counts(successes, trials [, prior])")?;
+        arity(
+            Self::NAME,
+            t.len(),
+            2,
+            3,
+            "beta_posterior_counts(successes, trials [, prior])",
+        )?;
         let mut out = vec![
             numeric(Self::NAME, "successes", &t[0])?,
             numeric(Self::NAME, "trials", &t[1])?,
@@ -304,7 +332,6 @@ impl FitKernel for BetaCounts {
     fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
         beta_finish(&self.prior, stats)
     }
-
 }
 
 // ------------------------------------------------------------------------- Gamma
@@ -335,7 +362,13 @@ impl FitKernel for GammaCounts {
     }
 
     fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
-        arity(Self::NAME, t.len(), 1, 3, "gamma_posterior(events [, exposure [, prior]])")?;
+        arity(
+            Self::NAME,
+            t.len(),
+            1,
+            3,
+            "gamma_posterior(events [, exposure [, prior]])",
+        )?;
         let mut out = vec![numeric(Self::NAME, "events", &t[0])?];
         if t.len() > 1 {
             out.push(numeric(Self::NAME, "exposure", &t[1])?);
@@ -359,7 +392,11 @@ impl FitKernel for GammaCounts {
         retract: bool,
     ) -> Result<()> {
         let events = f64_column(values, 0)?;
-        let exposure = if values.len() > 1 { Some(f64_column(values, 1)?) } else { None };
+        let exposure = if values.len() > 1 {
+            Some(f64_column(values, 1)?)
+        } else {
+            None
+        };
         for (i, &g) in groups.iter().enumerate() {
             let ok = match &exposure {
                 Some(t) => row_ok(filter, &[&events, t], i),
@@ -405,7 +442,6 @@ impl FitKernel for GammaCounts {
             ],
         )
     }
-
 }
 
 // --------------------------------------------------------------------------- NIG
@@ -433,14 +469,23 @@ impl FitKernel for NigValues {
                 }
             }
             Some(other) => {
-                return plan_err!("expected a Normal-Inverse-Gamma prior, got {}", other.kind().name())
+                return plan_err!(
+                    "expected a Normal-Inverse-Gamma prior, got {}",
+                    other.kind().name()
+                )
             }
         };
         Ok(NigValues { prior })
     }
 
     fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
-        arity(Self::NAME, t.len(), 1, 3, "nig_posterior(value [, prior [, weight]])")?;
+        arity(
+            Self::NAME,
+            t.len(),
+            1,
+            3,
+            "nig_posterior(value [, prior [, weight]])",
+        )?;
         let mut out = vec![numeric(Self::NAME, "value", &t[0])?];
         if t.len() > 1 {
             out.push(prior_type(Self::NAME, Kind::Nig, &t[1])?);
@@ -464,7 +509,11 @@ impl FitKernel for NigValues {
         retract: bool,
     ) -> Result<()> {
         let x = f64_column(values, 0)?;
-        let w = if values.len() > 2 { Some(f64_column(values, 2)?) } else { None };
+        let w = if values.len() > 2 {
+            Some(f64_column(values, 2)?)
+        } else {
+            None
+        };
         for (i, &g) in groups.iter().enumerate() {
             let ok = match &w {
                 Some(w) => row_ok(filter, &[&x, w], i),
@@ -484,9 +533,12 @@ impl FitKernel for NigValues {
                 },
             };
             if retract {
-                p = p.without(x.value(i), wt).map_err(|e| family_error(Self::NAME, e))?;
+                p = p
+                    .without(x.value(i), wt)
+                    .map_err(|e| family_error(Self::NAME, e))?;
             } else {
-                p.observe(x.value(i), wt).map_err(|e| family_error(Self::NAME, e))?;
+                p.observe(x.value(i), wt)
+                    .map_err(|e| family_error(Self::NAME, e))?;
             }
             s.copy_from_slice(&[p.stats.n, p.stats.mean, p.stats.m2]);
         }
@@ -526,7 +578,6 @@ impl FitKernel for NigValues {
         }
         build_floats(Kind::Nig, cols)
     }
-
 }
 
 // --------------------------------------------------------------------- Dirichlet
@@ -558,8 +609,17 @@ impl FitKernel for DirichletClasses {
     }
 
     fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
-        arity(Self::NAME, t.len(), 2, 3, "dirichlet_posterior(class, prior [, weight])")?;
-        let mut out = vec![DataType::Utf8, prior_type(Self::NAME, Kind::Dirichlet, &t[1])?];
+        arity(
+            Self::NAME,
+            t.len(),
+            2,
+            3,
+            "dirichlet_posterior(class, prior [, weight])",
+        )?;
+        let mut out = vec![
+            DataType::Utf8,
+            prior_type(Self::NAME, Kind::Dirichlet, &t[1])?,
+        ];
         if t.len() > 2 {
             out.push(numeric(Self::NAME, "weight", &t[2])?);
         }
@@ -580,7 +640,11 @@ impl FitKernel for DirichletClasses {
     ) -> Result<()> {
         let class = cast(&values[0], &DataType::Utf8)?;
         let class: &StringArray = class.as_string::<i32>();
-        let w = if values.len() > 2 { Some(f64_column(values, 2)?) } else { None };
+        let w = if values.len() > 2 {
+            Some(f64_column(values, 2)?)
+        } else {
+            None
+        };
         let k = self.width();
         for (i, &g) in groups.iter().enumerate() {
             let ok = match &w {
@@ -626,7 +690,6 @@ impl FitKernel for DirichletClasses {
             .collect();
         build(Kind::Dirichlet, &rows)
     }
-
 }
 
 // ------------------------------------------------------------ the generic adapter
@@ -747,7 +810,10 @@ impl<K: FitKernel> AggregateUDFImpl for FitAggregate<K> {
         true
     }
 
-    fn create_groups_accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn GroupsAccumulator>> {
+    fn create_groups_accumulator(
+        &self,
+        args: AccumulatorArgs,
+    ) -> Result<Box<dyn GroupsAccumulator>> {
         Ok(Box::new(FitGroups::new(Self::kernel(&args)?)))
     }
 
@@ -809,7 +875,9 @@ impl<K: FitKernel> FitGroups<K> {
             let offsets = OffsetBuffer::from_lengths(std::iter::repeat_n(w, groups));
             let values = Arc::new(Float64Array::from(stats));
             let field = Arc::new(Field::new_list_field(DataType::Float64, true));
-            Ok(vec![Arc::new(ListArray::try_new(field, offsets, values, None)?)])
+            Ok(vec![Arc::new(ListArray::try_new(
+                field, offsets, values, None,
+            )?)])
         } else {
             Ok((0..w)
                 .map(|j| {
@@ -831,7 +899,12 @@ impl<K: FitKernel> FitGroups<K> {
                 let row = list.value(i);
                 out.extend(row.as_primitive::<Float64Type>().values().iter());
                 if out.len() != self.kernel.width() {
-                    return exec_err!("{}: state has {} classes, expected {}", K::NAME, out.len(), self.kernel.width());
+                    return exec_err!(
+                        "{}: state has {} classes, expected {}",
+                        K::NAME,
+                        out.len(),
+                        self.kernel.width()
+                    );
                 }
             }
         } else {
@@ -884,11 +957,16 @@ impl<K: FitKernel> GroupsAccumulator for FitGroups<K> {
         Ok(())
     }
 
-    fn convert_to_state(&self, values: &[ArrayRef], opt_filter: Option<&BooleanArray>) -> Result<Vec<ArrayRef>> {
+    fn convert_to_state(
+        &self,
+        values: &[ArrayRef],
+        opt_filter: Option<&BooleanArray>,
+    ) -> Result<Vec<ArrayRef>> {
         let rows = values.first().map_or(0, |v| v.len());
         let mut stats = vec![0.0; rows * self.kernel.width()];
         let groups: Vec<usize> = (0..rows).collect();
-        self.kernel.apply(values, &groups, opt_filter, &mut stats, false)?;
+        self.kernel
+            .apply(values, &groups, opt_filter, &mut stats, false)?;
         self.state_arrays(stats)
     }
 

@@ -137,7 +137,9 @@ impl AnyPosterior {
             AnyPosterior::Nig(p) => p.marginal(),
             AnyPosterior::Dirichlet(p) => {
                 let class = class.ok_or_else(|| {
-                    FamilyError::InvalidClasses("a Dirichlet posterior needs a class argument".into())
+                    FamilyError::InvalidClasses(
+                        "a Dirichlet posterior needs a class argument".into(),
+                    )
                 })?;
                 p.marginal(p.prior.index_of(class)?)
             }
@@ -154,11 +156,7 @@ impl AnyPosterior {
     }
 
     /// Apply a binary family operation to two posteriors of the same family.
-    pub fn combine(
-        &self,
-        other: &AnyPosterior,
-        op: Combine,
-    ) -> Result<AnyPosterior, FamilyError> {
+    pub fn combine(&self, other: &AnyPosterior, op: Combine) -> Result<AnyPosterior, FamilyError> {
         fn run<P: Conjugate>(a: &P, b: &P, op: Combine) -> Result<P, FamilyError> {
             match op {
                 Combine::Merge => a.merge(b),
@@ -194,11 +192,15 @@ impl AnyPosterior {
     /// for new data), keeping this state's evidence.
     pub fn with_prior(&self, prior: &AnyPosterior) -> Result<AnyPosterior, FamilyError> {
         Ok(match (self, prior.as_prior()?) {
-            (AnyPosterior::Beta(p), AnyPosterior::Beta(q)) => AnyPosterior::Beta(p.with_prior(q.prior)),
+            (AnyPosterior::Beta(p), AnyPosterior::Beta(q)) => {
+                AnyPosterior::Beta(p.with_prior(q.prior))
+            }
             (AnyPosterior::Gamma(p), AnyPosterior::Gamma(q)) => {
                 AnyPosterior::Gamma(p.with_prior(q.prior))
             }
-            (AnyPosterior::Nig(p), AnyPosterior::Nig(q)) => AnyPosterior::Nig(p.with_prior(q.prior)),
+            (AnyPosterior::Nig(p), AnyPosterior::Nig(q)) => {
+                AnyPosterior::Nig(p.with_prior(q.prior))
+            }
             (AnyPosterior::Dirichlet(p), AnyPosterior::Dirichlet(q)) => {
                 AnyPosterior::Dirichlet(p.with_prior(q.prior)?)
             }
@@ -224,7 +226,9 @@ impl AnyPosterior {
             }
             AnyPosterior::Nig(p) => {
                 let q = p.params();
-                AnyPosterior::Nig(NigPosterior::new(NigPrior::new(q.mu, q.kappa, q.alpha, q.beta)?))
+                AnyPosterior::Nig(NigPosterior::new(NigPrior::new(
+                    q.mu, q.kappa, q.alpha, q.beta,
+                )?))
             }
             AnyPosterior::Dirichlet(p) => AnyPosterior::Dirichlet(DirichletPosterior::new(
                 DirichletPrior::new(p.prior.classes.clone(), p.params())?,
@@ -264,7 +268,9 @@ impl PosteriorColumn {
                 .ok_or_else(|| exec_datafusion_err!("{function}: field {name} missing"))
         };
         let as_f64 = |name: &str| -> Result<Float64Array> {
-            Ok(cast(&column(name)?, &DataType::Float64)?.as_primitive().clone())
+            Ok(cast(&column(name)?, &DataType::Float64)?
+                .as_primitive()
+                .clone())
         };
         let names: &[&str] = match kind {
             Kind::Beta => &BETA_FIELDS,
@@ -272,10 +278,15 @@ impl PosteriorColumn {
             Kind::Nig => &NIG_FIELDS,
             Kind::Dirichlet => &[],
         };
-        let floats = names.iter().map(|n| as_f64(n)).collect::<Result<Vec<_>>>()?;
+        let floats = names
+            .iter()
+            .map(|n| as_f64(n))
+            .collect::<Result<Vec<_>>>()?;
         let lists = if kind == Kind::Dirichlet {
             let list = |name: &str, item: DataType| -> Result<ListArray> {
-                Ok(cast(&column(name)?, &list_of(item))?.as_list::<i32>().clone())
+                Ok(cast(&column(name)?, &list_of(item))?
+                    .as_list::<i32>()
+                    .clone())
             };
             Some((
                 list("classes", DataType::Utf8)?,
@@ -397,7 +408,11 @@ pub fn build(kind: Kind, rows: &[Option<AnyPosterior>]) -> Result<ArrayRef> {
             .map(|c| Arc::new(Float64Array::from(c)) as ArrayRef)
             .collect()
     };
-    Ok(Arc::new(StructArray::try_new(fields, columns, Some(nulls))?))
+    Ok(Arc::new(StructArray::try_new(
+        fields,
+        columns,
+        Some(nulls),
+    )?))
 }
 
 /// Build a struct column of a float-field family directly from per-row field

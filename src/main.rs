@@ -98,18 +98,32 @@ async fn run(args: Args) -> Result<(), Failure> {
         print!("{}", shell::functions_help(name.as_deref())?);
         return Ok(());
     }
-    let memory = args.memory_limit.as_deref().map(shell::parse_size).transpose().map_err(Failure::usage)?;
+    let memory = args
+        .memory_limit
+        .as_deref()
+        .map(shell::parse_size)
+        .transpose()
+        .map_err(Failure::usage)?;
     let delimiter = match args.csv_delimiter.as_bytes() {
         [b] => *b,
         b"\\t" => b'\t',
-        _ => return Err(Failure::usage(format!("--csv-delimiter must be one character, got '{}'", args.csv_delimiter))),
+        _ => {
+            return Err(Failure::usage(format!(
+                "--csv-delimiter must be one character, got '{}'",
+                args.csv_delimiter
+            )))
+        }
     };
     let shell = Shell {
         ctx: shell::session(memory, args.threads)?,
         format: args.format,
         output: args.output.clone(),
         quiet: args.quiet,
-        csv: CsvOptions { header: !args.csv_no_header, delimiter, null: args.csv_null.clone() },
+        csv: CsvOptions {
+            header: !args.csv_no_header,
+            delimiter,
+            null: args.csv_null.clone(),
+        },
     };
     for spec in &args.tables {
         shell.register_table(spec).await?;
@@ -123,7 +137,9 @@ async fn run(args: Args) -> Result<(), Failure> {
     for path in &args.files {
         let script = std::fs::read_to_string(path)
             .map_err(|e| Failure::query(format!("cannot read {}: {e}", path.display())))?;
-        shell.run_script(&script, &path.display().to_string()).await?;
+        shell
+            .run_script(&script, &path.display().to_string())
+            .await?;
     }
     if args.commands.is_empty() && args.files.is_empty() {
         shell.run_stdin_or_prompt().await?;

@@ -9,8 +9,7 @@ use datafusion::arrow::datatypes::{DataType, Field, FieldRef};
 use datafusion::common::{Result, ScalarValue};
 use datafusion::logical_expr::function::{AccumulatorArgs, StateFieldsArgs};
 use datafusion::logical_expr::{
-    Accumulator, AggregateUDFImpl, Documentation, EmitTo, GroupsAccumulator, Signature,
-    Volatility,
+    Accumulator, AggregateUDFImpl, Documentation, EmitTo, GroupsAccumulator, Signature, Volatility,
 };
 
 use crate::fit::family_error;
@@ -42,7 +41,10 @@ impl AggregateUDFImpl for PosteriorPool {
 
     fn coerce_types(&self, t: &[DataType]) -> Result<Vec<DataType>> {
         if t.len() != 1 {
-            return datafusion::common::plan_err!("{NAME}: takes 1 argument, got {}; usage: posterior_pool(p)", t.len());
+            return datafusion::common::plan_err!(
+                "{NAME}: takes 1 argument, got {}; usage: posterior_pool(p)",
+                t.len()
+            );
         }
         Ok(vec![Kind::expect(NAME, "p", &t[0])?.data_type()])
     }
@@ -52,7 +54,9 @@ impl AggregateUDFImpl for PosteriorPool {
     }
 
     fn accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {
-        Ok(Box::new(PoolAccumulator(PoolGroups::new(args.return_type())?)))
+        Ok(Box::new(PoolAccumulator(PoolGroups::new(
+            args.return_type(),
+        )?)))
     }
 
     fn state_fields(&self, args: StateFieldsArgs) -> Result<Vec<FieldRef>> {
@@ -67,7 +71,10 @@ impl AggregateUDFImpl for PosteriorPool {
         true
     }
 
-    fn create_groups_accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn GroupsAccumulator>> {
+    fn create_groups_accumulator(
+        &self,
+        args: AccumulatorArgs,
+    ) -> Result<Box<dyn GroupsAccumulator>> {
         Ok(Box::new(PoolGroups::new(args.return_type())?))
     }
 
@@ -91,7 +98,13 @@ impl PoolGroups {
         })
     }
 
-    fn add(&mut self, values: &ArrayRef, groups: &[usize], filter: Option<&BooleanArray>, total: usize) -> Result<()> {
+    fn add(
+        &mut self,
+        values: &ArrayRef,
+        groups: &[usize],
+        filter: Option<&BooleanArray>,
+        total: usize,
+    ) -> Result<()> {
         if self.pooled.len() < total {
             self.pooled.resize(total, None);
         }
@@ -105,7 +118,9 @@ impl PoolGroups {
             };
             self.pooled[g] = Some(match self.pooled[g].take() {
                 None => p,
-                Some(acc) => acc.combine(&p, Combine::Merge).map_err(|e| family_error(NAME, e))?,
+                Some(acc) => acc
+                    .combine(&p, Combine::Merge)
+                    .map_err(|e| family_error(NAME, e))?,
             });
         }
         Ok(())
@@ -118,7 +133,13 @@ impl PoolGroups {
 }
 
 impl GroupsAccumulator for PoolGroups {
-    fn update_batch(&mut self, values: &[ArrayRef], groups: &[usize], filter: Option<&BooleanArray>, total: usize) -> Result<()> {
+    fn update_batch(
+        &mut self,
+        values: &[ArrayRef],
+        groups: &[usize],
+        filter: Option<&BooleanArray>,
+        total: usize,
+    ) -> Result<()> {
         self.add(&values[0], groups, filter, total)
     }
 
@@ -134,9 +155,16 @@ impl GroupsAccumulator for PoolGroups {
         self.add(&values[0], groups, None, total)
     }
 
-    fn convert_to_state(&self, values: &[ArrayRef], opt_filter: Option<&BooleanArray>) -> Result<Vec<ArrayRef>> {
+    fn convert_to_state(
+        &self,
+        values: &[ArrayRef],
+        opt_filter: Option<&BooleanArray>,
+    ) -> Result<Vec<ArrayRef>> {
         let rows = values[0].len();
-        let mut fresh = PoolGroups { kind: self.kind, pooled: Vec::new() };
+        let mut fresh = PoolGroups {
+            kind: self.kind,
+            pooled: Vec::new(),
+        };
         fresh.add(&values[0], &(0..rows).collect::<Vec<_>>(), opt_filter, rows)?;
         Ok(vec![fresh.emit(EmitTo::All)?])
     }

@@ -16,8 +16,8 @@ use datafusion::logical_expr::{
 };
 
 use crate::family::{
-    rng, BetaPosterior, BetaPrior, DirichletPosterior, DirichletPrior, FamilyError,
-    GammaPosterior, GammaPrior, Marginal, NigPosterior, NigPrior,
+    rng, BetaPosterior, BetaPrior, DirichletPosterior, DirichletPrior, FamilyError, GammaPosterior,
+    GammaPrior, Marginal, NigPosterior, NigPrior,
 };
 use crate::fit::family_error;
 use crate::layout::{build, AnyPosterior, Combine, Kind, PosteriorColumn};
@@ -132,7 +132,10 @@ impl ScalarFunction {
         if is_number(t) {
             Ok(DataType::Float64)
         } else {
-            plan_err!("{}: argument {argument} has type {t}; expected a number", self.name)
+            plan_err!(
+                "{}: argument {argument} has type {t}; expected a number",
+                self.name
+            )
         }
     }
 
@@ -142,7 +145,10 @@ impl ScalarFunction {
                 .iter()
                 .find(|f| f.name == self.name)
                 .map_or("", |f| f.syntax);
-            return plan_err!("{}: takes {min} to {max} arguments, got {n}; usage: {syntax}", self.name);
+            return plan_err!(
+                "{}: takes {min} to {max} arguments, got {n}; usage: {syntax}",
+                self.name
+            );
         }
         Ok(())
     }
@@ -170,8 +176,15 @@ impl ScalarUDFImpl for ScalarFunction {
         match self.op {
             Op::Prior(Kind::Beta) | Op::Prior(Kind::Gamma) => {
                 self.count(n, 2, 2)?;
-                let names = if self.op == Op::Prior(Kind::Beta) { ["a", "b"] } else { ["shape", "rate"] };
-                Ok(vec![self.number(names[0], &t[0])?, self.number(names[1], &t[1])?])
+                let names = if self.op == Op::Prior(Kind::Beta) {
+                    ["a", "b"]
+                } else {
+                    ["shape", "rate"]
+                };
+                Ok(vec![
+                    self.number(names[0], &t[0])?,
+                    self.number(names[1], &t[1])?,
+                ])
             }
             Op::Prior(Kind::Nig) => {
                 self.count(n, 4, 4)?;
@@ -183,9 +196,8 @@ impl ScalarUDFImpl for ScalarFunction {
             }
             Op::Prior(Kind::Dirichlet) => {
                 self.count(n, 2, 2)?;
-                let list = |item: DataType| {
-                    DataType::List(Arc::new(Field::new_list_field(item, true)))
-                };
+                let list =
+                    |item: DataType| DataType::List(Arc::new(Field::new_list_field(item, true)));
                 let classes = match &t[0] {
                     DataType::List(f) | DataType::LargeList(f) | DataType::FixedSizeList(f, _)
                         if is_text(f.data_type()) =>
@@ -226,7 +238,11 @@ impl ScalarUDFImpl for ScalarFunction {
                 let mut out = vec![t[0].clone()];
                 if class {
                     if !is_text(&t[1]) {
-                        return plan_err!("{}: argument class has type {}; expected text", self.name, t[1]);
+                        return plan_err!(
+                            "{}: argument class has type {}; expected text",
+                            self.name,
+                            t[1]
+                        );
                     }
                     out.push(DataType::Utf8);
                 }
@@ -234,7 +250,10 @@ impl ScalarUDFImpl for ScalarFunction {
                     let ty = &t[out.len()];
                     if reader == Reader::Draw {
                         if !ty.is_integer() && !matches!(ty, DataType::Null) {
-                            return plan_err!("{}: argument seed has type {ty}; expected an integer", self.name);
+                            return plan_err!(
+                                "{}: argument seed has type {ty}; expected an integer",
+                                self.name
+                            );
                         }
                         out.push(DataType::Int64);
                     } else {
@@ -246,7 +265,14 @@ impl ScalarUDFImpl for ScalarFunction {
             Op::Combine(_) | Op::WithPrior => {
                 self.count(n, 2, 2)?;
                 let a = self.posterior("a", &t[0])?;
-                let b = self.posterior(if self.op == Op::WithPrior { "prior" } else { "b" }, &t[1])?;
+                let b = self.posterior(
+                    if self.op == Op::WithPrior {
+                        "prior"
+                    } else {
+                        "b"
+                    },
+                    &t[1],
+                )?;
                 if a != b {
                     return plan_err!(
                         "{}: cannot combine a {} posterior with a {} one",
@@ -263,7 +289,11 @@ impl ScalarUDFImpl for ScalarFunction {
                 let mut out = vec![t[0].clone()];
                 if kind == Kind::Dirichlet {
                     if !is_text(&t[1]) {
-                        return plan_err!("{}: argument observation has type {}; expected a class (text)", self.name, t[1]);
+                        return plan_err!(
+                            "{}: argument observation has type {}; expected a class (text)",
+                            self.name,
+                            t[1]
+                        );
                     }
                     out.push(DataType::Utf8);
                 } else {
@@ -284,7 +314,10 @@ impl ScalarUDFImpl for ScalarFunction {
                 let mut out = vec![DataType::Utf8];
                 for (name, ty) in ["k", "seed"].iter().zip(&t[1..]) {
                     if !ty.is_integer() && !matches!(ty, DataType::Null) {
-                        return plan_err!("{}: argument {name} has type {ty}; expected an integer", self.name);
+                        return plan_err!(
+                            "{}: argument {name} has type {ty}; expected an integer",
+                            self.name
+                        );
                     }
                     out.push(DataType::Int64);
                 }
@@ -292,7 +325,10 @@ impl ScalarUDFImpl for ScalarFunction {
             }
             Op::DecayWeight => {
                 self.count(n, 2, 2)?;
-                Ok(vec![self.number("age", &t[0])?, self.number("half_life", &t[1])?])
+                Ok(vec![
+                    self.number("age", &t[0])?,
+                    self.number("half_life", &t[1])?,
+                ])
             }
         }
     }
@@ -326,7 +362,9 @@ impl ScalarUDFImpl for ScalarFunction {
 }
 
 fn floats(array: &ArrayRef) -> Result<Float64Array> {
-    Ok(cast(array, &DataType::Float64)?.as_primitive::<Float64Type>().clone())
+    Ok(cast(array, &DataType::Float64)?
+        .as_primitive::<Float64Type>()
+        .clone())
 }
 
 fn ints(array: &ArrayRef) -> Result<Int64Array> {
@@ -360,18 +398,29 @@ impl ScalarFunction {
                 let names = classes.value(i);
                 let names = names.as_string::<i32>();
                 if names.null_count() > 0 {
-                    return exec_err!("{}: argument classes contains NULL; give class names", self.name);
+                    return exec_err!(
+                        "{}: argument classes contains NULL; give class names",
+                        self.name
+                    );
                 }
-                let names: Vec<String> = names.iter().map(|s| s.unwrap_or_default().to_string()).collect();
+                let names: Vec<String> = names
+                    .iter()
+                    .map(|s| s.unwrap_or_default().to_string())
+                    .collect();
                 let alpha: Vec<f64> = match conc.data_type() {
                     DataType::List(_) => {
                         let v = conc.as_list::<i32>().value(i);
-                        v.as_primitive::<Float64Type>().iter().map(|x| x.unwrap_or(f64::NAN)).collect()
+                        v.as_primitive::<Float64Type>()
+                            .iter()
+                            .map(|x| x.unwrap_or(f64::NAN))
+                            .collect()
                     }
                     _ => vec![conc.as_primitive::<Float64Type>().value(i); names.len()],
                 };
                 let prior = DirichletPrior::new(names, alpha).map_err(|e| self.err(e))?;
-                out.push(Some(AnyPosterior::Dirichlet(DirichletPosterior::new(prior))));
+                out.push(Some(AnyPosterior::Dirichlet(DirichletPosterior::new(
+                    prior,
+                ))));
             }
             return build(kind, &out);
         }
@@ -382,12 +431,16 @@ impl ScalarFunction {
                 continue;
             }
             let v = |k: usize| cols[k].value(i);
-            let p = match kind {
-                Kind::Beta => BetaPrior::new(v(0), v(1)).map(|p| AnyPosterior::Beta(BetaPosterior::new(p))),
-                Kind::Gamma => GammaPrior::new(v(0), v(1)).map(|p| AnyPosterior::Gamma(GammaPosterior::new(p))),
-                _ => NigPrior::new(v(0), v(1), v(2), v(3)).map(|p| AnyPosterior::Nig(NigPosterior::new(p))),
-            }
-            .map_err(|e| self.err(e))?;
+            let p =
+                match kind {
+                    Kind::Beta => BetaPrior::new(v(0), v(1))
+                        .map(|p| AnyPosterior::Beta(BetaPosterior::new(p))),
+                    Kind::Gamma => GammaPrior::new(v(0), v(1))
+                        .map(|p| AnyPosterior::Gamma(GammaPosterior::new(p))),
+                    _ => NigPrior::new(v(0), v(1), v(2), v(3))
+                        .map(|p| AnyPosterior::Nig(NigPosterior::new(p))),
+                }
+                .map_err(|e| self.err(e))?;
             out.push(Some(p));
         }
         build(kind, &out)
@@ -396,13 +449,23 @@ impl ScalarFunction {
     fn read(&self, reader: Reader, args: &[ArrayRef], rows: usize) -> Result<ArrayRef> {
         let column = PosteriorColumn::new(self.name, &args[0])?;
         let has_class = column.kind() == Kind::Dirichlet && reader != Reader::Evidence;
-        let class = if has_class { Some(texts(&args[1])?) } else { None };
+        let class = if has_class {
+            Some(texts(&args[1])?)
+        } else {
+            None
+        };
         let param_index = 1 + usize::from(has_class);
         let param = match reader {
-            Reader::Quantile | Reader::Interval | Reader::ProbAbove => Some(floats(&args[param_index])?),
+            Reader::Quantile | Reader::Interval | Reader::ProbAbove => {
+                Some(floats(&args[param_index])?)
+            }
             _ => None,
         };
-        let seed = if reader == Reader::Draw { Some(ints(&args[param_index])?) } else { None };
+        let seed = if reader == Reader::Draw {
+            Some(ints(&args[param_index])?)
+        } else {
+            None
+        };
         let mut lower = Vec::with_capacity(rows);
         let mut upper = Vec::with_capacity(if reader == Reader::Interval { rows } else { 0 });
         for i in 0..rows {
@@ -445,7 +508,10 @@ impl ScalarFunction {
                 Reader::ProbAbove => {
                     let t = x.unwrap_or_default();
                     if t.is_nan() {
-                        return exec_err!("{}: argument t is NaN; give a finite threshold", self.name);
+                        return exec_err!(
+                            "{}: argument t is NaN; give a finite threshold",
+                            self.name
+                        );
                     }
                     m.prob_above(t)
                 }
@@ -458,7 +524,9 @@ impl ScalarFunction {
             lower.push(Some(value));
         }
         if reader == Reader::Interval {
-            let DataType::Struct(fields) = interval_type() else { unreachable!() };
+            let DataType::Struct(fields) = interval_type() else {
+                unreachable!()
+            };
             let nulls: Vec<bool> = lower.iter().map(Option::is_some).collect();
             return Ok(Arc::new(StructArray::try_new(
                 fields,
@@ -496,8 +564,16 @@ impl ScalarFunction {
             Op::Without if kind != Kind::Dirichlet => Some(floats(&args[1])?),
             _ => None,
         };
-        let class = if self.op == Op::Without && kind == Kind::Dirichlet { Some(texts(&args[1])?) } else { None };
-        let weight = if self.op == Op::Without && args.len() > 2 { Some(floats(&args[2])?) } else { None };
+        let class = if self.op == Op::Without && kind == Kind::Dirichlet {
+            Some(texts(&args[1])?)
+        } else {
+            None
+        };
+        let weight = if self.op == Op::Without && args.len() > 2 {
+            Some(floats(&args[2])?)
+        } else {
+            None
+        };
         let mut out = Vec::with_capacity(rows);
         for i in 0..rows {
             let left = a.get(i).map_err(|e| self.err(e))?;
@@ -516,10 +592,12 @@ impl ScalarFunction {
                     Some(r) => Some(l.with_prior(&r).map_err(|e| self.err(e))?),
                     None => None,
                 },
-                (Op::Scale, Some(l)) => match number.as_ref().and_then(|f| at(f, i, |f, i| f.value(i))) {
-                    Some(f) => Some(l.scale(f).map_err(|e| self.err(e))?),
-                    None => None,
-                },
+                (Op::Scale, Some(l)) => {
+                    match number.as_ref().and_then(|f| at(f, i, |f, i| f.value(i))) {
+                        Some(f) => Some(l.scale(f).map_err(|e| self.err(e))?),
+                        None => None,
+                    }
+                }
                 (Op::Without, Some(l)) => {
                     let w = match &weight {
                         Some(w) if w.is_null(i) => {
@@ -554,27 +632,45 @@ impl ScalarFunction {
             AnyPosterior::Beta(b) => b.without(x, w).map(AnyPosterior::Beta),
             AnyPosterior::Gamma(g) => g.without(x, w).map(AnyPosterior::Gamma),
             AnyPosterior::Nig(n) => n.without(x, w).map(AnyPosterior::Nig),
-            AnyPosterior::Dirichlet(d) => d.without(class.map_or("", |c| c.value(i)), w).map(AnyPosterior::Dirichlet),
+            AnyPosterior::Dirichlet(d) => d
+                .without(class.map_or("", |c| c.value(i)), w)
+                .map(AnyPosterior::Dirichlet),
         };
         Ok(Some(r.map_err(|e| self.err(e))?))
     }
 
     fn fold_of(&self, args: &[ArrayRef], rows: usize) -> Result<ArrayRef> {
         let keys = texts(&args[0])?;
-        let k = if args.len() > 1 { Some(ints(&args[1])?) } else { None };
-        let seed = if args.len() > 2 { Some(ints(&args[2])?) } else { None };
+        let k = if args.len() > 1 {
+            Some(ints(&args[1])?)
+        } else {
+            None
+        };
+        let seed = if args.len() > 2 {
+            Some(ints(&args[2])?)
+        } else {
+            None
+        };
         let mut out = Vec::with_capacity(rows);
         for i in 0..rows {
-            if keys.is_null(i) || k.as_ref().is_some_and(|k| k.is_null(i)) || seed.as_ref().is_some_and(|s| s.is_null(i)) {
+            if keys.is_null(i)
+                || k.as_ref().is_some_and(|k| k.is_null(i))
+                || seed.as_ref().is_some_and(|s| s.is_null(i))
+            {
                 out.push(None);
                 continue;
             }
             let folds = k.as_ref().map_or(5, |k| k.value(i));
             if folds < 2 {
-                return exec_err!("{}: argument k = {folds} is out of range; allowed: an integer >= 2", self.name);
+                return exec_err!(
+                    "{}: argument k = {folds} is out of range; allowed: an integer >= 2",
+                    self.name
+                );
             }
             let s = seed.as_ref().map_or(0, |s| s.value(i));
-            out.push(Some(rng::fold(keys.value(i).as_bytes(), folds as u64, s as u64) as i64));
+            out.push(Some(
+                rng::fold(keys.value(i).as_bytes(), folds as u64, s as u64) as i64,
+            ));
         }
         Ok(Arc::new(Int64Array::from(out)))
     }
@@ -590,10 +686,16 @@ impl ScalarFunction {
             }
             let (a, h) = (age.value(i), half.value(i));
             if !(a.is_finite() && a >= 0.0) {
-                return exec_err!("{}: argument age = {a} is out of range; allowed: a finite number >= 0", self.name);
+                return exec_err!(
+                    "{}: argument age = {a} is out of range; allowed: a finite number >= 0",
+                    self.name
+                );
             }
             if !(h.is_finite() && h > 0.0) {
-                return exec_err!("{}: argument half_life = {h} is out of range; allowed: a finite number > 0", self.name);
+                return exec_err!(
+                    "{}: argument half_life = {h} is out of range; allowed: a finite number > 0",
+                    self.name
+                );
             }
             out.push(Some((-a / h).exp2()));
         }

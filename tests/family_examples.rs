@@ -47,7 +47,11 @@ fn placenta_previa() {
 // marginal is Beta(728, 584 + 286) (from memory; the update is exact arithmetic).
 #[test]
 fn pre_election_poll() {
-    let classes = vec!["bush".to_string(), "dukakis".to_string(), "other".to_string()];
+    let classes = vec![
+        "bush".to_string(),
+        "dukakis".to_string(),
+        "other".to_string(),
+    ];
     let mut p = DirichletPosterior::new(DirichletPrior::new(classes, vec![1.0; 3]).unwrap());
     for (c, n) in [("bush", 727.0), ("dukakis", 583.0), ("other", 285.0)] {
         p.observe(c, n).unwrap();
@@ -109,11 +113,28 @@ fn nig_large_offset_small_spread() {
 fn quantile_closed_forms() {
     for q in [1e-10, 0.01, 0.3, 0.5, 0.9, 1.0 - 1e-10] {
         close(Marginal::Beta { a: 1.0, b: 1.0 }.quantile(q), q, 1e-14);
-        close(Marginal::Gamma { shape: 1.0, rate: 1.0 }.quantile(q), -(-q).ln_1p(), 1e-13);
+        close(
+            Marginal::Gamma {
+                shape: 1.0,
+                rate: 1.0,
+            }
+            .quantile(q),
+            -(-q).ln_1p(),
+            1e-13,
+        );
         if q != 0.5 {
-            let t = Marginal::StudentT { loc: 0.0, scale: 1.0, dof: 1.0 }.quantile(q);
+            let t = Marginal::StudentT {
+                loc: 0.0,
+                scale: 1.0,
+                dof: 1.0,
+            }
+            .quantile(q);
             let pi = std::f64::consts::PI;
-            let want = if q < 0.5 { -1.0 / (pi * q).tan() } else { 1.0 / (pi * (1.0 - q)).tan() };
+            let want = if q < 0.5 {
+                -1.0 / (pi * q).tan()
+            } else {
+                1.0 / (pi * (1.0 - q)).tan()
+            };
             close(t, want, 1e-12);
         }
     }
@@ -125,16 +146,25 @@ fn errors_instead_of_panics() {
     assert!(BetaPrior::new(f64::NAN, 1.0).is_err());
     assert!(NigPrior::new(f64::INFINITY, 1.0, 1.0, 1.0).is_err());
     let mut p = BetaPosterior::new(BetaPrior::JEFFREYS);
-    assert!(matches!(p.observe(2.0, 1.0), Err(FamilyError::InvalidObservation { .. })));
+    assert!(matches!(
+        p.observe(2.0, 1.0),
+        Err(FamilyError::InvalidObservation { .. })
+    ));
     assert!(p.observe(1.0, -1.0).is_err());
     assert!(p.observe(1.0, f64::NAN).is_err());
     p.observe(1.0, 1.0).unwrap();
     let mut bigger = p;
     bigger.observe(0.0, 1.0).unwrap();
-    assert!(matches!(p.subtract(&bigger), Err(FamilyError::InsufficientEvidence(_))));
+    assert!(matches!(
+        p.subtract(&bigger),
+        Err(FamilyError::InsufficientEvidence(_))
+    ));
     let other = BetaPosterior::new(BetaPrior::new(1.0, 1.0).unwrap());
     let e = p.merge(&other).unwrap_err().to_string();
-    assert!(e.contains("beta_prior(0.5, 0.5)") && e.contains("beta_prior(1, 1)"), "{e}");
+    assert!(
+        e.contains("beta_prior(0.5, 0.5)") && e.contains("beta_prior(1, 1)"),
+        "{e}"
+    );
     assert!(DirichletPrior::new(vec![], vec![]).is_err());
     assert!(DirichletPrior::new(vec!["a".into(), "a".into()], vec![1.0, 1.0]).is_err());
     assert!(p.scale(1.5).is_err());
@@ -167,16 +197,32 @@ fn check_algebra<P: Conjugate + std::fmt::Debug>(
         let full = fit(&data);
         let cut1 = g.below(n + 1);
         let cut2 = cut1 + g.below(n - cut1 + 1);
-        let (a, b, c) = (fit(&data[..cut1]), fit(&data[cut1..cut2]), fit(&data[cut2..]));
+        let (a, b, c) = (
+            fit(&data[..cut1]),
+            fit(&data[cut1..cut2]),
+            fit(&data[cut2..]),
+        );
         let left = a.merge(&b).unwrap().merge(&c).unwrap();
         let right = a.merge(&b.merge(&c).unwrap()).unwrap();
-        assert!(same(&left, &full), "{name}: split-merge differs: {left:?} vs {full:?}");
+        assert!(
+            same(&left, &full),
+            "{name}: split-merge differs: {left:?} vs {full:?}"
+        );
         assert!(same(&left, &right), "{name}: merge not associative");
-        assert!(same(&a.merge(&b).unwrap(), &b.merge(&a).unwrap()), "{name}: not commutative");
+        assert!(
+            same(&a.merge(&b).unwrap(), &b.merge(&a).unwrap()),
+            "{name}: not commutative"
+        );
         let back = full.subtract(&b).unwrap();
         let rest = a.merge(&c).unwrap();
-        assert!(same(&back, &rest), "{name}: subtract does not undo merge: {back:?} vs {rest:?}");
-        assert!(same(&full.scale(1.0).unwrap(), &full), "{name}: scale(1) is not the identity");
+        assert!(
+            same(&back, &rest),
+            "{name}: subtract does not undo merge: {back:?} vs {rest:?}"
+        );
+        assert!(
+            same(&full.scale(1.0).unwrap(), &full),
+            "{name}: scale(1) is not the identity"
+        );
     }
 }
 
@@ -236,14 +282,18 @@ fn nig_algebra() {
 
 #[test]
 fn dirichlet_algebra() {
-    let classes: Vec<String> = ["attended", "no_show", "late_cancel"].iter().map(|s| s.to_string()).collect();
+    let classes: Vec<String> = ["attended", "no_show", "late_cancel"]
+        .iter()
+        .map(|s| s.to_string())
+        .collect();
     let prior = DirichletPrior::new(classes.clone(), vec![1.0, 0.5, 0.5]).unwrap();
     check_algebra(
         "dirichlet",
         4,
         |d| {
             let mut p = DirichletPosterior::new(prior.clone());
-            d.iter().for_each(|&(k, w)| p.observe(&classes[k as usize], w).unwrap());
+            d.iter()
+                .for_each(|&(k, w)| p.observe(&classes[k as usize], w).unwrap());
             p
         },
         |g| (g.below(3) as f64, g.next()),

@@ -46,8 +46,15 @@ fn rows() -> Vec<Row> {
 fn marginal(r: &Row) -> Marginal {
     match r.family.as_str() {
         "beta" => Marginal::Beta { a: r.p1, b: r.p2 },
-        "gamma" => Marginal::Gamma { shape: r.p1, rate: 1.0 },
-        _ => Marginal::StudentT { loc: 0.0, scale: 1.0, dof: r.p1 },
+        "gamma" => Marginal::Gamma {
+            shape: r.p1,
+            rate: 1.0,
+        },
+        _ => Marginal::StudentT {
+            loc: 0.0,
+            scale: 1.0,
+            dof: r.p1,
+        },
     }
 }
 
@@ -84,11 +91,22 @@ fn cdf_and_survival_match_mpmath() {
                 over += 1;
             }
             if e > worst.0 || e.is_nan() {
-                worst = (e, format!("{} p1={} p2={} x={} got {got} want {want}", r.family, r.p1, r.p2, r.x));
+                worst = (
+                    e,
+                    format!(
+                        "{} p1={} p2={} x={} got {got} want {want}",
+                        r.family, r.p1, r.p2, r.x
+                    ),
+                );
             }
         }
     }
-    eprintln!("tails: worst relative error {:e} at {}; {over} of {} over 1e-12", worst.0, worst.1, 2 * rows.len());
+    eprintln!(
+        "tails: worst relative error {:e} at {}; {over} of {} over 1e-12",
+        worst.0,
+        worst.1,
+        2 * rows.len()
+    );
     assert!(worst.0 <= 1e-9, "worst {:e} at {}", worst.0, worst.1);
     assert!(over * 100 <= 2 * rows.len() * 8, "{over} tails over 1e-12");
 }
@@ -105,10 +123,21 @@ fn quantiles_match_mpmath() {
             over += 1;
         }
         if e > worst.0 || e.is_nan() {
-            worst = (e, format!("{} p1={} p2={} q={} got {got} want {}", r.family, r.p1, r.p2, r.q, r.quantile));
+            worst = (
+                e,
+                format!(
+                    "{} p1={} p2={} q={} got {got} want {}",
+                    r.family, r.p1, r.p2, r.q, r.quantile
+                ),
+            );
         }
     }
-    eprintln!("quantiles: worst relative error {:e} at {}; {over} of {} over 1e-12", worst.0, worst.1, rows.len());
+    eprintln!(
+        "quantiles: worst relative error {:e} at {}; {over} of {} over 1e-12",
+        worst.0,
+        worst.1,
+        rows.len()
+    );
     assert!(worst.0 <= 5e-8, "worst {:e} at {}", worst.0, worst.1);
     assert!(over * 100 <= rows.len() * 8, "{over} quantiles over 1e-12");
 }
@@ -119,11 +148,22 @@ fn dump_errors() {
     for r in rows() {
         let m = marginal(&r);
         let (lo, up) = m.tails(r.x);
-        let e1 = if r.lower >= 1e-280 { rel(lo, r.lower) } else { 0.0 };
-        let e2 = if r.upper >= 1e-280 { rel(up, r.upper) } else { 0.0 };
+        let e1 = if r.lower >= 1e-280 {
+            rel(lo, r.lower)
+        } else {
+            0.0
+        };
+        let e2 = if r.upper >= 1e-280 {
+            rel(up, r.upper)
+        } else {
+            0.0
+        };
         let eq = rel(m.quantile(r.q), r.quantile);
         if e1.max(e2) > 1e-12 || eq > 1e-12 {
-            println!("{} {:e} {:e} x={:e} q={} | tail {:.1e} {:.1e} quant {:.1e}", r.family, r.p1, r.p2, r.x, r.q, e1, e2, eq);
+            println!(
+                "{} {:e} {:e} x={:e} q={} | tail {:.1e} {:.1e} quant {:.1e}",
+                r.family, r.p1, r.p2, r.x, r.q, e1, e2, eq
+            );
         }
     }
 }

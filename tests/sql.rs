@@ -18,7 +18,10 @@ async fn ctx_with(partitions: usize, batch: usize) -> SessionContext {
         let no_show = i32::from(i % 3 == 0 || (i % 4 == 1 && i % 5 == 0));
         let amount = 50.0 + (i as f64) * 1.5 + if i % 4 == 2 { 30.0 } else { 0.0 };
         let outcome = ["attended", "no_show", "late_cancel"][(i * 7) % 3];
-        rows.push(format!("('{breed}', {no_show}, {amount}, '{outcome}', {i}, {})", i % 5 + 1));
+        rows.push(format!(
+            "('{breed}', {no_show}, {amount}, '{outcome}', {i}, {})",
+            i % 5 + 1
+        ));
     }
     ctx.sql(&format!(
         "CREATE TABLE appts (breed VARCHAR, no_show INT, amount DOUBLE, outcome VARCHAR, t INT, visits INT) AS VALUES {}",
@@ -34,7 +37,12 @@ async fn ctx() -> SessionContext {
 }
 
 async fn query(ctx: &SessionContext, sql: &str) -> Vec<RecordBatch> {
-    ctx.sql(sql).await.unwrap_or_else(|e| panic!("{sql}: {e}")).collect().await.unwrap_or_else(|e| panic!("{sql}: {e}"))
+    ctx.sql(sql)
+        .await
+        .unwrap_or_else(|e| panic!("{sql}: {e}"))
+        .collect()
+        .await
+        .unwrap_or_else(|e| panic!("{sql}: {e}"))
 }
 
 async fn error(ctx: &SessionContext, sql: &str) -> String {
@@ -63,7 +71,10 @@ async fn one(ctx: &SessionContext, sql: &str) -> f64 {
 }
 
 fn close(got: f64, want: f64, tol: f64) {
-    assert!((got - want).abs() <= tol * want.abs().max(1.0), "got {got}, want {want}");
+    assert!(
+        (got - want).abs() <= tol * want.abs().max(1.0),
+        "got {got}, want {want}"
+    );
 }
 
 // Jeffreys Beta(1/2, 1/2) + 2 successes, 1 failure = Beta(5/2, 3/2): mean 0.625,
@@ -73,11 +84,35 @@ async fn exact_beta_from_sql() {
     let c = ctx().await;
     let sql = "SELECT posterior_mean(p), posterior_var(p) FROM (SELECT beta_posterior(y) AS p FROM (VALUES (1), (1), (0)) t(y))";
     let b = query(&c, sql).await;
-    close(b[0].column(0).as_primitive::<Float64Type>().value(0), 0.625, 1e-15);
-    close(b[0].column(1).as_primitive::<Float64Type>().value(0), 0.046875, 1e-15);
+    close(
+        b[0].column(0).as_primitive::<Float64Type>().value(0),
+        0.625,
+        1e-15,
+    );
+    close(
+        b[0].column(1).as_primitive::<Float64Type>().value(0),
+        0.046875,
+        1e-15,
+    );
     // Booleans and floats are accepted as outcomes.
-    close(one(&c, "SELECT posterior_mean(beta_posterior(y)) FROM (VALUES (true), (true), (false)) t(y)").await, 0.625, 1e-15);
-    close(one(&c, "SELECT posterior_mean(beta_posterior(y)) FROM (VALUES (1.0), (1.0), (0.0)) t(y)").await, 0.625, 1e-15);
+    close(
+        one(
+            &c,
+            "SELECT posterior_mean(beta_posterior(y)) FROM (VALUES (true), (true), (false)) t(y)",
+        )
+        .await,
+        0.625,
+        1e-15,
+    );
+    close(
+        one(
+            &c,
+            "SELECT posterior_mean(beta_posterior(y)) FROM (VALUES (1.0), (1.0), (0.0)) t(y)",
+        )
+        .await,
+        0.625,
+        1e-15,
+    );
 }
 
 #[tokio::test]
@@ -87,7 +122,8 @@ async fn fit_matches_count_and_sum() {
     for d in floats(&c, sql).await {
         assert!(d.unwrap().abs() < 1e-15);
     }
-    let sql = "SELECT posterior_evidence(beta_posterior(no_show)) - COUNT(*) FROM appts GROUP BY breed";
+    let sql =
+        "SELECT posterior_evidence(beta_posterior(no_show)) - COUNT(*) FROM appts GROUP BY breed";
     for d in floats(&c, sql).await {
         assert_eq!(d.unwrap(), 0.0);
     }
@@ -132,13 +168,21 @@ async fn window_as_of_and_sliding() {
     // Same as an explicit self-join aggregate.
     let window = "SELECT posterior_mean(beta_posterior(no_show) OVER (PARTITION BY breed ORDER BY t ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)) FROM appts ORDER BY t";
     let joined = "SELECT posterior_mean(beta_posterior(b.no_show)) FROM appts a LEFT JOIN appts b ON a.breed = b.breed AND b.t < a.t GROUP BY a.t ORDER BY a.t";
-    for (x, y) in floats(&c, window).await.iter().zip(floats(&c, joined).await) {
+    for (x, y) in floats(&c, window)
+        .await
+        .iter()
+        .zip(floats(&c, joined).await)
+    {
         close(x.unwrap(), y.unwrap(), 1e-12);
     }
     // Sliding RANGE frame (retraction) against a direct computation.
     let sliding = "SELECT posterior_mean(nig_posterior(amount, nig_prior(0, 1, 2, 1)) OVER (ORDER BY t RANGE BETWEEN 5 PRECEDING AND 1 PRECEDING)) FROM appts ORDER BY t";
     let direct = "SELECT posterior_mean(nig_posterior(b.amount, nig_prior(0, 1, 2, 1))) FROM appts a LEFT JOIN appts b ON b.t BETWEEN a.t - 5 AND a.t - 1 GROUP BY a.t ORDER BY a.t";
-    for (x, y) in floats(&c, sliding).await.iter().zip(floats(&c, direct).await) {
+    for (x, y) in floats(&c, sliding)
+        .await
+        .iter()
+        .zip(floats(&c, direct).await)
+    {
         close(x.unwrap(), y.unwrap(), 1e-9);
     }
 }
@@ -147,7 +191,8 @@ async fn window_as_of_and_sliding() {
 async fn pooled_days_equal_a_full_fit() {
     let c = ctx().await;
     let pooled = "SELECT posterior_mean(posterior_pool(p)) FROM (SELECT breed, t % 3 AS day, nig_posterior(amount) AS p FROM appts GROUP BY breed, t % 3) GROUP BY breed ORDER BY breed";
-    let full = "SELECT posterior_mean(nig_posterior(amount)) FROM appts GROUP BY breed ORDER BY breed";
+    let full =
+        "SELECT posterior_mean(nig_posterior(amount)) FROM appts GROUP BY breed ORDER BY breed";
     for (x, y) in floats(&c, pooled).await.iter().zip(floats(&c, full).await) {
         close(x.unwrap(), y.unwrap(), 1e-12);
     }
@@ -184,7 +229,14 @@ async fn parquet_round_trip() {
     let path = dir.join("enc.parquet");
     std::fs::create_dir_all(&dir).unwrap();
     query(&c, &format!("COPY (SELECT breed, beta_posterior(no_show) AS b, nig_posterior(amount) AS n, dirichlet_posterior(outcome, dirichlet_prior(['attended', 'no_show', 'late_cancel'], 0.5)) AS d FROM appts GROUP BY breed) TO '{}' STORED AS PARQUET", path.display())).await;
-    query(&c, &format!("CREATE EXTERNAL TABLE back STORED AS PARQUET LOCATION '{}'", path.display())).await;
+    query(
+        &c,
+        &format!(
+            "CREATE EXTERNAL TABLE back STORED AS PARQUET LOCATION '{}'",
+            path.display()
+        ),
+    )
+    .await;
     let a = floats(&c, "SELECT posterior_mean(b) + posterior_mean(n) + posterior_mean(d, 'late_cancel') FROM back ORDER BY breed").await;
     let b = floats(&c, "SELECT posterior_mean(beta_posterior(no_show)) + posterior_mean(nig_posterior(amount)) + posterior_mean(dirichlet_posterior(outcome, dirichlet_prior(['attended', 'no_show', 'late_cancel'], 0.5)), 'late_cancel') FROM appts GROUP BY breed ORDER BY breed").await;
     assert_eq!(a, b);
@@ -195,30 +247,69 @@ async fn parquet_round_trip() {
 async fn clear_errors() {
     let c = ctx().await;
     let e = error(&c, "SELECT beta_posterior(y) FROM (VALUES (2)) t(y)").await;
-    assert!(e.contains("beta_posterior") && e.contains("outcome = 2"), "{e}");
+    assert!(
+        e.contains("beta_posterior") && e.contains("outcome = 2"),
+        "{e}"
+    );
     let e = error(&c, "SELECT posterior_mean(named_struct('x', 1.0))").await;
-    assert!(e.contains("posterior_mean") && e.contains("expected a posterior struct"), "{e}");
+    assert!(
+        e.contains("posterior_mean") && e.contains("expected a posterior struct"),
+        "{e}"
+    );
     let e = error(&c, "SELECT posterior_mean(0.5)").await;
     assert!(e.contains("posterior_mean"), "{e}");
     let e = error(&c, "SELECT posterior_quantile(beta_prior(1, 1), 1.5)").await;
-    assert!(e.contains("q = 1.5") && e.contains("strictly between 0 and 1"), "{e}");
+    assert!(
+        e.contains("q = 1.5") && e.contains("strictly between 0 and 1"),
+        "{e}"
+    );
     let e = error(&c, "SELECT beta_prior(0, 1)").await;
     assert!(e.contains("beta_prior") && e.contains("a = 0"), "{e}");
-    let e = error(&c, "SELECT posterior_merge(beta_prior(1, 1), beta_prior(1, 2))").await;
-    assert!(e.contains("beta_prior(1, 1)") && e.contains("beta_prior(1, 2)"), "{e}");
+    let e = error(
+        &c,
+        "SELECT posterior_merge(beta_prior(1, 1), beta_prior(1, 2))",
+    )
+    .await;
+    assert!(
+        e.contains("beta_prior(1, 1)") && e.contains("beta_prior(1, 2)"),
+        "{e}"
+    );
     let e = error(&c, "SELECT fold_of('x', 0)").await;
     assert!(e.contains("fold_of") && e.contains("k = 0"), "{e}");
-    let e = error(&c, "SELECT dirichlet_posterior(outcome, dirichlet_prior(['attended'], 1)) FROM appts").await;
+    let e = error(
+        &c,
+        "SELECT dirichlet_posterior(outcome, dirichlet_prior(['attended'], 1)) FROM appts",
+    )
+    .await;
     assert!(e.contains("no_show") || e.contains("late_cancel"), "{e}");
-    let e = error(&c, "SELECT beta_posterior(no_show, p) FROM appts, (SELECT beta_prior(1, 1) AS p)").await;
+    let e = error(
+        &c,
+        "SELECT beta_posterior(no_show, p) FROM appts, (SELECT beta_prior(1, 1) AS p)",
+    )
+    .await;
     assert!(e.contains("must be a constant"), "{e}");
 }
 
 #[tokio::test]
 async fn nulls_are_ignored_or_propagated() {
     let c = ctx().await;
-    close(one(&c, "SELECT posterior_evidence(beta_posterior(y)) FROM (VALUES (1), (NULL), (0)) t(y)").await, 2.0, 0.0);
-    assert_eq!(floats(&c, "SELECT posterior_mean(CASE WHEN false THEN beta_prior(1, 1) END)").await, vec![None]);
+    close(
+        one(
+            &c,
+            "SELECT posterior_evidence(beta_posterior(y)) FROM (VALUES (1), (NULL), (0)) t(y)",
+        )
+        .await,
+        2.0,
+        0.0,
+    );
+    assert_eq!(
+        floats(
+            &c,
+            "SELECT posterior_mean(CASE WHEN false THEN beta_prior(1, 1) END)"
+        )
+        .await,
+        vec![None]
+    );
     // An empty input still yields the prior.
     close(one(&c, "SELECT posterior_mean(beta_posterior(no_show, beta_prior(1, 3))) FROM appts WHERE t < 0").await, 0.25, 1e-15);
 }
@@ -228,7 +319,11 @@ async fn decay_and_folds() {
     let c = ctx().await;
     close(one(&c, "SELECT decay_weight(90, 90)").await, 0.5, 0.0);
     close(one(&c, "SELECT decay_weight(0, 7)").await, 1.0, 0.0);
-    let b = query(&c, "SELECT fold_of('123', 5) = fold_of(123, 5), fold_of('beagle', 5, 1) BETWEEN 0 AND 4").await;
+    let b = query(
+        &c,
+        "SELECT fold_of('123', 5) = fold_of(123, 5), fold_of('beagle', 5, 1) BETWEEN 0 AND 4",
+    )
+    .await;
     assert!(b[0].column(0).as_boolean().value(0));
     assert!(b[0].column(1).as_boolean().value(0));
 }

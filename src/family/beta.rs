@@ -105,7 +105,10 @@ impl BetaPosterior {
 
     /// Posterior parameters (a, b).
     pub fn params(&self) -> (f64, f64) {
-        (self.prior.a0 + self.successes, self.prior.b0 + self.failures())
+        (
+            self.prior.a0 + self.successes,
+            self.prior.b0 + self.failures(),
+        )
     }
 
     pub fn marginal(&self) -> Marginal {

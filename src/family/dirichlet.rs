@@ -116,14 +116,22 @@ impl DirichletPosterior {
 
     /// Posterior concentrations.
     pub fn params(&self) -> Vec<f64> {
-        self.prior.alpha0.iter().zip(&self.counts).map(|(a, c)| a + c).collect()
+        self.prior
+            .alpha0
+            .iter()
+            .zip(&self.counts)
+            .map(|(a, c)| a + c)
+            .collect()
     }
 
     /// Beta marginal of one class.
     pub fn marginal(&self, k: usize) -> Marginal {
         let total: f64 = self.prior.alpha0.iter().sum::<f64>() + self.counts.iter().sum::<f64>();
         let a = self.prior.alpha0[k] + self.counts[k];
-        Marginal::Beta { a, b: (total - a).max(f64::MIN_POSITIVE) }
+        Marginal::Beta {
+            a,
+            b: (total - a).max(f64::MIN_POSITIVE),
+        }
     }
 
     fn same_prior(&self, other: &Self) -> Result<()> {
@@ -141,7 +149,12 @@ impl DirichletPosterior {
 impl Conjugate for DirichletPosterior {
     fn merge(&self, other: &Self) -> Result<Self> {
         self.same_prior(other)?;
-        let counts = self.counts.iter().zip(&other.counts).map(|(a, b)| a + b).collect();
+        let counts = self
+            .counts
+            .iter()
+            .zip(&other.counts)
+            .map(|(a, b)| a + b)
+            .collect();
         Ok(DirichletPosterior {
             prior: self.prior.clone(),
             counts,

@@ -6,8 +6,8 @@
 //! always against the tail that holds the smaller probability, so q = 1 - 1e-10
 //! is as accurate as q = 1e-10.
 
-use super::special::{beta_inc, beta_prefactor, gamma_inc, gamma_prefactor, ln_beta, ln_gamma};
 use super::special::normal_quantile_approx;
+use super::special::{beta_inc, beta_prefactor, gamma_inc, gamma_prefactor, ln_beta, ln_gamma};
 
 /// A one-dimensional posterior marginal.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -130,7 +130,11 @@ pub fn student_t_quantile(dof: f64, q: f64) -> f64 {
     }
     let p = 2.0 * q.min(1.0 - q);
     let (x, y) = beta_quantile(dof / 2.0, 0.5, p);
-    let t = if x > 0.0 { (dof * (y / x)).sqrt() } else { f64::INFINITY };
+    let t = if x > 0.0 {
+        (dof * (y / x)).sqrt()
+    } else {
+        f64::INFINITY
+    };
     if q < 0.5 {
         -t
     } else {
@@ -179,7 +183,14 @@ fn beta_quantile_below_half(a: f64, b: f64, q: f64, qc: f64) -> f64 {
     } else {
         normal
     };
-    solve_log(target, lower, guess.clamp(1e-300, 0.5), f64::MIN_POSITIVE, 0.5, eval)
+    solve_log(
+        target,
+        lower,
+        guess.clamp(1e-300, 0.5),
+        f64::MIN_POSITIVE,
+        0.5,
+        eval,
+    )
 }
 
 /// Quantile of Gamma(shape, 1).
@@ -210,7 +221,14 @@ pub fn gamma_quantile(a: f64, q: f64) -> f64 {
     } else {
         a.max(-target.ln())
     };
-    solve_log(target, lower, guess.clamp(1e-300, 1e300), f64::MIN_POSITIVE, f64::MAX, eval)
+    solve_log(
+        target,
+        lower,
+        guess.clamp(1e-300, 1e300),
+        f64::MIN_POSITIVE,
+        f64::MAX,
+        eval,
+    )
 }
 
 /// Solve tail(x) = target for x in [lo, hi] by Newton steps on u = ln x, falling back
@@ -241,7 +259,11 @@ fn solve_log(
         } else {
             uhi = u;
         }
-        let slope = if increasing { x * density / tail } else { -x * density / tail };
+        let slope = if increasing {
+            x * density / tail
+        } else {
+            -x * density / tail
+        };
         let mut next = u - h / slope;
         if !next.is_finite() || next <= ulo || next >= uhi {
             next = 0.5 * (ulo + uhi);

@@ -72,7 +72,10 @@ impl GammaPosterior {
 
     /// Posterior (shape, rate).
     pub fn params(&self) -> (f64, f64) {
-        (self.prior.shape0 + self.events, self.prior.rate0 + self.exposure)
+        (
+            self.prior.shape0 + self.events,
+            self.prior.rate0 + self.exposure,
+        )
     }
 
     pub fn marginal(&self) -> Marginal {

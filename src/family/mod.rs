@@ -52,7 +52,10 @@ impl fmt::Display for FamilyError {
                 name,
                 value,
                 allowed,
-            } => write!(f, "argument {name} = {value} is out of range; allowed: {allowed}"),
+            } => write!(
+                f,
+                "argument {name} = {value} is out of range; allowed: {allowed}"
+            ),
             FamilyError::InvalidObservation {
                 name,
                 value,
@@ -64,7 +67,10 @@ impl fmt::Display for FamilyError {
                  re-prior one with posterior_with_prior first"
             ),
             FamilyError::InsufficientEvidence(detail) => {
-                write!(f, "cannot remove more evidence than the posterior holds: {detail}")
+                write!(
+                    f,
+                    "cannot remove more evidence than the posterior holds: {detail}"
+                )
             }
             FamilyError::InvalidClasses(detail) => write!(f, "{detail}"),
         }

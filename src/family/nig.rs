@@ -142,7 +142,11 @@ impl NigPosterior {
     pub fn without(&self, x: f64, w: f64) -> Result<Self> {
         let x = check_value(x)?;
         let w = weight("weight", w)?;
-        let part = NigStats { n: w, mean: x, m2: 0.0 };
+        let part = NigStats {
+            n: w,
+            mean: x,
+            m2: 0.0,
+        };
         Ok(NigPosterior {
             prior: self.prior,
             stats: self.stats.remove(&part)?,
@@ -187,7 +191,10 @@ impl NigPosterior {
             Ok(())
         } else {
             let show = |p: &NigPrior| {
-                format!("nig_prior({}, {}, {}, {})", p.mu0, p.kappa0, p.alpha0, p.beta0)
+                format!(
+                    "nig_prior({}, {}, {}, {})",
+                    p.mu0, p.kappa0, p.alpha0, p.beta0
+                )
             };
             Err(FamilyError::PriorMismatch {
                 left: show(&self.prior),

@@ -53,7 +53,15 @@ mod tests {
             .iter()
             .map(|k| fold(k.as_bytes(), 5, 0))
             .collect();
-        assert_eq!(got, vec![fold(b"beagle", 5, 0), fold(b"poodle", 5, 0), fold(b"", 5, 0), fold(b"AB12", 5, 0)]);
+        assert_eq!(
+            got,
+            vec![
+                fold(b"beagle", 5, 0),
+                fold(b"poodle", 5, 0),
+                fold(b"", 5, 0),
+                fold(b"AB12", 5, 0)
+            ]
+        );
         let counts = (0..50_000u32).fold([0u32; 5], |mut c, i| {
             c[fold(i.to_string().as_bytes(), 5, 7) as usize] += 1;
             c

@@ -24,7 +24,9 @@ impl Gen {
     /// Index from cumulative weights.
     fn pick(&mut self, cumulative: &[f64]) -> usize {
         let u = self.unit() * cumulative[cumulative.len() - 1];
-        cumulative.partition_point(|c| *c < u).min(cumulative.len() - 1)
+        cumulative
+            .partition_point(|c| *c < u)
+            .min(cumulative.len() - 1)
     }
     fn poisson(&mut self, mean: f64) -> u64 {
         // Knuth's product method; means here stay small.
@@ -70,7 +72,9 @@ pub fn generate(dir: &Path, rows: usize, seed: u64) -> std::io::Result<()> {
     let breed_effect: Vec<f64> = (0..n_breeds).map(|_| 0.45 * g.normal()).collect();
     let area_effect: Vec<f64> = (0..n_areas).map(|_| 0.6 * g.normal()).collect();
     let vet_fee: Vec<f64> = (0..n_vets).map(|_| 85.0 + 15.0 * g.normal()).collect();
-    let breed_visit_rate: Vec<f64> = (0..n_breeds).map(|_| 2.0 * (0.3 * g.normal()).exp()).collect();
+    let breed_visit_rate: Vec<f64> = (0..n_breeds)
+        .map(|_| 2.0 * (0.3 * g.normal()).exp())
+        .collect();
     let channels = ["phone", "web", "walk_in", "partner_referral", "app"];
     let channel_effect = [0.0, 0.2, -0.5, 0.4, 0.1];
     let (breed_w, area_w) = (zipf(n_breeds, 1.1), zipf(n_areas, 1.05));
@@ -93,7 +97,11 @@ pub fn generate(dir: &Path, rows: usize, seed: u64) -> std::io::Result<()> {
         } else {
             format!("PA{:04}", g.pick(&area_w))
         };
-        let a_eff = if area.starts_with("PN") { 0.0 } else { area_effect[area[2..].parse::<usize>().unwrap_or(0)] };
+        let a_eff = if area.starts_with("PN") {
+            0.0
+        } else {
+            area_effect[area[2..].parse::<usize>().unwrap_or(0)]
+        };
         let c = g.pick(&[1.0, 2.0, 3.0, 3.5, 4.0]);
         let vet = (id * 7 + b) % n_vets;
         let logit = -2.3 + breed_effect[b] + a_eff + channel_effect[c];
@@ -195,10 +203,15 @@ JOIN breed_truth t USING (breed)"),
 
 /// Generate the data and tell the story.
 pub async fn run(shell: &Shell, dir: &Path, rows: usize, seed: u64) -> Result<(), Failure> {
-    generate(dir, rows, seed).map_err(|e| Failure::query(format!("cannot write demo data to {}: {e}", dir.display())))?;
+    generate(dir, rows, seed)
+        .map_err(|e| Failure::query(format!("cannot write demo data to {}: {e}", dir.display())))?;
     let d = dir.display().to_string();
     println!("Generated {rows} invented appointments (seed {seed}) in {d}\n");
-    for (name, file) in [("appointments_csv", "appointments.csv"), ("pets_csv", "pets.csv"), ("breed_truth", "breed_truth.csv")] {
+    for (name, file) in [
+        ("appointments_csv", "appointments.csv"),
+        ("pets_csv", "pets.csv"),
+        ("breed_truth", "breed_truth.csv"),
+    ] {
         shell.register_table(&format!("{name}={d}/{file}")).await?;
     }
     for (title, sql) in STORY {

@@ -12,7 +12,9 @@ use std::path::Path;
 use std::time::Instant;
 
 use datafusion::arrow::array::RecordBatch;
-use datafusion::datasource::file_format::options::{CsvReadOptions, JsonReadOptions, ParquetReadOptions};
+use datafusion::datasource::file_format::options::{
+    CsvReadOptions, JsonReadOptions, ParquetReadOptions,
+};
 use datafusion::execution::runtime_env::RuntimeEnvBuilder;
 use datafusion::prelude::{SessionConfig, SessionContext};
 
@@ -44,10 +46,16 @@ pub struct Failure {
 
 impl Failure {
     pub fn query(message: impl Into<String>) -> Self {
-        Failure { message: one_line(&message.into()), code: 1 }
+        Failure {
+            message: one_line(&message.into()),
+            code: 1,
+        }
     }
     pub fn usage(message: impl Into<String>) -> Self {
-        Failure { message: one_line(&message.into()), code: 2 }
+        Failure {
+            message: one_line(&message.into()),
+            code: 2,
+        }
     }
 }
 
@@ -70,11 +78,16 @@ pub fn parse_size(s: &str) -> Result<usize, String> {
         .ok()
         .filter(|v| v.is_finite() && *v > 0.0)
         .map(|v| (v * mult as f64) as usize)
-        .ok_or_else(|| format!("invalid size '{s}'; use a number with an optional K, M or G suffix, e.g. 2G"))
+        .ok_or_else(|| {
+            format!("invalid size '{s}'; use a number with an optional K, M or G suffix, e.g. 2G")
+        })
 }
 
 /// A session with posterity registered, the memory limit and thread count applied.
-pub fn session(memory_limit: Option<usize>, threads: Option<usize>) -> Result<SessionContext, Failure> {
+pub fn session(
+    memory_limit: Option<usize>,
+    threads: Option<usize>,
+) -> Result<SessionContext, Failure> {
     let mut config = SessionConfig::new().with_information_schema(true);
     if let Some(n) = threads {
         config = config.with_target_partitions(n.max(1));
@@ -83,7 +96,9 @@ pub fn session(memory_limit: Option<usize>, threads: Option<usize>) -> Result<Se
     if let Some(bytes) = memory_limit {
         runtime = runtime.with_memory_limit(bytes, 1.0);
     }
-    let runtime = runtime.build_arc().map_err(|e| Failure::usage(e.to_string()))?;
+    let runtime = runtime
+        .build_arc()
+        .map_err(|e| Failure::usage(e.to_string()))?;
     let ctx = SessionContext::new_with_config_rt(config, runtime);
     posterity::register(&ctx);
     Ok(ctx)
@@ -93,11 +108,15 @@ impl Shell {
     /// Register `NAME=PATH` (a file, a directory of files or a glob).
     pub async fn register_table(&self, spec: &str) -> Result<(), Failure> {
         let Some((name, path)) = spec.split_once('=') else {
-            return Err(Failure::usage(format!("--table expects NAME=PATH, got '{spec}'")));
+            return Err(Failure::usage(format!(
+                "--table expects NAME=PATH, got '{spec}'"
+            )));
         };
         let (name, path) = (name.trim(), path.trim());
         if name.is_empty() || path.is_empty() {
-            return Err(Failure::usage(format!("--table expects NAME=PATH, got '{spec}'")));
+            return Err(Failure::usage(format!(
+                "--table expects NAME=PATH, got '{spec}'"
+            )));
         }
         let format = file_kind(path).ok_or_else(|| {
             Failure::usage(format!(
@@ -105,38 +124,107 @@ impl Shell {
             ))
         })?;
         if !path.contains('*') && !Path::new(path).exists() {
-            return Err(Failure::query(format!("--table {name}: '{path}' does not exist")));
+            return Err(Failure::query(format!(
+                "--table {name}: '{path}' does not exist"
+            )));
         }
         let result = match format {
             FileKind::Parquet => {
                 let ext = extension_of(path, ".parquet");
-                self.ctx.register_parquet(name, path, ParquetReadOptions::default().file_extension(&ext)).await
+                self.ctx
+                    .register_parquet(
+                        name,
+                        path,
+                        ParquetReadOptions::default().file_extension(&ext),
+                    )
+                    .await
             }
             FileKind::Csv | FileKind::Tsv => {
-                let ext = extension_of(path, if format == FileKind::Tsv { ".tsv" } else { ".csv" });
-                let delimiter = if format == FileKind::Tsv { b'\t' } else { self.csv.delimiter };
+                let ext = extension_of(
+                    path,
+                    if format == FileKind::Tsv {
+                        ".tsv"
+                    } else {
+                        ".csv"
+                    },
+                );
+                let delimiter = if format == FileKind::Tsv {
+                    b'\t'
+                } else {
+                    self.csv.delimiter
+                };
                 let mut options = CsvReadOptions::new()
                     .has_header(self.csv.header)
                     .delimiter(delimiter)
                     .file_extension(&ext);
-                if let Some(null) = &self.csv.null {
-                    options = options.null_regex(Some(regex_escape(null)));
+                match &self.csv.null {
+                    Some(null) => {
+                        options = options.null_regex(Some(regex_escape(null)));
+                        self.register_csv_with_null(name, path, options, null).await
+                    }
+                    None => self.ctx.register_csv(name, path, options).await,
                 }
-                self.ctx.register_csv(name, path, options).await
             }
             FileKind::Json => {
                 let ext = extension_of(path, ".json");
-                self.ctx.register_json(name, path, JsonReadOptions::default().file_extension(&ext)).await
+                self.ctx
+                    .register_json(name, path, JsonReadOptions::default().file_extension(&ext))
+                    .await
             }
         };
         result.map_err(|e| Failure::query(format!("--table {name} ({path}): {e}")))
+    }
+
+    /// DataFusion 55 honours a CSV null marker only while inferring the schema, so
+    /// the file is read as text and a view turns the marker into NULL and casts
+    /// each column to its inferred type.
+    async fn register_csv_with_null(
+        &self,
+        name: &str,
+        path: &str,
+        options: CsvReadOptions<'_>,
+        null: &str,
+    ) -> datafusion::error::Result<()> {
+        use datafusion::arrow::datatypes::{DataType, Field, Schema};
+        let inferred = self
+            .ctx
+            .read_csv(path, options.clone())
+            .await?
+            .schema()
+            .as_arrow()
+            .clone();
+        let text = Schema::new(
+            inferred
+                .fields()
+                .iter()
+                .map(|f| Field::new(f.name(), DataType::Utf8, true))
+                .collect::<Vec<_>>(),
+        );
+        let raw = self.ctx.read_csv(path, options.schema(&text)).await?;
+        let columns: Vec<datafusion::prelude::Expr> = inferred
+            .fields()
+            .iter()
+            .map(|f| {
+                let column = datafusion::prelude::ident(f.name());
+                datafusion::prelude::cast(
+                    datafusion::prelude::nullif(column, datafusion::prelude::lit(null)),
+                    f.data_type().clone(),
+                )
+                .alias(f.name())
+            })
+            .collect();
+        self.ctx
+            .register_table(name, raw.select(columns)?.into_view())?;
+        Ok(())
     }
 
     /// Run every statement of `script`; stop at the first error.
     pub async fn run_script(&self, script: &str, source: &str) -> Result<(), Failure> {
         let (statements, _) = split::statements(script);
         for sql in statements {
-            self.run(&sql).await.map_err(|e| Failure::query(format!("{source}: {}", e.message)))?;
+            self.run(&sql)
+                .await
+                .map_err(|e| Failure::query(format!("{source}: {}", e.message)))?;
         }
         Ok(())
     }
@@ -162,7 +250,11 @@ impl Shell {
     }
 
     pub async fn collect(&self, sql: &str) -> Result<Vec<RecordBatch>, Failure> {
-        let df = self.ctx.sql(sql).await.map_err(|e| Failure::query(clean(e)))?;
+        let df = self
+            .ctx
+            .sql(sql)
+            .await
+            .map_err(|e| Failure::query(clean(e)))?;
         df.collect().await.map_err(|e| Failure::query(clean(e)))
     }
 
@@ -182,15 +274,23 @@ impl Shell {
     /// The interactive prompt: statements end at `;`; errors are reported and the
     /// prompt goes on. Commands start with a colon.
     async fn prompt(&self) -> Result<(), Failure> {
-        let mut editor = rustyline::DefaultEditor::new().map_err(|e| Failure::query(e.to_string()))?;
+        let mut editor =
+            rustyline::DefaultEditor::new().map_err(|e| Failure::query(e.to_string()))?;
         let history = std::env::var_os("HOME").map(|h| Path::new(&h).join(".posterity_history"));
         if let Some(h) = &history {
             editor.load_history(h).ok();
         }
-        println!("posterity {} — SQL ends with ';'. Type :help for commands.", env!("CARGO_PKG_VERSION"));
+        println!(
+            "posterity {} — SQL ends with ';'. Type :help for commands.",
+            env!("CARGO_PKG_VERSION")
+        );
         let mut pending = String::new();
         loop {
-            let prompt = if pending.is_empty() { "posterity> " } else { "      ...> " };
+            let prompt = if pending.is_empty() {
+                "posterity> "
+            } else {
+                "      ...> "
+            };
             let line = match editor.readline(prompt) {
                 Ok(line) => line,
                 Err(rustyline::error::ReadlineError::Interrupted) => {
@@ -265,7 +365,11 @@ pub fn functions_help(name: Option<&str>) -> Result<String, Failure> {
             .iter()
             .find(|f| f.name.eq_ignore_ascii_case(n))
             .map(posterity::docs::help_text)
-            .ok_or_else(|| Failure::usage(format!("no posterity function named '{n}'; run 'posterity functions' for the list"))),
+            .ok_or_else(|| {
+                Failure::usage(format!(
+                    "no posterity function named '{n}'; run 'posterity functions' for the list"
+                ))
+            }),
         None => {
             let mut out = String::new();
             let mut section = "";
@@ -274,7 +378,11 @@ pub fn functions_help(name: Option<&str>) -> Result<String, Failure> {
                     section = f.section;
                     out.push_str(&format!("\n{section}\n"));
                 }
-                out.push_str(&format!("  {:<52} {}\n", f.syntax, first_sentence(f.description)));
+                out.push_str(&format!(
+                    "  {:<52} {}\n",
+                    f.syntax,
+                    first_sentence(f.description)
+                ));
             }
             out.push_str("\nDetails: posterity functions NAME\n");
             Ok(out)
@@ -289,8 +397,13 @@ fn first_sentence(s: &str) -> &str {
 /// DataFusion errors without the engine's internal prefixes or backtraces.
 fn clean(e: datafusion::error::DataFusionError) -> String {
     let text = e.to_string();
-    let text = text.split("\n\nbacktrace").next().unwrap_or(&text).to_string();
-    text.replace("Execution error: ", "").replace("Error during planning: ", "")
+    let text = text
+        .split("\n\nbacktrace")
+        .next()
+        .unwrap_or(&text)
+        .to_string();
+    text.replace("Execution error: ", "")
+        .replace("Error during planning: ", "")
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -357,4 +470,3 @@ fn regex_escape(s: &str) -> String {
     out.push('$');
     out
 }
-

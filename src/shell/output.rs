@@ -57,7 +57,12 @@ fn delimited(batches: &[RecordBatch], sep: char) -> Result<String, String> {
             s.to_string()
         }
     };
-    let header: Vec<String> = first.schema().fields().iter().map(|f| quote(f.name())).collect();
+    let header: Vec<String> = first
+        .schema()
+        .fields()
+        .iter()
+        .map(|f| quote(f.name()))
+        .collect();
     out.push_str(&header.join(&sep.to_string()));
     out.push('\n');
     let options = FormatOptions::default();
@@ -72,7 +77,13 @@ fn delimited(batches: &[RecordBatch], sep: char) -> Result<String, String> {
             let cells: Vec<String> = formatters
                 .iter()
                 .zip(batch.columns())
-                .map(|(f, c)| if c.is_null(row) { String::new() } else { quote(&f.value(row).to_string()) })
+                .map(|(f, c)| {
+                    if c.is_null(row) {
+                        String::new()
+                    } else {
+                        quote(&f.value(row).to_string())
+                    }
+                })
                 .collect();
             out.push_str(&cells.join(&sep.to_string()));
             out.push('\n');
@@ -112,21 +123,31 @@ fn json_value(column: &ArrayRef, row: usize) -> Result<Value, String> {
         }
         DataType::List(_) => {
             let list = column.as_list::<i32>().value(row);
-            Value::Array((0..list.len()).map(|i| json_value(&list, i)).collect::<Result<_, _>>()?)
+            Value::Array(
+                (0..list.len())
+                    .map(|i| json_value(&list, i))
+                    .collect::<Result<_, _>>()?,
+            )
         }
         DataType::Boolean => Value::Bool(column.as_boolean().value(row)),
         t if t.is_integer() => {
-            let v = datafusion::arrow::compute::cast(&column.slice(row, 1), &DataType::Int64).map_err(|e| e.to_string())?;
-            Value::from(v.as_primitive::<datafusion::arrow::datatypes::Int64Type>().value(0))
+            let v = datafusion::arrow::compute::cast(&column.slice(row, 1), &DataType::Int64)
+                .map_err(|e| e.to_string())?;
+            Value::from(
+                v.as_primitive::<datafusion::arrow::datatypes::Int64Type>()
+                    .value(0),
+            )
         }
         t if t.is_floating() => {
-            let v = datafusion::arrow::compute::cast(&column.slice(row, 1), &DataType::Float64).map_err(|e| e.to_string())?;
+            let v = datafusion::arrow::compute::cast(&column.slice(row, 1), &DataType::Float64)
+                .map_err(|e| e.to_string())?;
             let x = v.as_primitive::<Float64Type>().value(0);
             Number::from_f64(x).map_or_else(|| Value::String(x.to_string()), Value::Number)
         }
         _ => {
             let options = FormatOptions::default();
-            let f = ArrayFormatter::try_new(column.as_ref(), &options).map_err(|e| e.to_string())?;
+            let f =
+                ArrayFormatter::try_new(column.as_ref(), &options).map_err(|e| e.to_string())?;
             Value::String(f.value(row).to_string())
         }
     })
@@ -135,8 +156,14 @@ fn json_value(column: &ArrayRef, row: usize) -> Result<Value, String> {
 /// Write `text` to `path` through a temporary file in the same directory and a
 /// rename, so a failure never leaves a partial file and the old one stays intact.
 pub fn write_atomically(path: &Path, text: &str) -> std::io::Result<()> {
-    let dir = path.parent().filter(|p| !p.as_os_str().is_empty()).unwrap_or(Path::new("."));
-    let name = path.file_name().map(|n| n.to_string_lossy().to_string()).unwrap_or_else(|| "output".into());
+    let dir = path
+        .parent()
+        .filter(|p| !p.as_os_str().is_empty())
+        .unwrap_or(Path::new("."));
+    let name = path
+        .file_name()
+        .map(|n| n.to_string_lossy().to_string())
+        .unwrap_or_else(|| "output".into());
     let tmp = dir.join(format!(".{name}.{}.tmp", std::process::id()));
     let result = (|| {
         let mut f = std::fs::File::create(&tmp)?;

@@ -1,0 +1,289 @@
+//! The built `posterity` binary on small committed files.
+
+use std::path::{Path, PathBuf};
+use std::process::{Command, Output, Stdio};
+
+fn bin() -> Command {
+    Command::new(env!("CARGO_BIN_EXE_posterity"))
+}
+
+fn data(name: &str) -> String {
+    format!("{}/tests/data/{name}", env!("CARGO_MANIFEST_DIR"))
+}
+
+fn run(args: &[&str]) -> Output {
+    bin().args(args).output().expect("run posterity")
+}
+
+fn stdout(o: &Output) -> String {
+    String::from_utf8_lossy(&o.stdout).to_string()
+}
+
+fn stderr(o: &Output) -> String {
+    String::from_utf8_lossy(&o.stderr).to_string()
+}
+
+fn temp_dir(name: &str) -> PathBuf {
+    let d = std::env::temp_dir().join(format!("posterity-cli-{name}-{}", std::process::id()));
+    std::fs::remove_dir_all(&d).ok();
+    std::fs::create_dir_all(&d).unwrap();
+    d
+}
+
+const FIT: &str = "SELECT breed, posterior_mean(beta_posterior(no_show, beta_prior(1, 1))) AS m FROM s GROUP BY breed ORDER BY breed";
+
+#[test]
+fn command_flag_csv_output() {
+    let o = run(&[
+        "--table",
+        &format!("s={}", data("small.csv")),
+        "--csv-null",
+        "NA",
+        "--format",
+        "csv",
+        "-c",
+        FIT,
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    // beagle: 1 of 2 with a uniform prior -> 2/4; boxer 1 of 1 -> 2/3; poodle 0 of 2 -> 1/4.
+    assert_eq!(
+        stdout(&o),
+        "breed,m\nbeagle,0.5\nboxer,0.6666666666666666\npoodle,0.25\n"
+    );
+}
+
+#[test]
+fn json_ndjson_tsv_and_table_formats() {
+    let table = format!("s={}", data("small.csv"));
+    let o = run(&[
+        "-t",
+        &table,
+        "--csv-null",
+        "NA",
+        "--format",
+        "json",
+        "-c",
+        FIT,
+    ]);
+    let v: serde_json::Value = serde_json::from_str(&stdout(&o)).expect("valid JSON");
+    assert_eq!(v[2]["breed"], "poodle");
+    assert_eq!(v[2]["m"].as_f64(), Some(0.25));
+    let o = run(&[
+        "-t",
+        &table,
+        "--csv-null",
+        "NA",
+        "--format",
+        "ndjson",
+        "-c",
+        FIT,
+    ]);
+    let lines: Vec<serde_json::Value> = stdout(&o)
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    assert_eq!(lines.len(), 3);
+    assert_eq!(lines[0]["m"].as_f64(), Some(0.5));
+    let o = run(&[
+        "-t",
+        &table,
+        "--csv-null",
+        "NA",
+        "--format",
+        "tsv",
+        "-c",
+        FIT,
+    ]);
+    assert!(
+        stdout(&o).starts_with("breed\tm\nbeagle\t0.5\n"),
+        "{}",
+        stdout(&o)
+    );
+    let o = run(&["-t", &table, "--csv-null", "NA", "-c", FIT]);
+    assert!(stdout(&o).contains("| beagle | 0.5"), "{}", stdout(&o));
+    // Posterior structs render as JSON objects.
+    let o = run(&[
+        "-t",
+        &table,
+        "--csv-null",
+        "NA",
+        "--format",
+        "json",
+        "-c",
+        "SELECT beta_posterior(no_show) AS p FROM s",
+    ]);
+    let v: serde_json::Value = serde_json::from_str(&stdout(&o)).unwrap();
+    assert_eq!(v[0]["p"]["trials"].as_f64(), Some(5.0));
+    assert_eq!(v[0]["p"]["successes"].as_f64(), Some(2.0));
+}
+
+#[test]
+fn script_file_and_stdin() {
+    let dir = temp_dir("script");
+    let script = dir.join("fit.sql");
+    std::fs::write(
+        &script,
+        format!(
+            "-- fit and read; two statements\nCREATE EXTERNAL TABLE s STORED AS CSV LOCATION '{}' OPTIONS ('format.null_regex' '^NA$');\n/* the fit */ {FIT};\n",
+            data("small.csv")
+        ),
+    )
+    .unwrap();
+    let o = run(&["--format", "csv", "-f", script.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(stdout(&o).contains("poodle,0.25"));
+    let mut child = bin()
+        .args(["--format", "csv", "-t", &format!("s={}", data("small.csv"))])
+        .stdin(Stdio::piped())
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .unwrap();
+    use std::io::Write;
+    child
+        .stdin
+        .take()
+        .unwrap()
+        .write_all(b"SELECT COUNT(*) AS n FROM s;\nSELECT 1 + 1 AS two;")
+        .unwrap();
+    let o = child.wait_with_output().unwrap();
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert_eq!(stdout(&o), "n\n5\ntwo\n2\n");
+}
+
+#[test]
+fn tables_from_directory_and_glob() {
+    for path in [data("daily"), format!("{}/*.csv", data("daily"))] {
+        let o = run(&[
+            "--format",
+            "csv",
+            "-t",
+            &format!("d={path}"),
+            "-c",
+            "SELECT COUNT(*) AS n, SUM(no_show) AS s FROM d",
+        ]);
+        assert!(o.status.success(), "{path}: {}", stderr(&o));
+        assert_eq!(stdout(&o), "n,s\n4,2\n");
+    }
+}
+
+#[test]
+fn copy_to_parquet_and_read_back() {
+    let dir = temp_dir("copy");
+    let out = dir.join("enc.parquet");
+    let o = run(&[
+        "-t",
+        &format!("s={}", data("small.csv")),
+        "--csv-null",
+        "NA",
+        "-c",
+        &format!("COPY (SELECT breed, beta_posterior(no_show) AS p, nig_posterior(amount) AS a FROM s GROUP BY breed) TO '{}' STORED AS PARQUET", out.display()),
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let o = run(&[
+        "--format",
+        "csv",
+        "-t",
+        &format!("e={}", out.display()),
+        "-c",
+        "SELECT breed, posterior_evidence(p) AS n, posterior_evidence(a) AS k FROM e ORDER BY breed",
+    ]);
+    assert_eq!(
+        stdout(&o),
+        "breed,n,k\nbeagle,2.0,2.0\nboxer,1.0,1.0\npoodle,2.0,1.0\n"
+    );
+}
+
+#[test]
+fn output_is_atomic() {
+    let dir = temp_dir("atomic");
+    let out = dir.join("result.csv");
+    let o = run(&[
+        "--format",
+        "csv",
+        "-o",
+        out.to_str().unwrap(),
+        "-c",
+        "SELECT 1 AS one",
+    ]);
+    assert!(o.status.success());
+    assert_eq!(std::fs::read_to_string(&out).unwrap(), "one\n1\n");
+    // A failing query leaves the old file intact and no temporary file behind.
+    let o = run(&[
+        "--format",
+        "csv",
+        "-o",
+        out.to_str().unwrap(),
+        "-c",
+        "SELECT beta_posterior(y) FROM (VALUES (3)) t(y)",
+    ]);
+    assert_eq!(o.status.code(), Some(1));
+    assert_eq!(std::fs::read_to_string(&out).unwrap(), "one\n1\n");
+    assert_eq!(std::fs::read_dir(&dir).unwrap().count(), 1);
+    // An unwritable destination is a clear error.
+    let o = run(&["-o", "/nonexistent-dir/x.csv", "-c", "SELECT 1"]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(
+        stderr(&o).contains("cannot write /nonexistent-dir/x.csv"),
+        "{}",
+        stderr(&o)
+    );
+}
+
+#[test]
+fn exit_codes_and_one_line_errors() {
+    let o = run(&["-c", "SELEC 1"]);
+    assert_eq!(o.status.code(), Some(1));
+    assert_eq!(stderr(&o).trim().lines().count(), 1, "{}", stderr(&o));
+    assert!(stderr(&o).starts_with("error: "));
+    let o = run(&["--no-such-flag"]);
+    assert_eq!(o.status.code(), Some(2));
+    let o = run(&["-t", "x=/no/such/file.parquet", "-c", "SELECT 1"]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(stderr(&o).contains("does not exist"), "{}", stderr(&o));
+    let o = run(&["-t", "nonsense", "-c", "SELECT 1"]);
+    assert_eq!(o.status.code(), Some(2));
+    let o = run(&["functions", "no_such_function"]);
+    assert_eq!(o.status.code(), Some(2));
+    let o = run(&["--memory-limit", "lots", "-c", "SELECT 1"]);
+    assert_eq!(o.status.code(), Some(2));
+    let o = run(&["-c", "SELECT posterior_quantile(beta_prior(1, 1), 2)"]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(
+        stderr(&o).contains("posterior_quantile") && stderr(&o).contains("q = 2"),
+        "{}",
+        stderr(&o)
+    );
+    assert!(!stderr(&o).contains("backtrace"));
+}
+
+#[test]
+fn functions_reference_lists_everything() {
+    let o = run(&["functions"]);
+    assert!(o.status.success());
+    for f in posterity::docs::FUNCTIONS {
+        assert!(stdout(&o).contains(f.syntax), "{} missing", f.name);
+    }
+    let o = run(&["functions", "posterior_quantile"]);
+    assert!(stdout(&o).contains("posterior_quantile(p [, class], q)"));
+    assert!(stdout(&o).contains("example:"));
+}
+
+#[test]
+fn demo_runs_end_to_end() {
+    let dir = temp_dir("demo");
+    let o = run(&["demo", "--rows", "5000", "--dir", dir.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    let text = stdout(&o);
+    for heading in [
+        "The leak",
+        "unseen postcode areas",
+        "Dirichlet",
+        "Normal-Inverse-Gamma",
+        "Gamma-Poisson",
+        "Cautions",
+    ] {
+        assert!(text.contains(heading), "missing {heading}");
+    }
+    assert!(Path::new(&dir.join("appointments.parquet")).exists());
+}
