@@ -156,6 +156,27 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
         example: "SELECT breed, posterior_pool(p) AS p FROM daily_encodings GROUP BY breed;",
     },
     FunctionDoc {
+        name: "fit_prior",
+        section: COMBINE,
+        description: "Fits an empirical-Bayes prior of the same family from one posterior per level \
+            by maximising the marginal likelihood across levels (beta-binomial, Dirichlet-multinomial \
+            by Minka's fixed point, negative binomial with exposures, normal hierarchy). The \
+            strength is capped at 1e6 pseudo-observations when levels show no spread.",
+        syntax: "fit_prior(p)",
+        arguments: &[P],
+        example: "SELECT fit_prior(p) FROM (SELECT breed, beta_posterior(no_show) AS p FROM appointments GROUP BY breed);",
+    },
+    FunctionDoc {
+        name: "fit_prior_report",
+        section: COMBINE,
+        description: "Like fit_prior, but returns a JSON text report: the fitted parameters, the log \
+            marginal likelihood, iterations, whether it converged, the prior's strength in \
+            pseudo-observations and the number of levels.",
+        syntax: "fit_prior_report(p)",
+        arguments: &[P],
+        example: "SELECT fit_prior_report(p) FROM breed_encodings;",
+    },
+    FunctionDoc {
         name: "posterior_mean",
         section: READ,
         description: "Posterior mean of the success probability (Beta), rate (Gamma), level mean \

@@ -247,6 +247,7 @@ pub enum Combine {
 /// A column of posteriors, decoded lazily row by row.
 pub struct PosteriorColumn {
     kind: Kind,
+    len: usize,
     nulls: Option<NullBuffer>,
     floats: Vec<Float64Array>,
     lists: Option<(ListArray, ListArray, ListArray)>,
@@ -298,6 +299,7 @@ impl PosteriorColumn {
         };
         Ok(PosteriorColumn {
             kind,
+            len: array.len(),
             nulls: st.nulls().cloned(),
             floats,
             lists,
@@ -306,6 +308,14 @@ impl PosteriorColumn {
 
     pub fn kind(&self) -> Kind {
         self.kind
+    }
+
+    pub fn len(&self) -> usize {
+        self.len
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.len == 0
     }
 
     /// Row `i`: `Ok(None)` for a NULL posterior (or a NULL field), an error for

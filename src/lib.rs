@@ -19,6 +19,7 @@ pub mod family;
 pub mod fit;
 pub mod layout;
 pub mod pool;
+pub mod prior_fit;
 pub mod scalar;
 
 pub use datafusion;
@@ -37,6 +38,8 @@ pub fn aggregates() -> Vec<AggregateUDF> {
         AggregateUDF::new_from_impl(FitAggregate::<NigValues>::default()),
         AggregateUDF::new_from_impl(FitAggregate::<DirichletClasses>::default()),
         AggregateUDF::new_from_impl(pool::PosteriorPool::default()),
+        AggregateUDF::new_from_impl(prior_fit::FitPrior::new(false)),
+        AggregateUDF::new_from_impl(prior_fit::FitPrior::new(true)),
     ]
 }
 

@@ -1,0 +1,268 @@
+//! `fit_prior(p)` and `fit_prior_report(p)`: empirical-Bayes priors fitted from
+//! one posterior per level (see `family::empirical` for the estimators).
+
+use std::sync::Arc;
+
+use datafusion::arrow::array::{Array, ArrayRef, AsArray, ListArray};
+use datafusion::arrow::buffer::OffsetBuffer;
+use datafusion::arrow::datatypes::{DataType, Field, FieldRef};
+use datafusion::common::{plan_err, Result, ScalarValue};
+use datafusion::logical_expr::function::{AccumulatorArgs, StateFieldsArgs};
+use datafusion::logical_expr::{
+    Accumulator, AggregateUDFImpl, Documentation, Signature, Volatility,
+};
+use serde_json::json;
+
+use crate::family::empirical::{fit_beta, fit_dirichlet, fit_gamma, fit_nig, FitReport};
+use crate::family::{
+    BetaPosterior, Conjugate, DirichletPosterior, FamilyError, GammaPosterior, NigPosterior,
+};
+use crate::fit::family_error;
+use crate::layout::{build, AnyPosterior, Kind, PosteriorColumn};
+
+#[derive(Debug, PartialEq, Eq, Hash)]
+pub struct FitPrior {
+    signature: Signature,
+    report: bool,
+}
+
+impl FitPrior {
+    pub fn new(report: bool) -> Self {
+        FitPrior {
+            signature: Signature::user_defined(Volatility::Immutable),
+            report,
+        }
+    }
+
+    fn function(&self) -> &'static str {
+        if self.report {
+            "fit_prior_report"
+        } else {
+            "fit_prior"
+        }
+    }
+}
+
+impl AggregateUDFImpl for FitPrior {
+    fn name(&self) -> &str {
+        self.function()
+    }
+
+    fn signature(&self) -> &Signature {
+        &self.signature
+    }
+
+    fn coerce_types(&self, t: &[DataType]) -> Result<Vec<DataType>> {
+        if t.len() != 1 {
+            return plan_err!(
+                "{}: takes 1 argument, got {}; usage: {}(p)",
+                self.function(),
+                t.len(),
+                self.function()
+            );
+        }
+        Ok(vec![Kind::expect(self.function(), "p", &t[0])?.data_type()])
+    }
+
+    fn return_type(&self, t: &[DataType]) -> Result<DataType> {
+        let kind = Kind::expect(self.function(), "p", &t[0])?;
+        Ok(if self.report {
+            DataType::Utf8
+        } else {
+            kind.data_type()
+        })
+    }
+
+    fn accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {
+        let kind = Kind::expect(self.function(), "p", args.expr_fields[0].data_type())?;
+        Ok(Box::new(FitPriorAccumulator {
+            function: self.function(),
+            kind,
+            report: self.report,
+            levels: Vec::new(),
+        }))
+    }
+
+    fn state_fields(&self, args: StateFieldsArgs) -> Result<Vec<FieldRef>> {
+        let kind = Kind::expect(self.function(), "p", args.input_fields[0].data_type())?;
+        Ok(vec![Arc::new(Field::new(
+            format!("{}[levels]", args.name),
+            DataType::List(Arc::new(Field::new_list_field(kind.data_type(), true))),
+            true,
+        ))])
+    }
+
+    fn documentation(&self) -> Option<&Documentation> {
+        crate::docs::get(self.function())
+    }
+}
+
+#[derive(Debug)]
+struct FitPriorAccumulator {
+    function: &'static str,
+    kind: Kind,
+    report: bool,
+    levels: Vec<AnyPosterior>,
+}
+
+impl FitPriorAccumulator {
+    fn add(&mut self, column: &ArrayRef) -> Result<()> {
+        let column = PosteriorColumn::new(self.function, column)?;
+        for i in 0..column.len() {
+            if let Some(p) = column.get(i).map_err(|e| family_error(self.function, e))? {
+                self.levels.push(p);
+            }
+        }
+        Ok(())
+    }
+
+    /// The fitted prior (as a zero-evidence posterior) and the report.
+    fn fit(&self) -> std::result::Result<(AnyPosterior, FitReport), FamilyError> {
+        let (prior, mut report) = match self.kind {
+            Kind::Beta => {
+                let data: Vec<(f64, f64)> = self
+                    .levels
+                    .iter()
+                    .filter_map(|p| match p {
+                        AnyPosterior::Beta(b) => Some((b.successes, b.trials)),
+                        _ => None,
+                    })
+                    .collect();
+                let (prior, report) = fit_beta(&data)?;
+                (AnyPosterior::Beta(BetaPosterior::new(prior)), report)
+            }
+            Kind::Gamma => {
+                let data: Vec<(f64, f64)> = self
+                    .levels
+                    .iter()
+                    .filter_map(|p| match p {
+                        AnyPosterior::Gamma(g) => Some((g.events, g.exposure)),
+                        _ => None,
+                    })
+                    .collect();
+                let (prior, report) = fit_gamma(&data)?;
+                (AnyPosterior::Gamma(GammaPosterior::new(prior)), report)
+            }
+            Kind::Nig => {
+                let data: Vec<_> = self
+                    .levels
+                    .iter()
+                    .filter_map(|p| match p {
+                        AnyPosterior::Nig(n) => Some(n.stats),
+                        _ => None,
+                    })
+                    .collect();
+                let (prior, report) = fit_nig(&data)?;
+                (AnyPosterior::Nig(NigPosterior::new(prior)), report)
+            }
+            Kind::Dirichlet => {
+                let mut classes: Option<Vec<String>> = None;
+                let mut counts = Vec::new();
+                for p in &self.levels {
+                    if let AnyPosterior::Dirichlet(d) = p {
+                        match &classes {
+                            None => classes = Some(d.prior.classes.clone()),
+                            Some(c) if *c != d.prior.classes => {
+                                return Err(FamilyError::InvalidClasses(format!(
+                                    "levels have different class lists [{}] and [{}]",
+                                    c.join(", "),
+                                    d.prior.classes.join(", ")
+                                )))
+                            }
+                            _ => {}
+                        }
+                        counts.push(d.counts.clone());
+                    }
+                }
+                let classes = classes.unwrap_or_default();
+                let (prior, report) = fit_dirichlet(&classes, &counts)?;
+                (
+                    AnyPosterior::Dirichlet(DirichletPosterior::new(prior)),
+                    report,
+                )
+            }
+        };
+        // One convention for every family: the sum of the levels' log marginal likelihoods.
+        report.log_marginal_likelihood = self
+            .levels
+            .iter()
+            .filter(|p| p.evidence() > 0.0)
+            .map(|p| p.with_prior(&prior).map(|q| lml(&q)))
+            .sum::<std::result::Result<f64, _>>()?;
+        Ok((prior, report))
+    }
+}
+
+fn lml(p: &AnyPosterior) -> f64 {
+    match p {
+        AnyPosterior::Beta(b) => b.log_marginal_likelihood(),
+        AnyPosterior::Gamma(g) => g.log_marginal_likelihood(),
+        AnyPosterior::Nig(n) => n.log_marginal_likelihood(),
+        AnyPosterior::Dirichlet(d) => d.log_marginal_likelihood(),
+    }
+}
+
+/// The JSON report of a fit.
+pub fn report_json(prior: &AnyPosterior, report: &FitReport) -> String {
+    let parameters = match prior {
+        AnyPosterior::Beta(b) => json!({"a0": b.prior.a0, "b0": b.prior.b0}),
+        AnyPosterior::Gamma(g) => json!({"shape0": g.prior.shape0, "rate0": g.prior.rate0}),
+        AnyPosterior::Nig(n) => {
+            json!({"mu0": n.prior.mu0, "kappa0": n.prior.kappa0, "alpha0": n.prior.alpha0, "beta0": n.prior.beta0})
+        }
+        AnyPosterior::Dirichlet(d) => json!({"classes": d.prior.classes, "a0": d.prior.alpha0}),
+    };
+    json!({
+        "family": prior.kind().name(),
+        "prior": parameters,
+        "log_marginal_likelihood": report.log_marginal_likelihood,
+        "iterations": report.iterations,
+        "converged": report.converged,
+        "strength": report.strength,
+        "at_bound": report.at_bound,
+        "levels": report.levels,
+        "method": report.method,
+    })
+    .to_string()
+}
+
+impl Accumulator for FitPriorAccumulator {
+    fn update_batch(&mut self, values: &[ArrayRef]) -> Result<()> {
+        self.add(&values[0])
+    }
+
+    fn evaluate(&mut self) -> Result<ScalarValue> {
+        let (prior, report) = self.fit().map_err(|e| family_error(self.function, e))?;
+        if self.report {
+            return Ok(ScalarValue::Utf8(Some(report_json(&prior, &report))));
+        }
+        ScalarValue::try_from_array(&build(self.kind, &[Some(prior)])?, 0)
+    }
+
+    fn size(&self) -> usize {
+        std::mem::size_of_val(self) + self.levels.capacity() * std::mem::size_of::<AnyPosterior>()
+    }
+
+    fn state(&mut self) -> Result<Vec<ScalarValue>> {
+        let rows: Vec<Option<AnyPosterior>> = self.levels.iter().cloned().map(Some).collect();
+        let values = build(self.kind, &rows)?;
+        let field = Arc::new(Field::new_list_field(self.kind.data_type(), true));
+        let list = ListArray::try_new(
+            field,
+            OffsetBuffer::from_lengths([rows.len()]),
+            values,
+            None,
+        )?;
+        Ok(vec![ScalarValue::List(Arc::new(list))])
+    }
+
+    fn merge_batch(&mut self, states: &[ArrayRef]) -> Result<()> {
+        let lists = states[0].as_list::<i32>();
+        for i in 0..lists.len() {
+            if lists.is_valid(i) {
+                self.add(&lists.value(i))?;
+            }
+        }
+        Ok(())
+    }
+}
