@@ -4,7 +4,8 @@
 //! * [`family`] — the pure mathematics of the four conjugate families;
 //! * [`layout`] — the posterior value format (Arrow structs);
 //! * [`fit`], [`pool`] — aggregate functions; [`scalar`] — scalar functions;
-//! * [`docs`] — the documentation table behind every function.
+//! * [`docs`] — the documentation table behind every function;
+//! * [`bundle`] — the JSON serving bundle, for scoring without the engine.
 //!
 //! ```no_run
 //! # async fn demo() -> datafusion::error::Result<()> {
@@ -14,6 +15,7 @@
 //! # Ok(()) }
 //! ```
 
+pub mod bundle;
 pub mod docs;
 pub mod family;
 pub mod fit;

@@ -56,6 +56,8 @@ struct Args {
 enum Command {
     /// Print the function reference, or one function's documentation.
     Functions { name: Option<String> },
+    /// Leak-free training encodings, encoding tables, a serving bundle and a scored file.
+    Encode(Box<shell::encode::EncodeArgs>),
     /// Generate the invented veterinary-clinics data and run the whole job on it.
     Demo {
         /// Directory for the generated files.
@@ -127,6 +129,9 @@ async fn run(args: Args) -> Result<(), Failure> {
     };
     for spec in &args.tables {
         shell.register_table(spec).await?;
+    }
+    if let Some(Command::Encode(encode)) = &args.command {
+        return shell::encode::run(&shell, encode).await;
     }
     if let Some(Command::Demo { dir, rows, seed }) = &args.command {
         return shell::demo::run(&shell, dir, *rows, *seed).await;

@@ -116,8 +116,10 @@ impl FitPriorAccumulator {
         Ok(())
     }
 
-    /// The fitted prior (as a zero-evidence posterior) and the report.
-    fn fit(&self) -> std::result::Result<(AnyPosterior, FitReport), FamilyError> {
+    /// The fitted prior (as a zero-evidence posterior) and the report. Levels are
+    /// sorted first, so the result does not depend on how rows were partitioned.
+    fn fit(&mut self) -> std::result::Result<(AnyPosterior, FitReport), FamilyError> {
+        self.levels.sort_by_cached_key(sort_key);
         let (prior, mut report) = match self.kind {
             Kind::Beta => {
                 let data: Vec<(f64, f64)> = self
@@ -190,6 +192,20 @@ impl FitPriorAccumulator {
             .map(|p| p.with_prior(&prior).map(|q| lml(&q)))
             .sum::<std::result::Result<f64, _>>()?;
         Ok((prior, report))
+    }
+}
+
+/// A total order on posteriors: their evidence fields' bit patterns.
+fn sort_key(p: &AnyPosterior) -> Vec<u64> {
+    match p {
+        AnyPosterior::Beta(b) => vec![b.successes.to_bits(), b.trials.to_bits()],
+        AnyPosterior::Gamma(g) => vec![g.events.to_bits(), g.exposure.to_bits()],
+        AnyPosterior::Nig(n) => vec![
+            n.stats.n.to_bits(),
+            n.stats.mean.to_bits(),
+            n.stats.m2.to_bits(),
+        ],
+        AnyPosterior::Dirichlet(d) => d.counts.iter().map(|c| c.to_bits()).collect(),
     }
 }
 

@@ -4,6 +4,7 @@
 //! commands and opens no network connection.
 
 pub mod demo;
+pub mod encode;
 pub mod output;
 pub mod split;
 
@@ -99,7 +100,8 @@ pub fn session(
     let runtime = runtime
         .build_arc()
         .map_err(|e| Failure::usage(e.to_string()))?;
-    let ctx = SessionContext::new_with_config_rt(config, runtime);
+    // File paths quoted directly in FROM ('appointments.parquet') resolve to tables.
+    let ctx = SessionContext::new_with_config_rt(config, runtime).enable_url_table();
     posterity::register(&ctx);
     Ok(ctx)
 }

@@ -1,0 +1,220 @@
+//! The JSON serving bundle written by `posterity encode`: the prior and every
+//! level's posterior per encoded column, enough to score rows without the engine.
+//!
+//! ```json
+//! {
+//!   "format": "posterity-bundle", "version": 1,
+//!   "target": "no_show", "family": "Beta",
+//!   "readers": ["mean", "sd"],
+//!   "columns": {
+//!     "breed": {
+//!       "prior":  {"a0": 0.5, "b0": 0.5, "successes": 0, "trials": 0},
+//!       "levels": {"breed_001": {"a0": 0.5, "b0": 0.5, "successes": 12, "trials": 130}}
+//!     }
+//!   }
+//! }
+//! ```
+//!
+//! Each posterior object has exactly the fields of the posterior value format
+//! (README, "Posterior value format"); levels are sorted by name. A level that is
+//! not in `levels` (or a NULL key) is scored with `prior`.
+
+use std::collections::BTreeMap;
+
+use serde_json::{json, Map, Value};
+
+use crate::family::{
+    BetaPosterior, DirichletPosterior, DirichletPrior, FamilyError, GammaPosterior, NigPosterior,
+    NigPrior,
+};
+use crate::layout::AnyPosterior;
+
+pub const FORMAT: &str = "posterity-bundle";
+pub const VERSION: u64 = 1;
+
+/// A posterior as a JSON object with the value format's field names.
+pub fn posterior_json(p: &AnyPosterior) -> Value {
+    match p {
+        AnyPosterior::Beta(b) => {
+            json!({"a0": b.prior.a0, "b0": b.prior.b0, "successes": b.successes, "trials": b.trials})
+        }
+        AnyPosterior::Gamma(g) => {
+            json!({"shape0": g.prior.shape0, "rate0": g.prior.rate0, "events": g.events, "exposure": g.exposure})
+        }
+        AnyPosterior::Nig(n) => json!({
+            "mu0": n.prior.mu0, "kappa0": n.prior.kappa0, "alpha0": n.prior.alpha0, "beta0": n.prior.beta0,
+            "n": n.stats.n, "mean": n.stats.mean, "m2": n.stats.m2
+        }),
+        AnyPosterior::Dirichlet(d) => {
+            json!({"classes": d.prior.classes, "a0": d.prior.alpha0, "counts": d.counts})
+        }
+    }
+}
+
+fn bad(message: impl Into<String>) -> FamilyError {
+    FamilyError::InvalidClasses(format!("serving bundle: {}", message.into()))
+}
+
+/// Read a posterior object back.
+pub fn posterior_from_json(v: &Value) -> Result<AnyPosterior, FamilyError> {
+    let num = |name: &str| -> Result<f64, FamilyError> {
+        v.get(name)
+            .and_then(Value::as_f64)
+            .ok_or_else(|| bad(format!("field '{name}' missing or not a number")))
+    };
+    let nums = |name: &str| -> Result<Vec<f64>, FamilyError> {
+        v.get(name)
+            .and_then(Value::as_array)
+            .ok_or_else(|| bad(format!("field '{name}' missing or not a list")))?
+            .iter()
+            .map(|x| {
+                x.as_f64()
+                    .ok_or_else(|| bad(format!("'{name}' holds a non-number")))
+            })
+            .collect()
+    };
+    if v.get("classes").is_some() {
+        let classes = v["classes"]
+            .as_array()
+            .ok_or_else(|| bad("'classes' is not a list"))?
+            .iter()
+            .map(|c| {
+                c.as_str()
+                    .map(str::to_string)
+                    .ok_or_else(|| bad("a class is not text"))
+            })
+            .collect::<Result<Vec<_>, _>>()?;
+        let prior = DirichletPrior::new(classes, nums("a0")?)?;
+        return Ok(AnyPosterior::Dirichlet(DirichletPosterior::from_parts(
+            prior,
+            nums("counts")?,
+        )?));
+    }
+    if v.get("mu0").is_some() {
+        let prior = NigPrior::new(num("mu0")?, num("kappa0")?, num("alpha0")?, num("beta0")?)?;
+        return Ok(AnyPosterior::Nig(NigPosterior::from_parts(
+            prior,
+            num("n")?,
+            num("mean")?,
+            num("m2")?,
+        )?));
+    }
+    if v.get("shape0").is_some() {
+        return Ok(AnyPosterior::Gamma(GammaPosterior::from_parts(
+            num("shape0")?,
+            num("rate0")?,
+            num("events")?,
+            num("exposure")?,
+        )?));
+    }
+    Ok(AnyPosterior::Beta(BetaPosterior::from_parts(
+        num("a0")?,
+        num("b0")?,
+        num("successes")?,
+        num("trials")?,
+    )?))
+}
+
+/// One encoded column of a bundle.
+#[derive(Debug, Clone)]
+pub struct ColumnEncoding {
+    pub prior: AnyPosterior,
+    pub levels: BTreeMap<String, AnyPosterior>,
+}
+
+impl ColumnEncoding {
+    /// The posterior for a level, the prior for unseen levels and NULL keys.
+    pub fn lookup(&self, level: Option<&str>) -> &AnyPosterior {
+        level
+            .and_then(|l| self.levels.get(l))
+            .unwrap_or(&self.prior)
+    }
+}
+
+/// A parsed serving bundle.
+#[derive(Debug, Clone)]
+pub struct Bundle {
+    pub target: String,
+    pub family: String,
+    pub readers: Vec<String>,
+    pub columns: BTreeMap<String, ColumnEncoding>,
+}
+
+impl Bundle {
+    /// Serialise (sorted keys, so the same encodings give the same bytes).
+    pub fn to_json(&self) -> String {
+        let mut columns = Map::new();
+        for (name, c) in &self.columns {
+            let levels: Map<String, Value> = c
+                .levels
+                .iter()
+                .map(|(k, p)| (k.clone(), posterior_json(p)))
+                .collect();
+            columns.insert(
+                name.clone(),
+                json!({"prior": posterior_json(&c.prior), "levels": levels}),
+            );
+        }
+        let v = json!({
+            "format": FORMAT,
+            "version": VERSION,
+            "target": self.target,
+            "family": self.family,
+            "readers": self.readers,
+            "columns": columns,
+        });
+        serde_json::to_string_pretty(&v).unwrap_or_default()
+    }
+
+    pub fn from_json(text: &str) -> Result<Bundle, FamilyError> {
+        let v: Value =
+            serde_json::from_str(text).map_err(|e| bad(format!("not valid JSON: {e}")))?;
+        if v.get("format").and_then(Value::as_str) != Some(FORMAT) {
+            return Err(bad("not a posterity bundle (field 'format')"));
+        }
+        if v.get("version").and_then(Value::as_u64) != Some(VERSION) {
+            return Err(bad(format!(
+                "unsupported version {:?}; this build reads version {VERSION}",
+                v.get("version")
+            )));
+        }
+        let text_of = |k: &str| {
+            v.get(k)
+                .and_then(Value::as_str)
+                .unwrap_or_default()
+                .to_string()
+        };
+        let mut columns = BTreeMap::new();
+        for (name, c) in v
+            .get("columns")
+            .and_then(Value::as_object)
+            .ok_or_else(|| bad("'columns' missing"))?
+        {
+            let prior = posterior_from_json(
+                c.get("prior")
+                    .ok_or_else(|| bad(format!("column '{name}' has no prior")))?,
+            )?;
+            let mut levels = BTreeMap::new();
+            if let Some(map) = c.get("levels").and_then(Value::as_object) {
+                for (level, p) in map {
+                    levels.insert(level.clone(), posterior_from_json(p)?);
+                }
+            }
+            columns.insert(name.clone(), ColumnEncoding { prior, levels });
+        }
+        Ok(Bundle {
+            target: text_of("target"),
+            family: text_of("family"),
+            readers: v
+                .get("readers")
+                .and_then(Value::as_array)
+                .map(|r| {
+                    r.iter()
+                        .filter_map(|x| x.as_str().map(str::to_string))
+                        .collect()
+                })
+                .unwrap_or_default(),
+            columns,
+        })
+    }
+}
