@@ -130,6 +130,8 @@ impl Shell {
                 "--table {name}: '{path}' does not exist"
             )));
         }
+        preflight(path, format, self.csv.header)
+            .map_err(|e| Failure::query(format!("--table {name}: {e}")))?;
         let result = match format {
             FileKind::Parquet => {
                 let ext = extension_of(path, ".parquet");
@@ -399,13 +401,111 @@ fn first_sentence(s: &str) -> &str {
 /// DataFusion errors without the engine's internal prefixes or backtraces.
 fn clean(e: datafusion::error::DataFusionError) -> String {
     let text = e.to_string();
-    let text = text
+    let mut text = text
         .split("\n\nbacktrace")
         .next()
         .unwrap_or(&text)
         .to_string();
+    // Our own argument errors arrive wrapped in the engine's signature-matching text.
+    if let Some((_, inner)) = text
+        .clone()
+        .split_once("user-defined coercion failed with: ")
+    {
+        text = inner
+            .split(". No function matches")
+            .next()
+            .unwrap_or(inner)
+            .to_string();
+    }
     text.replace("Execution error: ", "")
         .replace("Error during planning: ", "")
+}
+
+/// Checks the engine does not make, so that broken files fail at registration with
+/// the file's name: Parquet magic bytes, empty CSV files, unterminated quotes, and
+/// CSV directories whose files disagree on the header.
+fn preflight(path: &str, kind: FileKind, header: bool) -> Result<(), String> {
+    use std::io::Read as _;
+    let p = Path::new(path);
+    let files: Vec<std::path::PathBuf> = if p.is_dir() {
+        let mut f: Vec<_> = std::fs::read_dir(p)
+            .map_err(|e| format!("cannot list {path}: {e}"))?
+            .filter_map(|e| e.ok().map(|e| e.path()))
+            .filter(|f| f.is_file() && kind_of_name(&f.to_string_lossy()) == Some(kind))
+            .collect();
+        f.sort();
+        f
+    } else if p.is_file() {
+        vec![p.to_path_buf()]
+    } else {
+        return Ok(()); // globs are checked by the engine
+    };
+    let mut first_header: Option<(String, std::path::PathBuf)> = None;
+    for file in files {
+        let shown = file.display();
+        let mut f = std::fs::File::open(&file).map_err(|e| format!("cannot open {shown}: {e}"))?;
+        let len = f.metadata().map(|m| m.len()).unwrap_or(0);
+        match kind {
+            FileKind::Parquet => {
+                let mut head = [0u8; 4];
+                let ok = len >= 12 && f.read_exact(&mut head).is_ok() && &head == b"PAR1" && {
+                    use std::io::Seek as _;
+                    let mut tail = [0u8; 4];
+                    f.seek(std::io::SeekFrom::End(-4)).is_ok()
+                        && f.read_exact(&mut tail).is_ok()
+                        && &tail == b"PAR1"
+                };
+                if !ok {
+                    return Err(format!("{shown} is not a complete Parquet file ({len} bytes; empty, truncated or another format)"));
+                }
+            }
+            FileKind::Csv | FileKind::Tsv => {
+                if len == 0 && header {
+                    return Err(format!("{shown} is empty: no header row (use --csv-no-header for files without one)"));
+                }
+                let mut quotes = 0u64;
+                let mut first_line = Vec::new();
+                let mut in_first = true;
+                let mut buf = vec![0u8; 1 << 16];
+                loop {
+                    let n = f
+                        .read(&mut buf)
+                        .map_err(|e| format!("cannot read {shown}: {e}"))?;
+                    if n == 0 {
+                        break;
+                    }
+                    for &b in &buf[..n] {
+                        quotes += u64::from(b == b'"');
+                        if in_first {
+                            if b == b'\n' {
+                                in_first = false;
+                            } else if b != b'\r' {
+                                first_line.push(b);
+                            }
+                        }
+                    }
+                }
+                if quotes % 2 == 1 {
+                    return Err(format!("{shown} has an unterminated quoted field (an odd number of '\"' characters)"));
+                }
+                if header && kind_of_name(path).is_none() {
+                    let line = String::from_utf8_lossy(&first_line).to_string();
+                    match &first_header {
+                        None => first_header = Some((line, file.clone())),
+                        Some((h, other)) if *h != line => {
+                            return Err(format!(
+                                "files in {path} disagree on their columns: {} has '{h}', {shown} has '{line}'",
+                                other.display()
+                            ))
+                        }
+                        _ => {}
+                    }
+                }
+            }
+            FileKind::Json => {}
+        }
+    }
+    Ok(())
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

@@ -164,6 +164,16 @@ pub fn write_atomically(path: &Path, text: &str) -> std::io::Result<()> {
         .file_name()
         .map(|n| n.to_string_lossy().to_string())
         .unwrap_or_else(|| "output".into());
+    // A writer killed earlier may have left its temporary file: remove such leftovers.
+    let prefix = format!(".{name}.");
+    if let Ok(entries) = std::fs::read_dir(dir) {
+        for e in entries.flatten() {
+            let n = e.file_name().to_string_lossy().to_string();
+            if n.starts_with(&prefix) && n.ends_with(".tmp") {
+                std::fs::remove_file(e.path()).ok();
+            }
+        }
+    }
     let tmp = dir.join(format!(".{name}.{}.tmp", std::process::id()));
     let result = (|| {
         let mut f = std::fs::File::create(&tmp)?;
