@@ -1,64 +1,115 @@
-//! Benchmarks: posterity's aggregates and readers against the engine's own
-//! COUNT/SUM group-by on the same data, in one run, as ratios.
+//! Benchmarks: posterity's aggregates, join-back readers and family readers
+//! against the engine's own COUNT/SUM group-by on the same data, in one run.
 //!
-//! cargo bench --bench fit -- [ROWS] [LEVELS]     (defaults: 10000000 30000)
+//!   cargo bench --bench fit -- [--rows N] [--levels L] [--data DIR] [--runs R]
+//!
+//! The data set (Parquet, deterministic) is written to DIR/data_<rows>_<levels>.parquet
+//! on first use and shared with the peer script (benches/peers.py). Timings go to
+//! stdout as a Markdown table and to DIR/posterity_<rows>_<levels>.json.
 
+use std::path::PathBuf;
 use std::sync::Arc;
 use std::time::Instant;
 
 use datafusion::arrow::array::{ArrayRef, Float64Array, Int64Array, RecordBatch, StringArray};
 use datafusion::arrow::datatypes::{DataType, Field, Schema};
 use datafusion::datasource::MemTable;
-use datafusion::prelude::{SessionConfig, SessionContext};
+use datafusion::prelude::{ParquetReadOptions, SessionConfig, SessionContext};
 use posterity::family::rng::{mix64, uniform};
 use posterity::family::Marginal;
 
-/// Zipf(1.1)-distributed keys, a 0/1 target and a continuous target.
-fn table(rows: usize, levels: usize, partitions: usize) -> MemTable {
-    let mut cumulative = Vec::with_capacity(levels);
-    let mut acc = 0.0;
-    for r in 1..=levels {
-        acc += 1.0 / (r as f64).powf(1.1);
-        cumulative.push(acc);
+struct Options {
+    rows: usize,
+    levels: usize,
+    dir: PathBuf,
+    runs: usize,
+}
+
+fn options() -> Options {
+    let args: Vec<String> = std::env::args().collect();
+    let get = |flag: &str| {
+        args.iter()
+            .position(|a| a == flag)
+            .and_then(|i| args.get(i + 1))
+            .cloned()
+    };
+    Options {
+        rows: get("--rows")
+            .and_then(|v| v.parse().ok())
+            .unwrap_or(10_000_000),
+        levels: get("--levels")
+            .and_then(|v| v.parse().ok())
+            .unwrap_or(30_000),
+        dir: get("--data").map_or_else(|| PathBuf::from("bench-data"), PathBuf::from),
+        runs: get("--runs").and_then(|v| v.parse().ok()).unwrap_or(5),
     }
-    let names: Vec<String> = (0..levels).map(|i| format!("level_{i:06}")).collect();
+}
+
+fn zipf(levels: usize) -> Vec<f64> {
+    let mut acc = 0.0;
+    (1..=levels)
+        .map(|r| {
+            acc += 1.0 / (r as f64).powf(1.1);
+            acc
+        })
+        .collect()
+}
+
+/// Keys with `levels`, 2/3 of that and 50 Zipf levels; a 0/1 target, a continuous
+/// target and a four-class target, all depending on the first key.
+fn generate(rows: usize, levels: usize) -> Vec<RecordBatch> {
+    let (z1, z2, z3) = (zipf(levels), zipf((levels * 2 / 3).max(1)), zipf(50));
+    let names = |n: usize, p: &str| {
+        (0..n)
+            .map(|i| format!("{p}{i:07}"))
+            .collect::<Vec<String>>()
+    };
+    let (n1, n2, n3) = (names(z1.len(), "a"), names(z2.len(), "b"), names(50, "c"));
+    let classes = ["attended", "no_show", "late_cancellation", "rescheduled"];
     let schema = Arc::new(Schema::new(vec![
         Field::new("key", DataType::Utf8, false),
+        Field::new("key2", DataType::Utf8, false),
+        Field::new("key3", DataType::Utf8, false),
         Field::new("y", DataType::Int64, false),
         Field::new("x", DataType::Float64, false),
+        Field::new("class", DataType::Utf8, false),
     ]));
     let mut state = 17u64;
-    let per = rows / partitions;
-    let mut parts = Vec::new();
-    for _ in 0..partitions {
-        let mut batches = Vec::new();
-        let mut left = per;
-        while left > 0 {
-            let n = left.min(65_536);
-            left -= n;
-            let mut keys = Vec::with_capacity(n);
-            let mut ys = Vec::with_capacity(n);
-            let mut xs = Vec::with_capacity(n);
-            for _ in 0..n {
-                state = mix64(state);
-                let u = uniform(state, &[]) * acc;
-                let k = cumulative.partition_point(|c| *c < u).min(levels - 1);
-                keys.push(names[k].as_str());
-                state = mix64(state);
-                let v = uniform(state, &[]);
-                ys.push(i64::from(v < 0.05 + 0.1 * (k % 7) as f64 / 7.0));
-                xs.push(100.0 + 10.0 * v + (k % 13) as f64);
-            }
-            let columns: Vec<ArrayRef> = vec![
-                Arc::new(StringArray::from(keys)),
-                Arc::new(Int64Array::from(ys)),
-                Arc::new(Float64Array::from(xs)),
-            ];
-            batches.push(RecordBatch::try_new(schema.clone(), columns).unwrap());
+    let mut draw = |cum: &[f64]| {
+        state = mix64(state);
+        let u = uniform(state, &[]) * cum[cum.len() - 1];
+        cum.partition_point(|c| *c < u).min(cum.len() - 1)
+    };
+    let mut out = Vec::new();
+    let mut left = rows;
+    let mut noise = 99u64;
+    while left > 0 {
+        let n = left.min(131_072);
+        left -= n;
+        let (mut k1, mut k2, mut k3, mut ys, mut xs, mut cs) =
+            (vec![], vec![], vec![], vec![], vec![], vec![]);
+        for _ in 0..n {
+            let (a, b, c) = (draw(&z1), draw(&z2), draw(&z3));
+            noise = mix64(noise);
+            let v = uniform(noise, &[]);
+            k1.push(n1[a].as_str());
+            k2.push(n2[b].as_str());
+            k3.push(n3[c].as_str());
+            ys.push(i64::from(v < 0.05 + 0.1 * (a % 7) as f64 / 7.0));
+            xs.push(100.0 + 10.0 * v + (a % 13) as f64);
+            cs.push(classes[((v * 4.0) as usize + a) % 4]);
         }
-        parts.push(batches);
+        let columns: Vec<ArrayRef> = vec![
+            Arc::new(StringArray::from(k1)),
+            Arc::new(StringArray::from(k2)),
+            Arc::new(StringArray::from(k3)),
+            Arc::new(Int64Array::from(ys)),
+            Arc::new(Float64Array::from(xs)),
+            Arc::new(StringArray::from(cs)),
+        ];
+        out.push(RecordBatch::try_new(schema.clone(), columns).unwrap());
     }
-    MemTable::try_new(schema, parts).unwrap()
+    out
 }
 
 async fn median_seconds(ctx: &SessionContext, sql: &str, runs: usize) -> f64 {
@@ -83,19 +134,60 @@ fn per_second(n: usize, f: impl Fn(usize) -> f64) -> f64 {
     n as f64 / start.elapsed().as_secs_f64()
 }
 
+fn peak_rss_mib() -> f64 {
+    std::fs::read_to_string("/proc/self/status")
+        .ok()
+        .and_then(|s| {
+            s.lines().find(|l| l.starts_with("VmHWM:")).map(|l| {
+                l.split_whitespace()
+                    .nth(1)
+                    .unwrap_or("0")
+                    .parse::<f64>()
+                    .unwrap_or(0.0)
+            })
+        })
+        .unwrap_or(0.0)
+        / 1024.0
+}
+
 #[tokio::main]
 async fn main() {
-    let args: Vec<String> = std::env::args().filter(|a| !a.starts_with("--")).collect();
-    let rows: usize = args
-        .get(1)
-        .and_then(|a| a.parse().ok())
-        .unwrap_or(10_000_000);
-    let levels: usize = args.get(2).and_then(|a| a.parse().ok()).unwrap_or(30_000);
+    let o = options();
+    std::fs::create_dir_all(&o.dir).unwrap();
+    let file = o.dir.join(format!("data_{}_{}.parquet", o.rows, o.levels));
     let partitions = std::thread::available_parallelism().map_or(2, |n| n.get());
     let ctx =
         SessionContext::new_with_config(SessionConfig::new().with_target_partitions(partitions));
     posterity::register(&ctx);
-    ctx.register_table("t", Arc::new(table(rows, levels, partitions)))
+    if !file.exists() {
+        let batches = generate(o.rows, o.levels);
+        let schema = batches[0].schema();
+        ctx.register_table(
+            "gen",
+            Arc::new(MemTable::try_new(schema, vec![batches]).unwrap()),
+        )
+        .unwrap();
+        ctx.sql(&format!(
+            "COPY gen TO '{}' STORED AS PARQUET",
+            file.display()
+        ))
+        .await
+        .unwrap()
+        .collect()
+        .await
+        .unwrap();
+        ctx.deregister_table("gen").unwrap();
+    }
+    // Load into memory, split across partitions, so every query measures compute.
+    let df = ctx
+        .read_parquet(file.to_str().unwrap(), ParquetReadOptions::default())
+        .await
+        .unwrap();
+    let schema = Arc::new(df.schema().as_arrow().clone());
+    let batches = df.collect().await.unwrap();
+    let chunk = batches.len().div_ceil(partitions).max(1);
+    let parts: Vec<Vec<RecordBatch>> = batches.chunks(chunk).map(|c| c.to_vec()).collect();
+    ctx.register_table("t", Arc::new(MemTable::try_new(schema, parts).unwrap()))
         .unwrap();
     ctx.sql("CREATE TABLE enc AS SELECT key, beta_posterior(y) AS p, COUNT(*) AS n, SUM(y) AS s FROM t GROUP BY key")
         .await
@@ -103,62 +195,58 @@ async fn main() {
         .collect()
         .await
         .unwrap();
-    println!("rows {rows}, levels {levels}, partitions {partitions}; median of 5 runs\n");
-    let baseline =
-        median_seconds(&ctx, "SELECT key, COUNT(*), SUM(y) FROM t GROUP BY key", 5).await;
-    let cases = [
-        (
-            "fit: beta_posterior(y) GROUP BY key",
-            "SELECT key, beta_posterior(y) FROM t GROUP BY key",
-        ),
-        (
-            "fit: nig_posterior(x) GROUP BY key",
-            "SELECT key, nig_posterior(x) FROM t GROUP BY key",
-        ),
-        (
-            "engine: COUNT(*), SUM(x), SUM(x*x) GROUP BY key",
-            "SELECT key, COUNT(*), SUM(x), SUM(x * x) FROM t GROUP BY key",
-        ),
-        (
-            "join back + mean (engine, t LEFT JOIN enc)",
-            "SELECT SUM((e.s + 0.5) / (e.n + 1.0)) FROM t LEFT JOIN enc e USING (key)",
-        ),
-        (
-            "join back + posterior_mean (t LEFT JOIN enc)",
-            "SELECT SUM(posterior_mean(e.p)) FROM t LEFT JOIN enc e USING (key)",
-        ),
-        (
-            "join back + posterior_mean (enc RIGHT JOIN t)",
-            "SELECT SUM(posterior_mean(e.p)) FROM enc e RIGHT JOIN t USING (key)",
-        ),
-        (
-            "readers: quantile(0.05) over the encoding table",
-            "SELECT SUM(posterior_quantile(p, 0.05)) FROM enc",
-        ),
+
+    println!(
+        "rows {}, levels {}, partitions {partitions}, median of {} runs\n",
+        o.rows, o.levels, o.runs
+    );
+    let baseline_sql = "SELECT key, COUNT(*), SUM(y) FROM t GROUP BY key";
+    let baseline = median_seconds(&ctx, baseline_sql, o.runs).await;
+    let cases: &[(&str, &str, &str)] = &[
+        ("fit", "fit: beta_posterior(y) GROUP BY key", "SELECT key, beta_posterior(y) FROM t GROUP BY key"),
+        ("fit_nig", "fit: nig_posterior(x) GROUP BY key", "SELECT key, nig_posterior(x) FROM t GROUP BY key"),
+        ("engine_moments", "engine: COUNT(*), SUM(x), SUM(x*x) GROUP BY key", "SELECT key, COUNT(*), SUM(x), SUM(x * x) FROM t GROUP BY key"),
+        ("fit_dirichlet", "fit: dirichlet_posterior(class) GROUP BY key", "SELECT key, dirichlet_posterior(class, dirichlet_prior(['attended', 'no_show', 'late_cancellation', 'rescheduled'], 1)) FROM t GROUP BY key"),
+        ("join_engine", "join back + mean by hand (t LEFT JOIN enc)", "SELECT SUM((e.s + 0.5) / (e.n + 1.0)) FROM t LEFT JOIN enc e USING (key)"),
+        ("join_reader", "join back + posterior_mean (t LEFT JOIN enc)", "SELECT SUM(posterior_mean(e.p)) FROM t LEFT JOIN enc e USING (key)"),
+        ("join_reader_right", "join back + posterior_mean (enc RIGHT JOIN t)", "SELECT SUM(posterior_mean(e.p)) FROM enc e RIGHT JOIN t USING (key)"),
+        ("fit_join", "fit + join back + posterior_mean, one query", "SELECT SUM(posterior_mean(e.p)) FROM t LEFT JOIN (SELECT key, beta_posterior(y) AS p FROM t GROUP BY key) e USING (key)"),
+        ("oof5", "5-fold out-of-fold fit + join back + mean", "WITH f AS (SELECT key, y, fold_of(key, 5) AS fold FROM t), tot AS (SELECT key, beta_posterior(y) AS p FROM f GROUP BY key), per AS (SELECT key, fold, beta_posterior(y) AS p FROM f GROUP BY key, fold) SELECT SUM(posterior_mean(posterior_subtract(tot.p, per.p))) FROM f JOIN tot USING (key) JOIN per ON per.key = f.key AND per.fold = f.fold"),
+        ("quantiles", "quantile(0.05) over the encoding table", "SELECT SUM(posterior_quantile(p, 0.05)) FROM enc"),
+        ("fit_prior", "fit_prior (beta-binomial) over the encoding table", "SELECT fit_prior(p) FROM enc"),
     ];
+    let mut json = vec![format!("\"baseline\": {baseline}")];
     println!("| query | seconds | ratio to COUNT/SUM group-by |");
     println!("|---|---|---|");
     println!("| engine: COUNT(*), SUM(y) GROUP BY key | {baseline:.3} | 1.00 |");
-    for (name, sql) in cases {
-        let t = median_seconds(&ctx, sql, 5).await;
+    for (id, name, sql) in cases {
+        let t = median_seconds(&ctx, sql, o.runs).await;
         println!("| {name} | {t:.3} | {:.2} |", t / baseline);
+        json.push(format!("\"{id}\": {t}"));
     }
+    println!("\npeak RSS {:.0} MiB (data held in memory)", peak_rss_mib());
+    std::fs::write(
+        o.dir
+            .join(format!("posterity_{}_{}.json", o.rows, o.levels)),
+        format!("{{{}}}\n", json.join(", ")),
+    )
+    .unwrap();
 
     let n = 2_000_000;
     let beta = |i: usize| Marginal::Beta {
         a: 0.5 + (i % 97) as f64,
         b: 10.5 + (i % 1013) as f64,
     };
-    let mean = per_second(n, |i| beta(i).mean() + beta(i).var());
-    let quantile = per_second(n / 10, |i| beta(i).quantile(0.05));
-    let gamma_q = per_second(n / 10, |i| {
+    let mean = per_second(n * 5, |i| beta(i).mean() + beta(i).var());
+    let quantile = per_second(n / 4, |i| beta(i).quantile(0.05));
+    let gamma_q = per_second(n / 4, |i| {
         Marginal::Gamma {
             shape: 0.5 + (i % 301) as f64,
             rate: 1.0,
         }
         .quantile(0.95)
     });
-    let t_q = per_second(n / 10, |i| {
+    let t_q = per_second(n / 4, |i| {
         Marginal::StudentT {
             loc: 0.0,
             scale: 1.0,
@@ -166,19 +254,19 @@ async fn main() {
         }
         .quantile(0.975)
     });
-    println!("\n| family reader (one core) | per second |");
+    println!("\n| family reader (one core) | million per second |");
     println!("|---|---|");
-    println!("| Beta mean + variance | {:.1} M |", mean / 1e6);
+    println!("| Beta mean + variance | {:.1} |", mean / 1e6);
     println!(
-        "| Beta quantile (a 0.5-96.5, b 10.5-1022.5, q 0.05) | {:.2} M |",
+        "| Beta quantile (a 0.5-96.5, b 10.5-1022.5, q 0.05) | {:.2} |",
         quantile / 1e6
     );
     println!(
-        "| Gamma quantile (shape 0.5-300.5, q 0.95) | {:.2} M |",
+        "| Gamma quantile (shape 0.5-300.5, q 0.95) | {:.2} |",
         gamma_q / 1e6
     );
     println!(
-        "| Student-t quantile (dof 3-502, q 0.975) | {:.2} M |",
+        "| Student-t quantile (dof 3-502, q 0.975) | {:.2} |",
         t_q / 1e6
     );
 }

@@ -94,36 +94,45 @@ pub fn bd0(x: f64, m: f64) -> f64 {
         }
         s
     } else {
-        x * (x / m).ln() + m - x
+        // ln x - ln m, not ln(x / m): the ratio can underflow for extreme shapes.
+        let ratio = x / m;
+        let log_ratio = if ratio.is_normal() {
+            ratio.ln()
+        } else {
+            x.ln() - m.ln()
+        };
+        x * log_ratio + m - x
     }
 }
 
-/// x^a y^b Γ(a+b+1) / (Γ(a+1) Γ(b+1)) for real a, b > 0 and x + y = 1: Loader's (2000)
-/// binomial density with n = a + b, taking b directly so tiny b keeps its digits.
-fn binomial_density(a: f64, b: f64, x: f64, y: f64) -> f64 {
+/// ln of x^a y^b Γ(a+b+1) / (Γ(a+1) Γ(b+1)) for real a, b > 0 and x + y = 1: Loader's
+/// (2000) binomial density with n = a + b, taking b directly so tiny b keeps its digits.
+fn ln_binomial_density(a: f64, b: f64, x: f64, y: f64) -> f64 {
     if x == 0.0 || y == 0.0 {
-        return 0.0;
+        return f64::NEG_INFINITY;
     }
     let n = a + b;
     let lc = stirlerr(n) - stirlerr(a) - stirlerr(b) - bd0(a, n * x) - bd0(b, n * y);
     let lf = (2.0 * PI).ln() + a.ln() + b.ln() - n.ln();
-    (lc - 0.5 * lf).exp()
+    lc - 0.5 * lf
 }
 
-/// λ^x e^(-λ) / Γ(x+1) for real x > 0 (Loader 2000).
+/// ln of λ^x e^(-λ) / Γ(x+1) for real x > 0 (Loader 2000).
+fn ln_poisson_density(x: f64, lambda: f64) -> f64 {
+    if lambda == 0.0 || !lambda.is_finite() {
+        return f64::NEG_INFINITY;
+    }
+    -stirlerr(x) - bd0(x, lambda) - 0.5 * (2.0 * PI * x).ln()
+}
+
 fn poisson_density(x: f64, lambda: f64) -> f64 {
-    if lambda == 0.0 {
-        return 0.0;
-    }
-    if !lambda.is_finite() {
-        return 0.0;
-    }
-    (-stirlerr(x) - bd0(x, lambda)).exp() / (2.0 * PI * x).sqrt()
+    ln_poisson_density(x, lambda).exp()
 }
 
-/// x^a e^(-x) / Γ(a): the prefactor of the incomplete gamma function.
+/// x^a e^(-x) / Γ(a): the prefactor of the incomplete gamma function, assembled
+/// in logs so that extreme shapes neither overflow nor lose digits.
 pub fn gamma_prefactor(a: f64, x: f64) -> f64 {
-    a * poisson_density(a, x)
+    (a.ln() + ln_poisson_density(a, x)).exp()
 }
 
 /// x^a y^b / B(a, b) with y = 1 - x given separately: the incomplete beta prefactor.
@@ -132,7 +141,7 @@ pub fn beta_prefactor(a: f64, b: f64, x: f64, y: f64) -> f64 {
     if !n.is_finite() {
         return 0.0;
     }
-    a * b / n * binomial_density(a, b, x, y)
+    (a.ln() + b.ln() - n.ln() + ln_binomial_density(a, b, x, y)).exp()
 }
 
 /// Regularized incomplete gamma: returns (P(a, x), Q(a, x)), P + Q = 1, each
