@@ -314,6 +314,12 @@ impl PosteriorColumn {
         self.len
     }
 
+    /// The Float64 fields of a Beta, Gamma or NIG column, in format order, with the
+    /// struct's own null mask: the vectorised readers' fast path.
+    pub fn float_fields(&self) -> Option<(&[Float64Array], Option<&NullBuffer>)> {
+        (self.kind != Kind::Dirichlet).then_some((self.floats.as_slice(), self.nulls.as_ref()))
+    }
+
     pub fn is_empty(&self) -> bool {
         self.len == 0
     }
