@@ -131,7 +131,7 @@ impl AnyPosterior {
 
     /// The marginal a reader looks at; Dirichlet posteriors need a class.
     pub fn marginal(&self, class: Option<&str>) -> Result<Marginal, FamilyError> {
-        Ok(match self {
+        let m = match self {
             AnyPosterior::Beta(p) => p.marginal(),
             AnyPosterior::Gamma(p) => p.marginal(),
             AnyPosterior::Nig(p) => p.marginal(),
@@ -143,7 +143,8 @@ impl AnyPosterior {
                 })?;
                 p.marginal(p.prior.index_of(class)?)
             }
-        })
+        };
+        m.check()
     }
 
     pub fn evidence(&self) -> f64 {

@@ -71,6 +71,10 @@ fn cases() -> Vec<(String, Vec<&'static str>)> {
         ("SELECT posterior_mean(named_struct('a0', -1.0, 'b0', 1.0, 'successes', 0.0, 'trials', 0.0))".into(), vec!["posterior_mean", "a = -1"]),
         ("SELECT posterior_mean(named_struct('a0', 1.0, 'b0', 1.0, 'successes', 5.0, 'trials', 2.0))".into(), vec!["posterior_mean", "successes = 5", "at most trials"]),
         ("SELECT posterior_mean(named_struct('classes', ['a', 'b'], 'a0', [1.0, 1.0], 'counts', [1.0]), 'a')".into(), vec!["posterior_mean", "1 counts for 2 classes"]),
+        // Fuzz finding (family_math, stored_posteriors): shapes near 1e300 made quantiles NaN;
+        // readers now refuse marginals beyond 1e15 with an error.
+        ("SELECT posterior_quantile(beta_prior(6.7e299, 1e10), 0.5)".into(), vec!["posterior_quantile", "shape = 6.7e299", "at most 1e15"]),
+        ("SELECT posterior_prob_above(gamma_prior(1e300, 1), 2)".into(), vec!["posterior_prob_above", "at most 1e15"]),
         // Transforms and pooling.
         ("SELECT posterior_merge(beta_prior(1, 1), beta_prior(1, 2))".into(), vec!["posterior_merge", "beta_prior(1, 1)", "beta_prior(1, 2)", "posterior_with_prior"]),
         ("SELECT posterior_merge(beta_prior(1, 1), gamma_prior(1, 2))".into(), vec!["posterior_merge", "cannot combine a Beta posterior with a Gamma one"]),

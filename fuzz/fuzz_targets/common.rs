@@ -42,6 +42,10 @@ impl Input<'_> {
 
 /// Invariants every marginal reader must keep for valid parameters.
 pub fn check_marginal(m: &family::Marginal, q: f64, t: f64) {
+    // Readers refuse marginals beyond the supported range (an error, not a NaN).
+    if m.check().is_err() {
+        return;
+    }
     let mean = m.mean();
     let var = m.var();
     assert!(!mean.is_nan(), "mean NaN for {m:?}");

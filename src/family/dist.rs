@@ -20,7 +20,29 @@ pub enum Marginal {
     StudentT { loc: f64, scale: f64, dof: f64 },
 }
 
+/// Largest shape (or degrees of freedom) the readers accept: far beyond any data
+/// set's evidence, and the edge of the range the special functions are tested on.
+pub const MAX_SHAPE: f64 = 1e15;
+
 impl Marginal {
+    /// Refuse marginals outside the supported range instead of returning NaN.
+    pub fn check(self) -> super::Result<Self> {
+        let (name, value) = match self {
+            Marginal::Beta { a, b } => ("shape", a.max(b)),
+            Marginal::Gamma { shape, .. } => ("shape", shape),
+            Marginal::StudentT { dof, .. } => ("degrees of freedom", dof),
+        };
+        if value <= MAX_SHAPE {
+            Ok(self)
+        } else {
+            Err(super::FamilyError::InvalidParameter {
+                name,
+                value,
+                allowed: "at most 1e15 (posterior evidence beyond that is not supported)",
+            })
+        }
+    }
+
     /// Posterior mean. For the Student-t this is its centre `loc`, which is the mean
     /// whenever dof > 1 and the median always.
     pub fn mean(&self) -> f64 {

@@ -54,13 +54,18 @@ impl fmt::Display for FamilyError {
                 allowed,
             } => write!(
                 f,
-                "argument {name} = {value} is out of range; allowed: {allowed}"
+                "argument {name} = {} is out of range; allowed: {allowed}",
+                number(*value)
             ),
             FamilyError::InvalidObservation {
                 name,
                 value,
                 allowed,
-            } => write!(f, "{name} = {value} is not allowed; allowed: {allowed}"),
+            } => write!(
+                f,
+                "{name} = {} is not allowed; allowed: {allowed}",
+                number(*value)
+            ),
             FamilyError::PriorMismatch { left, right } => write!(
                 f,
                 "the two posteriors have different priors ({left} vs {right}); \
@@ -78,6 +83,15 @@ impl fmt::Display for FamilyError {
 }
 
 impl std::error::Error for FamilyError {}
+
+/// Numbers in messages: plain when readable, scientific when huge or tiny.
+fn number(v: f64) -> String {
+    if v != 0.0 && v.is_finite() && (v.abs() >= 1e15 || v.abs() < 1e-4) {
+        format!("{v:e}")
+    } else {
+        format!("{v}")
+    }
+}
 
 pub type Result<T> = std::result::Result<T, FamilyError>;
 
