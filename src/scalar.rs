@@ -709,6 +709,7 @@ impl ScalarFunction {
 /// Mean, variance, sd and evidence of Beta, Gamma and NIG columns in one tight loop
 /// over the field arrays. Returns None (the general path then runs and reports the
 /// exact error) when any row holds values that are not a valid posterior.
+#[allow(clippy::needless_range_loop)] // row i indexes several parallel field arrays
 fn fast_moments(reader: Reader, column: &PosteriorColumn) -> Option<ArrayRef> {
     if !matches!(
         reader,
