@@ -259,7 +259,34 @@ impl Shell {
             .sql(sql)
             .await
             .map_err(|e| Failure::query(clean(e)))?;
-        df.collect().await.map_err(|e| Failure::query(clean(e)))
+        if self.quiet || !std::io::stderr().is_terminal() {
+            return df.collect().await.map_err(|e| Failure::query(clean(e)));
+        }
+        // At a terminal: a live progress line (elapsed time, rows read by the scans).
+        let task = self.ctx.task_ctx();
+        let plan = df
+            .create_physical_plan()
+            .await
+            .map_err(|e| Failure::query(clean(e)))?;
+        let started = Instant::now();
+        let mut run = tokio::spawn(datafusion::physical_plan::collect(plan.clone(), task));
+        let mut shown = false;
+        let result = loop {
+            tokio::select! {
+                r = &mut run => break r,
+                _ = tokio::time::sleep(std::time::Duration::from_millis(300)) => {
+                    eprint!("\r{:.1} s, {} rows read ", started.elapsed().as_secs_f64(), rows_read(plan.as_ref()));
+                    shown = true;
+                }
+            }
+        };
+        if shown {
+            eprint!("\r\x1b[2K");
+        }
+        match result {
+            Ok(r) => r.map_err(|e| Failure::query(clean(e))),
+            Err(e) => Err(Failure::query(format!("query task failed: {e}"))),
+        }
     }
 
     /// SQL from standard input when it is not a terminal, else the prompt.
@@ -396,6 +423,16 @@ pub fn functions_help(name: Option<&str>) -> Result<String, Failure> {
 
 fn first_sentence(s: &str) -> &str {
     s.split(". ").next().unwrap_or(s).trim_end_matches('.')
+}
+
+/// Rows produced so far by the plan's leaves (the scans), from the engine's metrics.
+fn rows_read(plan: &dyn datafusion::physical_plan::ExecutionPlan) -> usize {
+    let children = plan.children();
+    if children.is_empty() {
+        plan.metrics().and_then(|m| m.output_rows()).unwrap_or(0)
+    } else {
+        children.iter().map(|c| rows_read(c.as_ref())).sum()
+    }
 }
 
 /// DataFusion errors without the engine's internal prefixes or backtraces.

@@ -27,8 +27,12 @@ pub fn render(batches: &[RecordBatch], format: Format) -> Result<String, String>
             if batches.iter().all(|b| b.num_rows() == 0) && batches.is_empty() {
                 return Ok(String::new());
             }
+            let readable = batches
+                .iter()
+                .map(readable_batch)
+                .collect::<Result<Vec<_>, _>>()?;
             let options = FormatOptions::default().with_null("NULL");
-            pretty_format_batches_with_options(batches, &options)
+            pretty_format_batches_with_options(&readable, &options)
                 .map(|t| format!("{t}\n"))
                 .map_err(|e| e.to_string())
         }
@@ -42,6 +46,111 @@ pub fn render(batches: &[RecordBatch], format: Format) -> Result<String, String>
             .into_iter()
             .map(|r| format!("{r}\n"))
             .collect()),
+    }
+}
+
+/// For people: floats with at most 6 significant digits, posteriors as their
+/// distribution, e.g. `Beta(12.5, 88.5) from 100 trials`. CSV and JSON keep full values.
+fn readable_batch(batch: &RecordBatch) -> Result<RecordBatch, String> {
+    use datafusion::arrow::array::{ArrayRef, StringArray};
+    use datafusion::arrow::datatypes::{Field, Schema};
+    use std::sync::Arc;
+    let mut fields = Vec::new();
+    let mut columns: Vec<ArrayRef> = Vec::new();
+    for (field, column) in batch.schema().fields().iter().zip(batch.columns()) {
+        let text: Option<Vec<Option<String>>> =
+            if posterity::layout::Kind::detect(column.data_type()).is_some() {
+                let decoded = posterity::layout::PosteriorColumn::new("display", column)
+                    .map_err(|e| e.to_string())?;
+                Some(
+                    (0..column.len())
+                        .map(|i| decoded.get(i).ok().flatten().map(|p| describe(&p)))
+                        .collect(),
+                )
+            } else if column.data_type() == &DataType::Float64 {
+                let c = column.as_primitive::<Float64Type>();
+                Some(
+                    (0..c.len())
+                        .map(|i| c.is_valid(i).then(|| short(c.value(i))))
+                        .collect(),
+                )
+            } else {
+                None
+            };
+        match text {
+            Some(t) => {
+                fields.push(Field::new(field.name(), DataType::Utf8, true));
+                columns.push(Arc::new(StringArray::from(t)));
+            }
+            None => {
+                fields.push(field.as_ref().clone());
+                columns.push(column.clone());
+            }
+        }
+    }
+    RecordBatch::try_new(Arc::new(Schema::new(fields)), columns).map_err(|e| e.to_string())
+}
+
+/// Six significant digits, trailing zeros dropped.
+fn short(v: f64) -> String {
+    if v == 0.0 || !v.is_finite() {
+        return format!("{v}");
+    }
+    let magnitude = v.abs().log10().floor() as i32;
+    if !(-4..15).contains(&magnitude) {
+        return format!("{v:.5e}");
+    }
+    let decimals = (5 - magnitude).max(0) as usize;
+    let text = format!("{v:.decimals$}");
+    if text.contains('.') {
+        text.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        text
+    }
+}
+
+fn describe(p: &posterity::layout::AnyPosterior) -> String {
+    use posterity::layout::AnyPosterior;
+    match p {
+        AnyPosterior::Beta(b) => {
+            let (a, bb) = b.params();
+            format!(
+                "Beta({}, {}) from {} trials",
+                short(a),
+                short(bb),
+                short(b.trials)
+            )
+        }
+        AnyPosterior::Gamma(g) => {
+            let (k, r) = g.params();
+            format!(
+                "Gamma({}, {}) from {} events",
+                short(k),
+                short(r),
+                short(g.events)
+            )
+        }
+        AnyPosterior::Nig(n) => {
+            let q = n.params();
+            format!(
+                "NIG(mu {}, kappa {}, alpha {}, beta {}) from {} values",
+                short(q.mu),
+                short(q.kappa),
+                short(q.alpha),
+                short(q.beta),
+                short(n.stats.n)
+            )
+        }
+        AnyPosterior::Dirichlet(d) => {
+            let parts: Vec<String> = d
+                .prior
+                .classes
+                .iter()
+                .zip(d.params())
+                .map(|(c, a)| format!("{c} {}", short(a)))
+                .collect();
+            format!("Dirichlet({})", parts.join(", "))
+        }
     }
 }
 
