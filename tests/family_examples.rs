@@ -186,6 +186,20 @@ fn fuzz_finding_subnormal_shape() {
     assert!(!m.tails(1e-10).0.is_nan());
 }
 
+// Fuzz finding (family_math): a NIG posterior whose scale underflows to zero gave
+// NaN tails (0/0); it is now the point mass at its centre.
+#[test]
+fn fuzz_finding_zero_scale_student_t() {
+    let m = Marginal::StudentT {
+        loc: 9_999_999_999.999_918,
+        scale: 0.0,
+        dof: 19_999_999_814.035_86,
+    };
+    assert_eq!(m.tails(9_999_999_999.999_918), (1.0, 0.0));
+    assert_eq!(m.tails(0.0), (0.0, 1.0));
+    assert_eq!(m.quantile(0.3), 9_999_999_999.999_918);
+}
+
 /// A small deterministic generator for the property tests.
 struct Gen(u64);
 impl Gen {
