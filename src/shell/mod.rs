@@ -238,7 +238,12 @@ impl Shell {
         let started = Instant::now();
         let batches = self.collect(sql).await?;
         let rows: usize = batches.iter().map(RecordBatch::num_rows).sum();
-        let shows_rows = !batches.is_empty() && batches[0].num_columns() > 0;
+        // COPY answers with a row count; say it on stderr at a terminal instead of as a table.
+        let is_copy = sql
+            .trim_start()
+            .get(..4)
+            .is_some_and(|w| w.eq_ignore_ascii_case("copy"));
+        let shows_rows = !is_copy && !batches.is_empty() && batches[0].num_columns() > 0;
         if shows_rows {
             let text = output::render(&batches, self.format).map_err(Failure::query)?;
             match &self.output {
