@@ -107,6 +107,30 @@ fn arity(function: &str, n: usize, min: usize, max: usize, syntax: &str) -> Resu
     }
 }
 
+/// Coercion for `name(value [, prior [, weight]])`.
+fn value_prior_weight(
+    name: &str,
+    value: &str,
+    kind: Kind,
+    syntax: &str,
+    t: &[DataType],
+) -> Result<Vec<DataType>> {
+    arity(name, t.len(), 1, 3, syntax)?;
+    let mut out = vec![numeric(name, value, &t[0])?];
+    if t.len() > 1 {
+        out.push(prior_type(name, kind, &t[1])?);
+    }
+    if t.len() > 2 {
+        out.push(numeric(name, "weight", &t[2])?);
+    }
+    Ok(out)
+}
+
+/// Argument `i` as Float64 when the call has it.
+fn optional_f64(values: &[ArrayRef], i: usize) -> Result<Option<Float64Array>> {
+    values.get(i).map(|_| f64_column(values, i)).transpose()
+}
+
 /// Subtract with the same rounding tolerance as the family code.
 fn take(stat: &mut f64, amount: f64) {
     *stat -= amount;
@@ -164,21 +188,13 @@ impl FitKernel for BetaOutcomes {
     }
 
     fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
-        arity(
+        value_prior_weight(
             Self::NAME,
-            t.len(),
-            1,
-            3,
+            "outcome",
+            Kind::Beta,
             "beta_posterior(outcome [, prior [, weight]])",
-        )?;
-        let mut out = vec![numeric(Self::NAME, "outcome", &t[0])?];
-        if t.len() > 1 {
-            out.push(prior_type(Self::NAME, Kind::Beta, &t[1])?);
-        }
-        if t.len() > 2 {
-            out.push(numeric(Self::NAME, "weight", &t[2])?);
-        }
-        Ok(out)
+            t,
+        )
     }
 
     fn width(&self) -> usize {
@@ -194,12 +210,7 @@ impl FitKernel for BetaOutcomes {
         retract: bool,
     ) -> Result<()> {
         let y = f64_column(values, 0)?;
-        let w = if values.len() > 2 {
-            Some(f64_column(values, 2)?)
-        } else {
-            None
-        };
-        let sign = if retract { -1.0 } else { 1.0 };
+        let w = optional_f64(values, 2)?;
         if filter.is_none() && w.is_none() && y.null_count() == 0 && !retract {
             // Hot path: every row counts with weight one; validate after the loop.
             let mut bad = false;
@@ -239,8 +250,8 @@ impl FitKernel for BetaOutcomes {
                 take(&mut stats[2 * g], v * wt);
                 take(&mut stats[2 * g + 1], wt);
             } else {
-                stats[2 * g] += sign * v * wt;
-                stats[2 * g + 1] += sign * wt;
+                stats[2 * g] += v * wt;
+                stats[2 * g + 1] += wt;
             }
         }
         Ok(())
@@ -479,21 +490,13 @@ impl FitKernel for NigValues {
     }
 
     fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
-        arity(
+        value_prior_weight(
             Self::NAME,
-            t.len(),
-            1,
-            3,
+            "value",
+            Kind::Nig,
             "nig_posterior(value [, prior [, weight]])",
-        )?;
-        let mut out = vec![numeric(Self::NAME, "value", &t[0])?];
-        if t.len() > 1 {
-            out.push(prior_type(Self::NAME, Kind::Nig, &t[1])?);
-        }
-        if t.len() > 2 {
-            out.push(numeric(Self::NAME, "weight", &t[2])?);
-        }
-        Ok(out)
+            t,
+        )
     }
 
     fn width(&self) -> usize {
@@ -509,11 +512,7 @@ impl FitKernel for NigValues {
         retract: bool,
     ) -> Result<()> {
         let x = f64_column(values, 0)?;
-        let w = if values.len() > 2 {
-            Some(f64_column(values, 2)?)
-        } else {
-            None
-        };
+        let w = optional_f64(values, 2)?;
         for (i, &g) in groups.iter().enumerate() {
             let ok = match &w {
                 Some(w) => row_ok(filter, &[&x, w], i),
@@ -640,11 +639,7 @@ impl FitKernel for DirichletClasses {
     ) -> Result<()> {
         let class = cast(&values[0], &DataType::Utf8)?;
         let class: &StringArray = class.as_string::<i32>();
-        let w = if values.len() > 2 {
-            Some(f64_column(values, 2)?)
-        } else {
-            None
-        };
+        let w = optional_f64(values, 2)?;
         let k = self.width();
         for (i, &g) in groups.iter().enumerate() {
             let ok = match &w {

@@ -220,14 +220,9 @@ pub async fn run(shell: &Shell, args: &EncodeArgs) -> Result<(), Failure> {
     let target = quote(&args.target);
 
     // Keys, folds and the row number on one table.
-    let key_exprs: Vec<String> = keys
-        .iter()
-        .enumerate()
-        .map(|(i, k)| format!("{} AS __k{i}", k.expr))
-        .collect();
     sql(format!(
         "CREATE TABLE __keyed AS SELECT *, {}, fold_of(__row, {}, {}) AS __fold FROM train",
-        key_exprs.join(", "),
+        key_columns(&keys),
         args.folds,
         args.seed
     ))
@@ -361,21 +356,14 @@ pub async fn run(shell: &Shell, args: &EncodeArgs) -> Result<(), Failure> {
         );
     }
 
-    let original: Vec<String> = columns
-        .iter()
-        .map(|(n, _)| format!("t.{}", quote(n)))
-        .collect();
-    let training = format!(
-        "SELECT {}, {} FROM __keyed t {} ORDER BY t.__row",
-        original.join(", "),
-        selects.join(", "),
-        joins.join(" ")
-    );
-    write_parquet(
+    write_encoded(
         shell,
-        args.show_sql,
-        &training,
-        &args.out.join("train_encoded.parquet"),
+        args,
+        "__keyed",
+        &columns,
+        &selects,
+        &joins,
+        "train_encoded.parquet",
     )
     .await?;
 
@@ -648,6 +636,38 @@ async fn load_numbered(
         .collect())
 }
 
+/// All original columns plus the reader columns, in file order, into `file` in the output directory.
+async fn write_encoded(
+    shell: &Shell,
+    args: &EncodeArgs,
+    table: &str,
+    columns: &[(String, DataType)],
+    selects: &[String],
+    joins: &[String],
+    file: &str,
+) -> Result<(), Failure> {
+    let original: Vec<String> = columns
+        .iter()
+        .map(|(n, _)| format!("t.{}", quote(n)))
+        .collect();
+    let query = format!(
+        "SELECT {}, {} FROM {table} t {} ORDER BY t.__row",
+        original.join(", "),
+        selects.join(", "),
+        joins.join(" ")
+    );
+    write_parquet(shell, args.show_sql, &query, &args.out.join(file)).await
+}
+
+/// `key AS __k0, ...` for every key.
+fn key_columns(keys: &[Key]) -> String {
+    keys.iter()
+        .enumerate()
+        .map(|(i, k)| format!("{} AS __k{i}", k.expr))
+        .collect::<Vec<_>>()
+        .join(", ")
+}
+
 /// Run `query` into a Parquet file through a temporary file and a rename.
 async fn write_parquet(shell: &Shell, show: bool, query: &str, path: &Path) -> Result<(), Failure> {
     let tmp = path.with_file_name(format!(
@@ -731,14 +751,9 @@ async fn score_file(
     plan: &Plan,
 ) -> Result<String, Failure> {
     let columns = load_numbered(shell, "score", path).await?;
-    let key_exprs: Vec<String> = keys
-        .iter()
-        .enumerate()
-        .map(|(i, k)| format!("{} AS __k{i}", k.expr))
-        .collect();
     let create = format!(
         "CREATE TABLE __score_keyed AS SELECT *, {} FROM score",
-        key_exprs.join(", ")
+        key_columns(keys)
     );
     if args.show_sql {
         println!("{create};\n");
@@ -779,21 +794,14 @@ async fn score_file(
             json!({"rows": v(0), "rows_with_key": v(1), "unseen_rows": v(2), "unseen_levels": v(3)}),
         );
     }
-    let original: Vec<String> = columns
-        .iter()
-        .map(|(n, _)| format!("t.{}", quote(n)))
-        .collect();
-    let query = format!(
-        "SELECT {}, {} FROM __score_keyed t {} ORDER BY t.__row",
-        original.join(", "),
-        selects.join(", "),
-        joins.join(" ")
-    );
-    write_parquet(
+    write_encoded(
         shell,
-        args.show_sql,
-        &query,
-        &args.out.join("scored.parquet"),
+        args,
+        "__score_keyed",
+        &columns,
+        &selects,
+        &joins,
+        "scored.parquet",
     )
     .await?;
     let text = serde_json::to_string_pretty(&serde_json::Value::Object(report)).unwrap_or_default();
