@@ -67,7 +67,7 @@ def main(path, out, runs=5):
     polars = {
         "baseline": lambda: df.group_by("key").agg(pl.len(), pl.col("y").sum()),
         "fit": pl_fit,
-        "fit_nig": lambda: df.group_by("key").agg(pl.len(), pl.col("x").mean(), pl.col("x").var(ddof=0)),
+        "fit_nig": lambda: df.group_by("key").agg(pl.len(), pl.col("x").mean().alias("m"), pl.col("x").var(ddof=0).alias("v")),
         "join_engine": lambda: df.join(enc, on="key", how="left").select(((pl.col("s") + A) / (pl.col("n") + A + B)).sum()),
         "fit_join": lambda: df.join(pl_fit(), on="key", how="left").select(pl.col("mean").sum()),
         "oof5": pl_oof,
