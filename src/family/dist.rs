@@ -99,7 +99,9 @@ impl Marginal {
             }
             Marginal::Gamma { shape, rate } => gamma_inc(shape, x.max(0.0) * rate),
             // A scale that underflowed to zero is a point mass at loc.
-            Marginal::StudentT { loc, scale: 0.0, .. } => {
+            Marginal::StudentT {
+                loc, scale: 0.0, ..
+            } => {
                 if x >= loc {
                     (1.0, 0.0)
                 } else {

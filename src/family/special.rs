@@ -243,6 +243,11 @@ fn beta_continued_fraction(a: f64, b: f64, x: f64, y: f64) -> f64 {
     if prefactor == 0.0 {
         return 0.0;
     }
+    if x > 0.9 {
+        // Here a >> b and the recurrence cancels (1 + aa d with aa d near -1): in
+        // double precision it loses up to 1e-9; double-double arithmetic keeps it exact.
+        return (prefactor * continued_fraction_dd(a, b, y) / a).min(1.0);
+    }
     let qab = a + b;
     let qap = a + 1.0;
     let qam = a - 1.0;
@@ -289,6 +294,89 @@ fn beta_continued_fraction(a: f64, b: f64, x: f64, y: f64) -> f64 {
         }
     }
     (prefactor * h / a).min(1.0)
+}
+
+/// A double-double number: value = hi + lo with |lo| <= ulp(hi) / 2
+/// (Dekker 1971; Hida, Li & Bailey, "Library for double-double and quad-double arithmetic").
+#[derive(Clone, Copy, Debug)]
+struct Dd(f64, f64);
+
+impl Dd {
+    fn from(v: f64) -> Dd {
+        Dd(v, 0.0)
+    }
+
+    fn quick(s: f64, e: f64) -> Dd {
+        let hi = s + e;
+        Dd(hi, e - (hi - s))
+    }
+
+    fn add(self, o: Dd) -> Dd {
+        let s = self.0 + o.0;
+        let bb = s - self.0;
+        let e = (self.0 - (s - bb)) + (o.0 - bb);
+        Dd::quick(s, e + self.1 + o.1)
+    }
+
+    fn neg(self) -> Dd {
+        Dd(-self.0, -self.1)
+    }
+
+    fn mul(self, o: Dd) -> Dd {
+        let p = self.0 * o.0;
+        let e = self.0.mul_add(o.0, -p) + (self.0 * o.1 + self.1 * o.0);
+        Dd::quick(p, e)
+    }
+
+    fn div(self, o: Dd) -> Dd {
+        let q1 = self.0 / o.0;
+        let r = self.add(o.mul(Dd::from(q1)).neg());
+        let q2 = r.0 / o.0;
+        let r = r.add(o.mul(Dd::from(q2)).neg());
+        let q3 = r.0 / o.0;
+        Dd::quick(q1, q2).add(Dd::from(q3))
+    }
+}
+
+/// The continued fraction of [`beta_continued_fraction`] (without its prefactor)
+/// in double-double arithmetic, for x near 1 where the double recurrence cancels.
+/// It takes y = 1 - x, the accurate one of the pair, and forms x = 1 - y exactly.
+fn continued_fraction_dd(a: f64, b: f64, y: f64) -> f64 {
+    let one = Dd::from(1.0);
+    let tiny = Dd::from(TINY);
+    let guard = |v: Dd| if v.0.abs() < TINY { tiny } else { v };
+    let (a_, b_, x_) = (Dd::from(a), Dd::from(b), one.add(Dd::from(y).neg()));
+    let qab = a_.add(b_);
+    let qap = a_.add(one);
+    let qam = a_.add(one.neg());
+    let mut c = one;
+    let mut d = one.div(guard(one.add(qab.mul(x_).div(qap).neg())));
+    let mut h = d;
+    for m in 1..MAX_ITER {
+        let m_ = Dd::from(m as f64);
+        let m2 = Dd::from(2.0 * m as f64);
+        let aa = m_
+            .mul(b_.add(m_.neg()))
+            .mul(x_)
+            .div(qam.add(m2).mul(a_.add(m2)));
+        d = one.div(guard(one.add(aa.mul(d))));
+        c = guard(one.add(aa.div(c)));
+        h = h.mul(d).mul(c);
+        let aa = a_
+            .add(m_)
+            .mul(qab.add(m_))
+            .mul(x_)
+            .div(a_.add(m2).mul(qap.add(m2)))
+            .neg();
+        d = one.div(guard(one.add(aa.mul(d))));
+        c = guard(one.add(aa.div(c)));
+        let del = d.mul(c);
+        h = h.mul(del);
+        if (del.0 - 1.0).abs() + del.1.abs() < 1e-17 {
+            break;
+        }
+    }
+    h.0 + h.1
 }
 
 /// ln B(a, b).
