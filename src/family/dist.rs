@@ -7,7 +7,7 @@
 //! is as accurate as q = 1e-10.
 
 use super::special::normal_quantile_approx;
-use super::special::{beta_inc, beta_prefactor, gamma_inc, gamma_prefactor, ln_beta, ln_gamma};
+use super::special::{beta_inc, beta_inc_density, gamma_inc, gamma_inc_density, ln_beta, ln_gamma};
 
 /// A one-dimensional posterior marginal.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -201,8 +201,7 @@ fn beta_quantile_below_half(a: f64, b: f64, q: f64, qc: f64) -> f64 {
     let lower = q <= 0.5;
     let target = if lower { q } else { qc };
     let eval = |x: f64| {
-        let (p, pc) = beta_inc(a, b, x, 1.0 - x);
-        let density = beta_prefactor(a, b, x, 1.0 - x) / (x * (1.0 - x));
+        let (p, pc, density) = beta_inc_density(a, b, x, 1.0 - x);
         (if lower { p } else { pc }, density)
     };
     // Start from the small-x power law I_x ~ x^a / (a B(a, b)) or a normal guess.
@@ -239,8 +238,8 @@ pub fn gamma_quantile(a: f64, q: f64) -> f64 {
     let lower = q <= 0.5;
     let target = if lower { q } else { 1.0 - q };
     let eval = |x: f64| {
-        let (p, pc) = gamma_inc(a, x);
-        (if lower { p } else { pc }, gamma_prefactor(a, x) / x)
+        let (p, pc, density) = gamma_inc_density(a, x);
+        (if lower { p } else { pc }, density)
     };
     // Wilson–Hilferty cube-root normal approximation, or the small-x power law.
     let z = normal_quantile_approx(q);
@@ -263,10 +262,12 @@ pub fn gamma_quantile(a: f64, q: f64) -> f64 {
     )
 }
 
-/// Solve tail(x) = target for x in [lo, hi] by Newton steps on u = ln x, falling back
-/// to bisection in u whenever a step leaves the bracket. `increasing` says whether the
+/// Solve tail(x) = target for x in [lo, hi] by Newton steps on ln tail(x), inside a
+/// bracket with bisection whenever a step leaves it. `increasing` says whether the
 /// tail is the CDF (true) or the survival function (false); `eval` returns the tail
-/// probability and the density at x.
+/// probability and the density at x. A lower tail behaves like a power of x near
+/// zero, so its steps are taken in ln x; an upper tail falls off like an exponential
+/// in x, so its steps are taken in x itself.
 fn solve_log(
     target: f64,
     increasing: bool,
@@ -276,37 +277,43 @@ fn solve_log(
     eval: impl Fn(f64) -> (f64, f64),
 ) -> f64 {
     let ln_target = target.ln();
-    let (mut ulo, mut uhi) = (lo.ln(), hi.ln());
-    let mut u = start.ln().clamp(ulo, uhi);
+    let (mut lo, mut hi) = (lo, hi);
+    let mut x = start.clamp(lo, hi);
     for _ in 0..200 {
-        let x = u.exp();
         let (tail, density) = eval(x);
         if tail == target {
             return x;
         }
         let h = tail.ln() - ln_target;
-        let below = (h < 0.0) == increasing;
-        if below {
-            ulo = u;
+        if (h < 0.0) == increasing {
+            lo = x;
         } else {
-            uhi = u;
+            hi = x;
         }
+        // d ln tail / dx = ±density / tail.
         let slope = if increasing {
-            x * density / tail
+            density / tail
         } else {
-            -x * density / tail
+            -density / tail
         };
-        let mut next = u - h / slope;
-        if !next.is_finite() || next <= ulo || next >= uhi {
-            next = 0.5 * (ulo + uhi);
+        let mut next = if increasing {
+            x * (-h / (x * slope)).exp()
+        } else {
+            x - h / slope
+        };
+        if !next.is_finite() || next <= lo || next >= hi {
+            next = if lo > 0.0 && hi / lo > 4.0 {
+                (lo.ln() + 0.5 * (hi.ln() - lo.ln())).exp()
+            } else {
+                lo + 0.5 * (hi - lo)
+            };
         }
-        if (next - u).abs() <= 2.0 * f64::EPSILON * u.abs().max(1.0) * 0.5 {
-            return next.exp();
+        if (next - x).abs() <= 2.0 * f64::EPSILON * x.abs()
+            || hi - lo <= 4.0 * f64::EPSILON * hi.abs()
+        {
+            return next;
         }
-        if uhi - ulo <= 4.0 * f64::EPSILON * ulo.abs().max(uhi.abs()).max(1.0) {
-            return next.exp();
-        }
-        u = next;
+        x = next;
     }
-    u.exp()
+    x
 }

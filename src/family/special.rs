@@ -125,10 +125,6 @@ fn ln_poisson_density(x: f64, lambda: f64) -> f64 {
     -stirlerr(x) - bd0(x, lambda) - 0.5 * (2.0 * PI * x).ln()
 }
 
-fn poisson_density(x: f64, lambda: f64) -> f64 {
-    ln_poisson_density(x, lambda).exp()
-}
-
 /// x^a e^(-x) / Γ(a): the prefactor of the incomplete gamma function, assembled
 /// in logs so that extreme shapes neither overflow nor lose digits.
 pub fn gamma_prefactor(a: f64, x: f64) -> f64 {
@@ -147,27 +143,36 @@ pub fn beta_prefactor(a: f64, b: f64, x: f64, y: f64) -> f64 {
 /// Regularized incomplete gamma: returns (P(a, x), Q(a, x)), P + Q = 1, each
 /// computed directly in the region where it is the small one.
 pub fn gamma_inc(a: f64, x: f64) -> (f64, f64) {
+    let (p, q, _) = gamma_inc_density(a, x);
+    (p, q)
+}
+
+/// [`gamma_inc`] plus the Gamma(a, 1) density at x, sharing the prefactor.
+pub fn gamma_inc_density(a: f64, x: f64) -> (f64, f64, f64) {
     if x.is_nan() || a.is_nan() || a <= 0.0 {
-        return (f64::NAN, f64::NAN);
+        return (f64::NAN, f64::NAN, f64::NAN);
     }
     if x <= 0.0 {
-        return (0.0, 1.0);
+        return (0.0, 1.0, 0.0);
     }
     if x.is_infinite() {
-        return (1.0, 0.0);
+        return (1.0, 0.0, 0.0);
     }
+    // x^a e^-x / Γ(a+1) in logs; the density is a times that over x.
+    let ln_poisson = ln_poisson_density(a, x);
+    let prefactor = (a.ln() + ln_poisson).exp();
+    let density = prefactor / x;
     if x < a + 1.0 || x < 1.0 {
-        let p = gamma_series(a, x);
-        (p, 1.0 - p)
+        let p = gamma_series(a, x, ln_poisson.exp());
+        (p, 1.0 - p, density)
     } else {
-        let q = gamma_continued_fraction(a, x);
-        (1.0 - q, q)
+        let q = gamma_continued_fraction(a, x, prefactor);
+        (1.0 - q, q, density)
     }
 }
 
 /// P(a, x) = x^a e^-x / Γ(a+1) * Σ x^n / ((a+1)...(a+n)).
-fn gamma_series(a: f64, x: f64) -> f64 {
-    let prefactor = poisson_density(a, x);
+fn gamma_series(a: f64, x: f64, prefactor: f64) -> f64 {
     if prefactor == 0.0 {
         return 0.0;
     }
@@ -186,8 +191,7 @@ fn gamma_series(a: f64, x: f64) -> f64 {
 }
 
 /// Q(a, x) by Legendre's continued fraction, modified Lentz evaluation.
-fn gamma_continued_fraction(a: f64, x: f64) -> f64 {
-    let prefactor = gamma_prefactor(a, x);
+fn gamma_continued_fraction(a: f64, x: f64, prefactor: f64) -> f64 {
     if prefactor == 0.0 {
         return 0.0;
     }
@@ -219,31 +223,39 @@ fn gamma_continued_fraction(a: f64, x: f64) -> f64 {
 /// Regularized incomplete beta: returns (I_x(a, b), 1 - I_x(a, b)) with y = 1 - x
 /// supplied by the caller so that x near 1 keeps its precision.
 pub fn beta_inc(a: f64, b: f64, x: f64, y: f64) -> (f64, f64) {
+    let (p, q, _) = beta_inc_density(a, b, x, y);
+    (p, q)
+}
+
+/// [`beta_inc`] plus the Beta(a, b) density at x, sharing the prefactor.
+pub fn beta_inc_density(a: f64, b: f64, x: f64, y: f64) -> (f64, f64, f64) {
     if a.is_nan() || b.is_nan() || x.is_nan() || y.is_nan() || a <= 0.0 || b <= 0.0 {
-        return (f64::NAN, f64::NAN);
+        return (f64::NAN, f64::NAN, f64::NAN);
     }
     if x <= 0.0 {
-        return (0.0, 1.0);
+        return (0.0, 1.0, 0.0);
     }
     if y <= 0.0 {
-        return (1.0, 0.0);
+        return (1.0, 0.0, 0.0);
     }
+    // x^a y^b / B(a, b) is symmetric under (a, x) <-> (b, y): one prefactor for both branches.
+    let prefactor = beta_prefactor(a, b, x, y);
+    let density = prefactor / (x * y);
     if x * (a + b + 2.0) < a + 1.0 {
-        let p = beta_continued_fraction(a, b, x, y);
-        (p, 1.0 - p)
+        let p = beta_continued_fraction(a, b, x, y, prefactor);
+        (p, 1.0 - p, density)
     } else {
-        let q = beta_continued_fraction(b, a, y, x);
-        (1.0 - q, q)
+        let q = beta_continued_fraction(b, a, y, x, prefactor);
+        (1.0 - q, q, density)
     }
 }
 
 /// I_x(a, b) by its continued fraction (converges fast for x < (a+1)/(a+b+2)).
-fn beta_continued_fraction(a: f64, b: f64, x: f64, y: f64) -> f64 {
-    let prefactor = beta_prefactor(a, b, x, y);
+fn beta_continued_fraction(a: f64, b: f64, x: f64, y: f64, prefactor: f64) -> f64 {
     if prefactor == 0.0 {
         return 0.0;
     }
-    if x > 0.9 {
+    if x > 0.9 && a > 1e3 {
         // Here a >> b and the recurrence cancels (1 + aa d with aa d near -1): in
         // double precision it loses up to 1e-9; double-double arithmetic keeps it exact.
         return (prefactor * continued_fraction_dd(a, b, y) / a).min(1.0);
