@@ -5,7 +5,8 @@
 //! * [`layout`] — the posterior value format (Arrow structs);
 //! * [`fit`], [`pool`] — aggregate functions; [`scalar`] — scalar functions;
 //! * [`docs`] — the documentation table behind every function;
-//! * [`bundle`] — the JSON serving bundle, for scoring without the engine.
+//! * [`bundle`] — the JSON serving bundle, for scoring without the engine;
+//! * [`optimizer`] — a physical rule that builds joins on the (small) encoding side.
 //!
 //! ```no_run
 //! # async fn demo() -> datafusion::error::Result<()> {
@@ -20,6 +21,7 @@ pub mod docs;
 pub mod family;
 pub mod fit;
 pub mod layout;
+pub mod optimizer;
 pub mod pool;
 pub mod prior_fit;
 pub mod scalar;

@@ -339,3 +339,41 @@ async fn functions_are_documented_in_information_schema() {
     }
     let _ = Float64Array::from(vec![1.0]);
 }
+
+// The join rule builds on the aggregate (the encodings) instead of the rows, and
+// leaves results unchanged.
+#[tokio::test]
+async fn join_rule_builds_on_the_aggregate() {
+    use datafusion::execution::session_state::SessionStateBuilder;
+    let with_rule = SessionContext::new_with_state(
+        posterity::optimizer::with_build_on_aggregate(
+            SessionStateBuilder::new().with_default_features(),
+        )
+        .build(),
+    );
+    posterity::register(&with_rule);
+    let plain = ctx().await;
+    let rows: Vec<String> = (0..200)
+        .map(|i| format!("('k{}', {})", i % 13, i % 3 % 2))
+        .collect();
+    for c in [&with_rule, &plain] {
+        query(
+            c,
+            &format!(
+                "CREATE TABLE r (k VARCHAR, y INT) AS VALUES {}",
+                rows.join(", ")
+            ),
+        )
+        .await;
+    }
+    let sql = "SELECT posterior_mean(e.p) FROM r LEFT JOIN (SELECT k, beta_posterior(y) AS p FROM r GROUP BY k) e USING (k) ORDER BY r.k, 1";
+    let plan = query(&with_rule, &format!("EXPLAIN {sql}")).await;
+    let text = datafusion::arrow::util::pretty::pretty_format_batches(&plan)
+        .unwrap()
+        .to_string();
+    assert!(text.contains("join_type=Right"), "{text}");
+    let a = floats(&with_rule, sql).await;
+    let b = floats(&plain, sql).await;
+    assert_eq!(a.len(), 200);
+    assert_eq!(a, b);
+}

@@ -100,8 +100,15 @@ pub fn session(
     let runtime = runtime
         .build_arc()
         .map_err(|e| Failure::usage(e.to_string()))?;
+    let state = posterity::optimizer::with_build_on_aggregate(
+        datafusion::execution::session_state::SessionStateBuilder::new()
+            .with_config(config)
+            .with_runtime_env(runtime)
+            .with_default_features(),
+    )
+    .build();
     // File paths quoted directly in FROM ('appointments.parquet') resolve to tables.
-    let ctx = SessionContext::new_with_config_rt(config, runtime).enable_url_table();
+    let ctx = SessionContext::new_with_state(state).enable_url_table();
     posterity::register(&ctx);
     Ok(ctx)
 }
