@@ -10,9 +10,7 @@ use std::fmt::Debug;
 use std::hash::Hash;
 use std::sync::Arc;
 
-use datafusion::arrow::array::{
-    Array, ArrayRef, AsArray, BooleanArray, Float64Array, ListArray, StringArray,
-};
+use datafusion::arrow::array::{Array, ArrayRef, AsArray, BooleanArray, Float64Array, ListArray};
 use datafusion::arrow::buffer::OffsetBuffer;
 use datafusion::arrow::compute::cast;
 use datafusion::arrow::datatypes::{DataType, Field, FieldRef, Float64Type};
@@ -615,10 +613,12 @@ impl FitKernel for DirichletClasses {
             3,
             "dirichlet_posterior(class, prior [, weight])",
         )?;
-        let mut out = vec![
-            DataType::Utf8,
-            prior_type(Self::NAME, Kind::Dirichlet, &t[1])?,
-        ];
+        // Text stays in its own layout (no copy into Utf8); other types are cast to text.
+        let class = match &t[0] {
+            DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => t[0].clone(),
+            _ => DataType::Utf8,
+        };
+        let mut out = vec![class, prior_type(Self::NAME, Kind::Dirichlet, &t[1])?];
         if t.len() > 2 {
             out.push(numeric(Self::NAME, "weight", &t[2])?);
         }
@@ -637,34 +637,49 @@ impl FitKernel for DirichletClasses {
         stats: &mut [f64],
         retract: bool,
     ) -> Result<()> {
-        let class = cast(&values[0], &DataType::Utf8)?;
-        let class: &StringArray = class.as_string::<i32>();
         let w = optional_f64(values, 2)?;
-        let k = self.width();
-        for (i, &g) in groups.iter().enumerate() {
-            let ok = match &w {
-                Some(w) => row_ok(filter, &[class, w], i),
-                None => row_ok(filter, &[class], i),
-            };
-            if !ok {
-                continue;
-            }
-            let c = self
-                .prior
-                .index_of(class.value(i))
-                .map_err(|e| family_error(Self::NAME, e))?;
-            let wt = match &w {
-                Some(w) => crate::family::beta::check_weight(w.value(i))
-                    .map_err(|e| family_error(Self::NAME, e))?,
-                None => 1.0,
-            };
-            if retract {
-                take(&mut stats[k * g + c], wt);
-            } else {
-                stats[k * g + c] += wt;
+        let column = &values[0];
+        match column.data_type() {
+            DataType::Utf8View => self.count(
+                column.as_string_view().iter(),
+                column,
+                groups,
+                filter,
+                w,
+                stats,
+                retract,
+            ),
+            DataType::LargeUtf8 => self.count(
+                column.as_string::<i64>().iter(),
+                column,
+                groups,
+                filter,
+                w,
+                stats,
+                retract,
+            ),
+            DataType::Utf8 => self.count(
+                column.as_string::<i32>().iter(),
+                column,
+                groups,
+                filter,
+                w,
+                stats,
+                retract,
+            ),
+            _ => {
+                let text = cast(column, &DataType::Utf8)?;
+                self.count(
+                    text.as_string::<i32>().iter(),
+                    &text,
+                    groups,
+                    filter,
+                    w,
+                    stats,
+                    retract,
+                )
             }
         }
-        Ok(())
     }
 
     fn merge(&self, into: &mut [f64], other: &[f64]) {
@@ -684,6 +699,50 @@ impl FitKernel for DirichletClasses {
             })
             .collect();
         build(Kind::Dirichlet, &rows)
+    }
+}
+
+impl DirichletClasses {
+    /// Add (or remove) one weight per row to its class's count.
+    #[allow(clippy::too_many_arguments)]
+    fn count<'a>(
+        &self,
+        classes: impl Iterator<Item = Option<&'a str>>,
+        column: &ArrayRef,
+        groups: &[usize],
+        filter: Option<&BooleanArray>,
+        w: Option<Float64Array>,
+        stats: &mut [f64],
+        retract: bool,
+    ) -> Result<()> {
+        let k = self.width();
+        for ((i, &g), class) in groups.iter().enumerate().zip(classes) {
+            let ok = match &w {
+                Some(w) => row_ok(filter, &[column.as_ref(), w], i),
+                None => row_ok(filter, &[], i),
+            };
+            let Some(class) = class.filter(|_| ok) else {
+                continue;
+            };
+            let c = match self.prior.classes.iter().position(|known| known == class) {
+                Some(c) => c,
+                None => {
+                    let e = self.prior.index_of(class).unwrap_err();
+                    return Err(family_error(Self::NAME, e));
+                }
+            };
+            let wt = match &w {
+                Some(w) => crate::family::beta::check_weight(w.value(i))
+                    .map_err(|e| family_error(Self::NAME, e))?,
+                None => 1.0,
+            };
+            if retract {
+                take(&mut stats[k * g + c], wt);
+            } else {
+                stats[k * g + c] += wt;
+            }
+        }
+        Ok(())
     }
 }
 

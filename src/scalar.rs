@@ -311,7 +311,12 @@ impl ScalarUDFImpl for ScalarFunction {
             }
             Op::FoldOf => {
                 self.count(n, 1, 3)?;
-                let mut out = vec![DataType::Utf8];
+                // Text keys are hashed in place; other types through their text form.
+                let key = match &t[0] {
+                    DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => t[0].clone(),
+                    _ => DataType::Utf8,
+                };
+                let mut out = vec![key];
                 for (name, ty) in ["k", "seed"].iter().zip(&t[1..]) {
                     if !ty.is_integer() && !matches!(ty, DataType::Null) {
                         return plan_err!(
@@ -643,7 +648,24 @@ impl ScalarFunction {
     }
 
     fn fold_of(&self, args: &[ArrayRef], rows: usize) -> Result<ArrayRef> {
-        let keys = texts(&args[0])?;
+        let key = &args[0];
+        match key.data_type() {
+            DataType::Utf8View => self.folds(key.as_string_view().iter(), args, rows),
+            DataType::LargeUtf8 => self.folds(key.as_string::<i64>().iter(), args, rows),
+            DataType::Utf8 => self.folds(key.as_string::<i32>().iter(), args, rows),
+            _ => {
+                let text = texts(key)?;
+                self.folds(text.iter(), args, rows)
+            }
+        }
+    }
+
+    fn folds<'a>(
+        &self,
+        keys: impl Iterator<Item = Option<&'a str>>,
+        args: &[ArrayRef],
+        rows: usize,
+    ) -> Result<ArrayRef> {
         let k = if args.len() > 1 {
             Some(ints(&args[1])?)
         } else {
@@ -655,9 +677,12 @@ impl ScalarFunction {
             None
         };
         let mut out = Vec::with_capacity(rows);
-        for i in 0..rows {
-            if keys.is_null(i)
-                || k.as_ref().is_some_and(|k| k.is_null(i))
+        for (i, key) in keys.enumerate().take(rows) {
+            let Some(key) = key else {
+                out.push(None);
+                continue;
+            };
+            if k.as_ref().is_some_and(|k| k.is_null(i))
                 || seed.as_ref().is_some_and(|s| s.is_null(i))
             {
                 out.push(None);
@@ -672,7 +697,7 @@ impl ScalarFunction {
             }
             let s = seed.as_ref().map_or(0, |s| s.value(i));
             out.push(Some(
-                rng::fold(keys.value(i).as_bytes(), folds as u64, s as u64) as i64,
+                rng::fold(key.as_bytes(), folds as u64, s as u64) as i64
             ));
         }
         Ok(Arc::new(Int64Array::from(out)))
