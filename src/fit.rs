@@ -55,8 +55,12 @@ pub trait FitKernel: Debug + Clone + Send + Sync + 'static {
         stats: &mut [f64],
         retract: bool,
     ) -> Result<()>;
-    /// Merge one group's statistics `other` into `into`.
-    fn merge(&self, into: &mut [f64], other: &[f64]);
+    /// Merge one group's statistics `other` into `into`: a sum, for additive statistics.
+    fn merge(&self, into: &mut [f64], other: &[f64]) {
+        for (a, b) in into.iter_mut().zip(other) {
+            *a += b;
+        }
+    }
     /// The result column for `stats` (groups × width).
     fn finish(&self, stats: &[f64]) -> Result<ArrayRef>;
 }
@@ -127,6 +131,17 @@ fn value_prior_weight(
 /// Argument `i` as Float64 when the call has it.
 fn optional_f64(values: &[ArrayRef], i: usize) -> Result<Option<Float64Array>> {
     values.get(i).map(|_| f64_column(values, i)).transpose()
+}
+
+/// Add (or remove) one row's two additive statistics to group `g`.
+fn add_pair(stats: &mut [f64], g: usize, first: f64, second: f64, retract: bool) {
+    if retract {
+        take(&mut stats[2 * g], first);
+        take(&mut stats[2 * g + 1], second);
+    } else {
+        stats[2 * g] += first;
+        stats[2 * g + 1] += second;
+    }
 }
 
 /// Subtract with the same rounding tolerance as the family code.
@@ -244,20 +259,9 @@ impl FitKernel for BetaOutcomes {
                     .map_err(|e| family_error(Self::NAME, e))?,
                 None => 1.0,
             };
-            if retract {
-                take(&mut stats[2 * g], v * wt);
-                take(&mut stats[2 * g + 1], wt);
-            } else {
-                stats[2 * g] += v * wt;
-                stats[2 * g + 1] += wt;
-            }
+            add_pair(stats, g, v * wt, wt, retract);
         }
         Ok(())
-    }
-
-    fn merge(&self, into: &mut [f64], other: &[f64]) {
-        into[0] += other[0];
-        into[1] += other[1];
     }
 
     fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
@@ -322,20 +326,9 @@ impl FitKernel for BetaCounts {
             let mut one = BetaPosterior::new(self.prior);
             one.observe_counts(s.value(i), n.value(i))
                 .map_err(|e| family_error(Self::NAME, e))?;
-            if retract {
-                take(&mut stats[2 * g], one.successes);
-                take(&mut stats[2 * g + 1], one.trials);
-            } else {
-                stats[2 * g] += one.successes;
-                stats[2 * g + 1] += one.trials;
-            }
+            add_pair(stats, g, one.successes, one.trials, retract);
         }
         Ok(())
-    }
-
-    fn merge(&self, into: &mut [f64], other: &[f64]) {
-        into[0] += other[0];
-        into[1] += other[1];
     }
 
     fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
@@ -418,20 +411,9 @@ impl FitKernel for GammaCounts {
             let t = exposure.as_ref().map_or(1.0, |t| t.value(i));
             one.observe(events.value(i), t)
                 .map_err(|e| family_error(Self::NAME, e))?;
-            if retract {
-                take(&mut stats[2 * g], one.events);
-                take(&mut stats[2 * g + 1], one.exposure);
-            } else {
-                stats[2 * g] += one.events;
-                stats[2 * g + 1] += one.exposure;
-            }
+            add_pair(stats, g, one.events, one.exposure, retract);
         }
         Ok(())
-    }
-
-    fn merge(&self, into: &mut [f64], other: &[f64]) {
-        into[0] += other[0];
-        into[1] += other[1];
     }
 
     fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
@@ -679,12 +661,6 @@ impl FitKernel for DirichletClasses {
                     retract,
                 )
             }
-        }
-    }
-
-    fn merge(&self, into: &mut [f64], other: &[f64]) {
-        for (a, b) in into.iter_mut().zip(other) {
-            *a += b;
         }
     }
 
