@@ -349,13 +349,36 @@ fn to_documentation(f: &FunctionDoc) -> Documentation {
     builder.build()
 }
 
+/// Every function with the heading of its section when the section starts.
+fn by_section() -> impl Iterator<Item = (Option<&'static str>, &'static FunctionDoc)> {
+    FUNCTIONS.iter().enumerate().map(|(i, f)| {
+        let starts = i == 0 || FUNCTIONS[i - 1].section != f.section;
+        (starts.then_some(f.section), f)
+    })
+}
+
+/// One line per function (syntax and first sentence), grouped by section, for the shell.
+pub fn summary_text() -> String {
+    let mut out = String::new();
+    for (section, f) in by_section() {
+        if let Some(section) = section {
+            out.push_str(&format!("\n{section}\n"));
+        }
+        let first = f.description.split(". ").next().unwrap_or(f.description);
+        out.push_str(&format!(
+            "  {:<52} {}\n",
+            f.syntax,
+            first.trim_end_matches('.')
+        ));
+    }
+    out
+}
+
 /// The function reference as Markdown, generated from [`FUNCTIONS`].
 pub fn reference_markdown() -> String {
     let mut out = String::new();
-    let mut section = "";
-    for f in FUNCTIONS {
-        if f.section != section {
-            section = f.section;
+    for (section, f) in by_section() {
+        if let Some(section) = section {
             out.push_str(&format!("\n### {section}\n"));
         }
         out.push_str(&format!(

@@ -2,33 +2,18 @@
 //! stated standard error, degenerate data, and the SQL aggregate.
 
 use posterity::family::empirical::{fit_beta, fit_dirichlet, fit_gamma, fit_nig, MAX_STRENGTH};
-use posterity::family::rng::{mix64, uniform};
+use posterity::family::rng::SplitMix;
 use posterity::family::special::ln_beta;
 use posterity::family::{Marginal, NigStats};
 
-struct Gen(u64);
-impl Gen {
-    fn unit(&mut self) -> f64 {
-        self.0 = mix64(self.0);
-        uniform(self.0, &[])
-    }
-    fn normal(&mut self) -> f64 {
-        let (u, v) = (self.unit(), self.unit());
-        (-2.0 * u.ln()).sqrt() * (std::f64::consts::TAU * v).cos()
-    }
+/// Draws for the recovery tests.
+trait Draws {
+    fn binomial(&mut self, n: u32, p: f64) -> f64;
+}
+
+impl Draws for SplitMix {
     fn binomial(&mut self, n: u32, p: f64) -> f64 {
         (0..n).filter(|_| self.unit() < p).count() as f64
-    }
-    fn poisson(&mut self, mean: f64) -> f64 {
-        // Sum of unit-rate waiting times (exact, fine for moderate means).
-        let (mut k, mut t) = (0.0, 0.0);
-        loop {
-            t -= self.unit().ln();
-            if t > mean {
-                return k;
-            }
-            k += 1.0;
-        }
     }
 }
 
@@ -88,7 +73,7 @@ fn beta_se(levels: &[(f64, f64)], a: f64, b: f64) -> (f64, f64) {
 // within 4 standard errors (observed information) of the truth on the log scale.
 #[test]
 fn beta_recovers_a_known_prior() {
-    let mut g = Gen(11);
+    let mut g = SplitMix(11);
     let levels: Vec<(f64, f64)> = (0..5000)
         .map(|i| {
             let n = 1 + (i * 7919) % 500;
@@ -148,7 +133,7 @@ fn beta_degenerate_cases() {
 // Recovery for Gamma-Poisson: rates from Gamma(3, 2) (mean 1.5), exposures 0.5-10.
 #[test]
 fn gamma_recovers_a_known_prior() {
-    let mut g = Gen(12);
+    let mut g = SplitMix(12);
     let levels: Vec<(f64, f64)> = (0..4000)
         .map(|i| {
             let t = 0.5 + (i % 20) as f64 * 0.5;
@@ -157,7 +142,7 @@ fn gamma_recovers_a_known_prior() {
                 rate: 2.0,
             }
             .quantile(g.unit());
-            (g.poisson(rate * t), t)
+            (g.poisson(rate * t) as f64, t)
         })
         .collect();
     let (prior, report) = fit_gamma(&levels).unwrap();
@@ -174,7 +159,7 @@ fn gamma_recovers_a_known_prior() {
 // Recovery for the Dirichlet-multinomial: class probabilities from Dirichlet(2, 5, 1).
 #[test]
 fn dirichlet_recovers_a_known_prior() {
-    let mut g = Gen(13);
+    let mut g = SplitMix(13);
     let classes: Vec<String> = ["attended", "late", "no_show"]
         .iter()
         .map(|s| s.to_string())
@@ -219,7 +204,7 @@ fn dirichlet_recovers_a_known_prior() {
 // Normal hierarchy: level means from N(100, 5^2), values N(mean, 20^2).
 #[test]
 fn nig_recovers_the_hierarchy() {
-    let mut g = Gen(14);
+    let mut g = SplitMix(14);
     let levels: Vec<NigStats> = (0..2000)
         .map(|i| {
             let mean = 100.0 + 5.0 * g.normal();

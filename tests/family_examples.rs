@@ -1,7 +1,7 @@
 //! Worked examples with named outside sources, and property tests of the
 //! merge/subtract/scale algebra for every family.
 
-use posterity::family::rng::{mix64, uniform};
+use posterity::family::rng::SplitMix;
 use posterity::family::{
     BetaPosterior, BetaPrior, Conjugate, DirichletPosterior, DirichletPrior, FamilyError,
     GammaPosterior, GammaPrior, Marginal, NigPosterior, NigPrior,
@@ -200,27 +200,15 @@ fn fuzz_finding_zero_scale_student_t() {
     assert_eq!(m.quantile(0.3), 9_999_999_999.999_918);
 }
 
-/// A small deterministic generator for the property tests.
-struct Gen(u64);
-impl Gen {
-    fn next(&mut self) -> f64 {
-        self.0 = mix64(self.0);
-        uniform(self.0, &[])
-    }
-    fn below(&mut self, n: usize) -> usize {
-        ((self.next() * n as f64) as usize).min(n - 1)
-    }
-}
-
 /// Check the algebra on `fit(data)` for random data and random splits.
 fn check_algebra<P: Conjugate + std::fmt::Debug>(
     name: &str,
     seed: u64,
     fit: impl Fn(&[(f64, f64)]) -> P,
-    draw: impl Fn(&mut Gen) -> (f64, f64),
+    draw: impl Fn(&mut SplitMix) -> (f64, f64),
     same: impl Fn(&P, &P) -> bool,
 ) {
-    let mut g = Gen(seed);
+    let mut g = SplitMix(seed);
     for _ in 0..200 {
         let n = 1 + g.below(60);
         let data: Vec<(f64, f64)> = (0..n).map(|_| draw(&mut g)).collect();
@@ -271,7 +259,7 @@ fn beta_algebra() {
             d.iter().for_each(|&(y, w)| p.observe(y, w).unwrap());
             p
         },
-        |g| ((g.below(2)) as f64, g.next() * 3.0),
+        |g| ((g.below(2)) as f64, g.unit() * 3.0),
         |a, b| rel_eq(a.successes, b.successes) && rel_eq(a.trials, b.trials),
     );
 }
@@ -286,7 +274,7 @@ fn gamma_algebra() {
             d.iter().for_each(|&(y, t)| p.observe(y, t).unwrap());
             p
         },
-        |g| (g.below(5) as f64, g.next() * 10.0),
+        |g| (g.below(5) as f64, g.unit() * 10.0),
         |a, b| rel_eq(a.events, b.events) && rel_eq(a.exposure, b.exposure),
     );
 }
@@ -301,7 +289,7 @@ fn nig_algebra() {
             d.iter().for_each(|&(x, w)| p.observe(x, w).unwrap());
             p
         },
-        |g| (1e6 + 100.0 * g.next(), 0.1 + g.next()),
+        |g| (1e6 + 100.0 * g.unit(), 0.1 + g.unit()),
         |a, b| {
             rel_eq(a.stats.n, b.stats.n)
                 && rel_eq(a.stats.mean, b.stats.mean)
@@ -326,7 +314,7 @@ fn dirichlet_algebra() {
                 .for_each(|&(k, w)| p.observe(&classes[k as usize], w).unwrap());
             p
         },
-        |g| (g.below(3) as f64, g.next()),
+        |g| (g.below(3) as f64, g.unit()),
         |a, b| a.counts.iter().zip(&b.counts).all(|(x, y)| rel_eq(*x, *y)),
     );
 }

@@ -27,6 +27,49 @@ pub fn uniform(seed: u64, salt: &[f64]) -> f64 {
     ((h >> 11) as f64 + 0.5) / (1u64 << 53) as f64
 }
 
+/// A small deterministic generator (SplitMix64) for simulations: the demo data and
+/// the statistical tests. Not for cryptography.
+#[derive(Debug, Clone)]
+pub struct SplitMix(pub u64);
+
+impl SplitMix {
+    /// Uniform in (0, 1).
+    pub fn unit(&mut self) -> f64 {
+        self.0 = mix64(self.0);
+        uniform(self.0, &[])
+    }
+
+    /// Standard normal (Box–Muller).
+    pub fn normal(&mut self) -> f64 {
+        let (u, v) = (self.unit(), self.unit());
+        (-2.0 * u.ln()).sqrt() * (std::f64::consts::TAU * v).cos()
+    }
+
+    /// Uniform index in 0..n (n > 0).
+    pub fn below(&mut self, n: usize) -> usize {
+        ((self.unit() * n as f64) as usize).min(n - 1)
+    }
+
+    /// Index drawn with probabilities proportional to the steps of `cumulative` weights.
+    pub fn pick(&mut self, cumulative: &[f64]) -> usize {
+        let u = self.unit() * cumulative[cumulative.len() - 1];
+        cumulative
+            .partition_point(|c| *c < u)
+            .min(cumulative.len() - 1)
+    }
+
+    /// Poisson draw by Knuth's product method (fine for the small means simulated here).
+    pub fn poisson(&mut self, mean: f64) -> u64 {
+        let limit = (-mean).exp();
+        let (mut k, mut p) = (0, self.unit());
+        while p > limit {
+            k += 1;
+            p *= self.unit();
+        }
+        k
+    }
+}
+
 /// Fold in 0..k of a key: stable across runs, platforms and partitionings.
 pub fn fold(key: &[u8], k: u64, seed: u64) -> u64 {
     hash_bytes(key, seed) % k

@@ -5,40 +5,9 @@
 use std::fmt::Write as _;
 use std::path::Path;
 
-use posterity::family::rng::{mix64, uniform};
+use posterity::family::rng::SplitMix;
 
 use super::{Failure, Shell};
-
-/// A tiny deterministic generator (SplitMix64).
-struct Gen(u64);
-
-impl Gen {
-    fn unit(&mut self) -> f64 {
-        self.0 = mix64(self.0);
-        uniform(self.0, &[])
-    }
-    fn normal(&mut self) -> f64 {
-        let (u, v) = (self.unit(), self.unit());
-        (-2.0 * u.ln()).sqrt() * (std::f64::consts::TAU * v).cos()
-    }
-    /// Index from cumulative weights.
-    fn pick(&mut self, cumulative: &[f64]) -> usize {
-        let u = self.unit() * cumulative[cumulative.len() - 1];
-        cumulative
-            .partition_point(|c| *c < u)
-            .min(cumulative.len() - 1)
-    }
-    fn poisson(&mut self, mean: f64) -> u64 {
-        // Knuth's product method; means here stay small.
-        let limit = (-mean).exp();
-        let (mut k, mut p) = (0, self.unit());
-        while p > limit {
-            k += 1;
-            p *= self.unit();
-        }
-        k
-    }
-}
 
 fn zipf(levels: usize, s: f64) -> Vec<f64> {
     let mut acc = 0.0;
@@ -67,7 +36,7 @@ fn date(day: i64) -> String {
 /// Write the scenario's CSV files into `dir`.
 pub fn generate(dir: &Path, rows: usize, seed: u64) -> std::io::Result<()> {
     std::fs::create_dir_all(dir)?;
-    let mut g = Gen(seed);
+    let mut g = SplitMix(seed);
     let (n_breeds, n_areas, n_vets, n_clinics) = (300, 3000, 60, 12);
     let breed_effect: Vec<f64> = (0..n_breeds).map(|_| 0.45 * g.normal()).collect();
     let area_effect: Vec<f64> = (0..n_areas).map(|_| 0.6 * g.normal()).collect();

@@ -413,28 +413,11 @@ pub fn functions_help(name: Option<&str>) -> Result<String, Failure> {
                     "no posterity function named '{n}'; run 'posterity functions' for the list"
                 ))
             }),
-        None => {
-            let mut out = String::new();
-            let mut section = "";
-            for f in functions {
-                if f.section != section {
-                    section = f.section;
-                    out.push_str(&format!("\n{section}\n"));
-                }
-                out.push_str(&format!(
-                    "  {:<52} {}\n",
-                    f.syntax,
-                    first_sentence(f.description)
-                ));
-            }
-            out.push_str("\nDetails: posterity functions NAME\n");
-            Ok(out)
-        }
+        None => Ok(format!(
+            "{}\nDetails: posterity functions NAME\n",
+            posterity::docs::summary_text()
+        )),
     }
-}
-
-fn first_sentence(s: &str) -> &str {
-    s.split(". ").next().unwrap_or(s).trim_end_matches('.')
 }
 
 /// Rows produced so far by the plan's leaves (the scans), from the engine's metrics.
