@@ -3,7 +3,10 @@
 //! `GroupsAccumulator`, a retractable `Accumulator` for window frames, and a
 //! documented signature.
 //!
-//! Each group keeps `width` f64 statistics in one flat vector; the prior is a
+//! Each group keeps its statistics in one flat vector of f64 slots, two per
+//! statistic: a compensated (double-double) sum, so that the result does not
+//! depend on the order in which rows and partial states arrive (thread count,
+//! partitioning; see [`crate::family::compensated`]). The prior is a
 //! planning-time constant held by the kernel, so nothing per group is boxed.
 
 use std::fmt::Debug;
@@ -17,13 +20,16 @@ use datafusion::arrow::datatypes::{DataType, Field, FieldRef, Float64Type};
 use datafusion::common::{exec_err, plan_err, DataFusionError, Result, ScalarValue};
 use datafusion::logical_expr::function::{AccumulatorArgs, StateFieldsArgs};
 use datafusion::logical_expr::{
-    Accumulator, AggregateUDFImpl, Documentation, EmitTo, GroupsAccumulator, Signature, Volatility,
+    Accumulator, AggregateUDF, AggregateUDFImpl, Documentation, EmitTo, GroupsAccumulator,
+    Signature, Volatility,
 };
 use datafusion::physical_expr::expressions::Literal;
 
+use crate::family::compensated::Dd;
+use crate::family::nig::{centred_terms, stats_from_centred};
 use crate::family::{
     beta::check_outcome, BetaPosterior, BetaPrior, DirichletPosterior, DirichletPrior, FamilyError,
-    GammaPosterior, GammaPrior, NigPosterior, NigPrior, NigStats,
+    GammaPosterior, GammaPrior, NigPrior,
 };
 use crate::layout::{build, build_floats, AnyPosterior, Kind, PosteriorColumn};
 
@@ -44,8 +50,12 @@ pub trait FitKernel: Debug + Clone + Send + Sync + 'static {
     fn new(prior: Option<AnyPosterior>) -> Result<Self>;
     /// Plan-time argument checks and coercions (prior argument excluded).
     fn coerce(arg_types: &[DataType]) -> Result<Vec<DataType>>;
-    /// Statistics per group.
-    fn width(&self) -> usize;
+    /// Statistics per group (each stored as a `[hi, lo]` slot pair).
+    fn stats(&self) -> usize;
+    /// f64 slots per group: two per statistic.
+    fn width(&self) -> usize {
+        2 * self.stats()
+    }
     /// Add (or with `retract`, remove) a batch of rows into `stats`.
     fn apply(
         &self,
@@ -55,10 +65,11 @@ pub trait FitKernel: Debug + Clone + Send + Sync + 'static {
         stats: &mut [f64],
         retract: bool,
     ) -> Result<()>;
-    /// Merge one group's statistics `other` into `into`: a sum, for additive statistics.
+    /// Merge one group's statistics `other` into `into`: compensated sums of every
+    /// statistic (all kernels keep additive statistics).
     fn merge(&self, into: &mut [f64], other: &[f64]) {
-        for (a, b) in into.iter_mut().zip(other) {
-            *a += b;
+        for (a, b) in into.chunks_exact_mut(2).zip(other.chunks_exact(2)) {
+            Dd::accumulate_dd(a, Dd::from_slot(b));
         }
     }
     /// The result column for `stats` (groups × width).
@@ -135,21 +146,36 @@ fn optional_f64(values: &[ArrayRef], i: usize) -> Result<Option<Float64Array>> {
 
 /// Add (or remove) one row's two additive statistics to group `g`.
 fn add_pair(stats: &mut [f64], g: usize, first: f64, second: f64, retract: bool) {
-    if retract {
-        take(&mut stats[2 * g], first);
-        take(&mut stats[2 * g + 1], second);
-    } else {
-        stats[2 * g] += first;
-        stats[2 * g + 1] += second;
+    add_stat(&mut stats[4 * g..4 * g + 2], first, retract);
+    add_stat(&mut stats[4 * g + 2..4 * g + 4], second, retract);
+}
+
+/// Add (or remove) `amount` to one compensated statistic.
+fn add_stat(slot: &mut [f64], amount: f64, retract: bool) {
+    if !retract {
+        Dd::accumulate(slot, amount);
+        return;
+    }
+    Dd::accumulate(slot, -amount);
+    // Removing what was added leaves an exact zero unless the sum was rounded;
+    // clear that rounding with the same tolerance as the family code.
+    let left = Dd::from_slot(slot).value();
+    if left < 0.0 && left > -1e-9 * amount.abs().max(1.0) {
+        slot[0] = 0.0;
+        slot[1] = 0.0;
     }
 }
 
-/// Subtract with the same rounding tolerance as the family code.
-fn take(stat: &mut f64, amount: f64) {
-    *stat -= amount;
-    if *stat < 0.0 && *stat > -1e-9 * amount.abs().max(1.0) {
-        *stat = 0.0;
+/// The rounded values of a group's compensated statistics, statistic by statistic.
+fn values_of(stats: &[f64], per_group: usize) -> Vec<Vec<f64>> {
+    let groups = stats.len() / (2 * per_group);
+    let mut out = vec![Vec::with_capacity(groups); per_group];
+    for g in stats.chunks_exact(2 * per_group) {
+        for (j, slot) in g.chunks_exact(2).enumerate() {
+            out[j].push(Dd::from_slot(slot).value());
+        }
     }
+    out
 }
 
 // ---------------------------------------------------------------- Beta (0/1 rows)
@@ -171,13 +197,10 @@ fn beta_prior_of(p: Option<AnyPosterior>) -> Result<BetaPrior> {
 }
 
 fn beta_finish(prior: &BetaPrior, stats: &[f64]) -> Result<ArrayRef> {
-    let groups = stats.len() / 2;
-    let mut successes = Vec::with_capacity(groups);
-    let mut trials = Vec::with_capacity(groups);
-    for s in stats.chunks_exact(2) {
-        successes.push(s[0]);
-        trials.push(s[1]);
-    }
+    let groups = stats.len() / 4;
+    let [successes, trials]: [Vec<f64>; 2] = values_of(stats, 2)
+        .try_into()
+        .map_err(|_| DataFusionError::Internal("two statistics".into()))?;
     build_floats(
         Kind::Beta,
         vec![
@@ -210,7 +233,7 @@ impl FitKernel for BetaOutcomes {
         )
     }
 
-    fn width(&self) -> usize {
+    fn stats(&self) -> usize {
         2
     }
 
@@ -226,11 +249,13 @@ impl FitKernel for BetaOutcomes {
         let w = optional_f64(values, 2)?;
         if filter.is_none() && w.is_none() && y.null_count() == 0 && !retract {
             // Hot path: every row counts with weight one; validate after the loop.
+            // Sums of 0/1 are exact integers in the high slots (the low slots stay
+            // zero), so plain additions are already order-independent.
             let mut bad = false;
             for (&g, &v) in groups.iter().zip(y.values().iter()) {
                 bad |= v != 0.0 && v != 1.0;
-                stats[2 * g] += v;
-                stats[2 * g + 1] += 1.0;
+                stats[4 * g] += v;
+                stats[4 * g + 2] += 1.0;
             }
             if bad {
                 let v = y
@@ -305,7 +330,7 @@ impl FitKernel for BetaCounts {
         Ok(out)
     }
 
-    fn width(&self) -> usize {
+    fn stats(&self) -> usize {
         2
     }
 
@@ -381,7 +406,7 @@ impl FitKernel for GammaCounts {
         Ok(out)
     }
 
-    fn width(&self) -> usize {
+    fn stats(&self) -> usize {
         2
     }
 
@@ -417,12 +442,10 @@ impl FitKernel for GammaCounts {
     }
 
     fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
-        let groups = stats.len() / 2;
-        let (mut events, mut exposure) = (Vec::with_capacity(groups), Vec::with_capacity(groups));
-        for s in stats.chunks_exact(2) {
-            events.push(s[0]);
-            exposure.push(s[1]);
-        }
+        let groups = stats.len() / 4;
+        let [events, exposure]: [Vec<f64>; 2] = values_of(stats, 2)
+            .try_into()
+            .map_err(|_| DataFusionError::Internal("two statistics".into()))?;
         build_floats(
             Kind::Gamma,
             vec![
@@ -479,7 +502,9 @@ impl FitKernel for NigValues {
         )
     }
 
-    fn width(&self) -> usize {
+    /// Centred power sums: weight, weighted deviation, weighted squared deviation
+    /// from the prior mean (see [`crate::family::nig::centred_terms`]).
+    fn stats(&self) -> usize {
         3
     }
 
@@ -502,45 +527,22 @@ impl FitKernel for NigValues {
                 continue;
             }
             let wt = w.as_ref().map_or(1.0, |w| w.value(i));
-            let s = &mut stats[3 * g..3 * g + 3];
-            let mut p = NigPosterior {
-                prior: self.prior,
-                stats: NigStats {
-                    n: s[0],
-                    mean: s[1],
-                    m2: s[2],
-                },
-            };
-            if retract {
-                p = p
-                    .without(x.value(i), wt)
-                    .map_err(|e| family_error(Self::NAME, e))?;
-            } else {
-                p.observe(x.value(i), wt)
-                    .map_err(|e| family_error(Self::NAME, e))?;
+            let terms = centred_terms(x.value(i), wt, self.prior.mu0)
+                .map_err(|e| family_error(Self::NAME, e))?;
+            let s = &mut stats[6 * g..6 * g + 6];
+            for (slot, term) in s.chunks_exact_mut(2).zip(terms) {
+                Dd::accumulate_dd(slot, if retract { term.neg() } else { term });
             }
-            s.copy_from_slice(&[p.stats.n, p.stats.mean, p.stats.m2]);
+            if retract && Dd::from_slot(&s[0..2]).value() <= 1e-12 * wt.max(1.0) {
+                // The frame is empty again: clear what rounding left behind.
+                s.fill(0.0);
+            }
         }
         Ok(())
     }
 
-    fn merge(&self, into: &mut [f64], other: &[f64]) {
-        let a = NigStats {
-            n: into[0],
-            mean: into[1],
-            m2: into[2],
-        };
-        let b = NigStats {
-            n: other[0],
-            mean: other[1],
-            m2: other[2],
-        };
-        let m = a.merge(&b);
-        into.copy_from_slice(&[m.n, m.mean, m.m2]);
-    }
-
     fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
-        let groups = stats.len() / 3;
+        let groups = stats.len() / 6;
         let mut cols = vec![
             vec![self.prior.mu0; groups],
             vec![self.prior.kappa0; groups],
@@ -550,10 +552,16 @@ impl FitKernel for NigValues {
             Vec::with_capacity(groups),
             Vec::with_capacity(groups),
         ];
-        for s in stats.chunks_exact(3) {
-            cols[4].push(s[0]);
-            cols[5].push(s[1]);
-            cols[6].push(s[2]);
+        for s in stats.chunks_exact(6) {
+            let st = stats_from_centred(
+                Dd::from_slot(&s[0..2]),
+                Dd::from_slot(&s[2..4]),
+                Dd::from_slot(&s[4..6]),
+                self.prior.mu0,
+            );
+            cols[4].push(st.n);
+            cols[5].push(st.mean);
+            cols[6].push(st.m2);
         }
         build_floats(Kind::Nig, cols)
     }
@@ -607,7 +615,7 @@ impl FitKernel for DirichletClasses {
         Ok(out)
     }
 
-    fn width(&self) -> usize {
+    fn stats(&self) -> usize {
         self.prior.classes.len()
     }
 
@@ -670,7 +678,10 @@ impl FitKernel for DirichletClasses {
             .map(|c| {
                 Some(AnyPosterior::Dirichlet(DirichletPosterior {
                     prior: self.prior.clone(),
-                    counts: c.to_vec(),
+                    counts: c
+                        .chunks_exact(2)
+                        .map(|s| Dd::from_slot(s).value())
+                        .collect(),
                 }))
             })
             .collect();
@@ -691,7 +702,7 @@ impl DirichletClasses {
         stats: &mut [f64],
         retract: bool,
     ) -> Result<()> {
-        let k = self.width();
+        let k = self.stats();
         for ((i, &g), class) in groups.iter().enumerate().zip(classes) {
             let ok = match &w {
                 Some(w) => row_ok(filter, &[column.as_ref(), w], i),
@@ -712,11 +723,8 @@ impl DirichletClasses {
                     .map_err(|e| family_error(Self::NAME, e))?,
                 None => 1.0,
             };
-            if retract {
-                take(&mut stats[k * g + c], wt);
-            } else {
-                stats[k * g + c] += wt;
-            }
+            let slot = 2 * (k * g + c);
+            add_stat(&mut stats[slot..slot + 2], wt, retract);
         }
         Ok(())
     }
@@ -725,21 +733,30 @@ impl DirichletClasses {
 // ------------------------------------------------------------ the generic adapter
 
 /// A fit aggregate for kernel `K`.
+///
+/// The registered instance knows no prior. The engine asks an aggregate for the
+/// value of an empty window frame or an empty decorrelated group through
+/// `default_value`, which sees only the return type; so posterity's planning rule
+/// ([`crate::prior_binding`]) replaces each call that passes a constant prior by an
+/// instance bound to that prior, whose empty value is that prior.
 #[derive(Debug)]
 pub struct FitAggregate<K: FitKernel> {
     signature: Signature,
+    /// The constant prior of the call this instance was bound to.
+    prior: Option<ScalarValue>,
     _kernel: std::marker::PhantomData<K>,
 }
 
 impl<K: FitKernel> PartialEq for FitAggregate<K> {
     fn eq(&self, other: &Self) -> bool {
-        self.signature == other.signature
+        self.signature == other.signature && self.prior == other.prior
     }
 }
 impl<K: FitKernel> Eq for FitAggregate<K> {}
 impl<K: FitKernel> Hash for FitAggregate<K> {
     fn hash<H: std::hash::Hasher>(&self, state: &mut H) {
         K::NAME.hash(state);
+        self.prior.hash(state);
     }
 }
 
@@ -747,9 +764,46 @@ impl<K: FitKernel> Default for FitAggregate<K> {
     fn default() -> Self {
         FitAggregate {
             signature: Signature::user_defined(Volatility::Immutable),
+            prior: None,
             _kernel: std::marker::PhantomData,
         }
     }
+}
+
+/// A fit aggregate that can be bound to the constant prior of one call.
+pub trait BindPrior {
+    /// Index of the prior among the call's arguments.
+    fn prior_argument(&self) -> usize;
+    /// Whether this instance is already bound.
+    fn is_bound(&self) -> bool;
+    /// An instance bound to `prior` (checked as this family's prior).
+    fn bind(&self, prior: ScalarValue) -> Result<AggregateUDF>;
+}
+
+impl<K: FitKernel> BindPrior for FitAggregate<K> {
+    fn prior_argument(&self) -> usize {
+        K::PRIOR_ARG
+    }
+
+    fn is_bound(&self) -> bool {
+        self.prior.is_some()
+    }
+
+    fn bind(&self, prior: ScalarValue) -> Result<AggregateUDF> {
+        decode_prior::<K>(&prior)?;
+        Ok(AggregateUDF::new_from_impl(FitAggregate::<K> {
+            signature: self.signature.clone(),
+            prior: Some(prior),
+            _kernel: std::marker::PhantomData,
+        }))
+    }
+}
+
+/// The kernel for a constant prior value (a NULL prior means the default).
+fn decode_prior<K: FitKernel>(prior: &ScalarValue) -> Result<K> {
+    let array = prior.to_array()?;
+    let column = PosteriorColumn::new(K::NAME, &array)?;
+    K::new(column.get(0).map_err(|e| family_error(K::NAME, e))?)
 }
 
 impl<K: FitKernel> FitAggregate<K> {
@@ -767,30 +821,22 @@ impl<K: FitKernel> FitAggregate<K> {
                 K::PRIOR_ARG + 1
             );
         };
-        let array = literal.value().to_array()?;
-        let column = PosteriorColumn::new(K::NAME, &array)?;
-        match column.get(0).map_err(|e| family_error(K::NAME, e))? {
-            Some(p) => K::new(Some(p)),
-            None => K::new(None),
-        }
+        decode_prior::<K>(literal.value())
     }
 
     fn state_fields_for(name: &str) -> Vec<FieldRef> {
         if K::KIND == Kind::Dirichlet {
+            // Per class, the compensated count as a (hi, lo) pair.
             vec![Arc::new(Field::new(
                 format!("{name}[counts]"),
                 DataType::List(Arc::new(Field::new_list_field(DataType::Float64, true))),
                 true,
             ))]
         } else {
-            (0..stat_names(K::KIND).len())
-                .map(|i| {
-                    Arc::new(Field::new(
-                        format!("{name}[{}]", stat_names(K::KIND)[i]),
-                        DataType::Float64,
-                        true,
-                    ))
-                })
+            stat_names(K::KIND)
+                .iter()
+                .flat_map(|stat| [format!("{name}[{stat}]"), format!("{name}[{stat}.lo]")])
+                .map(|field| Arc::new(Field::new(field, DataType::Float64, true)))
                 .collect()
         }
     }
@@ -800,7 +846,7 @@ fn stat_names(kind: Kind) -> &'static [&'static str] {
     match kind {
         Kind::Beta => &["successes", "trials"],
         Kind::Gamma => &["events", "exposure"],
-        Kind::Nig => &["n", "mean", "m2"],
+        Kind::Nig => &["weight", "centred_sum", "centred_squares"],
         Kind::Dirichlet => &["counts"],
     }
 }
@@ -852,12 +898,19 @@ impl<K: FitKernel> AggregateUDFImpl for FitAggregate<K> {
     }
 
     fn default_value(&self, _data_type: &DataType) -> Result<ScalarValue> {
-        // An empty input still has a posterior: the default prior.
-        let kernel = K::new(None);
-        match kernel {
-            Ok(k) => ScalarValue::try_from_array(&k.finish(&vec![0.0; k.width()])?, 0),
-            Err(_) => ScalarValue::try_from(&K::KIND.data_type()),
-        }
+        // An empty frame or group still has a posterior: the call's prior.
+        let kernel = match &self.prior {
+            Some(prior) => decode_prior::<K>(prior)?,
+            None => K::new(None).map_err(|_| {
+                DataFusionError::Plan(format!(
+                    "{}: an empty window frame or group needs the prior at planning time; \
+                     register the functions with posterity::register(ctx), which installs \
+                     the rule that binds it",
+                    K::NAME
+                ))
+            })?,
+        };
+        ScalarValue::try_from_array(&kernel.finish(&vec![0.0; kernel.width()])?, 0)
     }
 
     fn documentation(&self) -> Option<&Documentation> {

@@ -6,6 +6,7 @@
 //! * [`fit`], [`pool`] — aggregate functions; [`scalar`] — scalar functions;
 //! * [`docs`] — the documentation table behind every function;
 //! * [`bundle`] — the JSON serving bundle, for scoring without the engine;
+//! * [`prior_binding`] — a planning rule that binds fits to their constant prior;
 //! * [`optimizer`] — a physical rule that builds joins on the (small) encoding side.
 //!
 //! ```no_run
@@ -23,6 +24,7 @@ pub mod fit;
 pub mod layout;
 pub mod optimizer;
 pub mod pool;
+pub mod prior_binding;
 pub mod prior_fit;
 pub mod scalar;
 
@@ -47,8 +49,12 @@ pub fn aggregates() -> Vec<AggregateUDF> {
     ]
 }
 
-/// Register every posterity function on a DataFusion session.
+/// Register every posterity function on a DataFusion session, with the planning
+/// rule that gives empty window frames and empty groups the call's own prior
+/// ([`prior_binding`]). Registering the functions alone (from [`aggregates`])
+/// leaves that rule out.
 pub fn register(ctx: &SessionContext) {
+    prior_binding::install(ctx);
     for f in scalar::all() {
         ctx.register_udf(f);
     }

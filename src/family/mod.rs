@@ -6,6 +6,7 @@
 //! leave-one-out encodings. Readers act on a one-dimensional [`Marginal`].
 
 pub mod beta;
+pub mod compensated;
 pub mod dirichlet;
 pub mod dist;
 pub mod empirical;

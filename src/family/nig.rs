@@ -7,6 +7,7 @@
 //! weighted Welford step and merged with Chan, Golub & LeVeque's (1979) pairwise
 //! formula, so values near 1e9 with spread 1e-3 lose no digits.
 
+use super::compensated::{two_prod, Dd};
 use super::special::{ln_gamma, LN_2PI};
 use super::{finite, positive, remaining, weight, Conjugate, FamilyError, Marginal, Result};
 
@@ -94,6 +95,38 @@ impl NigStats {
         let m2 = self.m2 - part.m2 - delta * delta * (n / self.n) * part.n;
         let m2 = remaining("m2", m2 + part.m2, part.m2)?;
         Ok(NigStats { n, mean, m2 })
+    }
+}
+
+/// One weighted value as power sums about a fixed centre `c`: `w`, `w (x - c)`,
+/// `w (x - c)^2`, each as an exact (or double-double) product. Summed with
+/// [`Dd`] in any order they give the same statistics (see
+/// [`crate::family::compensated`]); the centre, a planning-time constant such as
+/// the prior mean, keeps the squares from cancelling when values sit far from 0.
+pub fn centred_terms(x: f64, w: f64, c: f64) -> Result<[Dd; 3]> {
+    let x = check_value(x)?;
+    let w = weight("weight", w)?;
+    let d = x - c;
+    let d2 = two_prod(d, d);
+    let wd2 = if w == 1.0 {
+        d2
+    } else {
+        two_prod(w, d2.hi).add_f64(w * d2.lo)
+    };
+    Ok([Dd::new(w), two_prod(w, d), wd2])
+}
+
+/// Count, mean and sum of squared deviations from centred power sums.
+pub fn stats_from_centred(n: Dd, s1: Dd, s2: Dd, c: f64) -> NigStats {
+    if n.value() <= 0.0 {
+        return NigStats::default();
+    }
+    let shift = s1.div(n);
+    let m2 = s2.sub(shift.mul(s1)).value().max(0.0);
+    NigStats {
+        n: n.value(),
+        mean: Dd::new(c).add(shift).value(),
+        m2,
     }
 }
 
