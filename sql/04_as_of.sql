@@ -1,12 +1,14 @@
--- As-of (time-ordered) encodings: a row sees only earlier rows of its level.
+-- As-of (time-ordered) encodings: a row sees only rows of its level from strictly
+-- earlier days, so bookings on the same day get the same encoding and never see
+-- each other's outcomes. A row with no earlier rows gets the prior itself.
 --   posterity -t appointments=demo/sample/appointments.csv -f sql/04_as_of.sql
 
--- Everything before the row (ties broken by appointment_id).
 CREATE TABLE as_of AS
 SELECT appointment_id, breed, day, no_show,
+       -- Every earlier day: a RANGE frame that ends one day before the row's own.
        posterior_mean(beta_posterior(no_show, beta_prior(2, 18)) OVER (
-         PARTITION BY breed ORDER BY day, appointment_id
-         ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)) AS breed_no_show_so_far,
+         PARTITION BY breed ORDER BY day
+         RANGE BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)) AS breed_no_show_so_far,
        -- A sliding window: the previous 30 days only (same-day rows excluded).
        posterior_mean(beta_posterior(no_show, beta_prior(2, 18)) OVER (
          PARTITION BY breed ORDER BY day

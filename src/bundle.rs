@@ -3,11 +3,12 @@
 //!
 //! ```json
 //! {
-//!   "format": "posterity-bundle", "version": 1,
+//!   "format": "posterity-bundle", "version": 2,
 //!   "target": "no_show", "family": "Beta",
 //!   "readers": ["mean", "sd"],
 //!   "columns": {
 //!     "breed": {
+//!       "key": {"columns": ["breed"], "form": "text"},
 //!       "prior":  {"a0": 0.5, "b0": 0.5, "successes": 0, "trials": 0},
 //!       "levels": {"breed_001": {"a0": 0.5, "b0": 0.5, "successes": 12, "trials": 130}}
 //!     }
@@ -18,6 +19,12 @@
 //! Each posterior object has exactly the fields of the posterior value format
 //! (README, "Posterior value format"); levels are sorted by name. A level that is
 //! not in `levels` (or a NULL key) is scored with `prior`.
+//!
+//! `key` says how a level is made from a row: `text` is the one column's text
+//! as written; `length_prefixed` (interactions) is each column's text prefixed
+//! by its length in Unicode characters and `:`, joined by `|` — `9:breed_017|9:clinic_03`
+//! — which no two different rows can share ([`interaction_key`]). Version 1
+//! bundles (no `key`; interactions joined by a bare `|`) are still read.
 
 use std::collections::BTreeMap;
 
@@ -30,7 +37,18 @@ use crate::family::{
 use crate::layout::AnyPosterior;
 
 pub const FORMAT: &str = "posterity-bundle";
-pub const VERSION: u64 = 1;
+pub const VERSION: u64 = 2;
+
+/// The level of an interaction row: each part prefixed by its length in
+/// characters and `:`, joined by `|`. Collision-free: the lengths say where each
+/// part ends, whatever characters the parts contain.
+pub fn interaction_key(parts: &[&str]) -> String {
+    parts
+        .iter()
+        .map(|p| format!("{}:{p}", p.chars().count()))
+        .collect::<Vec<_>>()
+        .join("|")
+}
 
 /// A posterior as a JSON object with the value format's field names.
 pub fn posterior_json(p: &AnyPosterior) -> Value {
@@ -118,11 +136,31 @@ pub fn posterior_from_json(v: &Value) -> Result<AnyPosterior, FamilyError> {
 /// One encoded column of a bundle.
 #[derive(Debug, Clone)]
 pub struct ColumnEncoding {
+    /// The input columns the key is built from (one, or several for an interaction).
+    pub key_columns: Vec<String>,
     pub prior: AnyPosterior,
     pub levels: BTreeMap<String, AnyPosterior>,
 }
 
 impl ColumnEncoding {
+    /// The level of a row given its key columns' text (`None` when any is NULL).
+    pub fn level_of(&self, values: &[Option<&str>]) -> Option<String> {
+        let parts: Option<Vec<&str>> = values.iter().copied().collect();
+        match parts?.as_slice() {
+            [one] if self.key_columns.len() <= 1 => Some(one.to_string()),
+            parts => Some(interaction_key(parts)),
+        }
+    }
+
+    /// How a level is built, as written in the bundle.
+    fn key_form(&self) -> &'static str {
+        if self.key_columns.len() > 1 {
+            "length_prefixed"
+        } else {
+            "text"
+        }
+    }
+
     /// The posterior for a level, the prior for unseen levels and NULL keys.
     pub fn lookup(&self, level: Option<&str>) -> &AnyPosterior {
         level
@@ -152,7 +190,11 @@ impl Bundle {
                 .collect();
             columns.insert(
                 name.clone(),
-                json!({"prior": posterior_json(&c.prior), "levels": levels}),
+                json!({
+                    "key": {"columns": c.key_columns, "form": c.key_form()},
+                    "prior": posterior_json(&c.prior),
+                    "levels": levels
+                }),
             );
         }
         let v = json!({
@@ -172,9 +214,10 @@ impl Bundle {
         if v.get("format").and_then(Value::as_str) != Some(FORMAT) {
             return Err(bad("not a posterity bundle (field 'format')"));
         }
-        if v.get("version").and_then(Value::as_u64) != Some(VERSION) {
+        let version = v.get("version").and_then(Value::as_u64);
+        if !matches!(version, Some(1) | Some(VERSION)) {
             return Err(bad(format!(
-                "unsupported version {:?}; this build reads version {VERSION}",
+                "unsupported version {:?}; this build reads versions 1 to {VERSION}",
                 v.get("version")
             )));
         }
@@ -200,7 +243,40 @@ impl Bundle {
                     levels.insert(level.clone(), posterior_from_json(p)?);
                 }
             }
-            columns.insert(name.clone(), ColumnEncoding { prior, levels });
+            let key_columns = match c.get("key") {
+                Some(key) => {
+                    let columns = key
+                        .get("columns")
+                        .and_then(Value::as_array)
+                        .ok_or_else(|| bad(format!("column '{name}': key has no 'columns' list")))?
+                        .iter()
+                        .map(|c| c.as_str().map(str::to_string))
+                        .collect::<Option<Vec<_>>>()
+                        .ok_or_else(|| bad(format!("column '{name}': a key column is not text")))?;
+                    let form = key.get("form").and_then(Value::as_str);
+                    let expected = if columns.len() > 1 {
+                        "length_prefixed"
+                    } else {
+                        "text"
+                    };
+                    if form != Some(expected) {
+                        return Err(bad(format!(
+                            "column '{name}': key form {form:?} is not '{expected}'"
+                        )));
+                    }
+                    columns
+                }
+                // Version 1 did not record the key's columns.
+                None => Vec::new(),
+            };
+            columns.insert(
+                name.clone(),
+                ColumnEncoding {
+                    key_columns,
+                    prior,
+                    levels,
+                },
+            );
         }
         Ok(Bundle {
             target: text_of("target"),

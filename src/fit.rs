@@ -531,7 +531,7 @@ impl FitKernel for NigValues {
                 .map_err(|e| family_error(Self::NAME, e))?;
             let s = &mut stats[6 * g..6 * g + 6];
             for (slot, term) in s.chunks_exact_mut(2).zip(terms) {
-                Dd::accumulate_dd(slot, if retract { term.neg() } else { term });
+                Dd::accumulate_dd(slot, if retract { -term } else { term });
             }
             if retract && Dd::from_slot(&s[0..2]).value() <= 1e-12 * wt.max(1.0) {
                 // The frame is empty again: clear what rounding left behind.

@@ -51,6 +51,10 @@ struct Args {
     /// Text that marks NULL in CSV files, e.g. NA.
     #[arg(long, value_name = "TEXT")]
     csv_null: Option<String>,
+    /// CSV columns to read as text exactly as written, comma-separated (codes with
+    /// leading zeros such as postcodes: 00123 stays 00123, not the number 123).
+    #[arg(long, value_delimiter = ',', value_name = "COLUMNS")]
+    csv_text: Vec<String>,
     #[command(subcommand)]
     command: Option<Command>,
 }
@@ -128,6 +132,7 @@ async fn run(args: Args) -> Result<(), Failure> {
             header: !args.csv_no_header,
             delimiter,
             null: args.csv_null.clone(),
+            text: args.csv_text.iter().map(|c| c.trim().to_string()).collect(),
         },
     };
     for spec in &args.tables {

@@ -284,3 +284,307 @@ async fn bundle_matches_sql_and_outputs_are_deterministic() {
     // An unseen level gets the prior.
     assert_eq!(enc.lookup(Some("no-such-area")), &enc.prior);
 }
+
+fn encode_output(args: &[&str]) -> std::process::Output {
+    Command::new(env!("CARGO_BIN_EXE_posterity"))
+        .args(args)
+        .output()
+        .unwrap()
+}
+
+/// Text column `name` of a Parquet file, in file order.
+async fn texts(path: &Path, name: &str) -> Vec<Option<String>> {
+    let ctx = SessionContext::new();
+    let df = ctx
+        .read_parquet(path.to_str().unwrap(), ParquetReadOptions::default())
+        .await
+        .unwrap();
+    let mut out = Vec::new();
+    for b in df.select_columns(&[name]).unwrap().collect().await.unwrap() {
+        let c = cast(b.column(0), &DataType::Utf8).unwrap();
+        let c = c.as_string::<i32>();
+        out.extend((0..c.len()).map(|i| c.is_valid(i).then(|| c.value(i).to_string())));
+    }
+    out
+}
+
+// Keys keep the text they were written with (a CSV code 00123 is not the number
+// 123), and interaction keys of parts containing the separator do not collide.
+#[tokio::test]
+async fn keys_stay_as_written_and_interactions_do_not_collide() {
+    let dir = temp_dir("keys");
+    let train = dir.join("train.csv");
+    std::fs::write(
+        &train,
+        "code,a,b,y\n00123,x|y,z,1\n123,x,y|z,0\n0042,x|y,z,1\n00123,x,y|z,0\n",
+    )
+    .unwrap();
+    let out = dir.join("out");
+    encode(&[
+        "--train",
+        train.to_str().unwrap(),
+        "--target",
+        "y",
+        "--columns",
+        "code",
+        "--interactions",
+        "a:b",
+        "--prior",
+        "1,1",
+        "--readers",
+        "mean",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    let bundle =
+        Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+    let code = &bundle.columns["code"];
+    let levels: Vec<&str> = code.levels.keys().map(String::as_str).collect();
+    assert_eq!(levels, ["00123", "0042", "123"]);
+    assert_eq!(code.key_columns, ["code"]);
+    let pair = &bundle.columns["a_x_b"];
+    assert_eq!(pair.key_columns, ["a", "b"]);
+    // ("x|y", "z") and ("x", "y|z") joined with a bare '|' were one level.
+    assert_eq!(pair.levels.len(), 2);
+    let level = pair.level_of(&[Some("x|y"), Some("z")]).unwrap();
+    assert_eq!(level, "3:x|y|1:z");
+    let p = &pair.levels[&level];
+    assert_eq!(p.evidence(), 2.0);
+    assert_eq!(pair.level_of(&[Some("x"), None]), None);
+    // The training file keeps the codes as text.
+    let written = texts(&out.join("train_encoded.parquet"), "code").await;
+    assert_eq!(written[0].as_deref(), Some("00123"));
+    assert_eq!(written[2].as_deref(), Some("0042"));
+    // The shell reads such columns as text with --csv-text.
+    let o = encode_output(&[
+        "--csv-text",
+        "code",
+        "--format",
+        "csv",
+        "-t",
+        &format!("t={}", train.display()),
+        "-c",
+        "SELECT code FROM t ORDER BY code LIMIT 1",
+    ]);
+    assert_eq!(String::from_utf8_lossy(&o.stdout), "code\n00123\n");
+}
+
+// A key that is (or contains) the target is the row's own outcome: a perfect leak
+// that must be refused, as must ordering as-of encodings by the target.
+#[test]
+fn leaky_keys_are_refused() {
+    let dir = temp_dir("leaky");
+    let train = random_key_csv(&dir, 100, 5);
+    let out = dir.join("out").display().to_string();
+    let cases: [(&[&str], &str); 4] = [
+        (
+            &["--columns", "y"],
+            "--columns includes the target 'y': its encoding would be the row's own outcome (a perfect leak); encode other columns",
+        ),
+        (
+            &["--columns", "key", "--interactions", "key:y"],
+            "the interaction 'key:y' includes the target 'y'",
+        ),
+        (
+            &["--columns", "key", "--time-column", "y"],
+            "--time-column 'y' is the target: ordering rows by their own outcome leaks it",
+        ),
+        (
+            &["--columns", "key,t", "--time-column", "t"],
+            "--time-column 't' is also encoded as a key",
+        ),
+    ];
+    for (extra, message) in cases {
+        let mut args = vec!["encode", "--train", &train, "--target", "y", "--out", &out];
+        args.extend(extra);
+        let o = encode_output(&args);
+        let stderr = String::from_utf8_lossy(&o.stderr);
+        assert_eq!(o.status.code(), Some(2), "{args:?}: {stderr}");
+        assert!(stderr.contains(message), "{args:?}: {stderr}");
+        assert!(!dir.join("out").join("bundle.json").exists());
+    }
+}
+
+// As-of encodings see strictly earlier times only: rows at one time share an
+// encoding, and a level's first time gets the prior. Checked against a direct
+// count over the CSV (Beta(2, 18): mean = (2 + s) / (20 + n)).
+#[tokio::test]
+async fn as_of_encodings_see_only_earlier_times() {
+    let dir = temp_dir("asof");
+    let train = random_key_csv(&dir, 5_000, 40);
+    let out = dir.join("strict");
+    let run = |out: &Path, ties: &str| {
+        encode(&[
+            "--train",
+            &train,
+            "--target",
+            "y",
+            "--columns",
+            "key",
+            "--time-column",
+            "t",
+            "--time-ties",
+            ties,
+            "--prior",
+            "2,18",
+            "--readers",
+            "mean",
+            "--out",
+            out.to_str().unwrap(),
+        ])
+    };
+    run(&out, "strict");
+    let means = column(&out.join("train_encoded.parquet"), "key_mean").await;
+    let text = std::fs::read_to_string(&train).unwrap();
+    let rows: Vec<(String, i64, f64)> = text
+        .lines()
+        .skip(1)
+        .map(|l| {
+            let f: Vec<&str> = l.split(',').collect();
+            (
+                f[1].to_string(),
+                f[2].parse().unwrap(),
+                f[3].parse().unwrap(),
+            )
+        })
+        .collect();
+    let mut first_rows = 0;
+    for (i, (key, t, _)) in rows.iter().enumerate() {
+        let (s, n) = rows
+            .iter()
+            .filter(|(k, u, _)| k == key && u < t)
+            .fold((0.0, 0.0), |(s, n), (_, _, y)| (s + y, n + 1.0));
+        first_rows += usize::from(n == 0.0);
+        let want = (2.0 + s) / (20.0 + n);
+        assert!(
+            (means[i] - want).abs() < 1e-15,
+            "row {i}: {} vs {want}",
+            means[i]
+        );
+    }
+    assert!(first_rows >= 40, "every level has a first time");
+    // The file-order option lets same-time rows see each other: it differs.
+    let loose = dir.join("file_order");
+    run(&loose, "file-order");
+    let loose_means = column(&loose.join("train_encoded.parquet"), "key_mean").await;
+    assert_ne!(loose_means, means);
+}
+
+// As-of encodings for every family with a chosen prior: a level's first rows get
+// exactly that prior (they got the default prior before), and class targets work.
+#[tokio::test]
+async fn as_of_first_rows_get_the_chosen_prior_in_every_family() {
+    let dir = temp_dir("asof-families");
+    let mut csv = String::from("key,t,y,amount,visits,outcome\n");
+    for i in 0..60 {
+        let outcome = ["attended", "no_show", "late_cancel"][i % 3];
+        csv.push_str(&format!(
+            "k{},{},{},{},{},{outcome}\n",
+            i % 4,
+            i / 4,
+            i % 2,
+            20.0 + (i as f64) * 0.75,
+            i % 5
+        ));
+    }
+    let train = dir.join("train.csv");
+    std::fs::write(&train, csv).unwrap();
+    // (target, family, prior, prior mean of the first reader column)
+    let cases = [
+        ("y", "beta", "2,18", "key_mean", 0.1),
+        ("visits", "gamma", "3,2", "key_mean", 1.5),
+        ("amount", "nig", "40,1,3,10", "key_mean", 40.0),
+        ("outcome", "dirichlet", "2", "key_attended_mean", 1.0 / 3.0),
+    ];
+    for (target, family, prior, reader, want) in cases {
+        let out = dir.join(family);
+        encode(&[
+            "--train",
+            train.to_str().unwrap(),
+            "--target",
+            target,
+            "--family",
+            family,
+            "--columns",
+            "key",
+            "--time-column",
+            "t",
+            "--prior",
+            prior,
+            "--readers",
+            "mean",
+            "--out",
+            out.to_str().unwrap(),
+        ]);
+        let got = column(&out.join("train_encoded.parquet"), reader).await;
+        // Rows 0..3 are each level's only rows at the first time.
+        for (i, g) in got.iter().take(4).enumerate() {
+            assert!((g - want).abs() < 1e-12, "{family} row {i}: {g} vs {want}");
+        }
+        assert!(got[4..].iter().any(|g| (g - want).abs() > 1e-6), "{family}");
+    }
+}
+
+// Continuous and fractional targets give identical bytes whatever the thread count
+// and on repeated runs (the fit statistics are compensated sums).
+#[test]
+fn float_targets_give_identical_bytes_at_any_thread_count() {
+    let dir = temp_dir("float-determinism");
+    let mut csv = String::from("key,amount,events,exposure\n");
+    let mut state = 11u64;
+    for _ in 0..60_000 {
+        state = mix64(state);
+        let key = state % 300;
+        let u = uniform(state, &[1.0]);
+        let v = uniform(state, &[2.0]);
+        csv.push_str(&format!(
+            "k{key},{},{},{}\n",
+            1000.0 + 250.0 * (u - 0.5) / (v + 0.01),
+            (u * 7.0).floor(),
+            0.1 + v * 3.3
+        ));
+    }
+    let train = dir.join("train.csv");
+    std::fs::write(&train, csv).unwrap();
+    let run = |name: &str, threads: &str, target: &[&str]| {
+        let out = dir.join(name);
+        let mut args = vec![
+            "--threads",
+            threads,
+            "encode",
+            "--train",
+            train.to_str().unwrap(),
+            "--columns",
+            "key",
+            "--readers",
+            "mean,sd",
+        ];
+        args.extend(target);
+        let out_s = out.display().to_string();
+        args.extend(["--out", &out_s]);
+        let o = encode_output(&args);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        out
+    };
+    let targets: [&[&str]; 2] = [
+        &["--target", "amount"],
+        &["--target", "events", "--exposure", "exposure"],
+    ];
+    for (t, target) in targets.iter().enumerate() {
+        let reference = run(&format!("{t}-1"), "1", target);
+        for (name, threads) in [("2", "2"), ("8", "8"), ("8-again", "8")] {
+            let other = run(&format!("{t}-{name}"), threads, target);
+            for file in [
+                "train_encoded.parquet",
+                "bundle.json",
+                "encodings/key.parquet",
+            ] {
+                assert_eq!(
+                    std::fs::read(reference.join(file)).unwrap(),
+                    std::fs::read(other.join(file)).unwrap(),
+                    "{target:?}: {file} differs between 1 and {threads} threads"
+                );
+            }
+        }
+    }
+}

@@ -82,8 +82,38 @@ fn out_of_fold_and_leave_one_out() {
 
 #[test]
 fn as_of_and_scoring_view() {
-    let (_, rows) = run_recipe("04_as_of");
+    let (dir, rows) = run_recipe("04_as_of");
     assert!(value(&rows, "corr_as_of").abs() < 0.1);
+    // Independent computation with plain SUM/COUNT over strictly earlier days: the
+    // Beta(2, 18) posterior mean is (2 + no-shows) / (20 + bookings), and a breed's
+    // first day gets the prior mean 0.1 (it got 0.5 before the prior was bound).
+    let so_far = |window: &str| {
+        format!(
+            "COPY (SELECT appointment_id, breed, day, no_show, posterior_mean(beta_posterior(no_show, beta_prior(2, 18)) OVER (PARTITION BY breed ORDER BY day RANGE BETWEEN {window} AND 1 PRECEDING)) AS m FROM appointments) TO 'as_of_{}.parquet'",
+            window.len()
+        )
+    };
+    query(&dir, &so_far("UNBOUNDED PRECEDING"));
+    query(&dir, &so_far("30 PRECEDING"));
+    for (file, lower) in [
+        ("as_of_19.parquet", "-1e9"),
+        ("as_of_12.parquet", "a.day - 30"),
+    ] {
+        let rows = query(
+            &dir,
+            &format!(
+                "SELECT MAX(ABS(m - (2.0 + s) / (20.0 + n))) AS d, \
+                 COUNT(*) FILTER (WHERE n = 0 AND m = 0.1) AS first_rows, \
+                 COUNT(*) FILTER (WHERE n = 0) AS empty_frames \
+                 FROM (SELECT a.appointment_id, a.m, COALESCE(SUM(b.no_show), 0) AS s, COUNT(b.no_show) AS n \
+                 FROM '{file}' a LEFT JOIN appointments b ON b.breed = a.breed AND b.day < a.day \
+                 AND b.day >= {lower} GROUP BY a.appointment_id, a.m)"
+            ),
+        );
+        assert!(value(&rows, "d") < 1e-15, "{file}: {rows:?}");
+        assert!(value(&rows, "empty_frames") > 0.0);
+        assert_eq!(value(&rows, "first_rows"), value(&rows, "empty_frames"));
+    }
     let (_, rows) = run_recipe("05_scoring_view");
     // Unseen postcode areas get exactly the prior mean 2 / 20.
     let unseen = rows

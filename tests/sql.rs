@@ -377,3 +377,106 @@ async fn join_rule_builds_on_the_aggregate() {
     assert_eq!(a.len(), 200);
     assert_eq!(a, b);
 }
+
+/// Every posterior in column 0 of `sql`'s result (NULLs as `None`).
+async fn posteriors(
+    ctx: &SessionContext,
+    sql: &str,
+) -> Vec<Option<posterity::layout::AnyPosterior>> {
+    let mut out = Vec::new();
+    for b in query(ctx, sql).await {
+        let column = posterity::layout::PosteriorColumn::new("test", b.column(0)).unwrap();
+        for i in 0..b.num_rows() {
+            out.push(column.get(i).unwrap());
+        }
+    }
+    out
+}
+
+// Every fit aggregate, every way a frame or group can hold no usable row: the value
+// is the prior the query passed (not the default prior, not NULL). Before the
+// planning rule bound fits to their priors, empty frames and decorrelated empty
+// groups gave Beta(0.5, 0.5) / Gamma(0.5, 1) / the default NIG, and the Dirichlet
+// window failed on a NULL in a non-nullable column.
+#[tokio::test]
+async fn empty_frames_and_groups_keep_the_querys_prior() {
+    let ctx = ctx().await;
+    // (function call with `{v}` for the value column, its prior, the value column).
+    let fits = [
+        (
+            "beta_posterior({v}, {prior})",
+            "beta_prior(2, 38)",
+            "no_show",
+        ),
+        (
+            "beta_posterior({v}, {prior}, visits)",
+            "beta_prior(2, 38)",
+            "no_show",
+        ),
+        (
+            "beta_posterior_counts({v}, visits, {prior})",
+            "beta_prior(3, 7)",
+            "no_show",
+        ),
+        (
+            "gamma_posterior({v}, 2.5, {prior})",
+            "gamma_prior(4, 2)",
+            "visits",
+        ),
+        (
+            "nig_posterior({v}, {prior})",
+            "nig_prior(60, 2, 3, 40)",
+            "amount",
+        ),
+        (
+            "nig_posterior({v}, {prior}, visits)",
+            "nig_prior(60, 2, 3, 40)",
+            "amount",
+        ),
+        (
+            "dirichlet_posterior({v}, {prior})",
+            "dirichlet_prior(['attended', 'no_show', 'late_cancel'], 0.7)",
+            "outcome",
+        ),
+    ];
+    // Each context selects the posterior as column 0 for rows whose frame or group
+    // is empty; `{fit}` is the call.
+    let contexts = [
+        // Leading ROWS frame: each breed's first row.
+        ("rows_leading", "SELECT p FROM (SELECT t, breed, {fit} OVER (PARTITION BY breed ORDER BY t ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING) AS p FROM appts) WHERE t < 4"),
+        // Sliding ROWS frame, empty at the start of each partition.
+        ("rows_sliding", "SELECT p FROM (SELECT t, breed, {fit} OVER (PARTITION BY breed ORDER BY t ROWS BETWEEN 3 PRECEDING AND 1 PRECEDING) AS p FROM appts) WHERE t < 4"),
+        // Leading RANGE frame ending before the row's own time.
+        ("range_leading", "SELECT p FROM (SELECT t, breed, {fit} OVER (PARTITION BY breed ORDER BY t RANGE BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING) AS p FROM appts) WHERE t < 4"),
+        // Sliding RANGE frame that empties after holding rows: a breed's rows are 4
+        // apart in t, and the order key jumps by 100 at t = 20, so the frame holds
+        // the previous row except at each breed's first row and right after the jump.
+        ("range_sliding", "SELECT p FROM (SELECT t, breed, {fit} OVER (PARTITION BY breed ORDER BY t + 100 * (t / 20) RANGE BETWEEN 4 PRECEDING AND 1 PRECEDING) AS p FROM appts) WHERE t < 4 OR t BETWEEN 20 AND 23"),
+        // A correlated scalar subquery over an empty group (decorrelated by the engine).
+        ("scalar_subquery", "SELECT (SELECT {fit} FROM appts a WHERE a.breed = b.name) FROM (VALUES ('dachshund'), ('whippet')) b(name)"),
+        // An aggregate over no rows at all.
+        ("no_rows", "SELECT {fit} FROM appts WHERE false"),
+        // A group whose rows are all filtered out.
+        ("filtered_group", "SELECT {fit} FILTER (WHERE t < 0) FROM appts GROUP BY breed"),
+        // A group whose values are all NULL.
+        ("null_group", "SELECT {fit_null} FROM appts GROUP BY breed"),
+    ];
+    for (call, prior, value) in fits {
+        let want = posteriors(&ctx, &format!("SELECT {prior}")).await[0].clone();
+        assert!(want.is_some());
+        for (name, template) in contexts {
+            let fit = call.replace("{prior}", prior);
+            let sql = template
+                .replace(
+                    "{fit_null}",
+                    &fit.replace("{v}", &format!("CASE WHEN t < 0 THEN {value} END")),
+                )
+                .replace("{fit}", &fit.replace("{v}", value));
+            let got = posteriors(&ctx, &sql).await;
+            assert!(!got.is_empty(), "{name}: {sql} selected no rows");
+            for p in got {
+                assert_eq!(p, want, "{name}: {sql}");
+            }
+        }
+    }
+}

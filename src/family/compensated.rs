@@ -85,44 +85,6 @@ impl Dd {
         Dd { hi, lo }
     }
 
-    /// `self + other` (both parts added error-free before renormalising).
-    #[inline]
-    pub fn add(self, other: Dd) -> Dd {
-        let (s, e) = two_sum(self.hi, other.hi);
-        let (t, f) = two_sum(self.lo, other.lo);
-        let (s, e) = fast_two_sum(s, e + t);
-        let (hi, lo) = fast_two_sum(s, e + f);
-        Dd { hi, lo }
-    }
-
-    pub fn neg(self) -> Dd {
-        Dd {
-            hi: -self.hi,
-            lo: -self.lo,
-        }
-    }
-
-    pub fn sub(self, other: Dd) -> Dd {
-        self.add(other.neg())
-    }
-
-    /// `self * other`, accurate to about 2^-104 relative.
-    pub fn mul(self, other: Dd) -> Dd {
-        let p = two_prod(self.hi, other.hi);
-        let lo = p.lo + (self.hi * other.lo + self.lo * other.hi);
-        let (hi, lo) = fast_two_sum(p.hi, lo);
-        Dd { hi, lo }
-    }
-
-    /// `self / other`, accurate to about 2^-104 relative; `other` must be non-zero.
-    pub fn div(self, other: Dd) -> Dd {
-        let q1 = self.hi / other.hi;
-        let r = self.sub(other.mul(Dd::new(q1)));
-        let q2 = r.hi / other.hi;
-        let (hi, lo) = fast_two_sum(q1, q2);
-        Dd { hi, lo }
-    }
-
     /// Add (or remove) `x` in place in a `[hi, lo]` slot pair.
     #[inline]
     pub fn accumulate(slot: &mut [f64], x: f64) {
@@ -141,8 +103,7 @@ impl Dd {
         let d = Dd {
             hi: slot[0],
             lo: slot[1],
-        }
-        .add(x);
+        } + x;
         slot[0] = d.hi;
         slot[1] = d.lo;
     }
@@ -154,6 +115,59 @@ impl Dd {
             hi: slot[0],
             lo: slot[1],
         }
+    }
+}
+
+impl std::ops::Add for Dd {
+    type Output = Dd;
+    /// Both parts added error-free before renormalising.
+    #[inline]
+    fn add(self, other: Dd) -> Dd {
+        let (s, e) = two_sum(self.hi, other.hi);
+        let (t, f) = two_sum(self.lo, other.lo);
+        let (s, e) = fast_two_sum(s, e + t);
+        let (hi, lo) = fast_two_sum(s, e + f);
+        Dd { hi, lo }
+    }
+}
+
+impl std::ops::Neg for Dd {
+    type Output = Dd;
+    fn neg(self) -> Dd {
+        Dd {
+            hi: -self.hi,
+            lo: -self.lo,
+        }
+    }
+}
+
+impl std::ops::Sub for Dd {
+    type Output = Dd;
+    fn sub(self, other: Dd) -> Dd {
+        self + (-other)
+    }
+}
+
+impl std::ops::Mul for Dd {
+    type Output = Dd;
+    /// Accurate to about 2^-104 relative.
+    fn mul(self, other: Dd) -> Dd {
+        let p = two_prod(self.hi, other.hi);
+        let lo = p.lo + (self.hi * other.lo + self.lo * other.hi);
+        let (hi, lo) = fast_two_sum(p.hi, lo);
+        Dd { hi, lo }
+    }
+}
+
+impl std::ops::Div for Dd {
+    type Output = Dd;
+    /// Accurate to about 2^-104 relative; `other` must be non-zero.
+    fn div(self, other: Dd) -> Dd {
+        let q1 = self.hi / other.hi;
+        let r = self - other * Dd::new(q1);
+        let q2 = r.hi / other.hi;
+        let (hi, lo) = fast_two_sum(q1, q2);
+        Dd { hi, lo }
     }
 }
 
@@ -194,8 +208,8 @@ mod tests {
             let (a, b) = v.split_at(seed as usize * 997);
             let pa = a.iter().fold(Dd::ZERO, |s, &x| s.add_f64(x));
             let pb = b.iter().fold(Dd::ZERO, |s, &x| s.add_f64(x));
-            assert_eq!(pa.add(pb).value().to_bits(), reference.to_bits());
-            assert_eq!(pb.add(pa).value().to_bits(), reference.to_bits());
+            assert_eq!((pa + pb).value().to_bits(), reference.to_bits());
+            assert_eq!((pb + pa).value().to_bits(), reference.to_bits());
             plain_differs |= v.iter().sum::<f64>() != values.iter().sum::<f64>();
         }
         assert!(
@@ -218,8 +232,8 @@ mod tests {
 
     #[test]
     fn division_and_subtraction() {
-        let third = Dd::new(1.0).div(Dd::new(3.0));
-        let back = third.mul(Dd::new(3.0)).sub(Dd::new(1.0));
+        let third = Dd::new(1.0) / Dd::new(3.0);
+        let back = third * Dd::new(3.0) - Dd::new(1.0);
         assert!(back.value().abs() < 1e-30);
     }
 }

@@ -121,11 +121,11 @@ pub fn stats_from_centred(n: Dd, s1: Dd, s2: Dd, c: f64) -> NigStats {
     if n.value() <= 0.0 {
         return NigStats::default();
     }
-    let shift = s1.div(n);
-    let m2 = s2.sub(shift.mul(s1)).value().max(0.0);
+    let shift = s1 / n;
+    let m2 = (s2 - shift * s1).value().max(0.0);
     NigStats {
         n: n.value(),
-        mean: Dd::new(c).add(shift).value(),
+        mean: (Dd::new(c) + shift).value(),
         m2,
     }
 }

@@ -214,6 +214,7 @@ pub async fn run(shell: &Shell, dir: &Path, rows: usize, seed: u64) -> Result<()
         method: None,
         folds: 5,
         time_column: None,
+        time_ties: super::encode::TimeTies::Strict,
         exposure: None,
         readers: vec!["mean".into(), "sd".into(), "q05".into()],
         draws: None,

@@ -40,6 +40,16 @@ pub enum Method {
     Time,
 }
 
+/// How as-of encodings treat rows that share a time.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum TimeTies {
+    /// A row sees rows of strictly earlier times only; rows at one time get the same encoding.
+    Strict,
+    /// Rows at one time also see the rows before them in file order (their outcomes
+    /// are then known to each other: use only when file order is the true order).
+    FileOrder,
+}
+
 #[derive(clap::Args, Debug, Clone)]
 pub struct EncodeArgs {
     /// Training file (Parquet, CSV, TSV or NDJSON).
@@ -74,6 +84,9 @@ pub struct EncodeArgs {
     /// Column giving the time order for --method time.
     #[arg(long)]
     pub time_column: Option<String>,
+    /// Rows at the same time: strict (default; they never see each other) or file-order.
+    #[arg(long, value_enum, default_value = "strict")]
+    pub time_ties: TimeTies,
     /// Exposure column for the gamma family (events per unit of exposure).
     #[arg(long)]
     pub exposure: Option<String>,
@@ -98,6 +111,8 @@ pub struct EncodeArgs {
 struct Key {
     name: String,
     expr: String,
+    /// The input columns it is built from.
+    columns: Vec<String>,
 }
 
 fn quote(ident: &str) -> String {
@@ -190,10 +205,14 @@ pub async fn run(shell: &Shell, args: &EncodeArgs) -> Result<(), Failure> {
         shell.collect(&s).await
     };
 
-    let columns = load_numbered(shell, "train", &args.train).await?;
-    for c in args
-        .columns
+    let keys = keys(args)?;
+    refuse_leaky_keys(args, &keys)?;
+    let key_columns_read_as_text: Vec<String> =
+        keys.iter().flat_map(|k| k.columns.clone()).collect();
+    let columns = load_numbered(shell, "train", &args.train, &key_columns_read_as_text).await?;
+    for c in keys
         .iter()
+        .flat_map(|k| &k.columns)
         .chain(std::iter::once(&args.target))
         .chain(&args.time_column)
         .chain(&args.exposure)
@@ -210,7 +229,6 @@ pub async fn run(shell: &Shell, args: &EncodeArgs) -> Result<(), Failure> {
             )));
         }
     }
-    let keys = keys(args)?;
     let plan = plan(shell, args, &columns).await?;
     let readers = args
         .readers
@@ -287,6 +305,24 @@ pub async fn run(shell: &Shell, args: &EncodeArgs) -> Result<(), Failure> {
                 };
                 format!("CASE WHEN {usable} THEN e{i}.p ELSE {removed} END")
             }
+            Method::Time if args.time_ties == TimeTies::Strict => {
+                // Per level and time, then pooled over strictly earlier times: rows at
+                // one time share one encoding. A level's first time (and a row with
+                // no time) gets the prior through the COALESCE below.
+                let time = quote(args.time_column.as_deref().unwrap_or_default());
+                sql(format!(
+                    "CREATE TABLE __asof{i} AS SELECT level, __time, posterior_pool(p) OVER (PARTITION BY level ORDER BY __time ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING) AS p FROM (SELECT __k{i} AS level, t.{time} AS __time, {fit} AS p FROM __keyed t WHERE __k{i} IS NOT NULL AND t.{time} IS NOT NULL GROUP BY __k{i}, t.{time})"
+                ))
+                .await?;
+                joins.push(format!(
+                    "LEFT JOIN __asof{i} a{i} ON a{i}.level = t.__k{i} AND a{i}.__time = t.{time}"
+                ));
+                if plan.fitted {
+                    format!("posterior_with_prior(a{i}.p, __prior{i}.prior)")
+                } else {
+                    format!("a{i}.p")
+                }
+            }
             Method::Time => {
                 let time = quote(args.time_column.as_deref().unwrap_or_default());
                 let window = format!(
@@ -352,7 +388,7 @@ pub async fn run(shell: &Shell, args: &EncodeArgs) -> Result<(), Failure> {
         .await?;
         bundle_columns.insert(
             key.name.clone(),
-            bundle_column(shell, i, &prior_expr, plan.fitted).await?,
+            bundle_column(shell, i, key, &prior_expr, plan.fitted).await?,
         );
     }
 
@@ -418,6 +454,40 @@ fn reader_columns(
     out
 }
 
+/// A key built from the target (or time-ordered by it) hands every row its own
+/// outcome: refuse it rather than write a perfect leak.
+fn refuse_leaky_keys(args: &EncodeArgs, keys: &[Key]) -> Result<(), Failure> {
+    for key in keys {
+        if key.columns.contains(&args.target) {
+            let what = if key.columns.len() == 1 {
+                "--columns".to_string()
+            } else {
+                format!("the interaction '{}'", key.columns.join(":"))
+            };
+            return Err(Failure::usage(format!(
+                "{what} includes the target '{}': its encoding would be the row's own outcome \
+                 (a perfect leak); encode other columns",
+                args.target
+            )));
+        }
+        if let Some(time) = &args.time_column {
+            if key.columns.len() == 1 && key.columns[0] == *time {
+                return Err(Failure::usage(format!(
+                    "--time-column '{time}' is also encoded as a key: every row of a level shares \
+                     its time, so as-of encodings of it would all be the prior"
+                )));
+            }
+        }
+    }
+    if args.time_column.as_deref() == Some(args.target.as_str()) {
+        return Err(Failure::usage(format!(
+            "--time-column '{}' is the target: ordering rows by their own outcome leaks it",
+            args.target
+        )));
+    }
+    Ok(())
+}
+
 fn keys(args: &EncodeArgs) -> Result<Vec<Key>, Failure> {
     let mut keys: Vec<Key> = args
         .columns
@@ -425,6 +495,7 @@ fn keys(args: &EncodeArgs) -> Result<Vec<Key>, Failure> {
         .map(|c| Key {
             name: sanitize(c),
             expr: format!("CAST({} AS VARCHAR)", quote(c)),
+            columns: vec![c.clone()],
         })
         .collect();
     for spec in &args.interactions {
@@ -434,9 +505,14 @@ fn keys(args: &EncodeArgs) -> Result<Vec<Key>, Failure> {
                 "--interactions: '{spec}' must be two or more columns joined by ':'"
             )));
         }
-        let casts: Vec<String> = parts
+        // Collision-free: each part's text prefixed by its length in characters
+        // (posterity::bundle::interaction_key builds the same key outside SQL).
+        let prefixed: Vec<String> = parts
             .iter()
-            .map(|p| format!("CAST({} AS VARCHAR)", quote(p)))
+            .map(|p| {
+                let text = format!("CAST({} AS VARCHAR)", quote(p));
+                format!("character_length({text}), ':', {text}")
+            })
             .collect();
         let all_present = parts
             .iter()
@@ -450,9 +526,10 @@ fn keys(args: &EncodeArgs) -> Result<Vec<Key>, Failure> {
                 .collect::<Vec<_>>()
                 .join("_x_"),
             expr: format!(
-                "CASE WHEN {all_present} THEN concat_ws('|', {}) END",
-                casts.join(", ")
+                "CASE WHEN {all_present} THEN concat({}) END",
+                prefixed.join(", '|', ")
             ),
+            columns: parts.iter().map(|p| p.to_string()).collect(),
         });
     }
     Ok(keys)
@@ -543,13 +620,15 @@ async fn plan(
         (FamilyChoice::Nig, "jeffreys" | "uniform" | "fitted", _) => {
             // A weak prior on the data's own scale: centred on the overall mean, worth one
             // observation, with the overall variance as the expected within-level variance.
-            let b = shell.collect(&format!("SELECT AVG(CAST({t} AS DOUBLE)), VAR_POP(CAST({t} AS DOUBLE)) FROM train")).await?;
+            // posterity's own fit, not AVG/VAR_POP: its sums do not depend on the
+            // thread count, so neither does the prior.
+            let b = shell.collect(&format!("SELECT posterior_evidence(p), get_field(p, 'mean'), get_field(p, 'm2') / get_field(p, 'n') FROM (SELECT nig_posterior(CAST({t} AS DOUBLE)) AS p FROM train)")).await?;
             let get = |i: usize| {
                 let c = b[0].column(i).as_primitive::<datafusion::arrow::datatypes::Float64Type>();
-                if c.is_null(0) { 0.0 } else { c.value(0) }
+                if c.is_null(0) || !c.value(0).is_finite() { 0.0 } else { c.value(0) }
             };
-            let var = if get(1) > 0.0 { get(1) } else { 1.0 };
-            format!("nig_prior({}, 1, 2, {})", get(0), var)
+            let var = if get(0) > 0.0 && get(2) > 0.0 { get(2) } else { 1.0 };
+            format!("nig_prior({}, 1, 2, {})", get(1), var)
         }
         (FamilyChoice::Nig, _, Some(v)) if v.len() == 4 => format!("nig_prior({}, {}, {}, {})", v[0], v[1], v[2], v[3]),
         (FamilyChoice::Dirichlet, "jeffreys" | "fitted", _) => format!("dirichlet_prior([{}], 0.5)", classes.iter().map(|c| text(c)).collect::<Vec<_>>().join(", ")),
@@ -576,15 +655,28 @@ async fn plan(
 }
 
 /// Read a file in file order, number its rows (`__row`) and register it as `name`.
+/// Key columns of CSV files are read as text exactly as written (`00123` stays
+/// `00123`).
 async fn load_numbered(
     shell: &Shell,
     name: &str,
     path: &str,
+    key_columns: &[String],
 ) -> Result<Vec<(String, DataType)>, Failure> {
     let raw = format!("__{name}_file");
-    shell.register_table(&format!("{raw}={path}")).await?;
-    let df = shell
-        .ctx
+    shell
+        .register_table_with_text(&format!("{raw}={path}"), key_columns)
+        .await?;
+    // File order needs each scan partition to read exactly its own byte ranges: the
+    // engine's work stealing lets an idle partition take a sibling's ranges, which
+    // shuffles the row numbers (and so the folds) from run to run.
+    let mut state = shell.ctx.state();
+    state
+        .config_mut()
+        .options_mut()
+        .execution
+        .enable_file_stream_work_stealing = false;
+    let df = datafusion::prelude::SessionContext::new_with_state(state)
         .table(&raw)
         .await
         .map_err(|e| Failure::query(e.to_string()))?;
@@ -697,6 +789,7 @@ fn write_file(path: &Path, text: &str) -> Result<(), Failure> {
 async fn bundle_column(
     shell: &Shell,
     i: usize,
+    key: &Key,
     prior_expr: &str,
     fitted: bool,
 ) -> Result<ColumnEncoding, Failure> {
@@ -725,7 +818,11 @@ async fn bundle_column(
             }
         }
     }
-    Ok(ColumnEncoding { prior, levels })
+    Ok(ColumnEncoding {
+        key_columns: key.columns.clone(),
+        prior,
+        levels,
+    })
 }
 
 fn first_posterior(batches: &[RecordBatch]) -> Result<AnyPosterior, Failure> {
@@ -750,7 +847,8 @@ async fn score_file(
     readers: &[(String, String)],
     plan: &Plan,
 ) -> Result<String, Failure> {
-    let columns = load_numbered(shell, "score", path).await?;
+    let text: Vec<String> = keys.iter().flat_map(|k| k.columns.clone()).collect();
+    let columns = load_numbered(shell, "score", path, &text).await?;
     let create = format!(
         "CREATE TABLE __score_keyed AS SELECT *, {} FROM score",
         key_columns(keys)

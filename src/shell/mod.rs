@@ -27,6 +27,8 @@ pub struct CsvOptions {
     pub header: bool,
     pub delimiter: u8,
     pub null: Option<String>,
+    /// Columns read as text whatever they look like.
+    pub text: Vec<String>,
 }
 
 /// Settings shared by every way of running SQL.
@@ -116,6 +118,23 @@ pub fn session(
 impl Shell {
     /// Register `NAME=PATH` (a file, a directory of files or a glob).
     pub async fn register_table(&self, spec: &str) -> Result<(), Failure> {
+        self.register_table_with_text(spec, &[]).await
+    }
+
+    /// [`Shell::register_table`], reading CSV columns `text` (beyond `--csv-text`)
+    /// as text exactly as written.
+    pub async fn register_table_with_text(
+        &self,
+        spec: &str,
+        text: &[String],
+    ) -> Result<(), Failure> {
+        let text: Vec<&str> = self
+            .csv
+            .text
+            .iter()
+            .chain(text)
+            .map(String::as_str)
+            .collect();
         let Some((name, path)) = spec.split_once('=') else {
             return Err(Failure::usage(format!(
                 "--table expects NAME=PATH, got '{spec}'"
@@ -168,13 +187,11 @@ impl Shell {
                     .has_header(self.csv.header)
                     .delimiter(delimiter)
                     .file_extension(&ext);
-                match &self.csv.null {
-                    Some(null) => {
-                        options = options.null_regex(Some(regex_escape(null)));
-                        self.register_csv_with_null(name, path, options, null).await
-                    }
-                    None => self.ctx.register_csv(name, path, options).await,
+                if let Some(null) = &self.csv.null {
+                    options = options.null_regex(Some(regex_escape(null)));
                 }
+                self.register_csv(name, path, options, self.csv.null.as_deref(), &text)
+                    .await
             }
             FileKind::Json => {
                 let ext = extension_of(path, ".json");
@@ -186,17 +203,22 @@ impl Shell {
         result.map_err(|e| Failure::query(format!("--table {name} ({path}): {e}")))
     }
 
-    /// DataFusion 55 honours a CSV null marker only while inferring the schema, so
-    /// the file is read as text and a view turns the marker into NULL and casts
-    /// each column to its inferred type.
-    async fn register_csv_with_null(
+    /// A CSV file with its inferred types, except that columns `text` stay text as
+    /// written. DataFusion 55 honours a CSV null marker only while inferring the
+    /// schema, so with a marker the file is read as text and a view turns the
+    /// marker into NULL and casts each column to its type.
+    async fn register_csv(
         &self,
         name: &str,
         path: &str,
         options: CsvReadOptions<'_>,
-        null: &str,
+        null: Option<&str>,
+        text: &[&str],
     ) -> datafusion::error::Result<()> {
         use datafusion::arrow::datatypes::{DataType, Field, Schema};
+        if null.is_none() && text.is_empty() {
+            return self.ctx.register_csv(name, path, options).await;
+        }
         let inferred = self
             .ctx
             .read_csv(path, options.clone())
@@ -204,15 +226,31 @@ impl Shell {
             .schema()
             .as_arrow()
             .clone();
-        let text = Schema::new(
+        let typed = Schema::new(
             inferred
+                .fields()
+                .iter()
+                .map(|f| match text.contains(&f.name().as_str()) {
+                    true => Field::new(f.name(), DataType::Utf8, true),
+                    false => f.as_ref().clone(),
+                })
+                .collect::<Vec<_>>(),
+        );
+        let Some(null) = null else {
+            return self
+                .ctx
+                .register_csv(name, path, options.schema(&typed))
+                .await;
+        };
+        let all_text = Schema::new(
+            typed
                 .fields()
                 .iter()
                 .map(|f| Field::new(f.name(), DataType::Utf8, true))
                 .collect::<Vec<_>>(),
         );
-        let raw = self.ctx.read_csv(path, options.schema(&text)).await?;
-        let columns: Vec<datafusion::prelude::Expr> = inferred
+        let raw = self.ctx.read_csv(path, options.schema(&all_text)).await?;
+        let columns: Vec<datafusion::prelude::Expr> = typed
             .fields()
             .iter()
             .map(|f| {
