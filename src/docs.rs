@@ -82,9 +82,10 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
         name: "beta_posterior",
         section: FIT,
         description: "Fits a Beta posterior from 0/1 outcomes (BOOLEAN, integer or float; anything \
-            but 0/1 is an error). Rows whose outcome or weight is NULL are ignored. Works as a \
-            window function, e.g. OVER (PARTITION BY key ORDER BY t ROWS BETWEEN UNBOUNDED PRECEDING \
-            AND 1 PRECEDING) for as-of encodings. The prior must be a constant.",
+            but 0/1 is an error). Rows whose outcome or weight is NULL are ignored; an empty group or \
+            window frame yields the prior. Works as a window function, e.g. OVER (PARTITION BY key \
+            ORDER BY day RANGE BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING) for as-of encodings \
+            from strictly earlier days. The prior must be a constant.",
         syntax: "beta_posterior(outcome [, prior [, weight]])",
         arguments: &[
             ("outcome", "0/1, false/true."),
@@ -150,7 +151,8 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
         name: "posterior_pool",
         section: COMBINE,
         description: "Sums the evidence of posteriors that share a prior (per-day or per-partition \
-            encodings into one). NULL inputs are skipped; different priors are an error naming both.",
+            encodings into one). NULL inputs are skipped; different priors are an error naming both. \
+            A group or window frame with no non-NULL input yields NULL (there is no prior to give).",
         syntax: "posterior_pool(p)",
         arguments: &[P],
         example: "SELECT breed, posterior_pool(p) AS p FROM daily_encodings GROUP BY breed;",
@@ -188,8 +190,9 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
     FunctionDoc {
         name: "posterior_var",
         section: READ,
-        description: "Posterior variance. For NIG it is the variance of the level mean, infinite \
-            when 2 * alpha_n <= 2.",
+        description: "Posterior variance. For NIG it is the variance of the level mean, a \
+            Student-t with 2 * alpha_n degrees of freedom: NULL (never inf) when alpha_n <= 1, \
+            where that variance is infinite.",
         syntax: "posterior_var(p [, class])",
         arguments: &[P, CLASS],
         example: "SELECT posterior_var(beta_prior(2.5, 1.5));  -- 0.046875",
@@ -197,7 +200,8 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
     FunctionDoc {
         name: "posterior_sd",
         section: READ,
-        description: "Posterior standard deviation (square root of posterior_var).",
+        description: "Posterior standard deviation (square root of posterior_var); NULL where \
+            posterior_var is NULL (a NIG posterior with alpha_n <= 1).",
         syntax: "posterior_sd(p [, class])",
         arguments: &[P, CLASS],
         example: "SELECT posterior_sd(p) FROM breed_encodings;",

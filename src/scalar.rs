@@ -529,6 +529,24 @@ impl ScalarFunction {
                 }
                 Reader::Evidence => unreachable!("handled above"),
             };
+            let upper_value = upper
+                .last()
+                .copied()
+                .flatten()
+                .filter(|_| reader == Reader::Interval);
+            if !value.is_finite() || upper_value.is_some_and(|u| !u.is_finite()) {
+                if matches!(reader, Reader::Var | Reader::Sd) {
+                    // A Student-t with at most 2 degrees of freedom has no finite
+                    // variance: NULL, as documented, never inf.
+                    lower.push(None);
+                    continue;
+                }
+                return exec_err!(
+                    "{}: the result for the marginal {m:?} is not a finite number; its spread \
+                     is too wide for this reader",
+                    self.name
+                );
+            }
             lower.push(Some(value));
         }
         if reader == Reader::Interval {

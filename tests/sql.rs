@@ -480,3 +480,22 @@ async fn empty_frames_and_groups_keep_the_querys_prior() {
         }
     }
 }
+
+// A Student-t with nu <= 2 degrees of freedom has infinite variance (BDA3, Appendix
+// A, table of distributions): the readers say NULL, never inf, and are finite at
+// nu = 3 (variance scale^2 * nu / (nu - 2) = 3 * beta/(alpha * kappa) here).
+#[tokio::test]
+async fn infinite_variance_reads_as_null() {
+    let ctx = ctx().await;
+    let v = floats(
+        &ctx,
+        "SELECT posterior_var(p) FROM (VALUES (nig_prior(0, 1, 1, 1)), (nig_prior(0, 1, 0.4, 1)), (nig_prior(0, 1, 1.5, 1))) t(p)",
+    )
+    .await;
+    assert_eq!(v[0], None);
+    assert_eq!(v[1], None);
+    // alpha = 1.5: nu = 3, scale^2 = beta / (alpha kappa) = 1 / 1.5, variance = 3 * (1/1.5) = 2.
+    close(v[2].unwrap(), 2.0, 1e-15);
+    let sd = floats(&ctx, "SELECT posterior_sd(nig_prior(5, 2, 0.9, 3))").await;
+    assert_eq!(sd[0], None);
+}
