@@ -5,6 +5,7 @@
 //! * [`layout`] — the posterior value format (Arrow structs);
 //! * [`fit`], [`pool`] — aggregate functions; [`scalar`] — scalar functions;
 //! * [`docs`] — the documentation table behind every function;
+//! * [`encode`] — the encode workflow: plan, statements, outputs, refresh;
 //! * [`bundle`] — the JSON serving bundle, for scoring without the engine;
 //! * [`prior_binding`] — a planning rule that binds fits to their constant prior;
 //! * [`optimizer`] — a physical rule that builds joins on the (small) encoding side.
@@ -19,6 +20,7 @@
 
 pub mod bundle;
 pub mod docs;
+pub mod encode;
 pub mod family;
 pub mod fit;
 pub mod layout;
@@ -26,6 +28,7 @@ pub mod optimizer;
 pub mod pool;
 pub mod prior_binding;
 pub mod prior_fit;
+pub mod render;
 pub mod scalar;
 
 pub use datafusion;

@@ -588,3 +588,406 @@ fn float_targets_give_identical_bytes_at_any_thread_count() {
         }
     }
 }
+
+fn sample() -> String {
+    format!(
+        "{}/demo/sample/appointments.csv",
+        env!("CARGO_MANIFEST_DIR")
+    )
+}
+
+/// A plan for the snapshot, built by hand so that nothing runs.
+fn snapshot_plan() -> posterity::encode::EncodePlan {
+    use posterity::encode::{EncodeOptions, EncodePlan, Family, KeyPlan, Method, Reader};
+    let mut options = EncodeOptions::new("train", "{class}", &[]);
+    options.readers = vec![Reader::Mean, Reader::Quantile(0.05)];
+    options.score = Some("score".into());
+    EncodePlan {
+        options,
+        family: Family::Dirichlet,
+        method: Method::Kfold,
+        classes: vec![
+            "{y}".into(),
+            "a\"b".into(),
+            "naïve café".into(),
+            "it's".into(),
+        ],
+        base_prior: "dirichlet_prior(['{y}', 'a\"b', 'naïve café', 'it''s'], 0.5)".into(),
+        fitted: true,
+        keys: vec![
+            KeyPlan {
+                name: "a_b".into(),
+                columns: vec!["a\"b".into()],
+                prior: None,
+            },
+            KeyPlan {
+                name: "naïve_café_x__y_".into(),
+                columns: vec!["naïve café".into(), "{y}".into()],
+                prior: None,
+            },
+        ],
+        train_columns: vec![
+            "a\"b".into(),
+            "naïve café".into(),
+            "{y}".into(),
+            "{class}".into(),
+        ],
+        score_columns: vec!["a\"b".into(), "naïve café".into(), "{y}".into()],
+    }
+}
+
+// The statements of a plan, without running them, against a committed snapshot
+// (regenerate with POSTERITY_BLESS=1 after a deliberate change and read the diff).
+#[test]
+fn statements_match_the_snapshot() {
+    let text: String = snapshot_plan()
+        .statements()
+        .iter()
+        .map(|s| {
+            format!(
+                "-- {} ({})\n{};\n\n",
+                s.name,
+                s.output.as_deref().unwrap_or("table"),
+                s.sql
+            )
+        })
+        .collect();
+    let path = format!(
+        "{}/tests/data/encode_statements.sql",
+        env!("CARGO_MANIFEST_DIR")
+    );
+    if std::env::var_os("POSTERITY_BLESS").is_some() {
+        std::fs::write(&path, &text).unwrap();
+    }
+    let want = std::fs::read_to_string(&path).unwrap_or_default();
+    assert!(
+        text == want,
+        "statements differ from {path}; rerun with POSTERITY_BLESS=1 and review the diff"
+    );
+}
+
+// Names that look like template placeholders, quotes, and non-ASCII text in
+// columns, classes and levels are only ever data.
+#[tokio::test]
+async fn names_from_the_data_are_never_templates() {
+    let dir = temp_dir("names");
+    let train = dir.join("train.csv");
+    let mut csv = String::from("\"a\"\"b\",naïve café,{y},{class}\n");
+    for i in 0..60 {
+        let class = ["{y}", "it's", "naïve café"][i % 3];
+        csv.push_str(&format!(
+            "k{},\"v{{p}}{}\",{},{class}\n",
+            i % 4,
+            i % 3,
+            i % 2
+        ));
+    }
+    std::fs::write(&train, csv).unwrap();
+    let out = dir.join("out");
+    encode(&[
+        "--train",
+        train.to_str().unwrap(),
+        "--target",
+        "{class}",
+        "--columns",
+        "a\"b,naïve café",
+        "--interactions",
+        "naïve café:{y}",
+        "--readers",
+        "mean,q05",
+        "--score",
+        train.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    let bundle =
+        Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+    assert_eq!(bundle.columns.len(), 3);
+    let pair = &bundle.columns["naïve_café_x__y_"];
+    assert!(
+        pair.levels.contains_key("5:v{p}0|1:0"),
+        "{:?}",
+        pair.levels.keys()
+    );
+    let means = column(&out.join("train_encoded.parquet"), "a_b_it_s_mean").await;
+    assert_eq!(means.len(), 60);
+    assert!(means.iter().all(|m| *m > 0.0 && *m < 1.0));
+    let scored = column(&out.join("scored.parquet"), "naïve_café_naïve_café_q05").await;
+    assert_eq!(scored.len(), 60);
+}
+
+// The README's Rust program: the library runs encode on any session and gives the
+// shell's numbers.
+#[tokio::test]
+async fn library_encode_equals_the_shell() {
+    use posterity::encode::{self, EncodeOptions};
+    let dir = temp_dir("library");
+    let ctx = SessionContext::new();
+    posterity::register(&ctx);
+    ctx.register_csv("appointments", &sample(), Default::default())
+        .await
+        .unwrap();
+    let options = EncodeOptions::new("appointments", "no_show", &["breed", "postcode_area"]);
+    let plan = encode::resolve(&ctx, &options).await.unwrap();
+    let output = encode::run(&ctx, &plan).await.unwrap();
+    let lib_dir = dir.join("lib");
+    encode::write(&output, &lib_dir, false).await.unwrap();
+    let shell_dir = dir.join("shell");
+    encode(&[
+        "--train",
+        &sample(),
+        "--target",
+        "no_show",
+        "--columns",
+        "breed,postcode_area",
+        "--out",
+        shell_dir.to_str().unwrap(),
+    ]);
+    for file in ["bundle.json", "encodings/breed.parquet"] {
+        assert_eq!(
+            std::fs::read(lib_dir.join(file)).unwrap(),
+            std::fs::read(shell_dir.join(file)).unwrap(),
+            "{file}"
+        );
+    }
+    assert_eq!(
+        column(&lib_dir.join("train_encoded.parquet"), "postcode_area_sd").await,
+        column(&shell_dir.join("train_encoded.parquet"), "postcode_area_sd").await
+    );
+    assert_eq!(output.summary.len(), 2);
+    assert_eq!(output.summary[0].levels, 273);
+}
+
+/// Split the sample into days before and from `day` (CSV files in `dir`).
+fn split_sample(dir: &Path, day: i64) -> (String, String) {
+    let text = std::fs::read_to_string(sample()).unwrap();
+    let mut lines = text.lines();
+    let header = lines.next().unwrap();
+    let (mut old, mut new) = (format!("{header}\n"), format!("{header}\n"));
+    for l in lines {
+        let d: i64 = l.split(',').nth(2).unwrap().parse().unwrap();
+        if d < day { &mut old } else { &mut new }.push_str(&format!("{l}\n"));
+    }
+    let (a, b) = (dir.join("old.csv"), dir.join("new.csv"));
+    std::fs::write(&a, old).unwrap();
+    std::fs::write(&b, new).unwrap();
+    (a.display().to_string(), b.display().to_string())
+}
+
+// Refresh without refit: the stored posteriors pooled with new rows under the
+// stored prior equal a full refit on old and new rows with that prior — exactly,
+// as the evidence is integer — for a chosen prior and for a fitted one.
+#[tokio::test]
+async fn update_equals_a_full_refit() {
+    let dir = temp_dir("update");
+    let (old, new) = split_sample(&dir, 300);
+    for prior in ["2,18", "fitted"] {
+        let first = dir.join(format!("first-{prior}"));
+        encode(&[
+            "--train",
+            &old,
+            "--target",
+            "no_show",
+            "--columns",
+            "breed,postcode_area",
+            "--interactions",
+            "breed:clinic",
+            "--prior",
+            prior,
+            "--readers",
+            "mean,q05",
+            "--out",
+            first.to_str().unwrap(),
+        ]);
+        let refreshed = dir.join(format!("refreshed-{prior}"));
+        encode(&[
+            "--update",
+            first.to_str().unwrap(),
+            "--train",
+            &new,
+            "--out",
+            refreshed.to_str().unwrap(),
+        ]);
+        let stored =
+            Bundle::from_json(&std::fs::read_to_string(first.join("bundle.json")).unwrap())
+                .unwrap();
+        let refreshed_bundle =
+            Bundle::from_json(&std::fs::read_to_string(refreshed.join("bundle.json")).unwrap())
+                .unwrap();
+        for (key, columns) in [("breed", "breed"), ("breed_x_clinic", "breed")] {
+            // The full refit under the stored prior of this key.
+            let numbers = match &stored.columns[key].prior {
+                posterity::layout::AnyPosterior::Beta(b) => {
+                    format!("{},{}", b.prior.a0, b.prior.b0)
+                }
+                other => panic!("{other:?}"),
+            };
+            let full = dir.join(format!("full-{prior}-{key}"));
+            let mut args = vec![
+                "--train",
+                &sample(),
+                "--target",
+                "no_show",
+                "--columns",
+                columns,
+                "--prior",
+                &numbers,
+                "--readers",
+                "mean,q05",
+            ]
+            .into_iter()
+            .map(String::from)
+            .collect::<Vec<_>>();
+            if key == "breed_x_clinic" {
+                args.extend(["--interactions".into(), "breed:clinic".into()]);
+            }
+            args.extend(["--out".into(), full.display().to_string()]);
+            encode(&args.iter().map(String::as_str).collect::<Vec<_>>());
+            let full_bundle =
+                Bundle::from_json(&std::fs::read_to_string(full.join("bundle.json")).unwrap())
+                    .unwrap();
+            assert_eq!(
+                refreshed_bundle.columns[key].levels, full_bundle.columns[key].levels,
+                "{prior} {key}"
+            );
+            for reader in ["mean", "q05"] {
+                let name = format!("{key}_{reader}");
+                let (a, b) = (
+                    column(&refreshed.join(format!("encodings/{key}.parquet")), &name).await,
+                    column(&full.join(format!("encodings/{key}.parquet")), &name).await,
+                );
+                assert!(a.len() > 200 && a == b, "{prior} {name}");
+            }
+        }
+    }
+}
+
+// Every input is checked before any output is written, and an output directory
+// ends up holding exactly one run's files.
+#[test]
+fn inputs_are_checked_first_and_outputs_replace_a_run_whole() {
+    let dir = temp_dir("checks");
+    let train = random_key_csv(&dir, 200, 7);
+    let out = dir.join("out");
+    let out_s = out.display().to_string();
+    let score = dir.join("score.csv");
+    std::fs::write(&score, "id,other\n1,2\n").unwrap();
+    let o = encode_output(&[
+        "encode",
+        "--train",
+        &train,
+        "--target",
+        "y",
+        "--columns",
+        "key",
+        "--score",
+        score.to_str().unwrap(),
+        "--out",
+        &out_s,
+    ]);
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(2), "{stderr}");
+    assert!(
+        stderr
+            .contains("key column 'key' is not a column of the scoring table (columns: id, other)"),
+        "{stderr}"
+    );
+    assert!(
+        !out.exists(),
+        "nothing may be written before the inputs are checked"
+    );
+    // Internal names never reach the user.
+    for (args, message) in [
+        (
+            vec!["--columns", "key", "--interactions", "key:nosuch"],
+            "key column 'nosuch' is not a column of the training table",
+        ),
+        (
+            vec!["--columns", "key,key"],
+            "keys 'key' and 'key' both make output names",
+        ),
+        (
+            vec!["--columns", "key", "--score", "nosuch.csv"],
+            "--score: 'nosuch.csv' does not exist",
+        ),
+        (
+            vec![
+                "--columns",
+                "key",
+                "--method",
+                "kfold",
+                "--time-column",
+                "t",
+            ],
+            "--time-column 't' is only used by --method time",
+        ),
+        (
+            vec!["--columns", "key", "--exposure", "t"],
+            "--exposure is for count targets (the gamma family)",
+        ),
+    ] {
+        let mut all = vec![
+            "encode", "--train", &train, "--target", "y", "--out", &out_s,
+        ];
+        all.extend(args);
+        let o = encode_output(&all);
+        let stderr = String::from_utf8_lossy(&o.stderr);
+        assert!(stderr.contains(message), "{all:?}: {stderr}");
+        assert!(!stderr.contains("__"), "internal name in: {stderr}");
+        assert!(!out.exists());
+    }
+    // A run with two keys, then one with one key: no stale encoding table remains.
+    encode(&[
+        "--train",
+        &train,
+        "--target",
+        "y",
+        "--columns",
+        "key,t",
+        "--out",
+        &out_s,
+    ]);
+    assert!(out.join("encodings/t.parquet").exists());
+    encode(&[
+        "--train",
+        &train,
+        "--target",
+        "y",
+        "--columns",
+        "key",
+        "--out",
+        &out_s,
+    ]);
+    assert!(!out.join("encodings/t.parquet").exists());
+    assert!(out.join("encodings/key.parquet").exists());
+    // A directory holding other files is refused unless told to replace it.
+    let foreign = dir.join("foreign");
+    std::fs::create_dir_all(&foreign).unwrap();
+    std::fs::write(foreign.join("notes.txt"), "keep me").unwrap();
+    let foreign_s = foreign.display().to_string();
+    let o = encode_output(&[
+        "encode",
+        "--train",
+        &train,
+        "--target",
+        "y",
+        "--columns",
+        "key",
+        "--out",
+        &foreign_s,
+    ]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(foreign.join("notes.txt").exists());
+    encode(&[
+        "--train",
+        &train,
+        "--target",
+        "y",
+        "--columns",
+        "key",
+        "--out",
+        &foreign_s,
+        "--replace",
+    ]);
+    assert!(!foreign.join("notes.txt").exists());
+}

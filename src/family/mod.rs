@@ -86,7 +86,7 @@ impl fmt::Display for FamilyError {
 impl std::error::Error for FamilyError {}
 
 /// Numbers in messages: plain when readable, scientific when huge or tiny.
-fn number(v: f64) -> String {
+pub(crate) fn number(v: f64) -> String {
     if v != 0.0 && v.is_finite() && (v.abs() >= 1e15 || v.abs() < 1e-4) {
         format!("{v:e}")
     } else {

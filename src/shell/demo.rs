@@ -205,9 +205,10 @@ pub async fn run(shell: &Shell, dir: &Path, rows: usize, seed: u64) -> Result<()
     println!("== 11. One command: leak-free training encodings, encoding tables, a serving bundle and a scored month");
     let encode = super::encode::EncodeArgs {
         train: format!("{d}/train.parquet"),
-        target: "no_show".into(),
+        target: Some("no_show".into()),
         columns: vec!["breed".into(), "postcode_area".into(), "vet".into()],
         out: dir.join("encoded"),
+        replace: true,
         interactions: vec!["breed:clinic".into()],
         family: None,
         prior: "fitted".into(),
@@ -220,6 +221,8 @@ pub async fn run(shell: &Shell, dir: &Path, rows: usize, seed: u64) -> Result<()
         draws: None,
         seed: 0,
         score: Some(format!("{d}/next_month.parquet")),
+        update: None,
+        decay: None,
         show_sql: false,
     };
     super::encode::run(shell, &encode).await?;

@@ -8,6 +8,7 @@ use datafusion::arrow::array::{Array, ArrayRef, AsArray, RecordBatch};
 use datafusion::arrow::datatypes::{DataType, Float64Type};
 use datafusion::arrow::util::display::{ArrayFormatter, FormatOptions};
 use datafusion::arrow::util::pretty::pretty_format_batches_with_options;
+use posterity::render::{describe, short};
 use serde_json::{Map, Number, Value};
 
 /// Output formats of the shell.
@@ -89,69 +90,6 @@ fn readable_batch(batch: &RecordBatch) -> Result<RecordBatch, String> {
         }
     }
     RecordBatch::try_new(Arc::new(Schema::new(fields)), columns).map_err(|e| e.to_string())
-}
-
-/// Six significant digits, trailing zeros dropped.
-fn short(v: f64) -> String {
-    if v == 0.0 || !v.is_finite() {
-        return format!("{v}");
-    }
-    let magnitude = v.abs().log10().floor() as i32;
-    if !(-4..15).contains(&magnitude) {
-        return format!("{v:.5e}");
-    }
-    let decimals = (5 - magnitude).max(0) as usize;
-    let text = format!("{v:.decimals$}");
-    if text.contains('.') {
-        text.trim_end_matches('0').trim_end_matches('.').to_string()
-    } else {
-        text
-    }
-}
-
-fn describe(p: &posterity::layout::AnyPosterior) -> String {
-    use posterity::layout::AnyPosterior;
-    match p {
-        AnyPosterior::Beta(b) => {
-            let (a, bb) = b.params();
-            format!(
-                "Beta({}, {}) from {} trials",
-                short(a),
-                short(bb),
-                short(b.trials)
-            )
-        }
-        AnyPosterior::Gamma(g) => {
-            let (k, r) = g.params();
-            format!(
-                "Gamma({}, {}) from {} events",
-                short(k),
-                short(r),
-                short(g.events)
-            )
-        }
-        AnyPosterior::Nig(n) => {
-            let q = n.params();
-            format!(
-                "NIG(mu {}, kappa {}, alpha {}, beta {}) from {} values",
-                short(q.mu),
-                short(q.kappa),
-                short(q.alpha),
-                short(q.beta),
-                short(n.stats.n)
-            )
-        }
-        AnyPosterior::Dirichlet(d) => {
-            let parts: Vec<String> = d
-                .prior
-                .classes
-                .iter()
-                .zip(d.params())
-                .map(|(c, a)| format!("{c} {}", short(a)))
-                .collect();
-            format!("Dirichlet({})", parts.join(", "))
-        }
-    }
 }
 
 fn delimited(batches: &[RecordBatch], sep: char) -> Result<String, String> {

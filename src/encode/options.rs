@@ -1,0 +1,303 @@
+//! What a user asks of `encode`, before it meets the data.
+
+use super::{usage, Result};
+
+/// Which conjugate family the target gets.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Family {
+    Beta,
+    Gamma,
+    Nig,
+    Dirichlet,
+}
+
+impl Family {
+    pub fn name(self) -> &'static str {
+        match self {
+            Family::Beta => "beta",
+            Family::Gamma => "gamma",
+            Family::Nig => "nig",
+            Family::Dirichlet => "dirichlet",
+        }
+    }
+}
+
+/// How training rows are kept from seeing their own target.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Method {
+    /// K-fold out-of-fold: a row's encoding uses the other folds only.
+    Kfold,
+    /// Leave-one-out: a row's encoding uses every other row.
+    Loo,
+    /// Time order: a row's encoding uses earlier rows only.
+    Time,
+}
+
+impl Method {
+    pub fn name(self) -> &'static str {
+        match self {
+            Method::Kfold => "kfold",
+            Method::Loo => "loo",
+            Method::Time => "time",
+        }
+    }
+}
+
+/// How as-of encodings treat rows that share a time.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum TimeTies {
+    /// Rows see strictly earlier times only; rows at one time share one encoding.
+    #[default]
+    Strict,
+    /// Rows at one time also see the rows before them in table order.
+    FileOrder,
+}
+
+/// The prior of every encoded column.
+#[derive(Debug, Clone, PartialEq)]
+pub enum PriorChoice {
+    /// Empirical Bayes per column (`fit_prior`).
+    Fitted,
+    /// Jeffreys' prior (Beta(1/2, 1/2), Gamma(1/2, 1), Dirichlet(1/2, ...)); for NIG a
+    /// weak prior on the target's own scale.
+    Jeffreys,
+    /// Beta(1, 1), Dirichlet(1, ...); Gamma and NIG as Jeffreys.
+    Uniform,
+    /// The family's prior parameters: `a, b` (beta), `shape, rate` (gamma),
+    /// `mu0, kappa0, alpha0, beta0` (nig), `c` (dirichlet).
+    Numbers(Vec<f64>),
+}
+
+impl PriorChoice {
+    /// Parse `fitted`, `jeffreys`, `uniform` or comma-separated numbers.
+    pub fn parse(s: &str) -> Result<PriorChoice> {
+        match s.trim() {
+            "fitted" => Ok(PriorChoice::Fitted),
+            "jeffreys" => Ok(PriorChoice::Jeffreys),
+            "uniform" => Ok(PriorChoice::Uniform),
+            other => {
+                let numbers: Option<Vec<f64>> =
+                    other.split(',').map(|x| x.trim().parse().ok()).collect();
+                match numbers {
+                    Some(v) if v.iter().all(|x| x.is_finite()) => Ok(PriorChoice::Numbers(v)),
+                    _ => usage(format!(
+                        "--prior '{other}' is not fitted, jeffreys, uniform or a list of numbers"
+                    )),
+                }
+            }
+        }
+    }
+
+    pub fn describe(&self) -> String {
+        match self {
+            PriorChoice::Fitted => "fitted".into(),
+            PriorChoice::Jeffreys => "jeffreys".into(),
+            PriorChoice::Uniform => "uniform".into(),
+            PriorChoice::Numbers(v) => v
+                .iter()
+                .map(|x| x.to_string())
+                .collect::<Vec<_>>()
+                .join(","),
+        }
+    }
+}
+
+/// One reader of each encoding: a feature column per key (per class for Dirichlet).
+#[derive(Debug, Clone, PartialEq)]
+pub enum Reader {
+    Mean,
+    Sd,
+    Var,
+    /// The amount of data behind the posterior.
+    Evidence,
+    /// The quantile at a probability strictly between 0 and 1.
+    Quantile(f64),
+    /// P(theta > t).
+    Above(f64),
+}
+
+impl Reader {
+    /// Parse `mean`, `sd`, `var`, `evidence`, `qNN` (percent) or `above:T`.
+    pub fn parse(spec: &str) -> Result<Reader> {
+        let s = spec.trim();
+        Ok(match s {
+            "mean" => Reader::Mean,
+            "sd" => Reader::Sd,
+            "var" => Reader::Var,
+            "evidence" => Reader::Evidence,
+            _ if s.starts_with('q') => {
+                let Ok(percent) = s[1..].parse::<f64>() else {
+                    return usage(format!("--readers: '{s}' is not qNN (e.g. q05, q95)"));
+                };
+                if !(percent > 0.0 && percent < 100.0) {
+                    return usage(format!(
+                        "--readers: '{s}' needs a percentage strictly between 0 and 100"
+                    ));
+                }
+                Reader::Quantile(percent / 100.0)
+            }
+            _ if s.starts_with("above:") => match s[6..].trim().parse::<f64>() {
+                Ok(t) if t.is_finite() => Reader::Above(t),
+                _ => {
+                    return usage(format!(
+                        "--readers: '{s}' is not above:T with a finite number T"
+                    ))
+                }
+            },
+            _ => {
+                return usage(format!(
+                    "--readers: unknown reader '{s}'; use mean, sd, var, evidence, qNN or above:T"
+                ))
+            }
+        })
+    }
+
+    /// The reader as the user wrote it (stored in the bundle).
+    pub fn spec(&self) -> String {
+        match self {
+            Reader::Mean => "mean".into(),
+            Reader::Sd => "sd".into(),
+            Reader::Var => "var".into(),
+            Reader::Evidence => "evidence".into(),
+            Reader::Quantile(q) => format!("q{}", format_percent(*q)),
+            Reader::Above(t) => format!("above:{t}"),
+        }
+    }
+
+    /// The suffix of its output columns.
+    pub fn suffix(&self) -> String {
+        match self {
+            Reader::Quantile(q) => super::sanitize(&format!("q{}", format_percent(*q))),
+            Reader::Above(t) => format!("above_{}", super::sanitize(&t.to_string())),
+            other => other.spec(),
+        }
+    }
+
+    /// Whether a Dirichlet encoding gets one column per class.
+    pub fn per_class(&self) -> bool {
+        !matches!(self, Reader::Evidence)
+    }
+
+    /// The SQL of this reader over posterior expression `p` (and a class literal).
+    pub(crate) fn sql(&self, p: &str, class: Option<&str>) -> String {
+        let class = class
+            .map(|c| format!(", {}", super::text(c)))
+            .unwrap_or_default();
+        match self {
+            Reader::Mean => format!("posterior_mean({p}{class})"),
+            Reader::Sd => format!("posterior_sd({p}{class})"),
+            Reader::Var => format!("posterior_var({p}{class})"),
+            Reader::Evidence => format!("posterior_evidence({p})"),
+            Reader::Quantile(q) => format!("posterior_quantile({p}{class}, {q})"),
+            Reader::Above(t) => format!("posterior_prob_above({p}{class}, {t})"),
+        }
+    }
+}
+
+/// `5` for 0.05, `97.5` for 0.975: the percent as written, with two digits below 10.
+fn format_percent(q: f64) -> String {
+    let percent = (q * 100.0 * 1e9).round() / 1e9;
+    if percent < 10.0 && percent.fract() == 0.0 {
+        format!("{:02}", percent as u64)
+    } else {
+        percent.to_string()
+    }
+}
+
+/// Everything `encode` can be asked.
+#[derive(Debug, Clone)]
+pub struct EncodeOptions {
+    /// A table registered on the session: the training rows, numbered in scan order.
+    pub train: String,
+    pub target: String,
+    /// Categorical columns, each encoded on its own.
+    pub columns: Vec<String>,
+    /// Interaction keys, each two or more columns.
+    pub interactions: Vec<Vec<String>>,
+    /// `None`: inferred from the target's type and values.
+    pub family: Option<Family>,
+    pub prior: PriorChoice,
+    /// `None`: `Time` when a time column is given, else `Kfold`.
+    pub method: Option<Method>,
+    pub folds: u32,
+    pub seed: u64,
+    pub time_column: Option<String>,
+    pub time_ties: TimeTies,
+    /// Exposure column of a Gamma target.
+    pub exposure: Option<String>,
+    pub readers: Vec<Reader>,
+    /// Add a seeded posterior draw per row and key.
+    pub draws: Option<u64>,
+    /// A table registered on the session to score with the full-data encodings.
+    pub score: Option<String>,
+}
+
+impl EncodeOptions {
+    /// The defaults: fitted prior, 5-fold out-of-fold encodings, readers mean and sd.
+    pub fn new(train: &str, target: &str, columns: &[&str]) -> EncodeOptions {
+        EncodeOptions {
+            train: train.to_string(),
+            target: target.to_string(),
+            columns: columns.iter().map(|c| c.to_string()).collect(),
+            interactions: Vec::new(),
+            family: None,
+            prior: PriorChoice::Fitted,
+            method: None,
+            folds: 5,
+            seed: 0,
+            time_column: None,
+            time_ties: TimeTies::Strict,
+            exposure: None,
+            readers: vec![Reader::Mean, Reader::Sd],
+            draws: None,
+            score: None,
+        }
+    }
+
+    /// The method after defaults, checked against the other options.
+    pub fn method(&self) -> Result<Method> {
+        match (self.method, &self.time_column) {
+            (Some(Method::Time), None) => usage("--method time needs --time-column"),
+            (Some(m @ (Method::Kfold | Method::Loo)), Some(t)) => usage(format!(
+                "--time-column '{t}' is only used by --method time, not --method {}",
+                m.name()
+            )),
+            (Some(m), _) => Ok(m),
+            (None, Some(_)) => Ok(Method::Time),
+            (None, None) => Ok(Method::Kfold),
+        }
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn readers_round_trip_and_name_columns() {
+        for (spec, suffix) in [
+            ("mean", "mean"),
+            ("q05", "q05"),
+            ("q95", "q95"),
+            ("q97.5", "q97_5"),
+            ("above:0.15", "above_0_15"),
+            ("evidence", "evidence"),
+        ] {
+            let r = Reader::parse(spec).unwrap();
+            assert_eq!(r.spec(), spec);
+            assert_eq!(r.suffix(), suffix);
+        }
+        assert!(Reader::parse("q0").is_err());
+        assert!(Reader::parse("above:inf").is_err());
+    }
+
+    #[test]
+    fn priors_parse() {
+        assert_eq!(
+            PriorChoice::parse(" 2, 18 ").unwrap(),
+            PriorChoice::Numbers(vec![2.0, 18.0])
+        );
+        assert_eq!(PriorChoice::parse("fitted").unwrap(), PriorChoice::Fitted);
+        assert!(PriorChoice::parse("2,x").is_err());
+    }
+}

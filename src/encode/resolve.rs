@@ -1,0 +1,445 @@
+//! Options meet the data: every check before anything runs or is written, and the
+//! choices that depend on the data (family, classes, base prior).
+
+use datafusion::arrow::array::{Array, AsArray};
+use datafusion::arrow::compute::cast;
+use datafusion::arrow::datatypes::{DataType, Float64Type, Int64Type};
+use datafusion::prelude::SessionContext;
+
+use super::options::{EncodeOptions, Family, Method, PriorChoice};
+use super::{quote, sanitize, text, usage, EncodeError, Result};
+
+/// One encoded key: a column or an interaction of columns.
+#[derive(Debug, Clone, PartialEq)]
+pub struct KeyPlan {
+    /// Output name: the column, or the columns joined by `_x_`.
+    pub name: String,
+    /// The input columns it is built from.
+    pub columns: Vec<String>,
+    /// This key's own constant prior (SQL), when it differs from the plan's base
+    /// prior: a refresh keeps each column's stored prior.
+    pub prior: Option<String>,
+}
+
+impl KeyPlan {
+    /// The SQL of the key's text over table alias `t`: the column's text, or for an
+    /// interaction each part's text prefixed by its length in characters and `:`,
+    /// joined by `|` (collision-free; `crate::bundle::interaction_key` is the same).
+    pub fn sql(&self) -> String {
+        let part = |c: &str| format!("CAST(t.{} AS VARCHAR)", quote(c));
+        if let [one] = self.columns.as_slice() {
+            return part(one);
+        }
+        let all_present = self
+            .columns
+            .iter()
+            .map(|c| format!("t.{} IS NOT NULL", quote(c)))
+            .collect::<Vec<_>>()
+            .join(" AND ");
+        let prefixed = self
+            .columns
+            .iter()
+            .map(|c| format!("character_length({}), ':', {}", part(c), part(c)))
+            .collect::<Vec<_>>()
+            .join(", '|', ");
+        format!("CASE WHEN {all_present} THEN concat({prefixed}) END")
+    }
+}
+
+/// Everything the statements need, settled against the data.
+#[derive(Debug, Clone)]
+pub struct EncodePlan {
+    pub options: EncodeOptions,
+    pub family: Family,
+    pub method: Method,
+    /// Dirichlet classes, sorted; empty for the other families.
+    pub classes: Vec<String>,
+    /// The constant prior of every fit (SQL); with a fitted prior the fits are
+    /// re-priored afterwards.
+    pub base_prior: String,
+    pub fitted: bool,
+    pub keys: Vec<KeyPlan>,
+    /// The training table's columns, in order.
+    pub train_columns: Vec<String>,
+    /// The scoring table's columns, in order.
+    pub score_columns: Vec<String>,
+}
+
+impl EncodePlan {
+    /// The output columns of key `key`'s readers, in order, as (name, reader index, class).
+    pub fn reader_columns(&self, key: &KeyPlan) -> Vec<(String, usize, Option<String>)> {
+        let mut out = Vec::new();
+        for (r, reader) in self.options.readers.iter().enumerate() {
+            if self.classes.is_empty() || !reader.per_class() {
+                out.push((format!("{}_{}", key.name, reader.suffix()), r, None));
+            } else {
+                for c in &self.classes {
+                    out.push((
+                        format!("{}_{}_{}", key.name, sanitize(c), reader.suffix()),
+                        r,
+                        Some(c.clone()),
+                    ));
+                }
+            }
+        }
+        if self.options.draws.is_some() {
+            // Draw columns: reader index usize::MAX marks them.
+            if self.classes.is_empty() {
+                out.push((format!("{}_draw", key.name), usize::MAX, None));
+            } else {
+                for c in &self.classes {
+                    out.push((
+                        format!("{}_{}_draw", key.name, sanitize(c)),
+                        usize::MAX,
+                        Some(c.clone()),
+                    ));
+                }
+            }
+        }
+        out
+    }
+}
+
+/// The columns of a registered table, with their types.
+pub(super) async fn columns_of(
+    ctx: &SessionContext,
+    table: &str,
+) -> Result<Vec<(String, DataType)>> {
+    let df = ctx.table(table).await.map_err(|_| {
+        EncodeError::Usage(format!(
+            "no table named '{table}' is registered on the session"
+        ))
+    })?;
+    Ok(df
+        .schema()
+        .fields()
+        .iter()
+        .map(|f| (f.name().clone(), f.data_type().clone()))
+        .collect())
+}
+
+fn keys_of(options: &EncodeOptions) -> Result<Vec<KeyPlan>> {
+    let mut keys = Vec::new();
+    for c in &options.columns {
+        if c.is_empty() {
+            return usage("--columns: an empty column name");
+        }
+        keys.push(KeyPlan {
+            name: sanitize(c),
+            columns: vec![c.clone()],
+            prior: None,
+        });
+    }
+    for parts in &options.interactions {
+        if parts.len() < 2 || parts.iter().any(|p| p.is_empty()) {
+            return usage(format!(
+                "--interactions: '{}' must be two or more columns joined by ':'",
+                parts.join(":")
+            ));
+        }
+        keys.push(KeyPlan {
+            name: parts
+                .iter()
+                .map(|p| sanitize(p))
+                .collect::<Vec<_>>()
+                .join("_x_"),
+            columns: parts.clone(),
+            prior: None,
+        });
+    }
+    if keys.is_empty() {
+        return usage("--columns: name at least one column to encode");
+    }
+    Ok(keys)
+}
+
+/// A key built from the target (or time-ordered by it) hands every row its own
+/// outcome: refuse it rather than write a perfect leak.
+fn refuse_leaky_keys(options: &EncodeOptions, keys: &[KeyPlan]) -> Result<()> {
+    let target = &options.target;
+    for key in keys {
+        if key.columns.contains(target) {
+            let what = if key.columns.len() == 1 {
+                "--columns".to_string()
+            } else {
+                format!("the interaction '{}'", key.columns.join(":"))
+            };
+            return usage(format!(
+                "{what} includes the target '{target}': its encoding would be the row's own \
+                 outcome (a perfect leak); encode other columns"
+            ));
+        }
+        if let Some(time) = &options.time_column {
+            if key.columns.len() == 1 && key.columns[0] == *time {
+                return usage(format!(
+                    "--time-column '{time}' is also encoded as a key: every row of a level shares \
+                     its time, so as-of encodings of it would all be the prior"
+                ));
+            }
+        }
+    }
+    if options.time_column.as_deref() == Some(target.as_str()) {
+        return usage(format!(
+            "--time-column '{target}' is the target: ordering rows by their own outcome leaks it"
+        ));
+    }
+    if options.exposure.as_deref() == Some(target.as_str()) {
+        return usage(format!(
+            "--exposure '{target}' is the target; give the column of exposure (time at risk, visits)"
+        ));
+    }
+    Ok(())
+}
+
+pub(super) fn require_columns<'a>(
+    what: &str,
+    available: &[(String, DataType)],
+    wanted: impl IntoIterator<Item = (&'a String, String)>,
+) -> Result<()> {
+    for (column, role) in wanted {
+        if !available.iter().any(|(n, _)| n == column) {
+            return usage(format!(
+                "{role} '{column}' is not a column of the {what} (columns: {})",
+                available
+                    .iter()
+                    .map(|(n, _)| n.as_str())
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            ));
+        }
+    }
+    Ok(())
+}
+
+async fn one_row(ctx: &SessionContext, sql: &str) -> Result<datafusion::arrow::array::RecordBatch> {
+    let batches = ctx.sql(sql).await?.collect().await?;
+    batches
+        .into_iter()
+        .find(|b| b.num_rows() > 0)
+        .ok_or_else(|| EncodeError::Query(format!("no result from {sql}")))
+}
+
+/// Check the options against the tables and settle the plan.
+pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<EncodePlan> {
+    let method = options.method()?;
+    if options.folds < 2 {
+        return usage("--folds must be at least 2");
+    }
+    if options.readers.is_empty() && options.draws.is_none() {
+        return usage(
+            "--readers: name at least one reader (mean, sd, var, evidence, qNN, above:T)",
+        );
+    }
+    let keys = keys_of(options)?;
+    refuse_leaky_keys(options, &keys)?;
+    let train = columns_of(ctx, &options.train).await?;
+    let target = &options.target;
+    require_columns(
+        "training table",
+        &train,
+        keys.iter()
+            .flat_map(|k| k.columns.iter().map(|c| (c, "key column".to_string())))
+            .chain(std::iter::once((target, "--target".to_string())))
+            .chain(
+                options
+                    .time_column
+                    .iter()
+                    .map(|c| (c, "--time-column".to_string())),
+            )
+            .chain(
+                options
+                    .exposure
+                    .iter()
+                    .map(|c| (c, "--exposure".to_string())),
+            ),
+    )?;
+    let score_columns = match &options.score {
+        Some(score) => {
+            let columns = columns_of(ctx, score).await?;
+            require_columns(
+                "scoring table",
+                &columns,
+                keys.iter()
+                    .flat_map(|k| k.columns.iter().map(|c| (c, "key column".to_string()))),
+            )?;
+            columns.into_iter().map(|(n, _)| n).collect()
+        }
+        None => Vec::new(),
+    };
+
+    let t = quote(target);
+    let from = quote(&options.train);
+    let target_type = train
+        .iter()
+        .find(|(n, _)| n == target)
+        .map(|(_, d)| d.clone())
+        .unwrap_or(DataType::Null);
+    let binary = || async {
+        let b = one_row(
+            ctx,
+            &format!("SELECT COUNT(*) FROM {from} WHERE {t} IS NOT NULL AND {t} NOT IN (0, 1)"),
+        )
+        .await?;
+        Ok::<bool, EncodeError>(b.column(0).as_primitive::<Int64Type>().value(0) == 0)
+    };
+    let family = match options.family {
+        Some(f) => f,
+        None => match &target_type {
+            DataType::Boolean => Family::Beta,
+            d if d.is_integer() || d.is_floating() => match (binary().await?, d.is_integer()) {
+                (true, _) => Family::Beta,
+                (false, true) => Family::Gamma,
+                (false, false) => Family::Nig,
+            },
+            DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => Family::Dirichlet,
+            other => {
+                return usage(format!(
+                    "cannot infer a family for target '{target}' of type {other}; pass --family"
+                ))
+            }
+        },
+    };
+    if options.exposure.is_some() && family != Family::Gamma {
+        return usage(format!(
+            "--exposure is for count targets (the gamma family); target '{target}' is encoded \
+             with the {} family",
+            family.name()
+        ));
+    }
+    let classes = if family == Family::Dirichlet {
+        let batches = ctx
+            .sql(&format!(
+                "SELECT DISTINCT CAST({t} AS VARCHAR) AS c FROM {from} WHERE {t} IS NOT NULL ORDER BY c"
+            ))
+            .await?
+            .collect()
+            .await?;
+        let mut classes = Vec::new();
+        for b in &batches {
+            let col = cast(b.column(0), &DataType::Utf8)?;
+            let col = col.as_string::<i32>();
+            classes.extend((0..col.len()).map(|i| col.value(i).to_string()));
+        }
+        if classes.is_empty() {
+            return usage(format!("target '{target}' has no non-NULL values"));
+        }
+        classes
+    } else {
+        Vec::new()
+    };
+    let class_list = classes
+        .iter()
+        .map(|c| text(c))
+        .collect::<Vec<_>>()
+        .join(", ");
+    let base_prior = match (family, &options.prior) {
+        (Family::Beta, PriorChoice::Fitted | PriorChoice::Jeffreys) => {
+            "beta_prior(0.5, 0.5)".into()
+        }
+        (Family::Beta, PriorChoice::Uniform) => "beta_prior(1, 1)".into(),
+        (Family::Beta, PriorChoice::Numbers(v)) if v.len() == 2 => {
+            format!("beta_prior({}, {})", v[0], v[1])
+        }
+        (Family::Gamma, PriorChoice::Numbers(v)) if v.len() == 2 => {
+            format!("gamma_prior({}, {})", v[0], v[1])
+        }
+        (Family::Gamma, PriorChoice::Numbers(_)) => String::new(),
+        (Family::Gamma, _) => "gamma_prior(0.5, 1)".into(),
+        (Family::Nig, PriorChoice::Numbers(v)) if v.len() == 4 => {
+            format!("nig_prior({}, {}, {}, {})", v[0], v[1], v[2], v[3])
+        }
+        (Family::Nig, PriorChoice::Numbers(_)) => String::new(),
+        (Family::Nig, _) => {
+            // A weak prior on the data's own scale: centred on the overall mean, worth
+            // one observation, with the overall variance as the expected within-level
+            // variance. posterity's own fit, not AVG/VAR_POP: its sums do not depend on
+            // the thread count, so neither does the prior.
+            let b = one_row(
+                ctx,
+                &format!(
+                    "SELECT posterior_evidence(p), get_field(p, 'mean'), get_field(p, 'm2') / get_field(p, 'n') \
+                     FROM (SELECT nig_posterior(CAST({t} AS DOUBLE)) AS p FROM {from})"
+                ),
+            )
+            .await?;
+            let get = |i: usize| {
+                let c = b.column(i).as_primitive::<Float64Type>();
+                if c.is_null(0) || !c.value(0).is_finite() {
+                    0.0
+                } else {
+                    c.value(0)
+                }
+            };
+            let var = if get(0) > 0.0 && get(2) > 0.0 {
+                get(2)
+            } else {
+                1.0
+            };
+            format!("nig_prior({}, 1, 2, {})", get(1), var)
+        }
+        (Family::Dirichlet, PriorChoice::Fitted | PriorChoice::Jeffreys) => {
+            format!("dirichlet_prior([{class_list}], 0.5)")
+        }
+        (Family::Dirichlet, PriorChoice::Uniform) => format!("dirichlet_prior([{class_list}], 1)"),
+        (Family::Dirichlet, PriorChoice::Numbers(v)) if v.len() == 1 => {
+            format!("dirichlet_prior([{class_list}], {})", v[0])
+        }
+        _ => String::new(),
+    };
+    if base_prior.is_empty() {
+        return usage(format!(
+            "--prior '{}' does not fit the {} family; use fitted, jeffreys, uniform or its \
+             numbers (beta: a,b; gamma: shape,rate; nig: mu0,kappa0,alpha0,beta0; dirichlet: c)",
+            options.prior.describe(),
+            family.name()
+        ));
+    }
+    // A prior given as numbers is checked here, before anything runs.
+    ctx.sql(&format!("SELECT {base_prior}"))
+        .await?
+        .collect()
+        .await
+        .map_err(|e| EncodeError::Usage(format!("--prior: {}", e.strip_backtrace())))?;
+
+    let plan = EncodePlan {
+        options: options.clone(),
+        family,
+        method,
+        classes,
+        base_prior,
+        fitted: options.prior == PriorChoice::Fitted,
+        keys,
+        train_columns: train.into_iter().map(|(n, _)| n).collect(),
+        score_columns,
+    };
+    check_output_names(&plan)?;
+    Ok(plan)
+}
+
+/// Output columns must not collide with each other or with the input columns.
+pub(super) fn check_output_names(plan: &EncodePlan) -> Result<()> {
+    let mut seen: std::collections::HashMap<String, String> = plan
+        .train_columns
+        .iter()
+        .map(|c| (c.clone(), format!("the training column '{c}'")))
+        .collect();
+    let mut key_names = std::collections::HashMap::new();
+    for key in &plan.keys {
+        let spelled = key.columns.join(":");
+        if let Some(other) = key_names.insert(key.name.clone(), spelled.clone()) {
+            return usage(format!(
+                "keys '{other}' and '{spelled}' both make output names '{}_...'; encode one of them",
+                key.name
+            ));
+        }
+        for (name, _, _) in plan.reader_columns(key) {
+            if let Some(other) = seen.insert(name.clone(), format!("key '{spelled}'")) {
+                return usage(format!(
+                    "the output column '{name}' of key '{spelled}' would repeat {other}; \
+                     rename the column or choose other readers"
+                ));
+            }
+        }
+    }
+    Ok(())
+}

@@ -1,0 +1,436 @@
+//! Running a plan: numbered rows, the statements, the bundle, the summary, and
+//! writing everything into a directory as one unit.
+
+use std::collections::BTreeMap;
+use std::path::{Path, PathBuf};
+use std::sync::Arc;
+
+use datafusion::arrow::array::{Array, ArrayRef, AsArray, Int64Array, RecordBatch};
+use datafusion::arrow::compute::cast;
+use datafusion::arrow::datatypes::{DataType, Field, Int64Type, Schema};
+use datafusion::dataframe::{DataFrame, DataFrameWriteOptions};
+use datafusion::datasource::MemTable;
+use datafusion::prelude::SessionContext;
+use serde_json::{json, Value};
+
+use super::resolve::EncodePlan;
+use super::sql::{SCORE, TRAIN};
+use super::{EncodeError, Result};
+use crate::bundle::{Bundle, ColumnEncoding};
+use crate::layout::{AnyPosterior, PosteriorColumn};
+
+/// What was chosen for one encoded key, and how much data it saw.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ColumnSummary {
+    pub key: String,
+    pub family: String,
+    /// The prior, as a JSON posterior object.
+    pub prior: Value,
+    /// The prior, readable.
+    pub prior_text: String,
+    /// The prior's weight in rows (pseudo-observations).
+    pub strength: f64,
+    /// A fitted prior whose strength hit its cap (levels show no spread beyond noise:
+    /// the column was pooled completely).
+    pub at_bound: bool,
+    pub levels: u64,
+    /// Rows with the key (weighted evidence).
+    pub rows: f64,
+    /// Share of scored rows at levels never seen in training.
+    pub unseen_share: Option<f64>,
+    pub warnings: Vec<String>,
+}
+
+/// The results of [`run`]: lazily evaluated tables (stream, collect or write them)
+/// and the serving bundle.
+pub struct EncodeOutput {
+    /// Every training column plus the reader columns, in table order (`None` for a
+    /// refresh, which updates the serving outputs only).
+    pub train_encoded: Option<DataFrame>,
+    /// Per key: one row per level with its posterior `p` and the readers.
+    pub encodings: Vec<(String, DataFrame)>,
+    /// With a scoring table: every scoring column plus the readers, in table order.
+    pub scored: Option<DataFrame>,
+    /// With a scoring table: per key, rows, rows with the key, unseen rows and levels.
+    pub unseen: Option<Value>,
+    pub bundle: Bundle,
+    pub summary: Vec<ColumnSummary>,
+}
+
+/// Fewer levels than this give a fitted prior too little to go on (common
+/// practice, no source).
+const FEW_LEVELS: u64 = 20;
+
+/// Register `source` as `name` with a `__row` column numbering its rows in scan
+/// order. The scan runs without the engine's work stealing, which lets an idle
+/// partition read a sibling's byte ranges and so would shuffle the numbers (and
+/// the folds) from run to run.
+pub(super) async fn number_rows(ctx: &SessionContext, source: &str, name: &str) -> Result<()> {
+    let mut state = ctx.state();
+    state
+        .config_mut()
+        .options_mut()
+        .execution
+        .enable_file_stream_work_stealing = false;
+    let df = SessionContext::new_with_state(state).table(source).await?;
+    let schema = df.schema().as_arrow().clone();
+    let parts = df.collect_partitioned().await?;
+    let mut fields: Vec<Field> = schema.fields().iter().map(|f| f.as_ref().clone()).collect();
+    fields.push(Field::new("__row", DataType::Int64, false));
+    let numbered = Arc::new(Schema::new(fields));
+    let mut row = 0i64;
+    let mut batches = Vec::new();
+    for batch in parts.into_iter().flatten() {
+        let n = batch.num_rows() as i64;
+        let mut columns: Vec<ArrayRef> = batch.columns().to_vec();
+        columns.push(Arc::new(Int64Array::from_iter_values(row..row + n)));
+        row += n;
+        batches.push(RecordBatch::try_new(numbered.clone(), columns)?);
+    }
+    let partitions = ctx.state().config().target_partitions().max(1);
+    let chunk = batches.len().div_ceil(partitions).max(1);
+    let mut split: Vec<Vec<RecordBatch>> = batches.chunks(chunk).map(|c| c.to_vec()).collect();
+    if split.is_empty() {
+        split.push(vec![]);
+    }
+    ctx.deregister_table(name)?;
+    ctx.register_table(name, Arc::new(MemTable::try_new(numbered, split)?))?;
+    Ok(())
+}
+
+fn posterior_at(batch: &RecordBatch, column: usize, row: usize) -> Result<Option<AnyPosterior>> {
+    PosteriorColumn::new("encode", batch.column(column))?
+        .get(row)
+        .map_err(|e| EncodeError::Query(format!("encode: {e}")))
+}
+
+/// Run the plan's statements and return the outputs.
+pub async fn run(ctx: &SessionContext, plan: &EncodePlan) -> Result<EncodeOutput> {
+    run_with_progress(ctx, plan, &mut |_| {}).await
+}
+
+/// [`run`], telling `progress` the name of each statement as it starts.
+pub async fn run_with_progress(
+    ctx: &SessionContext,
+    plan: &EncodePlan,
+    progress: &mut dyn FnMut(&str),
+) -> Result<EncodeOutput> {
+    number_rows(ctx, &plan.options.train, TRAIN).await?;
+    if let Some(score) = &plan.options.score {
+        number_rows(ctx, score, SCORE).await?;
+    }
+    let outputs = execute(ctx, plan.statements(), progress).await?;
+    finish(ctx, plan, outputs).await
+}
+
+/// Run `statements`; the results of output queries come back by name, unevaluated.
+pub(super) async fn execute(
+    ctx: &SessionContext,
+    statements: Vec<super::Statement>,
+    progress: &mut dyn FnMut(&str),
+) -> Result<BTreeMap<String, DataFrame>> {
+    let mut outputs = BTreeMap::new();
+    for statement in statements {
+        progress(&statement.name);
+        let df = ctx.sql(&statement.sql).await?;
+        match &statement.output {
+            None => {
+                df.collect().await?;
+            }
+            Some(name) => {
+                outputs.insert(name.clone(), df);
+            }
+        }
+    }
+    Ok(outputs)
+}
+
+/// The bundle and the summary from the finished tables, and the outputs.
+pub(super) async fn finish(
+    ctx: &SessionContext,
+    plan: &EncodePlan,
+    mut outputs: BTreeMap<String, DataFrame>,
+) -> Result<EncodeOutput> {
+    let mut columns = BTreeMap::new();
+    let mut summary = Vec::new();
+    let mut unseen = serde_json::Map::new();
+    for (i, key) in plan.keys.iter().enumerate() {
+        let prior_row = ctx
+            .sql(&format!("SELECT prior, report FROM __prior{i}"))
+            .await?
+            .collect()
+            .await?;
+        let prior_batch = prior_row
+            .iter()
+            .find(|b| b.num_rows() > 0)
+            .ok_or_else(|| EncodeError::Query(format!("encode: no prior for {}", key.name)))?;
+        let prior = posterior_at(prior_batch, 0, 0)?
+            .ok_or_else(|| EncodeError::Query(format!("encode: NULL prior for {}", key.name)))?;
+        let report: Option<Value> = {
+            let c = cast(prior_batch.column(1), &DataType::Utf8)?;
+            let c = c.as_string::<i32>();
+            (c.is_valid(0))
+                .then(|| serde_json::from_str(c.value(0)).ok())
+                .flatten()
+        };
+        let mut levels = BTreeMap::new();
+        let mut rows = 0.0;
+        for batch in ctx
+            .sql(&format!("SELECT level, p FROM __enc{i} ORDER BY level"))
+            .await?
+            .collect()
+            .await?
+        {
+            let names = cast(batch.column(0), &DataType::Utf8)?;
+            let names = names.as_string::<i32>();
+            for r in 0..batch.num_rows() {
+                if let Some(p) = posterior_at(&batch, 1, r)? {
+                    rows += p.evidence();
+                    levels.insert(names.value(r).to_string(), p);
+                }
+            }
+        }
+        let (strength, at_bound) = match &report {
+            Some(r) => (
+                r["strength"].as_f64().unwrap_or(f64::NAN),
+                r["at_bound"].as_bool().unwrap_or(false),
+            ),
+            None => (prior_strength(&prior), false),
+        };
+        let unseen_share = match outputs.get(&format!("unseen/{}", key.name)) {
+            Some(df) => {
+                let b = df.clone().collect().await?;
+                let v = |c: usize| b[0].column(c).as_primitive::<Int64Type>().value(0);
+                unseen.insert(
+                    key.name.clone(),
+                    json!({"rows": v(0), "rows_with_key": v(1), "unseen_rows": v(2), "unseen_levels": v(3)}),
+                );
+                Some(if v(0) > 0 {
+                    v(2) as f64 / v(0) as f64
+                } else {
+                    0.0
+                })
+            }
+            None => None,
+        };
+        let mut warnings = Vec::new();
+        if at_bound {
+            warnings.push(format!(
+                "the levels of {} show no spread beyond noise: the prior's strength hit its cap \
+                 and every level is pooled to the overall rate",
+                key.name
+            ));
+        }
+        if plan.fitted && (levels.len() as u64) < FEW_LEVELS {
+            warnings.push(format!(
+                "the prior of {} was fitted from only {} levels; consider --prior with numbers",
+                key.name,
+                levels.len()
+            ));
+        }
+        summary.push(ColumnSummary {
+            key: key.name.clone(),
+            family: plan.family.name().to_string(),
+            prior: crate::bundle::posterior_json(&prior),
+            prior_text: crate::render::describe(&prior),
+            strength,
+            at_bound,
+            levels: levels.len() as u64,
+            rows,
+            unseen_share,
+            warnings,
+        });
+        columns.insert(
+            key.name.clone(),
+            ColumnEncoding {
+                key_columns: key.columns.clone(),
+                prior,
+                levels,
+            },
+        );
+    }
+    let bundle = Bundle {
+        target: plan.options.target.clone(),
+        family: plan.family.name().to_string(),
+        readers: plan.options.readers.iter().map(|r| r.spec()).collect(),
+        columns,
+    };
+    let take = |outputs: &mut BTreeMap<String, DataFrame>, name: &str| {
+        outputs
+            .remove(name)
+            .ok_or_else(|| EncodeError::Query(format!("encode: no output {name}")))
+    };
+    let train_encoded = outputs.remove("train_encoded");
+    let scored = outputs.remove("scored");
+    let mut encodings = Vec::new();
+    for key in &plan.keys {
+        encodings.push((
+            key.name.clone(),
+            take(&mut outputs, &format!("encodings/{}", key.name))?,
+        ));
+    }
+    Ok(EncodeOutput {
+        train_encoded,
+        encodings,
+        scored,
+        unseen: plan.options.score.as_ref().map(|_| Value::Object(unseen)),
+        bundle,
+        summary,
+    })
+}
+
+/// A prior's weight in pseudo-observations.
+fn prior_strength(prior: &AnyPosterior) -> f64 {
+    match prior {
+        AnyPosterior::Beta(b) => b.prior.a0 + b.prior.b0,
+        AnyPosterior::Gamma(g) => g.prior.rate0,
+        AnyPosterior::Nig(n) => n.prior.kappa0,
+        AnyPosterior::Dirichlet(d) => d.prior.alpha0.iter().sum(),
+    }
+}
+
+/// The summary as a short table, one line per key.
+pub fn summary_table(summary: &[ColumnSummary]) -> String {
+    let mut out = format!(
+        "{:<24} {:<10} {:>9} {:>12} {:>10} {:>8}  prior\n",
+        "key", "family", "levels", "rows", "strength", "unseen"
+    );
+    for s in summary {
+        out.push_str(&format!(
+            "{:<24} {:<10} {:>9} {:>12} {:>10} {:>8}  {}{}\n",
+            s.key,
+            s.family,
+            s.levels,
+            crate::render::short(s.rows),
+            crate::render::short(s.strength),
+            s.unseen_share
+                .map(|u| format!("{:.1}%", 100.0 * u))
+                .unwrap_or_else(|| "-".into()),
+            s.prior_text.split(" from ").next().unwrap_or_default(),
+            if s.at_bound { " (at bound)" } else { "" }
+        ));
+    }
+    for s in summary {
+        for w in &s.warnings {
+            out.push_str(&format!("warning: {w}\n"));
+        }
+    }
+    out
+}
+
+/// The files of a previous run in an output directory: the only files `write` replaces.
+fn is_previous_run(dir: &Path) -> bool {
+    dir.join("bundle.json").is_file()
+}
+
+/// Write the outputs into `dir`: `train_encoded.parquet`, `encodings/<key>.parquet`,
+/// `bundle.json` (with the summary), and with a scoring table `scored.parquet` and
+/// `unseen_levels.json`. Everything is written into a new sibling directory first
+/// and swapped in at the end, so `dir` holds exactly this run's files or, on
+/// failure, what it held before. A `dir` that is neither empty nor a previous
+/// run's output is refused unless `replace` is set.
+pub async fn write(output: &EncodeOutput, dir: &Path, replace: bool) -> Result<()> {
+    let io = |what: &str, path: &Path, e: std::io::Error| {
+        EncodeError::Io(format!("cannot {what} {}: {e}", path.display()))
+    };
+    if dir.exists() {
+        if !dir.is_dir() {
+            return Err(EncodeError::Usage(format!(
+                "--out {} exists and is not a directory",
+                dir.display()
+            )));
+        }
+        let empty = std::fs::read_dir(dir)
+            .map_err(|e| io("read", dir, e))?
+            .next()
+            .is_none();
+        if !empty && !is_previous_run(dir) && !replace {
+            return Err(EncodeError::Usage(format!(
+                "--out {} holds files that are not an earlier encode's output; choose an empty \
+                 directory",
+                dir.display()
+            )));
+        }
+    }
+    let parent = match dir.parent() {
+        Some(p) if !p.as_os_str().is_empty() => p.to_path_buf(),
+        _ => PathBuf::from("."),
+    };
+    std::fs::create_dir_all(&parent).map_err(|e| io("create", &parent, e))?;
+    let name = dir
+        .file_name()
+        .map(|n| n.to_string_lossy().to_string())
+        .unwrap_or_else(|| "out".into());
+    let staging = parent.join(format!(".{name}.writing-{}", std::process::id()));
+    std::fs::remove_dir_all(&staging).ok();
+    let result = write_into(output, &staging).await;
+    if let Err(e) = result {
+        std::fs::remove_dir_all(&staging).ok();
+        return Err(e);
+    }
+    let old = parent.join(format!(".{name}.old-{}", std::process::id()));
+    if dir.exists() {
+        std::fs::rename(dir, &old).map_err(|e| io("move aside", dir, e))?;
+    }
+    if let Err(e) = std::fs::rename(&staging, dir) {
+        std::fs::rename(&old, dir).ok();
+        return Err(io("move into place", dir, e));
+    }
+    std::fs::remove_dir_all(&old).ok();
+    Ok(())
+}
+
+async fn write_parquet(df: &DataFrame, path: &Path) -> Result<()> {
+    df.clone()
+        .write_parquet(
+            &path.display().to_string(),
+            DataFrameWriteOptions::new().with_single_file_output(true),
+            None,
+        )
+        .await?;
+    Ok(())
+}
+
+async fn write_into(output: &EncodeOutput, dir: &Path) -> Result<()> {
+    let io = |path: &Path, e: std::io::Error| {
+        EncodeError::Io(format!("cannot write {}: {e}", path.display()))
+    };
+    std::fs::create_dir_all(dir.join("encodings")).map_err(|e| io(dir, e))?;
+    for (key, df) in &output.encodings {
+        write_parquet(df, &dir.join("encodings").join(format!("{key}.parquet"))).await?;
+    }
+    if let Some(train) = &output.train_encoded {
+        write_parquet(train, &dir.join("train_encoded.parquet")).await?;
+    }
+    if let Some(scored) = &output.scored {
+        write_parquet(scored, &dir.join("scored.parquet")).await?;
+    }
+    if let Some(unseen) = &output.unseen {
+        let path = dir.join("unseen_levels.json");
+        std::fs::write(
+            &path,
+            serde_json::to_string_pretty(unseen).unwrap_or_default(),
+        )
+        .map_err(|e| io(&path, e))?;
+    }
+    let path = dir.join("bundle.json");
+    std::fs::write(&path, output.bundle.to_json()).map_err(|e| io(&path, e))?;
+    let path = dir.join("summary.json");
+    let summary: Vec<Value> = output
+        .summary
+        .iter()
+        .map(|s| {
+            json!({
+                "key": s.key, "family": s.family, "prior": s.prior, "strength": s.strength,
+                "at_bound": s.at_bound, "levels": s.levels, "rows": s.rows,
+                "unseen_share": s.unseen_share, "warnings": s.warnings,
+            })
+        })
+        .collect();
+    std::fs::write(
+        &path,
+        serde_json::to_string_pretty(&summary).unwrap_or_default(),
+    )
+    .map_err(|e| io(&path, e))?;
+    Ok(())
+}

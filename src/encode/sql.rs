@@ -1,0 +1,356 @@
+//! The statements of a plan, as data. Every identifier is quoted and every text
+//! literal escaped where it is built; nothing from the data passes through a
+//! template, so a class, level or column named `{y}`, `a"b` or `naïve café` is
+//! only ever data.
+//!
+//! Readers run once per distinct posterior — per level, per (level, fold), per
+//! (level, time) — and are joined to the rows; only leave-one-out and file-order
+//! as-of encodings have a posterior per row.
+
+use super::options::{Family, Method, TimeTies};
+use super::resolve::{EncodePlan, KeyPlan};
+use super::{quote, text};
+
+/// The numbered training rows (`__row` in table order), registered by `run`.
+pub(crate) const TRAIN: &str = "__encode_train_rows";
+/// The numbered scoring rows.
+pub(crate) const SCORE: &str = "__encode_score_rows";
+
+/// One statement: what it is for, its SQL, and for a result the output it makes.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Statement {
+    pub name: String,
+    pub sql: String,
+    /// `Some(name)` for a query whose result is an output (`train_encoded`,
+    /// `encodings/<key>`, `scored`); `None` for a table the later statements use.
+    pub output: Option<String>,
+}
+
+fn stage(name: impl Into<String>, table: &str, query: String) -> Statement {
+    Statement {
+        name: name.into(),
+        sql: format!("CREATE OR REPLACE TABLE {table} AS {query}"),
+        output: None,
+    }
+}
+
+fn output(name: impl Into<String>, query: String) -> Statement {
+    let name = name.into();
+    Statement {
+        name: name.clone(),
+        sql: query,
+        output: Some(name),
+    }
+}
+
+impl EncodePlan {
+    /// The fit of the target over table alias `t` for `key` (its own prior when it
+    /// has one, else the base prior; re-priored later when the prior is fitted).
+    fn fit(&self, key: &KeyPlan) -> String {
+        let y = format!("t.{}", quote(&self.options.target));
+        let prior = key.prior.as_ref().unwrap_or(&self.base_prior);
+        match self.family {
+            Family::Beta => format!("beta_posterior({y}, {prior})"),
+            Family::Nig => format!("nig_posterior({y}, {prior})"),
+            Family::Gamma => match &self.options.exposure {
+                Some(x) => format!("gamma_posterior({y}, t.{}, {prior})", quote(x)),
+                None => format!("gamma_posterior({y}, 1.0, {prior})"),
+            },
+            Family::Dirichlet => format!("dirichlet_posterior(CAST({y} AS VARCHAR), {prior})"),
+        }
+    }
+
+    /// Posterior expression `p` under the column's prior `q.prior`.
+    fn repriored(&self, p: &str) -> String {
+        if self.fitted {
+            format!("posterior_with_prior({p}, q.prior)")
+        } else {
+            p.to_string()
+        }
+    }
+
+    /// `reader(p) AS "name", ...` for every reader column of `key` (draws excluded).
+    fn readers(&self, key: &KeyPlan, p: &str) -> Vec<String> {
+        self.reader_columns(key)
+            .into_iter()
+            .filter(|(_, r, _)| *r != usize::MAX)
+            .map(|(name, r, class)| {
+                format!(
+                    "{} AS {}",
+                    self.options.readers[r].sql(p, class.as_deref()),
+                    quote(&name)
+                )
+            })
+            .collect()
+    }
+
+    /// Final columns of `key`: each reader from `source` (alias), falling back to the
+    /// prior's reader in `fallback`; draws from the posterior column `p`.
+    fn final_columns(&self, key: &KeyPlan, source: &str, fallback: &str) -> Vec<String> {
+        self.reader_columns(key)
+            .into_iter()
+            .map(|(name, r, class)| {
+                let value = if r == usize::MAX {
+                    let class = class.map(|c| format!(", {}", text(&c))).unwrap_or_default();
+                    format!(
+                        "posterior_draw(COALESCE({source}.p, {fallback}.prior){class}, fold_of(t.__row, 9223372036854775807, {}))",
+                        self.options.draws.unwrap_or_default()
+                    )
+                } else {
+                    format!("COALESCE({source}.{q}, {fallback}.{q})", q = quote(&name))
+                };
+                format!("{value} AS {}", quote(&name))
+            })
+            .collect()
+    }
+
+    /// `key AS __k0, ...` over table alias `t`.
+    fn key_columns(&self) -> String {
+        self.keys
+            .iter()
+            .enumerate()
+            .map(|(i, k)| format!("{} AS __k{i}", k.sql()))
+            .collect::<Vec<_>>()
+            .join(", ")
+    }
+
+    fn keys_stage(&self) -> Statement {
+        stage(
+            "keys and folds",
+            "__keyed",
+            format!(
+                "SELECT t.*, {}, fold_of(t.__row, {}, {}) AS __fold FROM {TRAIN} t",
+                self.key_columns(),
+                self.options.folds,
+                self.options.seed
+            ),
+        )
+    }
+
+    /// The prior table, the encoding table with readers, the prior's readers and the
+    /// encodings output of key `i`, from its per-level fits in `__fit{i}`.
+    fn serving_statements(&self, i: usize, key: &KeyPlan) -> Vec<Statement> {
+        let k = &key.name;
+        let (fits, prior, enc) = (
+            format!("__fit{i}"),
+            format!("__prior{i}"),
+            format!("__enc{i}"),
+        );
+        let mut encoding_columns = vec![format!("level AS {}", quote(k)), "p".to_string()];
+        encoding_columns.extend(
+            self.reader_columns(key)
+                .into_iter()
+                .filter(|(_, r, _)| *r != usize::MAX)
+                .map(|(name, _, _)| quote(&name)),
+        );
+        vec![
+            stage(
+                format!("prior {k}"),
+                &prior,
+                if self.fitted {
+                    format!("SELECT fit_prior(p) AS prior, fit_prior_report(p) AS report FROM {fits}")
+                } else {
+                    format!(
+                        "SELECT {} AS prior, CAST(NULL AS VARCHAR) AS report",
+                        key.prior.as_ref().unwrap_or(&self.base_prior)
+                    )
+                },
+            ),
+            stage(
+                format!("encodings {k}"),
+                &enc,
+                format!(
+                    "SELECT level, p, {} FROM (SELECT f.level, {} AS p FROM {fits} f CROSS JOIN {prior} q)",
+                    self.readers(key, "p").join(", "),
+                    self.repriored("f.p")
+                ),
+            ),
+            stage(
+                format!("prior readers {k}"),
+                &format!("__priorread{i}"),
+                format!("SELECT prior, {} FROM {prior}", self.readers(key, "prior").join(", ")),
+            ),
+            output(
+                format!("encodings/{k}"),
+                format!("SELECT {} FROM {enc} ORDER BY level", encoding_columns.join(", ")),
+            ),
+        ]
+    }
+
+    /// The statements of a refresh: stored posteriors (registered as `__stored{i}`,
+    /// already decayed) pooled with fits of the new rows under the stored priors.
+    pub(crate) fn update_statements(&self) -> Vec<Statement> {
+        let mut out = vec![self.keys_stage()];
+        for (i, key) in self.keys.iter().enumerate() {
+            out.push(stage(
+                format!("pool {}", key.name),
+                &format!("__fit{i}"),
+                format!(
+                    "SELECT level, posterior_pool(p) AS p FROM (SELECT level, p FROM __stored{i} \
+                     UNION ALL SELECT __k{i} AS level, {} AS p FROM __keyed t WHERE __k{i} IS NOT NULL GROUP BY __k{i}) \
+                     GROUP BY level",
+                    self.fit(key)
+                ),
+            ));
+            out.extend(self.serving_statements(i, key));
+        }
+        if self.options.score.is_some() {
+            out.extend(self.scoring_statements());
+        }
+        out
+    }
+
+    /// Every statement, in order.
+    pub fn statements(&self) -> Vec<Statement> {
+        let o = &self.options;
+        let mut out = vec![self.keys_stage()];
+        let mut joins = Vec::new();
+        let mut selects: Vec<String> = self
+            .train_columns
+            .iter()
+            .map(|c| format!("t.{}", quote(c)))
+            .collect();
+        for (i, key) in self.keys.iter().enumerate() {
+            let k = &key.name;
+            let fit = self.fit(key);
+            let (prior, enc) = (format!("__prior{i}"), format!("__enc{i}"));
+            out.push(stage(
+                format!("fit {k}"),
+                &format!("__fit{i}"),
+                format!("SELECT __k{i} AS level, {fit} AS p FROM __keyed t WHERE __k{i} IS NOT NULL GROUP BY __k{i}"),
+            ));
+            let serving = self.serving_statements(i, key);
+            let (stages, encodings) = serving.split_at(serving.len() - 1);
+            out.extend_from_slice(stages);
+            let train = format!("__train{i}");
+            let (name, query, on) = match (self.method, o.time_ties) {
+                (Method::Kfold, _) => {
+                    out.push(stage(
+                        format!("fold fits {k}"),
+                        &format!("__foldfit{i}"),
+                        format!("SELECT __k{i} AS level, __fold, {fit} AS p FROM __keyed t WHERE __k{i} IS NOT NULL GROUP BY __k{i}, __fold"),
+                    ));
+                    (
+                        "out-of-fold",
+                        format!(
+                            "SELECT level, __fold, p, {} FROM (SELECT g.level, g.__fold, posterior_subtract(e.p, {}) AS p \
+                             FROM __foldfit{i} g JOIN {enc} e ON e.level = g.level CROSS JOIN {prior} q)",
+                            self.readers(key, "p").join(", "),
+                            self.repriored("g.p")
+                        ),
+                        format!("x{i}.level = t.__k{i} AND x{i}.__fold = t.__fold"),
+                    )
+                }
+                (Method::Time, TimeTies::Strict) => {
+                    let time = quote(o.time_column.as_deref().unwrap_or_default());
+                    (
+                        "as-of",
+                        format!(
+                            "SELECT level, __time, p, {} FROM (SELECT level, __time, COALESCE({}, q.prior) AS p FROM \
+                             (SELECT level, __time, posterior_pool(p) OVER (PARTITION BY level ORDER BY __time ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING) AS p \
+                             FROM (SELECT __k{i} AS level, t.{time} AS __time, {fit} AS p FROM __keyed t WHERE __k{i} IS NOT NULL AND t.{time} IS NOT NULL GROUP BY __k{i}, t.{time})) \
+                             CROSS JOIN {prior} q)",
+                            self.readers(key, "p").join(", "),
+                            self.repriored("p")
+                        ),
+                        format!("x{i}.level = t.__k{i} AND x{i}.__time = t.{time}"),
+                    )
+                }
+                (Method::Time, TimeTies::FileOrder) => {
+                    let time = quote(o.time_column.as_deref().unwrap_or_default());
+                    let window = format!(
+                        "{fit} OVER (PARTITION BY __k{i} ORDER BY t.{time}, t.__row ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)"
+                    );
+                    (
+                        "as-of in file order",
+                        format!(
+                            "SELECT __row, p, {} FROM (SELECT t.__row, {} AS p FROM __keyed t CROSS JOIN {prior} q WHERE t.__k{i} IS NOT NULL)",
+                            self.readers(key, "p").join(", "),
+                            self.repriored(&window)
+                        ),
+                        format!("x{i}.__row = t.__row"),
+                    )
+                }
+                (Method::Loo, _) => {
+                    let y = format!("t.{}", quote(&o.target));
+                    let (removed, unusable) = match (self.family, &o.exposure) {
+                        (Family::Gamma, Some(x)) => (
+                            format!("posterior_without(e.p, {y}, t.{})", quote(x)),
+                            format!("{y} IS NULL OR t.{} IS NULL", quote(x)),
+                        ),
+                        _ => (
+                            format!("posterior_without(e.p, {y})"),
+                            format!("{y} IS NULL"),
+                        ),
+                    };
+                    (
+                        "leave-one-out",
+                        format!(
+                            "SELECT __row, p, {} FROM (SELECT t.__row, CASE WHEN {unusable} THEN e.p ELSE {removed} END AS p \
+                             FROM __keyed t JOIN {enc} e ON e.level = t.__k{i})",
+                            self.readers(key, "p").join(", ")
+                        ),
+                        format!("x{i}.__row = t.__row"),
+                    )
+                }
+            };
+            out.push(stage(format!("{name} {k}"), &train, query));
+            joins.push(format!(
+                "LEFT JOIN {train} x{i} ON {on} CROSS JOIN __priorread{i} r{i}"
+            ));
+            selects.extend(self.final_columns(key, &format!("x{i}"), &format!("r{i}")));
+            out.extend_from_slice(encodings);
+        }
+        out.push(output(
+            "train_encoded",
+            format!(
+                "SELECT {} FROM __keyed t {} ORDER BY t.__row",
+                selects.join(", "),
+                joins.join(" ")
+            ),
+        ));
+        if o.score.is_some() {
+            out.extend(self.scoring_statements());
+        }
+        out
+    }
+
+    /// Scoring with the full-data encodings; unseen levels and NULL keys get the prior.
+    fn scoring_statements(&self) -> Vec<Statement> {
+        let mut out = vec![stage(
+            "scoring keys",
+            "__scorekeyed",
+            format!("SELECT t.*, {} FROM {SCORE} t", self.key_columns()),
+        )];
+        let mut selects: Vec<String> = self
+            .score_columns
+            .iter()
+            .map(|c| format!("t.{}", quote(c)))
+            .collect();
+        let mut joins = Vec::new();
+        for (i, key) in self.keys.iter().enumerate() {
+            joins.push(format!(
+                "LEFT JOIN __enc{i} e{i} ON e{i}.level = t.__k{i} CROSS JOIN __priorread{i} r{i}"
+            ));
+            selects.extend(self.final_columns(key, &format!("e{i}"), &format!("r{i}")));
+            out.push(output(
+                format!("unseen/{}", key.name),
+                format!(
+                    "SELECT COUNT(*) AS rows, COUNT(t.__k{i}) AS rows_with_key, \
+                     COUNT(t.__k{i}) FILTER (WHERE e.level IS NULL) AS unseen_rows, \
+                     COUNT(DISTINCT t.__k{i}) FILTER (WHERE e.level IS NULL) AS unseen_levels \
+                     FROM __scorekeyed t LEFT JOIN __enc{i} e ON e.level = t.__k{i}"
+                ),
+            ));
+        }
+        out.push(output(
+            "scored",
+            format!(
+                "SELECT {} FROM __scorekeyed t {} ORDER BY t.__row",
+                selects.join(", "),
+                joins.join(" ")
+            ),
+        ));
+        out
+    }
+}

@@ -1,0 +1,207 @@
+//! Refresh without refit: a previous run's posteriors pooled with new rows under
+//! the stored priors. Because a conjugate posterior is its prior plus additive
+//! statistics, the result equals a fit on old and new rows together under the same
+//! priors (exactly for integer evidence).
+
+use std::sync::Arc;
+
+use datafusion::arrow::array::{ArrayRef, RecordBatch, StringArray};
+use datafusion::arrow::datatypes::{DataType, Field, Schema};
+use datafusion::datasource::MemTable;
+use datafusion::prelude::SessionContext;
+
+use super::options::{EncodeOptions, Family, Method, PriorChoice, Reader, TimeTies};
+use super::resolve::{check_output_names, columns_of, require_columns, EncodePlan, KeyPlan};
+use super::run::{execute, finish, number_rows, EncodeOutput};
+use super::sql::{SCORE, TRAIN};
+use super::{text, usage, EncodeError, Result};
+use crate::bundle::Bundle;
+use crate::layout::{build, AnyPosterior};
+
+/// What a refresh needs.
+#[derive(Debug, Clone)]
+pub struct UpdateOptions {
+    /// The previous run's bundle (its priors, levels and readers).
+    pub previous: Bundle,
+    /// A table registered on the session: the new rows.
+    pub train: String,
+    /// Exposure column of a Gamma target (the bundle does not record it).
+    pub exposure: Option<String>,
+    /// Multiply the stored evidence by this factor in (0, 1] first: 0.5 after one
+    /// half-life of age.
+    pub decay: Option<f64>,
+    /// A table registered on the session to score with the refreshed encodings.
+    pub score: Option<String>,
+}
+
+/// The constant SQL of a prior, with every parameter written so that it reads
+/// back as the same f64 (Rust prints the shortest text that round-trips).
+pub fn prior_sql(p: &AnyPosterior) -> String {
+    match p {
+        AnyPosterior::Beta(b) => format!("beta_prior({}, {})", b.prior.a0, b.prior.b0),
+        AnyPosterior::Gamma(g) => format!("gamma_prior({}, {})", g.prior.shape0, g.prior.rate0),
+        AnyPosterior::Nig(n) => format!(
+            "nig_prior({}, {}, {}, {})",
+            n.prior.mu0, n.prior.kappa0, n.prior.alpha0, n.prior.beta0
+        ),
+        AnyPosterior::Dirichlet(d) => format!(
+            "dirichlet_prior([{}], [{}])",
+            d.prior
+                .classes
+                .iter()
+                .map(|c| text(c))
+                .collect::<Vec<_>>()
+                .join(", "),
+            d.prior
+                .alpha0
+                .iter()
+                .map(|a| format!("{a}"))
+                .collect::<Vec<_>>()
+                .join(", ")
+        ),
+    }
+}
+
+fn family_of(name: &str) -> Result<Family> {
+    Ok(match name.to_ascii_lowercase().as_str() {
+        "beta" => Family::Beta,
+        "gamma" => Family::Gamma,
+        "nig" => Family::Nig,
+        "dirichlet" => Family::Dirichlet,
+        other => {
+            return usage(format!(
+                "--update: the bundle's family '{other}' is not known"
+            ))
+        }
+    })
+}
+
+/// Pool the previous run's posteriors with the new rows and return the refreshed
+/// encodings, bundle and (with a scoring table) scored rows.
+pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<EncodeOutput> {
+    let previous = &options.previous;
+    let family = family_of(&previous.family)?;
+    if let Some(d) = options.decay {
+        if !(d > 0.0 && d <= 1.0) {
+            return usage(format!(
+                "--decay {d} is out of range; allowed: a factor in (0, 1]"
+            ));
+        }
+    }
+    if options.exposure.is_some() && family != Family::Gamma {
+        return usage("--exposure is for count targets (the gamma family)");
+    }
+    let readers = previous
+        .readers
+        .iter()
+        .map(|r| Reader::parse(r))
+        .collect::<Result<Vec<_>>>()?;
+    let mut keys = Vec::new();
+    let mut stored = Vec::new();
+    for (name, column) in &previous.columns {
+        if column.key_columns.is_empty() {
+            return usage(format!(
+                "--update: the bundle does not say which columns make key '{name}' (a version 1 \
+                 bundle); run encode once more to write a version 2 bundle"
+            ));
+        }
+        keys.push(KeyPlan {
+            name: name.clone(),
+            columns: column.key_columns.clone(),
+            prior: Some(prior_sql(&column.prior)),
+        });
+        stored.push(column);
+    }
+    let first_prior = &stored
+        .first()
+        .ok_or_else(|| EncodeError::Usage("--update: the bundle encodes no columns".into()))?
+        .prior;
+    let classes = match first_prior {
+        AnyPosterior::Dirichlet(d) => d.prior.classes.clone(),
+        _ => Vec::new(),
+    };
+    let train = columns_of(ctx, &options.train).await?;
+    require_columns(
+        "table of new rows",
+        &train,
+        keys.iter()
+            .flat_map(|k| k.columns.iter().map(|c| (c, "key column".to_string())))
+            .chain(std::iter::once((
+                &previous.target,
+                "the bundle's target".to_string(),
+            )))
+            .chain(
+                options
+                    .exposure
+                    .iter()
+                    .map(|c| (c, "--exposure".to_string())),
+            ),
+    )?;
+    let score_columns = match &options.score {
+        Some(score) => {
+            let columns = columns_of(ctx, score).await?;
+            require_columns(
+                "scoring table",
+                &columns,
+                keys.iter()
+                    .flat_map(|k| k.columns.iter().map(|c| (c, "key column".to_string()))),
+            )?;
+            columns.into_iter().map(|(n, _)| n).collect()
+        }
+        None => Vec::new(),
+    };
+    let mut encode_options = EncodeOptions::new(&options.train, &previous.target, &[]);
+    encode_options.readers = readers;
+    encode_options.exposure = options.exposure.clone();
+    encode_options.score = options.score.clone();
+    encode_options.prior = PriorChoice::Numbers(Vec::new());
+    encode_options.time_ties = TimeTies::Strict;
+    let plan = EncodePlan {
+        options: encode_options,
+        family,
+        method: Method::Kfold,
+        classes,
+        base_prior: prior_sql(first_prior),
+        fitted: false,
+        keys,
+        train_columns: train.into_iter().map(|(n, _)| n).collect(),
+        score_columns,
+    };
+    check_output_names(&plan)?;
+
+    for (i, column) in stored.iter().enumerate() {
+        let mut levels = Vec::with_capacity(column.levels.len());
+        let mut posteriors = Vec::with_capacity(column.levels.len());
+        for (level, p) in &column.levels {
+            let p = match options.decay {
+                Some(d) => p
+                    .scale(d)
+                    .map_err(|e| EncodeError::Usage(format!("--decay: {e}")))?,
+                None => p.clone(),
+            };
+            levels.push(level.as_str());
+            posteriors.push(Some(p));
+        }
+        let p = build(column.prior.kind(), &posteriors)?;
+        let schema = Arc::new(Schema::new(vec![
+            Field::new("level", DataType::Utf8, false),
+            Field::new("p", p.data_type().clone(), true),
+        ]));
+        let batch = RecordBatch::try_new(
+            schema.clone(),
+            vec![Arc::new(StringArray::from(levels)) as ArrayRef, p],
+        )?;
+        let name = format!("__stored{i}");
+        ctx.deregister_table(&name)?;
+        ctx.register_table(
+            &name,
+            Arc::new(MemTable::try_new(schema, vec![vec![batch]])?),
+        )?;
+    }
+    number_rows(ctx, &options.train, TRAIN).await?;
+    if let Some(score) = &options.score {
+        number_rows(ctx, score, SCORE).await?;
+    }
+    let outputs = execute(ctx, plan.update_statements(), &mut |_| {}).await?;
+    finish(ctx, &plan, outputs).await
+}

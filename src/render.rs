@@ -1,0 +1,65 @@
+//! Readable text for numbers and posteriors (tables, summaries); CSV, JSON and
+//! Parquet keep full values.
+
+/// Six significant digits, trailing zeros dropped.
+pub fn short(v: f64) -> String {
+    if v == 0.0 || !v.is_finite() {
+        return format!("{v}");
+    }
+    let magnitude = v.abs().log10().floor() as i32;
+    if !(-4..15).contains(&magnitude) {
+        return format!("{v:.5e}");
+    }
+    let decimals = (5 - magnitude).max(0) as usize;
+    let text = format!("{v:.decimals$}");
+    if text.contains('.') {
+        text.trim_end_matches('0').trim_end_matches('.').to_string()
+    } else {
+        text
+    }
+}
+
+pub fn describe(p: &crate::layout::AnyPosterior) -> String {
+    use crate::layout::AnyPosterior;
+    match p {
+        AnyPosterior::Beta(b) => {
+            let (a, bb) = b.params();
+            format!(
+                "Beta({}, {}) from {} trials",
+                short(a),
+                short(bb),
+                short(b.trials)
+            )
+        }
+        AnyPosterior::Gamma(g) => {
+            let (k, r) = g.params();
+            format!(
+                "Gamma({}, {}) from {} events",
+                short(k),
+                short(r),
+                short(g.events)
+            )
+        }
+        AnyPosterior::Nig(n) => {
+            let q = n.params();
+            format!(
+                "NIG(mu {}, kappa {}, alpha {}, beta {}) from {} values",
+                short(q.mu),
+                short(q.kappa),
+                short(q.alpha),
+                short(q.beta),
+                short(n.stats.n)
+            )
+        }
+        AnyPosterior::Dirichlet(d) => {
+            let parts: Vec<String> = d
+                .prior
+                .classes
+                .iter()
+                .zip(d.params())
+                .map(|(c, a)| format!("{c} {}", short(a)))
+                .collect();
+            format!("Dirichlet({})", parts.join(", "))
+        }
+    }
+}
