@@ -125,6 +125,18 @@ pub fn posterior_from_json(v: &Value) -> Result<AnyPosterior, FamilyError> {
             num("exposure")?,
         )?));
     }
+    if v.get("a0").is_none() || v.get("successes").is_none() {
+        let fields: Vec<&str> = v
+            .as_object()
+            .map(|o| o.keys().map(String::as_str).collect())
+            .unwrap_or_default();
+        return Err(FamilyError::UnknownShape(format!(
+            "serving bundle: {{{}}} is not a posterior of any family (Beta has a0, b0, \
+             successes, trials; Gamma shape0, rate0, events, exposure; NIG mu0, kappa0, alpha0, \
+             beta0, n, mean, m2; Dirichlet classes, a0, counts)",
+            fields.join(", ")
+        )));
+    }
     Ok(AnyPosterior::Beta(BetaPosterior::from_parts(
         num("a0")?,
         num("b0")?,

@@ -326,6 +326,39 @@ async fn decay_and_folds() {
     .await;
     assert!(b[0].column(0).as_boolean().value(0));
     assert!(b[0].column(1).as_boolean().value(0));
+    // Pinned values: folds must not move between versions, or training encodings
+    // written before an upgrade would no longer be reproducible.
+    let pinned = query(
+        &c,
+        "SELECT fold_of('beagle', 5), fold_of('beagle', 5, 1), fold_of(123, 5), fold_of(0, 10, 7), fold_of('naïve café', 3)",
+    )
+    .await;
+    let got: Vec<i64> = (0..5)
+        .map(|i| {
+            let col = datafusion::arrow::compute::cast(
+                pinned[0].column(i),
+                &datafusion::arrow::datatypes::DataType::Int64,
+            )
+            .unwrap();
+            col.as_primitive::<datafusion::arrow::datatypes::Int64Type>().value(0)
+        })
+        .collect();
+    assert_eq!(got, [3, 0, 0, 9, 2]);
+}
+
+// A bundle entry of no known shape is an error, not a Beta posterior.
+#[test]
+fn unknown_bundle_shapes_are_refused() {
+    let e = posterity::bundle::posterior_from_json(&serde_json::json!({"alpha": 1.0, "beta": 2.0}))
+        .unwrap_err();
+    assert!(e.to_string().contains("{alpha, beta} is not a posterior of any family"), "{e}");
+}
+
+#[tokio::test]
+async fn an_empty_prior_fit_says_so() {
+    let c = ctx().await;
+    let e = error(&c, "SELECT fit_prior(p) FROM (SELECT beta_posterior(no_show) AS p FROM appts WHERE false GROUP BY breed)").await;
+    assert!(e.contains("fit_prior") && e.contains("no level has any evidence"), "{e}");
 }
 
 #[tokio::test]

@@ -49,9 +49,7 @@ pub struct FitReport {
 }
 
 fn no_levels() -> FamilyError {
-    FamilyError::InsufficientEvidence(
-        "fit_prior needs at least one level with evidence".to_string(),
-    )
+    FamilyError::NoLevels
 }
 
 /// Value, gradient and Hessian of an objective in (x, y).

@@ -44,6 +44,10 @@ pub enum FamilyError {
     InsufficientEvidence(String),
     /// A Dirichlet class list that is empty, has duplicates or lacks a class.
     InvalidClasses(String),
+    /// An empirical-Bayes prior fit saw no level with evidence.
+    NoLevels,
+    /// A stored value (bundle, file) that is not a posterior of any family.
+    UnknownShape(String),
 }
 
 impl fmt::Display for FamilyError {
@@ -79,6 +83,12 @@ impl fmt::Display for FamilyError {
                 )
             }
             FamilyError::InvalidClasses(detail) => write!(f, "{detail}"),
+            FamilyError::NoLevels => write!(
+                f,
+                "no level has any evidence to fit a prior from (an empty or all-NULL input); \
+                 choose a prior such as beta_prior(0.5, 0.5) instead"
+            ),
+            FamilyError::UnknownShape(detail) => write!(f, "{detail}"),
         }
     }
 }
