@@ -95,7 +95,7 @@ fn cases() -> Vec<(String, Vec<&'static str>)> {
         ("SELECT decay_weight(-1, 10)".into(), vec!["decay_weight", "age = -1", ">= 0"]),
         ("SELECT decay_weight(1, 0)".into(), vec!["decay_weight", "half_life = 0", "> 0"]),
         ("SELECT decay_weight('NaN'::double, 1)".into(), vec!["decay_weight", "age = NaN"]),
-        ("SELECT fit_prior(p) FROM (VALUES (beta_prior(1, 1))) t(p)".into(), vec!["fit_prior", "at least one level with evidence"]),
+        ("SELECT fit_prior(p) FROM (VALUES (beta_prior(1, 1))) t(p)".into(), vec!["fit_prior", "no level has any evidence"]),
         ("SELECT fit_prior(p) FROM (SELECT dirichlet_posterior('a', dirichlet_prior(['a', 'b'], 1)) AS p UNION ALL SELECT dirichlet_posterior('a', dirichlet_prior(['a', 'c'], 1)))".into(), vec!["fit_prior", "different class lists"]),
         ("SELECT fit_prior(1.0)".into(), vec!["fit_prior", "expected a posterior struct"]),
         ("SELECT beta_posterior(y, p) FROM (VALUES (1)) t(y), (SELECT beta_prior(1, 1) AS p)".into(), vec!["beta_posterior", "must be a constant", "posterior_with_prior"]),
