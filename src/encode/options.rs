@@ -22,13 +22,13 @@ impl Family {
     }
 }
 
-/// How training rows are kept from seeing their own target.
+/// How training rows are kept from seeing their own target. (Leave-one-out is not
+/// offered: within a level its values reveal each row's own target to tree learners;
+/// see `benches/modeling/leakage.py`.)
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Method {
     /// K-fold out-of-fold: a row's encoding uses the other folds only.
     Kfold,
-    /// Leave-one-out: a row's encoding uses every other row.
-    Loo,
     /// Time order: a row's encoding uses earlier rows only.
     Time,
 }
@@ -37,7 +37,6 @@ impl Method {
     pub fn name(self) -> &'static str {
         match self {
             Method::Kfold => "kfold",
-            Method::Loo => "loo",
             Method::Time => "time",
         }
     }
@@ -185,13 +184,29 @@ impl Reader {
             .unwrap_or_default();
         match self {
             Reader::Mean => format!("posterior_mean({p}{class})"),
-            Reader::Sd => format!("posterior_sd({p}{class})"),
-            Reader::Var => format!("posterior_var({p}{class})"),
+            // Features are always finite: where the variance is infinite (a NIG
+            // posterior with alpha_n <= 1), the spread is half the central 68.27 %
+            // interval, which is the sd of a normal distribution.
+            Reader::Sd => format!(
+                "COALESCE(posterior_sd({p}{class}), {})",
+                half_width(p, &class)
+            ),
+            Reader::Var => format!(
+                "COALESCE(posterior_var({p}{class}), power({}, 2))",
+                half_width(p, &class)
+            ),
             Reader::Evidence => format!("posterior_evidence({p})"),
             Reader::Quantile(q) => format!("posterior_quantile({p}{class}, {q})"),
             Reader::Above(t) => format!("posterior_prob_above({p}{class}, {t})"),
         }
     }
+}
+
+/// Half the central 68.27 % interval of `p` (one normal sd either side).
+fn half_width(p: &str, class: &str) -> String {
+    format!(
+        "(posterior_quantile({p}{class}, 0.8413447460685429) - posterior_quantile({p}{class}, 0.15865525393145707)) / 2"
+    )
 }
 
 /// `5` for 0.05, `97.5` for 0.975: the percent as written, with two digits below 10.
@@ -258,7 +273,7 @@ impl EncodeOptions {
     pub fn method(&self) -> Result<Method> {
         match (self.method, &self.time_column) {
             (Some(Method::Time), None) => usage("--method time needs --time-column"),
-            (Some(m @ (Method::Kfold | Method::Loo)), Some(t)) => usage(format!(
+            (Some(m @ Method::Kfold), Some(t)) => usage(format!(
                 "--time-column '{t}' is only used by --method time, not --method {}",
                 m.name()
             )),

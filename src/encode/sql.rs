@@ -271,28 +271,6 @@ impl EncodePlan {
                         format!("x{i}.__row = t.__row"),
                     )
                 }
-                (Method::Loo, _) => {
-                    let y = format!("t.{}", quote(&o.target));
-                    let (removed, unusable) = match (self.family, &o.exposure) {
-                        (Family::Gamma, Some(x)) => (
-                            format!("posterior_without(e.p, {y}, t.{})", quote(x)),
-                            format!("{y} IS NULL OR t.{} IS NULL", quote(x)),
-                        ),
-                        _ => (
-                            format!("posterior_without(e.p, {y})"),
-                            format!("{y} IS NULL"),
-                        ),
-                    };
-                    (
-                        "leave-one-out",
-                        format!(
-                            "SELECT __row, p, {} FROM (SELECT t.__row, CASE WHEN {unusable} THEN e.p ELSE {removed} END AS p \
-                             FROM __keyed t JOIN {enc} e ON e.level = t.__k{i})",
-                            self.readers(key, "p").join(", ")
-                        ),
-                        format!("x{i}.__row = t.__row"),
-                    )
-                }
             };
             out.push(stage(format!("{name} {k}"), &train, query));
             joins.push(format!(

@@ -21,7 +21,7 @@ impl Draws for SplitMix {
 // (tests/reference/generate_betabinom.py; its output in betabinom_fit.csv).
 #[test]
 fn beta_binomial_fit_matches_scipy() {
-    let levels: Vec<(f64, f64)> = include_str!("reference/betabinom_levels.csv")
+    let levels: Vec<(f64, f64)> = include_str!("../reference/betabinom_levels.csv")
         .lines()
         .skip(1)
         .map(|l| {
@@ -29,7 +29,7 @@ fn beta_binomial_fit_matches_scipy() {
             (s.parse().unwrap(), n.parse().unwrap())
         })
         .collect();
-    let fit = include_str!("reference/betabinom_fit.csv")
+    let fit = include_str!("../reference/betabinom_fit.csv")
         .lines()
         .nth(2)
         .unwrap()
@@ -231,7 +231,7 @@ fn nig_recovers_the_hierarchy() {
 async fn fit_prior_from_sql() {
     let ctx = datafusion::prelude::SessionContext::new();
     posterity::register(&ctx);
-    let rows: Vec<String> = include_str!("reference/betabinom_levels.csv")
+    let rows: Vec<String> = include_str!("../reference/betabinom_levels.csv")
         .lines()
         .skip(1)
         .enumerate()

@@ -340,7 +340,8 @@ async fn decay_and_folds() {
                 &datafusion::arrow::datatypes::DataType::Int64,
             )
             .unwrap();
-            col.as_primitive::<datafusion::arrow::datatypes::Int64Type>().value(0)
+            col.as_primitive::<datafusion::arrow::datatypes::Int64Type>()
+                .value(0)
         })
         .collect();
     assert_eq!(got, [3, 0, 0, 9, 2]);
@@ -351,14 +352,21 @@ async fn decay_and_folds() {
 fn unknown_bundle_shapes_are_refused() {
     let e = posterity::bundle::posterior_from_json(&serde_json::json!({"alpha": 1.0, "beta": 2.0}))
         .unwrap_err();
-    assert!(e.to_string().contains("{alpha, beta} is not a posterior of any family"), "{e}");
+    assert!(
+        e.to_string()
+            .contains("{alpha, beta} is not a posterior of any family"),
+        "{e}"
+    );
 }
 
 #[tokio::test]
 async fn an_empty_prior_fit_says_so() {
     let c = ctx().await;
     let e = error(&c, "SELECT fit_prior(p) FROM (SELECT beta_posterior(no_show) AS p FROM appts WHERE false GROUP BY breed)").await;
-    assert!(e.contains("fit_prior") && e.contains("no level has any evidence"), "{e}");
+    assert!(
+        e.contains("fit_prior") && e.contains("no level has any evidence"),
+        "{e}"
+    );
 }
 
 #[tokio::test]

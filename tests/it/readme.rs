@@ -1,6 +1,6 @@
 //! The README's function reference is generated from the functions' own
 //! documentation; this test fails when it falls out of date.
-//! Regenerate with: POSTERITY_BLESS=1 cargo test --test readme
+//! Regenerate with: POSTERITY_BLESS=1 cargo test --test it readme
 
 const START: &str = "<!-- function reference: generated from src/docs.rs -->";
 const END: &str = "<!-- end of function reference -->";
@@ -25,7 +25,7 @@ fn readme_reference_matches_the_code() {
     assert_eq!(
         readme[start..end].trim(),
         generated.trim(),
-        "README function reference is stale: run POSTERITY_BLESS=1 cargo test --test readme"
+        "README function reference is stale: run POSTERITY_BLESS=1 cargo test --test it readme"
     );
 }
 

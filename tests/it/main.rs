@@ -1,0 +1,14 @@
+//! The integration tests, in one binary (each test binary links the engine again).
+//! Every check against the outside world names its source beside the test.
+
+mod bad_inputs;
+mod cli;
+mod empirical;
+mod encode;
+mod family_examples;
+mod family_reference;
+mod faults;
+mod leakage;
+mod readme;
+mod recipes;
+mod sql;
