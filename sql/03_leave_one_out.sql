@@ -1,4 +1,7 @@
 -- Leave-one-out training encodings: remove the row's own outcome from its level's posterior.
+-- Caution: within a level these values take one value per outcome, so they reveal each row's
+-- own target to tree learners (README, "Leakage, measured"); `encode` refuses them. Use
+-- out-of-fold (02) or as-of (04) encodings for anything that can split on a feature.
 --   posterity -t appointments=demo/sample/appointments.csv -f sql/03_leave_one_out.sql
 
 CREATE TABLE breed_total AS
