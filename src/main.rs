@@ -27,33 +27,33 @@ struct Args {
     /// Register a table: NAME=PATH, PATH a Parquet/CSV/TSV/NDJSON file, a directory or a glob.
     #[arg(short = 't', long = "table", value_name = "NAME=PATH")]
     tables: Vec<String>,
-    /// Output format.
-    #[arg(long, value_enum, default_value = "table")]
-    format: Format,
+    /// Output format (default: from the --output extension, else table).
+    #[arg(long, value_enum, global = true)]
+    format: Option<Format>,
     /// Write results to this file (atomically: a temporary file, then a rename).
-    #[arg(short = 'o', long, value_name = "FILE")]
+    #[arg(global = true, short = 'o', long, value_name = "FILE")]
     output: Option<PathBuf>,
     /// No row counts or timings on stderr.
-    #[arg(short = 'q', long)]
+    #[arg(global = true, short = 'q', long)]
     quiet: bool,
     /// Memory limit of the engine, e.g. 512M or 4G.
-    #[arg(long, value_name = "SIZE")]
+    #[arg(global = true, long, value_name = "SIZE")]
     memory_limit: Option<String>,
     /// Threads (and target partitions) of the engine.
-    #[arg(long, value_name = "N")]
+    #[arg(global = true, long, value_name = "N")]
     threads: Option<usize>,
     /// CSV files have no header row.
-    #[arg(long)]
+    #[arg(global = true, long)]
     csv_no_header: bool,
     /// CSV field delimiter (one character).
-    #[arg(long, default_value = ",", value_name = "CHAR")]
+    #[arg(global = true, long, default_value = ",", value_name = "CHAR")]
     csv_delimiter: String,
     /// Text that marks NULL in CSV files, e.g. NA.
-    #[arg(long, value_name = "TEXT")]
+    #[arg(global = true, long, value_name = "TEXT")]
     csv_null: Option<String>,
     /// CSV columns to read as text exactly as written, comma-separated (codes with
     /// leading zeros such as postcodes: 00123 stays 00123, not the number 123).
-    #[arg(long, value_delimiter = ',', value_name = "COLUMNS")]
+    #[arg(global = true, long, value_delimiter = ',', value_name = "COLUMNS")]
     csv_text: Vec<String>,
     #[command(subcommand)]
     command: Option<Command>,
@@ -95,6 +95,8 @@ fn main() -> ExitCode {
     };
     match runtime.block_on(run(args)) {
         Ok(()) => ExitCode::SUCCESS,
+        // Standard output closed by its reader (`| head`): a quiet success.
+        Err(f) if f.code == 0 => ExitCode::SUCCESS,
         Err(f) => {
             eprintln!("error: {}", f.message);
             ExitCode::from(f.code as u8)
@@ -104,8 +106,7 @@ fn main() -> ExitCode {
 
 async fn run(args: Args) -> Result<(), Failure> {
     if let Some(Command::Functions { name }) = &args.command {
-        print!("{}", shell::functions_help(name.as_deref())?);
-        return Ok(());
+        return shell::emit(&shell::functions_help(name.as_deref())?);
     }
     let memory = args
         .memory_limit
@@ -123,9 +124,47 @@ async fn run(args: Args) -> Result<(), Failure> {
             )))
         }
     };
+    let format = match (args.format, &args.output) {
+        (Some(f), _) => f,
+        (None, Some(path)) => Format::from_extension(path).ok_or_else(|| {
+            Failure::usage(format!(
+                "--output {}: cannot tell the format from the extension; give --format \
+                 (table, csv, tsv, json or ndjson)",
+                path.display()
+            ))
+        })?,
+        (None, None) => Format::Table,
+    };
+    let mut scripts = Vec::new();
+    for sql in &args.commands {
+        scripts.push((sql.clone(), "-c".to_string()));
+    }
+    for path in &args.files {
+        let script = std::fs::read_to_string(path)
+            .map_err(|e| Failure::usage(format!("cannot read {}: {e}", path.display())))?;
+        scripts.push((script, path.display().to_string()));
+    }
+    if let Some(path) = &args.output {
+        let results = scripts
+            .iter()
+            .flat_map(|(s, _)| shell::split::statements(s).0)
+            .filter(|s| shell::returns_rows(s))
+            .count();
+        if results > 1 {
+            return Err(Failure::usage(format!(
+                "--output {} takes the result of one statement, but {results} statements \
+                 return rows; run them one at a time, or write each with COPY (...) TO 'file'",
+                path.display()
+            )));
+        }
+    }
+    let interactive = args.command.is_none()
+        && scripts.is_empty()
+        && std::io::IsTerminal::is_terminal(&std::io::stdin());
     let shell = Shell {
         ctx: shell::session(memory, args.threads)?,
-        format: args.format,
+        format,
+        interactive,
         output: args.output.clone(),
         quiet: args.quiet,
         csv: CsvOptions {
@@ -144,17 +183,10 @@ async fn run(args: Args) -> Result<(), Failure> {
     if let Some(Command::Demo { dir, rows, seed }) = &args.command {
         return shell::demo::run(&shell, dir, *rows, *seed).await;
     }
-    for sql in &args.commands {
-        shell.run_script(sql, "-c").await?;
+    for (script, source) in &scripts {
+        shell.run_script(script, source).await?;
     }
-    for path in &args.files {
-        let script = std::fs::read_to_string(path)
-            .map_err(|e| Failure::query(format!("cannot read {}: {e}", path.display())))?;
-        shell
-            .run_script(&script, &path.display().to_string())
-            .await?;
-    }
-    if args.commands.is_empty() && args.files.is_empty() {
+    if scripts.is_empty() {
         shell.run_stdin_or_prompt().await?;
     }
     Ok(())

@@ -38,6 +38,35 @@ pub struct Shell {
     pub output: Option<std::path::PathBuf>,
     pub quiet: bool,
     pub csv: CsvOptions,
+    /// At the interactive prompt: Ctrl-C cancels the running query, not the shell.
+    pub interactive: bool,
+}
+
+/// Write `text` to standard output. A reader that went away (`| head`) ends the
+/// shell quietly with success, as it does for other command-line tools.
+pub fn emit(text: &str) -> Result<(), Failure> {
+    use std::io::Write;
+    let mut out = std::io::stdout().lock();
+    match out.write_all(text.as_bytes()).and_then(|_| out.flush()) {
+        Ok(()) => Ok(()),
+        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Err(Failure::closed_pipe()),
+        Err(e) => Err(Failure::query(format!(
+            "cannot write to standard output: {e}"
+        ))),
+    }
+}
+
+/// Whether a statement returns rows to show (as opposed to creating, copying or setting).
+pub fn returns_rows(sql: &str) -> bool {
+    let first = sql
+        .split(|c: char| c.is_whitespace() || c == '(')
+        .find(|w| !w.is_empty())
+        .unwrap_or("")
+        .to_ascii_lowercase();
+    matches!(
+        first.as_str(),
+        "select" | "with" | "values" | "show" | "describe" | "explain" | "table"
+    )
 }
 
 /// An error already phrased for the user, with its exit code.
@@ -58,6 +87,13 @@ impl Failure {
         Failure {
             message: one_line(&message.into()),
             code: 2,
+        }
+    }
+    /// Standard output was closed by its reader: stop, quietly, with success.
+    pub fn closed_pipe() -> Self {
+        Failure {
+            message: String::new(),
+            code: 0,
         }
     }
 }
@@ -194,9 +230,12 @@ impl Shell {
                     .await
             }
             FileKind::Json => {
-                let ext = extension_of(path, ".json");
+                // A JSON array (what --format json writes) is read through NDJSON.
+                let path = json_array_as_ndjson(path)
+                    .map_err(|e| Failure::query(format!("--table {name}: {e}")))?;
+                let ext = extension_of(&path, ".json");
                 self.ctx
-                    .register_json(name, path, JsonReadOptions::default().file_extension(&ext))
+                    .register_json(name, &path, JsonReadOptions::default().file_extension(&ext))
                     .await
             }
         };
@@ -271,9 +310,10 @@ impl Shell {
     pub async fn run_script(&self, script: &str, source: &str) -> Result<(), Failure> {
         let (statements, _) = split::statements(script);
         for sql in statements {
-            self.run(&sql)
-                .await
-                .map_err(|e| Failure::query(format!("{source}: {}", e.message)))?;
+            self.run(&sql).await.map_err(|e| match e.code {
+                0 => e,
+                _ => Failure::query(format!("{source}: {}", e.message)),
+            })?;
         }
         Ok(())
     }
@@ -283,24 +323,75 @@ impl Shell {
         let started = Instant::now();
         let batches = self.collect(sql).await?;
         let rows: usize = batches.iter().map(RecordBatch::num_rows).sum();
-        // COPY answers with a row count; say it on stderr at a terminal instead of as a table.
-        let is_copy = sql
-            .trim_start()
-            .get(..4)
-            .is_some_and(|w| w.eq_ignore_ascii_case("copy"));
-        let shows_rows = !is_copy && !batches.is_empty() && batches[0].num_columns() > 0;
-        if shows_rows {
-            let text = output::render(&batches, self.format).map_err(Failure::query)?;
-            match &self.output {
-                Some(path) => output::write_atomically(path, &text)
-                    .map_err(|e| Failure::query(format!("cannot write {}: {e}", path.display())))?,
-                None => print!("{text}"),
+        let feedback = match self.feedback(sql, &batches).await {
+            Some(feedback) => feedback,
+            None => {
+                let text = output::render(&batches, self.format).map_err(Failure::query)?;
+                match &self.output {
+                    Some(path) => output::write_atomically(path, &text).map_err(|e| {
+                        Failure::query(format!("cannot write {}: {e}", path.display()))
+                    })?,
+                    None => emit(&text)?,
+                }
+                format!("{rows} {}", if rows == 1 { "row" } else { "rows" })
             }
-        }
-        if !self.quiet && std::io::stderr().is_terminal() {
-            eprintln!("{rows} row(s) in {:.3} s", started.elapsed().as_secs_f64());
+        };
+        if !self.quiet && (std::io::stderr().is_terminal() || !returns_rows(sql)) {
+            // The status line: what happened, then how long it took.
+            eprintln!("= {feedback} ({})", elapsed(started));
         }
         Ok(())
+    }
+
+    /// What a statement that returns no rows of its own did, in words: rows written
+    /// by COPY (and where), rows stored by CREATE TABLE ... AS. `None` for queries.
+    async fn feedback(&self, sql: &str, batches: &[RecordBatch]) -> Option<String> {
+        use datafusion::sql::parser::{DFParser, Statement};
+        use datafusion::sql::sqlparser::ast;
+        let statement = DFParser::parse_sql(sql).ok()?.pop_front()?;
+        match statement {
+            Statement::CopyTo(copy) => {
+                let written = batches
+                    .first()
+                    .filter(|b| b.num_rows() > 0 && b.num_columns() > 0)
+                    .and_then(|b| {
+                        datafusion::arrow::compute::cast(
+                            b.column(0),
+                            &datafusion::arrow::datatypes::DataType::UInt64,
+                        )
+                        .ok()
+                    })
+                    .map(|c| {
+                        use datafusion::arrow::array::AsArray;
+                        c.as_primitive::<datafusion::arrow::datatypes::UInt64Type>()
+                            .value(0)
+                    })
+                    .unwrap_or(0);
+                Some(format!("wrote {written} rows to {}", copy.target))
+            }
+            Statement::Statement(s) => match *s {
+                ast::Statement::CreateTable(create) if create.query.is_some() => {
+                    let name = create.name.to_string();
+                    let stored = match self.ctx.table(name.as_str()).await {
+                        Ok(df) => df.count().await.ok(),
+                        Err(_) => None,
+                    };
+                    Some(match stored {
+                        Some(n) => format!("stored {n} rows in table {name}"),
+                        None => format!("created table {name}"),
+                    })
+                }
+                ast::Statement::CreateTable(create) => {
+                    Some(format!("created table {}", create.name))
+                }
+                _ if !returns_rows(sql) && batches.iter().all(|b| b.num_columns() == 0) => {
+                    Some("done".into())
+                }
+                _ => None,
+            },
+            Statement::CreateExternalTable(t) => Some(format!("registered table {}", t.name)),
+            _ => None,
+        }
     }
 
     pub async fn collect(&self, sql: &str) -> Result<Vec<RecordBatch>, Failure> {
@@ -309,10 +400,12 @@ impl Shell {
             .sql(sql)
             .await
             .map_err(|e| Failure::query(clean(e)))?;
-        if self.quiet || !std::io::stderr().is_terminal() {
+        let progress = !self.quiet && std::io::stderr().is_terminal();
+        if !progress && !self.interactive {
             return df.collect().await.map_err(|e| Failure::query(clean(e)));
         }
-        // At a terminal: a live progress line (elapsed time, rows read by the scans).
+        // At a terminal: a live progress line (elapsed time, rows read by the scans);
+        // at the prompt, Ctrl-C cancels the query and keeps the session.
         let task = self.ctx.task_ctx();
         let plan = df
             .create_physical_plan()
@@ -321,10 +414,22 @@ impl Shell {
         let started = Instant::now();
         let mut run = tokio::spawn(datafusion::physical_plan::collect(plan.clone(), task));
         let mut shown = false;
+        let interrupt = async {
+            if self.interactive {
+                tokio::signal::ctrl_c().await.ok();
+            } else {
+                std::future::pending::<()>().await;
+            }
+        };
+        tokio::pin!(interrupt);
         let result = loop {
             tokio::select! {
-                r = &mut run => break r,
-                _ = tokio::time::sleep(std::time::Duration::from_millis(300)) => {
+                r = &mut run => break Some(r),
+                _ = &mut interrupt => {
+                    run.abort();
+                    break None;
+                }
+                _ = tokio::time::sleep(std::time::Duration::from_millis(300)), if progress => {
                     eprint!("\r{:.1} s, {} rows read ", started.elapsed().as_secs_f64(), rows_read(plan.as_ref()));
                     shown = true;
                 }
@@ -334,8 +439,12 @@ impl Shell {
             eprint!("\r\x1b[2K");
         }
         match result {
-            Ok(r) => r.map_err(|e| Failure::query(clean(e))),
-            Err(e) => Err(Failure::query(format!("query task failed: {e}"))),
+            None => Err(Failure::query(format!(
+                "cancelled (Ctrl-C) after {}; tables and settings are kept",
+                elapsed(started)
+            ))),
+            Some(Ok(r)) => r.map_err(|e| Failure::query(clean(e))),
+            Some(Err(e)) => Err(Failure::query(format!("query task failed: {e}"))),
         }
     }
 
@@ -354,6 +463,12 @@ impl Shell {
 
     /// The interactive prompt: statements end at `;`; errors are reported and the
     /// prompt goes on. Commands start with a colon.
+    ///
+    /// The prompt is posterity's own: `1 ▸ ` numbers the statement being typed (so a
+    /// long session can be followed back), and a continuation line shows `  ┆ ` plus
+    /// what is still open — a quote or parentheses — because an unclosed quote is the
+    /// usual reason a statement does not end. The status line after each statement
+    /// starts with `=`: rows (or what was written or stored) and the time taken.
     async fn prompt(&self) -> Result<(), Failure> {
         let mut editor =
             rustyline::DefaultEditor::new().map_err(|e| Failure::query(e.to_string()))?;
@@ -362,24 +477,49 @@ impl Shell {
             editor.load_history(h).ok();
         }
         println!(
-            "posterity {} — SQL ends with ';'. Type :help for commands.",
+            "posterity {} — SQL ends with ';'. :help for commands, :q (or exit) to leave.",
             env!("CARGO_PKG_VERSION")
         );
         let mut pending = String::new();
+        let mut number = 1;
+        let mut interrupted = false;
         loop {
             let prompt = if pending.is_empty() {
-                "posterity> "
+                format!("{number} ▸ ")
             } else {
-                "      ...> "
+                format!(
+                    "{}┆{} ",
+                    " ".repeat(number.to_string().len() + 1),
+                    split::open_marks(&pending)
+                )
             };
-            let line = match editor.readline(prompt) {
+            let line = match editor.readline(&prompt) {
                 Ok(line) => line,
                 Err(rustyline::error::ReadlineError::Interrupted) => {
+                    if pending.is_empty() && interrupted {
+                        break;
+                    }
+                    if pending.is_empty() {
+                        eprintln!("(Ctrl-C again, :q or exit to leave)");
+                    }
+                    interrupted = true;
                     pending.clear();
                     continue;
                 }
+                Err(rustyline::error::ReadlineError::Eof) => {
+                    // Ctrl-D: a part-typed statement is run, not dropped.
+                    if !pending.trim().is_empty() {
+                        self.run_pending(&format!("{pending};"), &mut editor).await;
+                    }
+                    break;
+                }
                 Err(_) => break,
             };
+            interrupted = false;
+            let word = line.trim().trim_end_matches(';').to_ascii_lowercase();
+            if pending.is_empty() && matches!(word.as_str(), "exit" | "quit") {
+                break;
+            }
             if pending.is_empty() && line.trim_start().starts_with(':') {
                 editor.add_history_entry(line.as_str()).ok();
                 if !self.command(line.trim()).await {
@@ -389,15 +529,12 @@ impl Shell {
             }
             pending.push_str(&line);
             pending.push('\n');
-            let (statements, unfinished) = split::statements(&pending);
+            let (_, unfinished) = split::statements(&pending);
             if unfinished {
                 continue;
             }
-            editor.add_history_entry(pending.trim()).ok();
-            for sql in statements {
-                if let Err(e) = self.run(&sql).await {
-                    eprintln!("error: {}", e.message);
-                }
+            if self.run_pending(&pending, &mut editor).await {
+                number += 1;
             }
             pending.clear();
         }
@@ -405,6 +542,21 @@ impl Shell {
             editor.save_history(h).ok();
         }
         Ok(())
+    }
+
+    /// Run the statements typed at the prompt; false when there were none.
+    async fn run_pending(&self, text: &str, editor: &mut rustyline::DefaultEditor) -> bool {
+        let (statements, _) = split::statements(text);
+        editor.add_history_entry(text.trim()).ok();
+        for sql in &statements {
+            if let Err(e) = self.run(sql).await {
+                if e.code == 0 {
+                    break;
+                }
+                eprintln!("error: {}", e.message);
+            }
+        }
+        !statements.is_empty()
     }
 
     /// Prompt commands; returns false to quit.
@@ -415,8 +567,9 @@ impl Shell {
             ":help" => {
                 println!(
                     ":tables            list tables\n:describe NAME     columns of a table\n\
-                     :functions [NAME]  posterity function reference\n:quit              leave\n\
-                     Anything else is SQL, ending with ';'."
+                     :functions [NAME]  posterity function reference\n\
+                     :q, :quit, exit    leave (or Ctrl-D; Ctrl-C twice at an empty prompt)\n\
+                     Anything else is SQL, ending with ';'. Ctrl-C cancels a running query."
                 );
                 Ok(())
             }
@@ -425,10 +578,7 @@ impl Shell {
                 Some(name) => self.run(&format!("DESCRIBE \"{}\"", name.replace('"', "\"\""))).await,
                 None => Err(Failure::usage(":describe needs a table name")),
             },
-            ":functions" => {
-                print!("{}", functions_help(words.next()).unwrap_or_else(|e| e.message));
-                Ok(())
-            }
+            ":functions" => emit(&functions_help(words.next()).unwrap_or_else(|e| e.message)),
             other => Err(Failure::usage(format!("unknown command {other}; type :help"))),
         };
         if let Err(e) = result {
@@ -459,6 +609,62 @@ pub fn functions_help(name: Option<&str>) -> Result<String, Failure> {
 }
 
 /// Rows produced so far by the plan's leaves (the scans), from the engine's metrics.
+/// For a file holding one JSON array of objects: the same rows as NDJSON in a
+/// temporary file (removed when the shell ends... by the system's temp cleaning);
+/// any other path unchanged.
+fn json_array_as_ndjson(path: &str) -> Result<String, String> {
+    use std::io::Read;
+    let Ok(mut file) = std::fs::File::open(path) else {
+        return Ok(path.to_string());
+    };
+    let mut head = [0u8; 64];
+    let n = file.read(&mut head).unwrap_or(0);
+    if head[..n].iter().find(|b| !b.is_ascii_whitespace()) != Some(&b'[') {
+        return Ok(path.to_string());
+    }
+    let text = std::fs::read_to_string(path).map_err(|e| format!("cannot read {path}: {e}"))?;
+    // Raw elements keep their keys in the order written (the columns' order).
+    let rows: Vec<Box<serde_json::value::RawValue>> =
+        serde_json::from_str(&text).map_err(|e| format!("{path} is not a JSON array: {e}"))?;
+    if rows.is_empty() {
+        return Err(format!(
+            "{path} holds an empty JSON array: no columns to read"
+        ));
+    }
+    let mut out = String::new();
+    for row in &rows {
+        let raw = row.get().trim();
+        if !raw.starts_with('{') {
+            return Err(format!(
+                "{path}: every element of the JSON array must be an object"
+            ));
+        }
+        // One line per row: NDJSON allows no line breaks inside a row.
+        out.push_str(&raw.replace(['\n', '\r'], " "));
+        out.push('\n');
+    }
+    let tmp = std::env::temp_dir().join(format!(
+        "posterity-{}-{}.json",
+        std::process::id(),
+        Path::new(path)
+            .file_stem()
+            .map(|s| s.to_string_lossy().to_string())
+            .unwrap_or_default()
+    ));
+    std::fs::write(&tmp, out).map_err(|e| format!("cannot write {}: {e}", tmp.display()))?;
+    Ok(tmp.display().to_string())
+}
+
+/// A duration for people: milliseconds below a second.
+fn elapsed(started: Instant) -> String {
+    let s = started.elapsed().as_secs_f64();
+    if s < 1.0 {
+        format!("{:.0} ms", s * 1000.0)
+    } else {
+        format!("{s:.2} s")
+    }
+}
+
 fn rows_read(plan: &dyn datafusion::physical_plan::ExecutionPlan) -> usize {
     let children = plan.children();
     if children.is_empty() {

@@ -21,6 +21,21 @@ pub enum Format {
     Ndjson,
 }
 
+impl Format {
+    /// The format a file name asks for: .csv, .tsv, .json, .ndjson/.jsonl, .txt (table).
+    pub fn from_extension(path: &std::path::Path) -> Option<Format> {
+        let ext = path.extension()?.to_str()?.to_ascii_lowercase();
+        Some(match ext.as_str() {
+            "csv" => Format::Csv,
+            "tsv" | "tab" => Format::Tsv,
+            "json" => Format::Json,
+            "ndjson" | "jsonl" => Format::Ndjson,
+            "txt" => Format::Table,
+            _ => return None,
+        })
+    }
+}
+
 /// Render `batches` in `format`.
 pub fn render(batches: &[RecordBatch], format: Format) -> Result<String, String> {
     match format {
@@ -40,8 +55,13 @@ pub fn render(batches: &[RecordBatch], format: Format) -> Result<String, String>
         Format::Csv => delimited(batches, ','),
         Format::Tsv => delimited(batches, '\t'),
         Format::Json => {
+            // One row per line, columns in query order; `[]` for no rows. The file
+            // reads back with -t.
             let rows = json_rows(batches)?;
-            Ok(format!("{}\n", Value::Array(rows)))
+            if rows.is_empty() {
+                return Ok("[]\n".into());
+            }
+            Ok(format!("[\n{}\n]\n", rows.join(",\n")))
         }
         Format::Ndjson => Ok(json_rows(batches)?
             .into_iter()
@@ -126,11 +146,17 @@ fn delimited(batches: &[RecordBatch], sep: char) -> Result<String, String> {
                 .zip(batch.columns())
                 .map(|(f, c)| {
                     if c.is_null(row) {
-                        String::new()
+                        Ok(String::new())
+                    } else if matches!(c.data_type(), DataType::Struct(_) | DataType::List(_)) {
+                        // Posteriors, intervals and lists as JSON (the bundle's form), so
+                        // the file parses and reads back.
+                        Ok(quote(&json_value(c, row)?.to_string()))
                     } else {
-                        quote(&f.value(row).to_string())
+                        Ok(quote(&f.value(row).to_string()))
                     }
                 })
+                .collect::<Result<Vec<String>, String>>()?
+                .into_iter()
                 .collect();
             out.push_str(&cells.join(&sep.to_string()));
             out.push('\n');
@@ -139,16 +165,22 @@ fn delimited(batches: &[RecordBatch], sep: char) -> Result<String, String> {
     Ok(out)
 }
 
-fn json_rows(batches: &[RecordBatch]) -> Result<Vec<Value>, String> {
+/// Each row as a JSON object text with its columns in query order (a JSON map
+/// would sort them).
+fn json_rows(batches: &[RecordBatch]) -> Result<Vec<String>, String> {
     let mut rows = Vec::new();
     for batch in batches {
         let schema = batch.schema();
         for row in 0..batch.num_rows() {
-            let mut object = Map::new();
+            let mut cells = Vec::with_capacity(batch.num_columns());
             for (field, column) in schema.fields().iter().zip(batch.columns()) {
-                object.insert(field.name().clone(), json_value(column, row)?);
+                cells.push(format!(
+                    "{}:{}",
+                    Value::String(field.name().clone()),
+                    json_value(column, row)?
+                ));
             }
-            rows.push(Value::Object(object));
+            rows.push(format!("{{{}}}", cells.join(",")));
         }
     }
     Ok(rows)
@@ -200,9 +232,25 @@ fn json_value(column: &ArrayRef, row: usize) -> Result<Value, String> {
     })
 }
 
-/// Write `text` to `path` through a temporary file in the same directory and a
-/// rename, so a failure never leaves a partial file and the old one stays intact.
+/// Write `text` to `path`. A regular file (or a new one) is written through a
+/// temporary file in the same directory and a rename, so a failure never leaves a
+/// partial file and the old one stays intact; a symbolic link is followed to the
+/// file it names (the link stays); a device, FIFO or socket is written straight
+/// into (renaming over /dev/null would replace the device with a file).
 pub fn write_atomically(path: &Path, text: &str) -> std::io::Result<()> {
+    let path = &match std::fs::canonicalize(path) {
+        Ok(target) => target,
+        Err(_) => path.to_path_buf(),
+    };
+    if let Ok(meta) = std::fs::metadata(path) {
+        if !meta.is_file() {
+            if meta.is_dir() {
+                return Err(std::io::Error::other("it is a directory"));
+            }
+            let mut f = std::fs::OpenOptions::new().write(true).open(path)?;
+            return f.write_all(text.as_bytes());
+        }
+    }
     let dir = path
         .parent()
         .filter(|p| !p.as_os_str().is_empty())

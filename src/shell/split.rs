@@ -1,8 +1,9 @@
 //! Splitting a script into statements at `;`, outside quotes and comments.
 
-/// The statements of `script`, trimmed, without empty ones. Comments stay in
-/// place (the SQL parser skips them); the returned flag says whether the text
-/// ends inside an unfinished statement (for multi-line prompt input).
+/// The statements of `script`, trimmed, without empty ones. Comments are removed
+/// (a line comment leaves its line break, a block comment a space); the returned
+/// flag says whether the text ends inside an unfinished statement (for multi-line
+/// prompt input).
 pub fn statements(script: &str) -> (Vec<String>, bool) {
     let mut out = Vec::new();
     let mut current = String::new();
@@ -58,9 +59,45 @@ pub fn statements(script: &str) -> (Vec<String>, bool) {
     (out, unfinished)
 }
 
+/// What is still open at the end of `text`: a quote character if it ends inside a
+/// quoted string, else one `(` per unclosed parenthesis (for the prompt).
+pub fn open_marks(text: &str) -> String {
+    let mut quote: Option<char> = None;
+    let mut depth = 0usize;
+    let mut chars = text.chars().peekable();
+    while let Some(c) = chars.next() {
+        match (quote, c) {
+            (Some(q), c) if c == q => quote = None,
+            (Some(_), _) => {}
+            (None, '\'' | '"') => quote = Some(c),
+            (None, '-') if chars.peek() == Some(&'-') => {
+                for d in chars.by_ref() {
+                    if d == '\n' {
+                        break;
+                    }
+                }
+            }
+            (None, '(') => depth += 1,
+            (None, ')') => depth = depth.saturating_sub(1),
+            _ => {}
+        }
+    }
+    match quote {
+        Some(q) => q.to_string(),
+        None => "(".repeat(depth.min(8)),
+    }
+}
+
 #[cfg(test)]
 mod tests {
-    use super::statements;
+    use super::{open_marks, statements};
+
+    #[test]
+    fn open_marks_show_quotes_and_parentheses() {
+        assert_eq!(open_marks("SELECT 'it"), "'");
+        assert_eq!(open_marks("SELECT f((1"), "((");
+        assert_eq!(open_marks("SELECT ')' -- (\n"), "");
+    }
 
     #[test]
     fn splits_outside_quotes_and_comments() {

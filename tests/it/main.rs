@@ -11,4 +11,5 @@ mod faults;
 mod leakage;
 mod readme;
 mod recipes;
+mod shell_manners;
 mod sql;
