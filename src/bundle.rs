@@ -152,6 +152,9 @@ pub struct ColumnEncoding {
     pub key_columns: Vec<String>,
     pub prior: AnyPosterior,
     pub levels: BTreeMap<String, AnyPosterior>,
+    /// The levels with an indicator column, in rank order: `<key>_top1` is 1 for
+    /// rows of the first, and so on (empty when there are none).
+    pub indicators: Vec<String>,
 }
 
 impl ColumnEncoding {
@@ -200,14 +203,15 @@ impl Bundle {
                 .iter()
                 .map(|(k, p)| (k.clone(), posterior_json(p)))
                 .collect();
-            columns.insert(
-                name.clone(),
-                json!({
-                    "key": {"columns": c.key_columns, "form": c.key_form()},
-                    "prior": posterior_json(&c.prior),
-                    "levels": levels
-                }),
-            );
+            let mut column = json!({
+                "key": {"columns": c.key_columns, "form": c.key_form()},
+                "prior": posterior_json(&c.prior),
+                "levels": levels
+            });
+            if !c.indicators.is_empty() {
+                column["indicators"] = json!(c.indicators);
+            }
+            columns.insert(name.clone(), column);
         }
         let v = json!({
             "format": FORMAT,
@@ -287,6 +291,15 @@ impl Bundle {
                     key_columns,
                     prior,
                     levels,
+                    indicators: c
+                        .get("indicators")
+                        .and_then(Value::as_array)
+                        .map(|a| {
+                            a.iter()
+                                .filter_map(|l| l.as_str().map(str::to_string))
+                                .collect()
+                        })
+                        .unwrap_or_default(),
                 },
             );
         }

@@ -243,6 +243,12 @@ pub struct EncodeOptions {
     pub readers: Vec<Reader>,
     /// Add a seeded posterior draw per row and key.
     pub draws: Option<u64>,
+    /// Indicator columns `<key>_top1..` for up to this many of the largest levels
+    /// (0: none). A learner does better with a big level's own identity than with
+    /// any encoding of it; rare levels get none (their encoding carries them).
+    pub indicators: usize,
+    /// The rows (evidence) a level needs to get an indicator.
+    pub indicator_min_rows: f64,
     /// A table registered on the session to score with the full-data encodings.
     pub score: Option<String>,
 }
@@ -265,6 +271,8 @@ impl EncodeOptions {
             exposure: None,
             readers: vec![Reader::Mean, Reader::Sd],
             draws: None,
+            indicators: 20,
+            indicator_min_rows: 100.0,
             score: None,
         }
     }

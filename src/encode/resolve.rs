@@ -82,6 +82,10 @@ impl EncodePlan {
                 }
             }
         }
+        for rank in 1..=self.options.indicators {
+            // Indicator columns: reader index usize::MAX - rank marks them.
+            out.push((format!("{}_top{rank}", key.name), usize::MAX - rank, None));
+        }
         if self.options.draws.is_some() {
             // Draw columns: reader index usize::MAX marks them.
             if self.classes.is_empty() {
@@ -225,7 +229,13 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
     if options.folds < 2 {
         return usage("--folds must be at least 2");
     }
-    if options.readers.is_empty() && options.draws.is_none() {
+    if !(options.indicator_min_rows.is_finite() && options.indicator_min_rows >= 0.0) {
+        return usage("--indicator-min-rows must be a finite number >= 0");
+    }
+    if options.indicators > 1000 {
+        return usage("--indicators: at most 1000 indicator columns per key");
+    }
+    if options.readers.is_empty() && options.draws.is_none() && options.indicators == 0 {
         return usage(
             "--readers: name at least one reader (mean, sd, var, evidence, qNN, above:T)",
         );

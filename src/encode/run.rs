@@ -38,6 +38,8 @@ pub struct ColumnSummary {
     pub rows: f64,
     /// Share of scored rows at levels never seen in training.
     pub unseen_share: Option<f64>,
+    /// Levels given an indicator column (big enough, up to the limit).
+    pub indicators: usize,
     pub warnings: Vec<String>,
 }
 
@@ -238,14 +240,28 @@ pub(super) async fn finish(
             levels: levels.len() as u64,
             rows,
             unseen_share,
+            indicators: 0,
             warnings,
         });
+        let mut indicators = Vec::new();
+        for batch in ctx
+            .sql(&format!("SELECT level FROM __top{i} ORDER BY rank"))
+            .await?
+            .collect()
+            .await?
+        {
+            let names = cast(batch.column(0), &DataType::Utf8)?;
+            let names = names.as_string::<i32>();
+            indicators.extend((0..names.len()).map(|r| names.value(r).to_string()));
+        }
+        summary.last_mut().expect("pushed above").indicators = indicators.len();
         columns.insert(
             key.name.clone(),
             ColumnEncoding {
                 key_columns: key.columns.clone(),
                 prior,
                 levels,
+                indicators,
             },
         );
     }
@@ -292,12 +308,12 @@ fn prior_strength(prior: &AnyPosterior) -> f64 {
 /// The summary as a short table, one line per key.
 pub fn summary_table(summary: &[ColumnSummary]) -> String {
     let mut out = format!(
-        "{:<24} {:<10} {:>9} {:>12} {:>10} {:>8}  prior\n",
-        "key", "family", "levels", "rows", "strength", "unseen"
+        "{:<24} {:<10} {:>9} {:>12} {:>10} {:>8} {:>10}  prior\n",
+        "key", "family", "levels", "rows", "strength", "unseen", "indicators"
     );
     for s in summary {
         out.push_str(&format!(
-            "{:<24} {:<10} {:>9} {:>12} {:>10} {:>8}  {}{}\n",
+            "{:<24} {:<10} {:>9} {:>12} {:>10} {:>8} {:>10}  {}{}\n",
             s.key,
             s.family,
             s.levels,
@@ -306,6 +322,7 @@ pub fn summary_table(summary: &[ColumnSummary]) -> String {
             s.unseen_share
                 .map(|u| format!("{:.1}%", 100.0 * u))
                 .unwrap_or_else(|| "-".into()),
+            s.indicators,
             s.prior_text.split(" from ").next().unwrap_or_default(),
             if s.at_bound { " (at bound)" } else { "" }
         ));
@@ -423,6 +440,7 @@ async fn write_into(output: &EncodeOutput, dir: &Path) -> Result<()> {
             json!({
                 "key": s.key, "family": s.family, "prior": s.prior, "strength": s.strength,
                 "at_bound": s.at_bound, "levels": s.levels, "rows": s.rows,
+                "indicators": s.indicators,
                 "unseen_share": s.unseen_share, "warnings": s.warnings,
             })
         })

@@ -69,11 +69,12 @@ impl EncodePlan {
         }
     }
 
-    /// `reader(p) AS "name", ...` for every reader column of `key` (draws excluded).
+    /// `reader(p) AS "name", ...` for every reader column of `key` (draws and
+    /// indicators excluded).
     fn readers(&self, key: &KeyPlan, p: &str) -> Vec<String> {
         self.reader_columns(key)
             .into_iter()
-            .filter(|(_, r, _)| *r != usize::MAX)
+            .filter(|(_, r, _)| *r < self.options.readers.len())
             .map(|(name, r, class)| {
                 format!(
                     "{} AS {}",
@@ -84,13 +85,17 @@ impl EncodePlan {
             .collect()
     }
 
-    /// Final columns of `key`: each reader from `source` (alias), falling back to the
-    /// prior's reader in `fallback`; draws from the posterior column `p`.
-    fn final_columns(&self, key: &KeyPlan, source: &str, fallback: &str) -> Vec<String> {
+    /// Final columns of `key` `i`: each reader from `source` (alias), falling back
+    /// to the prior's reader in `fallback`; indicators from the level's rank in
+    /// `top{i}`; draws from the posterior column `p`.
+    fn final_columns(&self, i: usize, key: &KeyPlan, source: &str, fallback: &str) -> Vec<String> {
+        let readers = self.options.readers.len();
         self.reader_columns(key)
             .into_iter()
             .map(|(name, r, class)| {
-                let value = if r == usize::MAX {
+                let value = if r >= readers && r != usize::MAX {
+                    format!("CAST(COALESCE(top{i}.rank = {}, false) AS INT)", usize::MAX - r)
+                } else if r == usize::MAX {
                     let class = class.map(|c| format!(", {}", text(&c))).unwrap_or_default();
                     format!(
                         "posterior_draw(COALESCE({source}.p, {fallback}.prior){class}, fold_of(t.__row, 9223372036854775807, {}))",
@@ -136,13 +141,16 @@ impl EncodePlan {
             format!("__prior{i}"),
             format!("__enc{i}"),
         );
-        let mut encoding_columns = vec![format!("level AS {}", quote(k)), "p".to_string()];
+        let mut encoding_columns = vec![format!("e.level AS {}", quote(k)), "e.p".to_string()];
         encoding_columns.extend(
             self.reader_columns(key)
                 .into_iter()
-                .filter(|(_, r, _)| *r != usize::MAX)
-                .map(|(name, _, _)| quote(&name)),
+                .filter(|(_, r, _)| *r < self.options.readers.len())
+                .map(|(name, _, _)| format!("e.{}", quote(&name))),
         );
+        if self.options.indicators > 0 {
+            encoding_columns.push("ranked.rank AS top_rank".to_string());
+        }
         vec![
             stage(
                 format!("prior {k}"),
@@ -168,11 +176,29 @@ impl EncodePlan {
             stage(
                 format!("prior readers {k}"),
                 &format!("__priorread{i}"),
-                format!("SELECT prior, {} FROM {prior}", self.readers(key, "prior").join(", ")),
+                format!(
+                    "SELECT {} FROM {prior}",
+                    std::iter::once("prior".to_string())
+                        .chain(self.readers(key, "prior"))
+                        .collect::<Vec<_>>()
+                        .join(", ")
+                ),
+            ),
+            stage(
+                format!("largest levels {k}"),
+                &format!("__top{i}"),
+                format!(
+                    "SELECT level, rank FROM (SELECT level, row_number() OVER (ORDER BY posterior_evidence(p) DESC, level) AS rank \
+                     FROM {enc} WHERE posterior_evidence(p) >= {}) WHERE rank <= {}",
+                    self.options.indicator_min_rows, self.options.indicators
+                ),
             ),
             output(
                 format!("encodings/{k}"),
-                format!("SELECT {} FROM {enc} ORDER BY level", encoding_columns.join(", ")),
+                format!(
+                    "SELECT {} FROM {enc} e LEFT JOIN __top{i} ranked ON ranked.level = e.level ORDER BY e.level",
+                    encoding_columns.join(", ")
+                ),
             ),
         ]
     }
@@ -274,9 +300,9 @@ impl EncodePlan {
             };
             out.push(stage(format!("{name} {k}"), &train, query));
             joins.push(format!(
-                "LEFT JOIN {train} x{i} ON {on} CROSS JOIN __priorread{i} r{i}"
+                "LEFT JOIN {train} x{i} ON {on} CROSS JOIN __priorread{i} r{i} LEFT JOIN __top{i} top{i} ON top{i}.level = t.__k{i}"
             ));
-            selects.extend(self.final_columns(key, &format!("x{i}"), &format!("r{i}")));
+            selects.extend(self.final_columns(i, key, &format!("x{i}"), &format!("r{i}")));
             out.extend_from_slice(encodings);
         }
         out.push(output(
@@ -308,9 +334,9 @@ impl EncodePlan {
         let mut joins = Vec::new();
         for (i, key) in self.keys.iter().enumerate() {
             joins.push(format!(
-                "LEFT JOIN __enc{i} e{i} ON e{i}.level = t.__k{i} CROSS JOIN __priorread{i} r{i}"
+                "LEFT JOIN __enc{i} e{i} ON e{i}.level = t.__k{i} CROSS JOIN __priorread{i} r{i} LEFT JOIN __top{i} top{i} ON top{i}.level = t.__k{i}"
             ));
-            selects.extend(self.final_columns(key, &format!("e{i}"), &format!("r{i}")));
+            selects.extend(self.final_columns(i, key, &format!("e{i}"), &format!("r{i}")));
             out.push(output(
                 format!("unseen/{}", key.name),
                 format!(

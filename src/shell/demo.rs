@@ -219,6 +219,8 @@ pub async fn run(shell: &Shell, dir: &Path, rows: usize, seed: u64) -> Result<()
         exposure: None,
         readers: vec!["mean".into(), "sd".into(), "q05".into()],
         draws: None,
+        indicators: 20,
+        indicator_min_rows: 100.0,
         seed: 0,
         score: Some(format!("{d}/next_month.parquet")),
         update: None,

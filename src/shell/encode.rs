@@ -90,6 +90,12 @@ pub struct EncodeArgs {
     /// Add a seeded posterior draw per row and column (stochastic training encodings).
     #[arg(long, value_name = "SEED")]
     pub draws: Option<u64>,
+    /// Indicator columns <key>_top1..N for the N largest levels (0: none).
+    #[arg(long, default_value_t = 20, value_name = "N")]
+    pub indicators: usize,
+    /// Rows a level needs to get an indicator column.
+    #[arg(long, default_value_t = 100.0, value_name = "ROWS")]
+    pub indicator_min_rows: f64,
     /// Seed of the fold assignment.
     #[arg(long, default_value_t = 0)]
     pub seed: u64,
@@ -168,6 +174,8 @@ fn options(args: &EncodeArgs) -> Result<EncodeOptions, Failure> {
         .map(|r| Reader::parse(r))
         .collect::<Result<_, _>>()?;
     o.draws = args.draws;
+    o.indicators = args.indicators;
+    o.indicator_min_rows = args.indicator_min_rows;
     o.score = args.score.as_ref().map(|_| SCORE_TABLE.to_string());
     Ok(o)
 }
