@@ -799,6 +799,20 @@ impl<K: FitKernel> BindPrior for FitAggregate<K> {
     }
 }
 
+/// Evaluate an expression on one row of no columns (errors for column references).
+fn evaluate_without_columns(
+    expr: &dyn datafusion::physical_expr::PhysicalExpr,
+) -> Result<datafusion::logical_expr::ColumnarValue> {
+    use datafusion::arrow::array::{RecordBatch, RecordBatchOptions};
+    use datafusion::arrow::datatypes::Schema;
+    let batch = RecordBatch::try_new_with_options(
+        Arc::new(Schema::empty()),
+        vec![],
+        &RecordBatchOptions::new().with_row_count(Some(1)),
+    )?;
+    expr.evaluate(&batch)
+}
+
 /// The kernel for a constant prior value (a NULL prior means the default).
 fn decode_prior<K: FitKernel>(prior: &ScalarValue) -> Result<K> {
     let array = prior.to_array()?;
@@ -813,6 +827,19 @@ impl<K: FitKernel> FitAggregate<K> {
             return K::new(None);
         };
         let Some(literal) = expr.downcast_ref::<Literal>() else {
+            // A constant that failed to fold (beta_prior(0, 1)): say why it fails.
+            let constant = datafusion::physical_expr::utils::collect_columns(expr).is_empty();
+            if let (true, Err(e)) = (constant, evaluate_without_columns(expr.as_ref())) {
+                return plan_err!(
+                    "{}: the prior (argument {}) is invalid: {}",
+                    K::NAME,
+                    K::PRIOR_ARG + 1,
+                    match e.find_root() {
+                        DataFusionError::Execution(m) | DataFusionError::Plan(m) => m.clone(),
+                        other => other.strip_backtrace(),
+                    }
+                );
+            }
             return plan_err!(
                 "{}: the prior (argument {}) must be a constant such as beta_prior(1, 1); to give \
                  levels different priors, fit with one prior and re-prior the result with \

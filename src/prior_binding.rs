@@ -98,7 +98,8 @@ fn bound(
     let context = SimplifyContext::builder()
         .with_config_options(Arc::clone(config))
         .build();
-    // A prior that cannot be folded here is reported by the fit itself when it runs.
+    // A prior that does not fold here (a column, or a constant that fails to
+    // evaluate) is reported by the fit itself, in the user's words, when it runs.
     let Ok(Expr::Literal(value, _)) = ExprSimplifier::new(context).simplify(prior.clone()) else {
         return Ok(None);
     };

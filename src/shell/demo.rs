@@ -185,7 +185,16 @@ SELECT round(-AVG(y * ln(jeffreys) + (1 - y) * ln(1 - jeffreys)), 4) AS jeffreys
 ];
 
 /// Generate the data and tell the story.
+/// Fewer rows leave the story's months and clinics empty.
+const MIN_ROWS: usize = 1000;
+
 pub async fn run(shell: &Shell, dir: &Path, rows: usize, seed: u64) -> Result<(), Failure> {
+    if rows < MIN_ROWS {
+        return Err(Failure::usage(format!(
+            "demo --rows {rows} is too few: the story needs at least {MIN_ROWS} appointments \
+             (a year of bookings across the clinics)"
+        )));
+    }
     generate(dir, rows, seed)
         .map_err(|e| Failure::query(format!("cannot write demo data to {}: {e}", dir.display())))?;
     let d = dir.display().to_string();

@@ -36,6 +36,8 @@ fn cases() -> Vec<(String, Vec<&'static str>)> {
         (format!("SELECT dirichlet_posterior('maybe', {d})"), vec!["dirichlet_posterior", "class 'maybe'", "attended, no_show"]),
         ("SELECT beta_posterior('yes')".into(), vec!["beta_posterior", "outcome", "expected a number or boolean"]),
         // Priors.
+        ("SELECT beta_posterior(y, beta_prior(0, 1)) FROM (VALUES (1)) t(y)".into(), vec!["beta_posterior: the prior (argument 2) is invalid: beta_prior: argument a = 0 is out of range; allowed: a finite number > 0"]),
+        ("SELECT beta_posterior(y, p) FROM (VALUES (1, beta_prior(1, 1))) t(y, p)".into(), vec!["beta_posterior: the prior (argument 2) must be a constant such as beta_prior(1, 1)"]),
         ("SELECT beta_prior(0, 1)".into(), vec!["beta_prior", "a = 0", "> 0"]),
         ("SELECT beta_prior(1, -2)".into(), vec!["beta_prior", "b = -2", "> 0"]),
         ("SELECT beta_prior('NaN'::double, 1)".into(), vec!["beta_prior", "a = NaN"]),

@@ -188,6 +188,41 @@ fn output_onto_special_files() {
     }
 }
 
+// Messages in the user's words, never an engine accumulator or an internal name.
+#[test]
+fn usage_errors_speak_the_users_words() {
+    let dir = temp_dir("words");
+    let o = bin()
+        .args(["demo", "--rows", "0", "--dir", dir.to_str().unwrap()])
+        .output()
+        .unwrap();
+    assert_eq!(o.status.code(), Some(2));
+    assert_eq!(
+        String::from_utf8_lossy(&o.stderr),
+        "error: demo --rows 0 is too few: the story needs at least 1000 appointments (a year of bookings across the clinics)\n"
+    );
+    // Global options after the command are accepted.
+    let o = bin()
+        .args([
+            "encode",
+            "--train",
+            "nosuch.csv",
+            "--target",
+            "y",
+            "--columns",
+            "k",
+            "--out",
+        ])
+        .arg(dir.join("out"))
+        .args(["--threads", "1"])
+        .output()
+        .unwrap();
+    assert_eq!(
+        String::from_utf8_lossy(&o.stderr),
+        "error: --train: 'nosuch.csv' does not exist\n"
+    );
+}
+
 // COPY and CREATE TABLE say what they did, also under -c.
 #[test]
 fn statements_report_what_they_did() {
