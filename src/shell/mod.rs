@@ -3,6 +3,7 @@
 //! interactive prompt. It reads and writes local paths only, runs no shell
 //! commands and opens no network connection.
 
+pub mod complete;
 pub mod demo;
 pub mod encode;
 pub mod output;
@@ -326,7 +327,11 @@ impl Shell {
         let feedback = match self.feedback(sql, &batches).await {
             Some(feedback) => feedback,
             None => {
-                let text = output::render(&batches, self.format).map_err(Failure::query)?;
+                let width = match &self.output {
+                    None => output::terminal_width(),
+                    Some(_) => None,
+                };
+                let text = output::render(&batches, self.format, width).map_err(Failure::query)?;
                 match &self.output {
                     Some(path) => output::write_atomically(path, &text).map_err(|e| {
                         Failure::query(format!("cannot write {}: {e}", path.display()))
@@ -471,7 +476,8 @@ impl Shell {
     /// starts with `=`: rows (or what was written or stored) and the time taken.
     async fn prompt(&self) -> Result<(), Failure> {
         let mut editor =
-            rustyline::DefaultEditor::new().map_err(|e| Failure::query(e.to_string()))?;
+            rustyline::Editor::<complete::Words, rustyline::history::DefaultHistory>::new()
+                .map_err(|e| Failure::query(e.to_string()))?;
         let history = std::env::var_os("HOME").map(|h| Path::new(&h).join(".posterity_history"));
         if let Some(h) = &history {
             editor.load_history(h).ok();
@@ -493,6 +499,7 @@ impl Shell {
                     split::open_marks(&pending)
                 )
             };
+            editor.set_helper(Some(complete::Words::of(&self.ctx).await));
             let line = match editor.readline(&prompt) {
                 Ok(line) => line,
                 Err(rustyline::error::ReadlineError::Interrupted) => {
@@ -545,7 +552,11 @@ impl Shell {
     }
 
     /// Run the statements typed at the prompt; false when there were none.
-    async fn run_pending(&self, text: &str, editor: &mut rustyline::DefaultEditor) -> bool {
+    async fn run_pending(
+        &self,
+        text: &str,
+        editor: &mut rustyline::Editor<complete::Words, rustyline::history::DefaultHistory>,
+    ) -> bool {
         let (statements, _) = split::statements(text);
         editor.add_history_entry(text.trim()).ok();
         for sql in &statements {

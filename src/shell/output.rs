@@ -7,7 +7,6 @@ use std::path::Path;
 use datafusion::arrow::array::{Array, ArrayRef, AsArray, RecordBatch};
 use datafusion::arrow::datatypes::{DataType, Float64Type};
 use datafusion::arrow::util::display::{ArrayFormatter, FormatOptions};
-use datafusion::arrow::util::pretty::pretty_format_batches_with_options;
 use posterity::render::{describe, short};
 use serde_json::{Map, Number, Value};
 
@@ -36,21 +35,20 @@ impl Format {
     }
 }
 
-/// Render `batches` in `format`.
-pub fn render(batches: &[RecordBatch], format: Format) -> Result<String, String> {
+/// Render `batches` in `format`; a table fits `width` characters when given (a
+/// terminal's width): long cells are cut with an ellipsis, and rows too wide for it
+/// are shown one field per line.
+pub fn render(
+    batches: &[RecordBatch],
+    format: Format,
+    width: Option<usize>,
+) -> Result<String, String> {
     match format {
         Format::Table => {
             if batches.iter().all(|b| b.num_rows() == 0) && batches.is_empty() {
                 return Ok(String::new());
             }
-            let readable = batches
-                .iter()
-                .map(readable_batch)
-                .collect::<Result<Vec<_>, _>>()?;
-            let options = FormatOptions::default().with_null("NULL");
-            pretty_format_batches_with_options(&readable, &options)
-                .map(|t| format!("{t}\n"))
-                .map_err(|e| e.to_string())
+            table(batches, width)
         }
         Format::Csv => delimited(batches, ','),
         Format::Tsv => delimited(batches, '\t'),
@@ -68,6 +66,136 @@ pub fn render(batches: &[RecordBatch], format: Format) -> Result<String, String>
             .map(|r| format!("{r}\n"))
             .collect()),
     }
+}
+
+/// A table for people: every cell as readable text with tabs and line breaks
+/// shown escaped (so columns stay aligned), cut to fit `width`.
+fn table(batches: &[RecordBatch], width: Option<usize>) -> Result<String, String> {
+    let Some(first) = batches.first() else {
+        return Ok(String::new());
+    };
+    let names: Vec<String> = first
+        .schema()
+        .fields()
+        .iter()
+        .map(|f| f.name().clone())
+        .collect();
+    let mut rows: Vec<Vec<String>> = Vec::new();
+    let options = FormatOptions::default().with_null("NULL");
+    for batch in batches {
+        let readable = readable_batch(batch)?;
+        let formatters = readable
+            .columns()
+            .iter()
+            .map(|c| ArrayFormatter::try_new(c.as_ref(), &options))
+            .collect::<Result<Vec<_>, _>>()
+            .map_err(|e| e.to_string())?;
+        for r in 0..readable.num_rows() {
+            rows.push(
+                formatters
+                    .iter()
+                    .map(|f| escape(&f.value(r).to_string()))
+                    .collect(),
+            );
+        }
+    }
+    let chars = |s: &str| s.chars().count();
+    let mut widths: Vec<usize> = names.iter().map(|n| chars(n)).collect();
+    for row in &rows {
+        for (w, cell) in widths.iter_mut().zip(row) {
+            *w = (*w).max(chars(cell));
+        }
+    }
+    let total = widths.iter().sum::<usize>() + 3 * widths.len() + 1;
+    if let Some(limit) = width.filter(|&w| total > w && names.len() > 1) {
+        let label = names.iter().map(|n| chars(n)).max().unwrap_or(0);
+        if label + 8 < limit {
+            return Ok(vertical(&names, &rows, label, limit));
+        }
+    }
+    let limit = width.map(|w| w.saturating_sub(4).max(8));
+    let mut out = String::new();
+    let line = |widths: &[usize]| {
+        let parts: Vec<String> = widths.iter().map(|w| "-".repeat(w + 2)).collect();
+        format!("+{}+\n", parts.join("+"))
+    };
+    let widths: Vec<usize> = widths
+        .iter()
+        .map(|w| limit.map_or(*w, |l| (*w).min(l)))
+        .collect();
+    let row_text = |cells: &[String]| {
+        let parts: Vec<String> = cells
+            .iter()
+            .zip(&widths)
+            .map(|(c, w)| {
+                let c = cut(c, *w);
+                format!(" {c}{} ", " ".repeat(w - chars(&c)))
+            })
+            .collect();
+        format!("|{}|\n", parts.join("|"))
+    };
+    out.push_str(&line(&widths));
+    out.push_str(&row_text(&names));
+    out.push_str(&line(&widths));
+    for row in &rows {
+        out.push_str(&row_text(row));
+    }
+    out.push_str(&line(&widths));
+    Ok(out)
+}
+
+/// Rows too wide for the terminal: one `name | value` line per field.
+fn vertical(names: &[String], rows: &[Vec<String>], label: usize, width: usize) -> String {
+    let mut out = String::new();
+    for (i, row) in rows.iter().enumerate() {
+        out.push_str(&format!("-- row {} --\n", i + 1));
+        for (name, cell) in names.iter().zip(row) {
+            let pad = label - name.chars().count();
+            out.push_str(&format!(
+                "{name}{} | {}\n",
+                " ".repeat(pad),
+                cut(cell, width.saturating_sub(label + 3).max(8))
+            ));
+        }
+    }
+    out
+}
+
+/// Tabs, line breaks and other control characters as escapes, for alignment.
+fn escape(s: &str) -> String {
+    if !s.chars().any(char::is_control) {
+        return s.to_string();
+    }
+    s.chars()
+        .map(|c| match c {
+            '\n' => "\\n".to_string(),
+            '\t' => "\\t".to_string(),
+            '\r' => "\\r".to_string(),
+            c if c.is_control() => format!("\\u{{{:x}}}", c as u32),
+            c => c.to_string(),
+        })
+        .collect()
+}
+
+/// `s` in at most `width` characters, with an ellipsis where it was cut.
+fn cut(s: &str, width: usize) -> String {
+    if s.chars().count() <= width {
+        return s.to_string();
+    }
+    let kept: String = s.chars().take(width.saturating_sub(1)).collect();
+    format!("{kept}…")
+}
+
+/// The width of the terminal on standard output, if it is one.
+pub fn terminal_width() -> Option<usize> {
+    use std::io::IsTerminal;
+    if !std::io::stdout().is_terminal() {
+        return None;
+    }
+    // SAFETY: TIOCGWINSZ fills a winsize struct we own; a failure leaves it zeroed.
+    let mut size: libc::winsize = unsafe { std::mem::zeroed() };
+    let ok = unsafe { libc::ioctl(libc::STDOUT_FILENO, libc::TIOCGWINSZ, &mut size) } == 0;
+    (ok && size.ws_col > 0).then_some(size.ws_col as usize)
 }
 
 /// For people: floats with at most 6 significant digits, posteriors as their
@@ -280,4 +408,46 @@ pub fn write_atomically(path: &Path, text: &str) -> std::io::Result<()> {
         std::fs::remove_file(&tmp).ok();
     }
     result
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use datafusion::arrow::array::StringArray;
+    use datafusion::arrow::datatypes::{Field, Schema};
+    use std::sync::Arc;
+
+    fn batch(columns: &[(&str, Vec<&str>)]) -> RecordBatch {
+        let schema = Schema::new(
+            columns
+                .iter()
+                .map(|(n, _)| Field::new(*n, DataType::Utf8, true))
+                .collect::<Vec<_>>(),
+        );
+        let arrays: Vec<ArrayRef> = columns
+            .iter()
+            .map(|(_, v)| Arc::new(StringArray::from(v.clone())) as ArrayRef)
+            .collect();
+        RecordBatch::try_new(Arc::new(schema), arrays).unwrap()
+    }
+
+    #[test]
+    fn tables_escape_cut_and_turn_vertical() {
+        let b = batch(&[("t", vec!["a\tb\nc"])]);
+        let text = render(&[b], Format::Table, None).unwrap();
+        assert!(text.contains("| a\\tb\\nc |"), "{text}");
+        let long = "x".repeat(100);
+        let b = batch(&[("long", vec![long.as_str()])]);
+        let text = render(&[b.clone()], Format::Table, Some(40)).unwrap();
+        assert!(text.lines().all(|l| l.chars().count() <= 40), "{text}");
+        assert!(text.contains('…'));
+        // Never cut in CSV.
+        assert!(render(&[b], Format::Csv, Some(40)).unwrap().contains(&long));
+        let wide = batch(&[("first", vec!["one"]), ("second", vec![long.as_str()])]);
+        let text = render(&[wide], Format::Table, Some(60)).unwrap();
+        assert!(
+            text.starts_with("-- row 1 --\nfirst  | one\nsecond | xxx"),
+            "{text}"
+        );
+    }
 }

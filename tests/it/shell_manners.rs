@@ -278,7 +278,7 @@ impl Tmux {
         for key in keys {
             let mut c = Command::new("tmux");
             c.args(["send-keys", "-t", &self.0]);
-            if !matches!(*key, "Enter" | "C-c" | "C-d") {
+            if !matches!(*key, "Enter" | "C-c" | "C-d" | "Tab") {
                 c.arg("-l");
             }
             // A `;` ending an argument separates tmux commands unless escaped.
@@ -343,6 +343,10 @@ fn the_prompt_cancels_queries_and_keeps_tables() {
     std::thread::sleep(std::time::Duration::from_millis(1500));
     tmux.keys(&["C-c"]);
     tmux.wait_for("cancelled (Ctrl-C)");
+    // Tab completes the table's name.
+    tmux.keys(&["SELECT SUM(column1) AS total", "Enter", "FROM kep", "Tab"]);
+    tmux.wait_for("FROM kept");
+    tmux.keys(&["C-c"]);
     tmux.keys(&["SELECT SUM(column1) AS total", "Enter"]);
     tmux.wait_for("┆");
     tmux.keys(&["FROM kept;", "Enter"]);
