@@ -438,7 +438,7 @@ mod tests {
         assert!(text.contains("| a\\tb\\nc |"), "{text}");
         let long = "x".repeat(100);
         let b = batch(&[("long", vec![long.as_str()])]);
-        let text = render(&[b.clone()], Format::Table, Some(40)).unwrap();
+        let text = render(std::slice::from_ref(&b), Format::Table, Some(40)).unwrap();
         assert!(text.lines().all(|l| l.chars().count() <= 40), "{text}");
         assert!(text.contains('…'));
         // Never cut in CSV.
