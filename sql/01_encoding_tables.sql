@@ -6,7 +6,7 @@
 
 COPY (
   SELECT breed, p,
-         posterior_evidence(p)          AS bookings,
+         posterior_data_weight(p)          AS bookings,
          posterior_mean(p)              AS no_show_mean,
          posterior_sd(p)                AS no_show_sd,
          posterior_quantile(p, 0.05)    AS no_show_q05,
@@ -17,7 +17,7 @@ COPY (
 ) TO 'breed_enc.parquet' STORED AS PARQUET;
 
 COPY (
-  SELECT postcode_area, p, posterior_mean(p) AS no_show_mean, posterior_evidence(p) AS bookings
+  SELECT postcode_area, p, posterior_mean(p) AS no_show_mean, posterior_data_weight(p) AS bookings
   FROM (SELECT postcode_area, beta_posterior(no_show, beta_prior(2, 18)) AS p
         FROM appointments GROUP BY postcode_area)
   ORDER BY postcode_area

@@ -14,5 +14,5 @@ CREATE TABLE area_enc AS
 SELECT postcode_area, posterior_with_prior(p, q.prior) AS p FROM area_fit CROSS JOIN area_prior q;
 
 -- Unseen areas get the fitted prior itself.
-SELECT round(posterior_mean(prior), 4) AS prior_mean, round(posterior_evidence(prior), 1) AS prior_evidence
+SELECT round(posterior_mean(prior), 4) AS prior_mean, round(posterior_data_weight(prior), 1) AS prior_evidence
 FROM area_prior;

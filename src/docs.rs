@@ -234,13 +234,16 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
         example: "SELECT breed FROM breed_encodings WHERE posterior_prob_above(p, 0.10) > 0.95;",
     },
     FunctionDoc {
-        name: "posterior_evidence",
+        name: "posterior_data_weight",
         section: READ,
-        description: "Evidence behind the posterior: weighted trials (Beta), exposure (Gamma), \
-            weighted count (NIG) or total weighted count (Dirichlet).",
-        syntax: "posterior_evidence(p)",
+        description: "The amount of data behind the posterior, in the weight of its rows: \
+            weighted trials (Beta), exposure (Gamma), weighted count (NIG) or total weighted \
+            count (Dirichlet); 0 for a prior. Also callable as posterior_evidence, its name \
+            before this version, kept as an alias for now (in Bayesian usage \"evidence\" \
+            means the marginal likelihood, which this is not).",
+        syntax: "posterior_data_weight(p)",
         arguments: &[P],
-        example: "SELECT posterior_evidence(p) FROM breed_encodings;",
+        example: "SELECT posterior_data_weight(p) FROM breed_encodings;",
     },
     FunctionDoc {
         name: "posterior_draw",
@@ -290,7 +293,7 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
             posterior to a few pseudo-observations before using it as a prior).",
         syntax: "posterior_scale(p, factor)",
         arguments: &[P, ("factor", "A number in [0, 1].")],
-        example: "SELECT posterior_scale(p, least(1.0, 20 / posterior_evidence(p))) FROM region_enc;",
+        example: "SELECT posterior_scale(p, least(1.0, 20 / posterior_data_weight(p))) FROM region_enc;",
     },
     FunctionDoc {
         name: "posterior_with_prior",

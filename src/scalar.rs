@@ -67,6 +67,8 @@ pub struct ScalarFunction {
     name: &'static str,
     op: Op,
     signature: Signature,
+    /// Earlier names still accepted.
+    aliases: Vec<String>,
 }
 
 impl ScalarFunction {
@@ -75,11 +77,19 @@ impl ScalarFunction {
             name,
             op,
             signature: Signature::user_defined(Volatility::Immutable),
+            aliases: Vec::new(),
         }
     }
 
     pub fn udf(name: &'static str, op: Op) -> ScalarUDF {
         ScalarUDF::new_from_impl(ScalarFunction::new(name, op))
+    }
+
+    /// A function that also answers to an earlier name.
+    pub fn udf_with_alias(name: &'static str, alias: &str, op: Op) -> ScalarUDF {
+        let mut f = ScalarFunction::new(name, op);
+        f.aliases.push(alias.to_string());
+        ScalarUDF::new_from_impl(f)
     }
 }
 
@@ -97,7 +107,11 @@ pub fn all() -> Vec<ScalarUDF> {
         ScalarFunction::udf("posterior_quantile", Op::Read(Quantile)),
         ScalarFunction::udf("posterior_interval", Op::Read(Interval)),
         ScalarFunction::udf("posterior_prob_above", Op::Read(ProbAbove)),
-        ScalarFunction::udf("posterior_evidence", Op::Read(Evidence)),
+        ScalarFunction::udf_with_alias(
+            "posterior_data_weight",
+            "posterior_evidence",
+            Op::Read(Evidence),
+        ),
         ScalarFunction::udf("posterior_draw", Op::Read(Draw)),
         ScalarFunction::udf("posterior_merge", Op::Combine(Combine::Merge)),
         ScalarFunction::udf("posterior_subtract", Op::Combine(Combine::Subtract)),
@@ -161,6 +175,10 @@ impl ScalarFunction {
 impl ScalarUDFImpl for ScalarFunction {
     fn name(&self) -> &str {
         self.name
+    }
+
+    fn aliases(&self) -> &[String] {
+        &self.aliases
     }
 
     fn signature(&self) -> &Signature {

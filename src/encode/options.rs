@@ -107,8 +107,8 @@ pub enum Reader {
     Mean,
     Sd,
     Var,
-    /// The amount of data behind the posterior.
-    Evidence,
+    /// The amount of data behind the posterior (`data_weight`; `evidence` is accepted).
+    DataWeight,
     /// The quantile at a probability strictly between 0 and 1.
     Quantile(f64),
     /// P(theta > t).
@@ -123,7 +123,7 @@ impl Reader {
             "mean" => Reader::Mean,
             "sd" => Reader::Sd,
             "var" => Reader::Var,
-            "evidence" => Reader::Evidence,
+            "data_weight" | "evidence" => Reader::DataWeight,
             _ if s.starts_with('q') => {
                 let Ok(percent) = s[1..].parse::<f64>() else {
                     return usage(format!("--readers: '{s}' is not qNN (e.g. q05, q95)"));
@@ -143,11 +143,9 @@ impl Reader {
                     ))
                 }
             },
-            _ => {
-                return usage(format!(
-                    "--readers: unknown reader '{s}'; use mean, sd, var, evidence, qNN or above:T"
-                ))
-            }
+            _ => return usage(format!(
+                "--readers: unknown reader '{s}'; use mean, sd, var, data_weight, qNN or above:T"
+            )),
         })
     }
 
@@ -157,7 +155,7 @@ impl Reader {
             Reader::Mean => "mean".into(),
             Reader::Sd => "sd".into(),
             Reader::Var => "var".into(),
-            Reader::Evidence => "evidence".into(),
+            Reader::DataWeight => "data_weight".into(),
             Reader::Quantile(q) => format!("q{}", format_percent(*q)),
             Reader::Above(t) => format!("above:{t}"),
         }
@@ -174,7 +172,7 @@ impl Reader {
 
     /// Whether a Dirichlet encoding gets one column per class.
     pub fn per_class(&self) -> bool {
-        !matches!(self, Reader::Evidence)
+        !matches!(self, Reader::DataWeight)
     }
 
     /// The SQL of this reader over posterior expression `p` (and a class literal).
@@ -195,7 +193,7 @@ impl Reader {
                 "COALESCE(posterior_var({p}{class}), power({}, 2))",
                 half_width(p, &class)
             ),
-            Reader::Evidence => format!("posterior_evidence({p})"),
+            Reader::DataWeight => format!("posterior_data_weight({p})"),
             Reader::Quantile(q) => format!("posterior_quantile({p}{class}, {q})"),
             Reader::Above(t) => format!("posterior_prob_above({p}{class}, {t})"),
         }
@@ -304,7 +302,7 @@ mod tests {
             ("q95", "q95"),
             ("q97.5", "q97_5"),
             ("above:0.15", "above_0_15"),
-            ("evidence", "evidence"),
+            ("data_weight", "data_weight"),
         ] {
             let r = Reader::parse(spec).unwrap();
             assert_eq!(r.spec(), spec);

@@ -237,7 +237,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
     }
     if options.readers.is_empty() && options.draws.is_none() && options.indicators == 0 {
         return usage(
-            "--readers: name at least one reader (mean, sd, var, evidence, qNN, above:T)",
+            "--readers: name at least one reader (mean, sd, var, data_weight, qNN, above:T)",
         );
     }
     let keys = keys_of(options)?;
@@ -367,7 +367,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
             let b = one_row(
                 ctx,
                 &format!(
-                    "SELECT posterior_evidence(p), get_field(p, 'mean'), get_field(p, 'm2') / get_field(p, 'n') \
+                    "SELECT posterior_data_weight(p), get_field(p, 'mean'), get_field(p, 'm2') / get_field(p, 'n') \
                      FROM (SELECT nig_posterior(CAST({t} AS DOUBLE)) AS p FROM {from})"
                 ),
             )

@@ -188,8 +188,8 @@ impl EncodePlan {
                 format!("largest levels {k}"),
                 &format!("__top{i}"),
                 format!(
-                    "SELECT level, rank FROM (SELECT level, row_number() OVER (ORDER BY posterior_evidence(p) DESC, level) AS rank \
-                     FROM {enc} WHERE posterior_evidence(p) >= {}) WHERE rank <= {}",
+                    "SELECT level, rank FROM (SELECT level, row_number() OVER (ORDER BY posterior_data_weight(p) DESC, level) AS rank \
+                     FROM {enc} WHERE posterior_data_weight(p) >= {}) WHERE rank <= {}",
                     self.options.indicator_min_rows, self.options.indicators
                 ),
             ),

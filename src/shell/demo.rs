@@ -126,14 +126,14 @@ SELECT COUNT(*) AS appointments, COUNT(DISTINCT breed) AS breeds, COUNT(DISTINCT
     ("1. A prior centred on the base rate, then one posterior per breed (Beta family)", "
 CREATE TABLE breed_enc AS
 SELECT breed, beta_posterior(no_show, beta_prior(2, 18)) AS p FROM appointments WHERE day < 335 GROUP BY breed;
-SELECT breed, posterior_evidence(p) AS bookings, round(posterior_mean(p), 4) AS mean,
+SELECT breed, posterior_data_weight(p) AS bookings, round(posterior_mean(p), 4) AS mean,
        round(posterior_interval(p, 0.9)['lower'], 4) AS lower_90, round(posterior_interval(p, 0.9)['upper'], 4) AS upper_90,
        round(posterior_prob_above(p, 0.12), 3) AS p_above_12pct
 FROM breed_enc ORDER BY posterior_quantile(p, 0.05) DESC LIMIT 5"),
     ("2. Breeds we are surest are low-risk (highest 95% quantile is still small)", "
-SELECT breed, posterior_evidence(p) AS bookings, round(posterior_mean(p), 4) AS mean,
+SELECT breed, posterior_data_weight(p) AS bookings, round(posterior_mean(p), 4) AS mean,
        round(posterior_quantile(p, 0.95), 4) AS upper_95
-FROM breed_enc WHERE posterior_evidence(p) > 0 ORDER BY posterior_quantile(p, 0.95) LIMIT 5"),
+FROM breed_enc WHERE posterior_data_weight(p) > 0 ORDER BY posterior_quantile(p, 0.95) LIMIT 5"),
     ("3. Rare postcode areas are shrunk toward the prior; raw rates are not", "
 SELECT postcode_area, COUNT(*) AS bookings, SUM(no_show) AS no_shows, round(AVG(no_show), 3) AS raw_rate,
        round(posterior_mean(beta_posterior(no_show, beta_prior(2, 18))), 3) AS posterior_mean
@@ -162,7 +162,7 @@ SELECT clinic, round(posterior_mean(p, 'no_show'), 4) AS no_show, round(posterio
 FROM (SELECT clinic, dirichlet_posterior(outcome, dirichlet_prior(['attended', 'no_show', 'late_cancellation', 'rescheduled'], 1)) AS p
       FROM appointments GROUP BY clinic) ORDER BY clinic LIMIT 4"),
     ("8. Invoice amount per vet (Normal-Inverse-Gamma, Student-t marginal)", "
-SELECT vet, posterior_evidence(p) AS invoices, round(posterior_mean(p), 2) AS mean_amount,
+SELECT vet, posterior_data_weight(p) AS invoices, round(posterior_mean(p), 2) AS mean_amount,
        round(posterior_interval(p, 0.95)['lower'], 2) AS lower_95, round(posterior_interval(p, 0.95)['upper'], 2) AS upper_95
 FROM (SELECT vet, nig_posterior(amount, nig_prior(80, 1, 2, 500)) AS p FROM appointments GROUP BY vet)
 ORDER BY posterior_mean(p) DESC LIMIT 4"),

@@ -147,7 +147,7 @@ async fn odd_but_valid_inputs() {
     posterity::register(&ctx);
     let huge = "k".repeat(100_000);
     let sql = format!(
-        "SELECT key IS NULL AS null_key, length(key) AS len, posterior_evidence(beta_posterior(y)) AS n
+        "SELECT key IS NULL AS null_key, length(key) AS len, posterior_data_weight(beta_posterior(y)) AS n
          FROM (VALUES ('{huge}', 1), ('', 0), (NULL, 1), (NULL, NULL)) t(key, y) GROUP BY key ORDER BY len NULLS LAST"
     );
     let batches = ctx.sql(&sql).await.unwrap().collect().await.unwrap();

@@ -186,7 +186,7 @@ fn copy_to_parquet_and_read_back() {
         "-t",
         &format!("e={}", out.display()),
         "-c",
-        "SELECT breed, posterior_evidence(p) AS n, posterior_evidence(a) AS k FROM e ORDER BY breed",
+        "SELECT breed, posterior_data_weight(p) AS n, posterior_data_weight(a) AS k FROM e ORDER BY breed",
     ]);
     assert_eq!(
         stdout(&o),

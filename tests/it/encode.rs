@@ -1046,7 +1046,7 @@ async fn outputs_are_finite_for_every_family_and_prior() {
                 "--prior",
                 prior,
                 "--readers",
-                "mean,sd,var,q05,evidence",
+                "mean,sd,var,q05,data_weight",
                 "--score",
                 &train,
                 "--out",

@@ -123,7 +123,7 @@ async fn fit_matches_count_and_sum() {
         assert!(d.unwrap().abs() < 1e-15);
     }
     let sql =
-        "SELECT posterior_evidence(beta_posterior(no_show)) - COUNT(*) FROM appts GROUP BY breed";
+        "SELECT posterior_data_weight(beta_posterior(no_show)) - COUNT(*) FROM appts GROUP BY breed";
     for d in floats(&c, sql).await {
         assert_eq!(d.unwrap(), 0.0);
     }
@@ -161,7 +161,7 @@ async fn partition_and_batch_invariance() {
 #[tokio::test]
 async fn window_as_of_and_sliding() {
     let c = ctx().await;
-    let sql = "SELECT posterior_evidence(beta_posterior(no_show) OVER (PARTITION BY breed ORDER BY t ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)) FROM appts WHERE breed = 'beagle' ORDER BY t";
+    let sql = "SELECT posterior_data_weight(beta_posterior(no_show) OVER (PARTITION BY breed ORDER BY t ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)) FROM appts WHERE breed = 'beagle' ORDER BY t";
     let got = floats(&c, sql).await;
     let want: Vec<Option<f64>> = (0..10).map(|i| Some(i as f64)).collect();
     assert_eq!(got, want);
@@ -296,7 +296,7 @@ async fn nulls_are_ignored_or_propagated() {
     close(
         one(
             &c,
-            "SELECT posterior_evidence(beta_posterior(y)) FROM (VALUES (1), (NULL), (0)) t(y)",
+            "SELECT posterior_data_weight(beta_posterior(y)) FROM (VALUES (1), (NULL), (0)) t(y)",
         )
         .await,
         2.0,
@@ -375,10 +375,41 @@ async fn functions_are_documented_in_information_schema() {
     let b = query(&c, "SELECT DISTINCT routine_name FROM information_schema.routines WHERE (routine_name LIKE 'posterior_%' OR routine_name LIKE '%_prior' OR routine_name LIKE '%_posterior%') AND length(description) > 20 AND syntax_example LIKE '%(%'").await;
     let n: usize = b.iter().map(|b| b.num_rows()).sum();
     assert!(n >= 20, "{n} functions listed");
-    for f in posterity::docs::FUNCTIONS {
-        assert!(posterity::docs::get(f.name).is_some());
-    }
+    // Both ways: every registered function carries the documentation of its name,
+    // and every documented name is a registered function.
+    let mut registered: Vec<String> = posterity::scalar::all()
+        .iter()
+        .map(|f| {
+            assert_eq!(
+                f.documentation(),
+                posterity::docs::get(f.name()),
+                "{}",
+                f.name()
+            );
+            assert!(f.documentation().is_some(), "{} is undocumented", f.name());
+            f.name().to_string()
+        })
+        .chain(posterity::aggregates().iter().map(|f| {
+            assert!(f.documentation().is_some(), "{} is undocumented", f.name());
+            f.name().to_string()
+        }))
+        .collect();
+    registered.sort();
+    let mut documented: Vec<String> = posterity::docs::FUNCTIONS
+        .iter()
+        .map(|f| f.name.to_string())
+        .collect();
+    documented.sort();
+    assert_eq!(registered, documented);
     let _ = Float64Array::from(vec![1.0]);
+}
+
+// posterior_evidence, the earlier name of posterior_data_weight, still works.
+#[tokio::test]
+async fn earlier_names_still_work() {
+    let c = ctx().await;
+    let v = floats(&c, "SELECT posterior_evidence(beta_posterior(no_show)) - posterior_data_weight(beta_posterior(no_show)) FROM appts").await;
+    assert_eq!(v, [Some(0.0)]);
 }
 
 // The join rule builds on the aggregate (the encodings) instead of the rows, and
