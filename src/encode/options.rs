@@ -143,9 +143,11 @@ impl Reader {
                     ))
                 }
             },
-            _ => return usage(format!(
+            _ => {
+                return usage(format!(
                 "--readers: unknown reader '{s}'; use mean, sd, var, data_weight, qNN or above:T"
-            )),
+            ))
+            }
         })
     }
 

@@ -215,6 +215,25 @@ pub(super) fn require_columns<'a>(
     Ok(())
 }
 
+/// The scoring table's columns, after checking that it has every key column.
+pub(super) async fn scoring_columns(
+    ctx: &SessionContext,
+    score: Option<&str>,
+    keys: &[KeyPlan],
+) -> Result<Vec<String>> {
+    let Some(score) = score else {
+        return Ok(Vec::new());
+    };
+    let columns = columns_of(ctx, score).await?;
+    require_columns(
+        "scoring table",
+        &columns,
+        keys.iter()
+            .flat_map(|k| k.columns.iter().map(|c| (c, "key column".to_string()))),
+    )?;
+    Ok(columns.into_iter().map(|(n, _)| n).collect())
+}
+
 async fn one_row(ctx: &SessionContext, sql: &str) -> Result<datafusion::arrow::array::RecordBatch> {
     let batches = ctx.sql(sql).await?.collect().await?;
     batches
@@ -263,19 +282,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
                     .map(|c| (c, "--exposure".to_string())),
             ),
     )?;
-    let score_columns = match &options.score {
-        Some(score) => {
-            let columns = columns_of(ctx, score).await?;
-            require_columns(
-                "scoring table",
-                &columns,
-                keys.iter()
-                    .flat_map(|k| k.columns.iter().map(|c| (c, "key column".to_string()))),
-            )?;
-            columns.into_iter().map(|(n, _)| n).collect()
-        }
-        None => Vec::new(),
-    };
+    let score_columns = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
 
     let t = quote(target);
     let from = quote(&options.train);

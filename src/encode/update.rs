@@ -11,7 +11,9 @@ use datafusion::datasource::MemTable;
 use datafusion::prelude::SessionContext;
 
 use super::options::{EncodeOptions, Family, Method, PriorChoice, Reader, TimeTies};
-use super::resolve::{check_output_names, columns_of, require_columns, EncodePlan, KeyPlan};
+use super::resolve::{
+    check_output_names, columns_of, require_columns, scoring_columns, EncodePlan, KeyPlan,
+};
 use super::run::{execute, finish, number_rows, EncodeOutput};
 use super::sql::{SCORE, TRAIN};
 use super::{text, usage, EncodeError, Result};
@@ -137,19 +139,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
                     .map(|c| (c, "--exposure".to_string())),
             ),
     )?;
-    let score_columns = match &options.score {
-        Some(score) => {
-            let columns = columns_of(ctx, score).await?;
-            require_columns(
-                "scoring table",
-                &columns,
-                keys.iter()
-                    .flat_map(|k| k.columns.iter().map(|c| (c, "key column".to_string()))),
-            )?;
-            columns.into_iter().map(|(n, _)| n).collect()
-        }
-        None => Vec::new(),
-    };
+    let score_columns = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
     let mut encode_options = EncodeOptions::new(&options.train, &previous.target, &[]);
     encode_options.readers = readers;
     encode_options.exposure = options.exposure.clone();
