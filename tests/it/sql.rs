@@ -571,3 +571,76 @@ async fn infinite_variance_reads_as_null() {
     let sd = floats(&ctx, "SELECT posterior_sd(nig_prior(5, 2, 0.9, 3))").await;
     assert_eq!(sd[0], None);
 }
+
+// Readers at the edge of their domain, for every family, against closed forms
+// (BDA3, Appendix A: Beta mean a/(a+b), variance ab/((a+b)^2(a+b+1)); Gamma mean
+// k/r, variance k/r^2; the NIG marginal of the mean is a Student-t with 2 alpha
+// degrees of freedom, location mu, scale^2 = beta/(alpha kappa); Dirichlet
+// marginals are Beta(a_i, sum - a_i)): zero evidence (the prior itself), one row,
+// and extreme shapes.
+#[tokio::test]
+async fn readers_at_the_edges_of_their_domains() {
+    let c = ctx().await;
+    let cases: &[(&str, f64, f64)] = &[
+        // (posterior expression, mean, variance)
+        (
+            "beta_prior(2, 38)",
+            2.0 / 40.0,
+            2.0 * 38.0 / (40.0f64.powi(2) * 41.0),
+        ),
+        (
+            "beta_posterior(y, beta_prior(2, 38)) FROM (VALUES (1)) t(y)",
+            3.0 / 41.0,
+            3.0 * 38.0 / (41.0f64.powi(2) * 42.0),
+        ),
+        ("beta_prior(1e-3, 1e-3)", 0.5, 0.25 / (2e-3 + 1.0)),
+        (
+            "beta_prior(1e7, 3e7)",
+            0.25,
+            1e7 * 3e7 / (4e7f64.powi(2) * (4e7 + 1.0)),
+        ),
+        ("gamma_prior(0.5, 1)", 0.5, 0.5),
+        (
+            "gamma_posterior(e, 2.0, gamma_prior(0.5, 1)) FROM (VALUES (3)) t(e)",
+            3.5 / 3.0,
+            3.5 / 9.0,
+        ),
+        (
+            "nig_prior(10, 2, 3, 4)",
+            10.0,
+            (4.0 / (3.0 * 2.0)) * 6.0 / 4.0,
+        ),
+        (
+            "dirichlet_prior(['a', 'b', 'c'], [1, 2, 5])",
+            1.0 / 8.0,
+            1.0 * 7.0 / (64.0 * 9.0),
+        ),
+    ];
+    for (p, mean, var) in cases {
+        let (expr, from) = match p.split_once(" FROM ") {
+            Some((expr, rest)) => (expr, format!(" FROM {rest}")),
+            None => (*p, String::new()),
+        };
+        let class = if expr.contains("dirichlet") {
+            ", 'a'"
+        } else {
+            ""
+        };
+        let sql = format!(
+            "SELECT posterior_mean(q{class}), posterior_var(q{class}), posterior_quantile(q{class}, 1e-10), posterior_quantile(q{class}, 1 - 1e-10) FROM (SELECT {expr} AS q{from})"
+        );
+        let b = query(&c, &sql).await;
+        let v = |i: usize| b[0].column(i).as_primitive::<Float64Type>().value(0);
+        close(v(0), *mean, 1e-14);
+        close(v(1), *var, 1e-12);
+        // Extreme quantiles are finite and ordered around the mean.
+        assert!(v(2).is_finite() && v(3).is_finite(), "{sql}");
+        assert!(
+            v(2) <= *mean && *mean <= v(3),
+            "{sql}: {} {} {}",
+            v(2),
+            mean,
+            v(3)
+        );
+    }
+}
