@@ -373,6 +373,15 @@ pub fn build(kind: Kind, rows: &[Option<AnyPosterior>]) -> Result<ArrayRef> {
     let DataType::Struct(fields) = kind.data_type() else {
         unreachable!("posterior types are structs")
     };
+    // A posterior of another family has no place in this column: an error, never
+    // a row of zeros.
+    if let Some(other) = rows.iter().flatten().find(|p| p.kind() != kind) {
+        return datafusion::common::exec_err!(
+            "a {} posterior cannot be stored in a column of {} posteriors",
+            other.kind().name(),
+            kind.name()
+        );
+    }
     let nulls = NullBuffer::from(rows.iter().map(Option::is_some).collect::<Vec<bool>>());
     let columns: Vec<ArrayRef> = if kind == Kind::Dirichlet {
         let mut classes = ListBuilder::new(StringBuilder::new());
@@ -415,6 +424,7 @@ pub fn build(kind: Kind, rows: &[Option<AnyPosterior>]) -> Result<ArrayRef> {
                     p.stats.mean,
                     p.stats.m2,
                 ],
+                // NULL rows: masked by the null buffer.
                 _ => vec![0.0; width],
             };
             for (col, v) in cols.iter_mut().zip(values) {

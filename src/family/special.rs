@@ -125,12 +125,6 @@ fn ln_poisson_density(x: f64, lambda: f64) -> f64 {
     -stirlerr(x) - bd0(x, lambda) - 0.5 * (2.0 * PI * x).ln()
 }
 
-/// x^a e^(-x) / Γ(a): the prefactor of the incomplete gamma function, assembled
-/// in logs so that extreme shapes neither overflow nor lose digits.
-pub fn gamma_prefactor(a: f64, x: f64) -> f64 {
-    (a.ln() + ln_poisson_density(a, x)).exp()
-}
-
 /// x^a y^b / B(a, b) with y = 1 - x given separately: the incomplete beta prefactor.
 pub fn beta_prefactor(a: f64, b: f64, x: f64, y: f64) -> f64 {
     let n = a + b;
