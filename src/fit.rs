@@ -38,12 +38,24 @@ pub fn family_error(function: &str, e: FamilyError) -> DataFusionError {
     DataFusionError::Execution(format!("{function}: {e}"))
 }
 
+/// How a kernel's partial state travels between partitions.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum StateLayout {
+    /// A fixed set of statistics: one Float64 column per `[hi, lo]` half, named
+    /// `<stat>` and `<stat>.lo`.
+    Columns(&'static [&'static str]),
+    /// As many statistics as the prior says (Dirichlet classes): one list column.
+    List(&'static str),
+}
+
 /// What a family contributes to a fit aggregate.
 pub trait FitKernel: Debug + Clone + Send + Sync + 'static {
     /// The SQL function name.
     const NAME: &'static str;
     /// Family of the result.
     const KIND: Kind;
+    /// The partial state's layout.
+    const STATE: StateLayout;
     /// Index of the prior among the arguments, if the function takes one.
     const PRIOR_ARG: usize;
     /// Build from the prior (or the default when `None`).
@@ -215,6 +227,7 @@ fn beta_finish(prior: &BetaPrior, stats: &[f64]) -> Result<ArrayRef> {
 impl FitKernel for BetaOutcomes {
     const NAME: &'static str = "beta_posterior";
     const KIND: Kind = Kind::Beta;
+    const STATE: StateLayout = StateLayout::Columns(&["successes", "trials"]);
     const PRIOR_ARG: usize = 1;
 
     fn new(prior: Option<AnyPosterior>) -> Result<Self> {
@@ -304,6 +317,7 @@ pub struct BetaCounts {
 impl FitKernel for BetaCounts {
     const NAME: &'static str = "beta_posterior_counts";
     const KIND: Kind = Kind::Beta;
+    const STATE: StateLayout = StateLayout::Columns(&["successes", "trials"]);
     const PRIOR_ARG: usize = 2;
 
     fn new(prior: Option<AnyPosterior>) -> Result<Self> {
@@ -371,6 +385,7 @@ pub struct GammaCounts {
 impl FitKernel for GammaCounts {
     const NAME: &'static str = "gamma_posterior";
     const KIND: Kind = Kind::Gamma;
+    const STATE: StateLayout = StateLayout::Columns(&["events", "exposure"]);
     const PRIOR_ARG: usize = 2;
 
     fn new(prior: Option<AnyPosterior>) -> Result<Self> {
@@ -468,6 +483,7 @@ pub struct NigValues {
 impl FitKernel for NigValues {
     const NAME: &'static str = "nig_posterior";
     const KIND: Kind = Kind::Nig;
+    const STATE: StateLayout = StateLayout::Columns(&["weight", "centred_sum", "centred_squares"]);
     const PRIOR_ARG: usize = 1;
 
     fn new(prior: Option<AnyPosterior>) -> Result<Self> {
@@ -577,6 +593,8 @@ pub struct DirichletClasses {
 impl FitKernel for DirichletClasses {
     const NAME: &'static str = "dirichlet_posterior";
     const KIND: Kind = Kind::Dirichlet;
+    /// Per class, the compensated count as a `[hi, lo]` pair.
+    const STATE: StateLayout = StateLayout::List("counts");
     const PRIOR_ARG: usize = 1;
 
     fn new(prior: Option<AnyPosterior>) -> Result<Self> {
@@ -852,29 +870,18 @@ impl<K: FitKernel> FitAggregate<K> {
     }
 
     fn state_fields_for(name: &str) -> Vec<FieldRef> {
-        if K::KIND == Kind::Dirichlet {
-            // Per class, the compensated count as a (hi, lo) pair.
-            vec![Arc::new(Field::new(
-                format!("{name}[counts]"),
+        match K::STATE {
+            StateLayout::List(stat) => vec![Arc::new(Field::new(
+                format!("{name}[{stat}]"),
                 DataType::List(Arc::new(Field::new_list_field(DataType::Float64, true))),
                 true,
-            ))]
-        } else {
-            stat_names(K::KIND)
+            ))],
+            StateLayout::Columns(stats) => stats
                 .iter()
                 .flat_map(|stat| [format!("{name}[{stat}]"), format!("{name}[{stat}.lo]")])
                 .map(|field| Arc::new(Field::new(field, DataType::Float64, true)))
-                .collect()
+                .collect(),
         }
-    }
-}
-
-fn stat_names(kind: Kind) -> &'static [&'static str] {
-    match kind {
-        Kind::Beta => &["successes", "trials"],
-        Kind::Gamma => &["events", "exposure"],
-        Kind::Nig => &["weight", "centred_sum", "centred_squares"],
-        Kind::Dirichlet => &["counts"],
     }
 }
 
@@ -980,7 +987,7 @@ impl<K: FitKernel> FitGroups<K> {
 
     fn state_arrays(&self, stats: Vec<f64>) -> Result<Vec<ArrayRef>> {
         let w = self.kernel.width();
-        if K::KIND == Kind::Dirichlet {
+        if let StateLayout::List(_) = K::STATE {
             let groups = stats.len() / w;
             let offsets = OffsetBuffer::from_lengths(std::iter::repeat_n(w, groups));
             let values = Arc::new(Float64Array::from(stats));
@@ -1001,7 +1008,7 @@ impl<K: FitKernel> FitGroups<K> {
     /// Statistics of row `i` of a state batch.
     fn state_row(&self, values: &[ArrayRef], i: usize, out: &mut Vec<f64>) -> Result<()> {
         out.clear();
-        if K::KIND == Kind::Dirichlet {
+        if let StateLayout::List(_) = K::STATE {
             let list = values[0].as_list::<i32>();
             if list.is_null(i) {
                 out.resize(self.kernel.width(), 0.0);
@@ -1010,7 +1017,7 @@ impl<K: FitKernel> FitGroups<K> {
                 out.extend(row.as_primitive::<Float64Type>().values().iter());
                 if out.len() != self.kernel.width() {
                     return exec_err!(
-                        "{}: state has {} classes, expected {}",
+                        "{}: a partial state has {} statistics, expected {}",
                         K::NAME,
                         out.len(),
                         self.kernel.width()
@@ -1134,5 +1141,95 @@ impl<K: FitKernel> Accumulator for FitAccumulator<K> {
     fn merge_batch(&mut self, states: &[ArrayRef]) -> Result<()> {
         let n = states.first().map_or(0, |v| v.len());
         GroupsAccumulator::merge_batch(&mut self.groups, states, &vec![0; n], 1)
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use datafusion::arrow::array::{Int64Array, StringArray};
+
+    fn posteriors(array: &ArrayRef) -> Vec<Option<AnyPosterior>> {
+        let column = PosteriorColumn::new("test", array).unwrap();
+        (0..array.len()).map(|i| column.get(i).unwrap()).collect()
+    }
+
+    fn beta() -> FitGroups<BetaOutcomes> {
+        FitGroups::new(BetaOutcomes::new(None).unwrap())
+    }
+
+    fn dirichlet() -> FitGroups<DirichletClasses> {
+        let prior = DirichletPrior::new(vec!["a".into(), "b".into()], vec![1.0, 1.0]).unwrap();
+        let p =
+            AnyPosterior::Dirichlet(DirichletPosterior::from_parts(prior, vec![0.0, 0.0]).unwrap());
+        FitGroups::new(DirichletClasses::new(Some(p)).unwrap())
+    }
+
+    fn evidence(p: &[Option<AnyPosterior>]) -> Vec<f64> {
+        p.iter().map(|p| p.as_ref().unwrap().evidence()).collect()
+    }
+
+    #[test]
+    fn emits_the_first_groups_then_the_rest() {
+        let mut g = beta();
+        let y: ArrayRef = Arc::new(Int64Array::from(vec![1, 0, 1, 1, 0]));
+        g.update_batch(&[y], &[0, 1, 2, 2, 0], None, 3).unwrap();
+        let first = posteriors(&g.evaluate(EmitTo::First(2)).unwrap());
+        assert_eq!(evidence(&first), [2.0, 1.0]);
+        let rest = posteriors(&g.evaluate(EmitTo::All).unwrap());
+        assert_eq!(evidence(&rest), [2.0]);
+    }
+
+    #[test]
+    fn states_round_trip_and_null_rows_are_ignored() {
+        let y: ArrayRef = Arc::new(Int64Array::from(vec![Some(1), None, Some(0), Some(1)]));
+        let groups = [0, 0, 1, 1];
+        let mut direct = beta();
+        direct
+            .update_batch(std::slice::from_ref(&y), &groups, None, 2)
+            .unwrap();
+        // Partial states of two halves merged in the other order.
+        let (mut a, mut b) = (beta(), beta());
+        a.update_batch(&[y.slice(0, 2)], &groups[..2], None, 2)
+            .unwrap();
+        b.update_batch(&[y.slice(2, 2)], &groups[2..], None, 2)
+            .unwrap();
+        let mut merged = beta();
+        merged
+            .merge_batch(&b.state(EmitTo::All).unwrap(), &[0, 1], 2)
+            .unwrap();
+        merged
+            .merge_batch(&a.state(EmitTo::All).unwrap(), &[0, 1], 2)
+            .unwrap();
+        // Rows turned straight into states (the engine's skip of partial aggregation).
+        let mut converted = beta();
+        let states = direct
+            .convert_to_state(std::slice::from_ref(&y), None)
+            .unwrap();
+        converted.merge_batch(&states, &groups, 2).unwrap();
+        let want = posteriors(&direct.evaluate(EmitTo::All).unwrap());
+        assert_eq!(evidence(&want), [1.0, 2.0], "the NULL row is ignored");
+        assert_eq!(posteriors(&merged.evaluate(EmitTo::All).unwrap()), want);
+        assert_eq!(posteriors(&converted.evaluate(EmitTo::All).unwrap()), want);
+    }
+
+    #[test]
+    fn dirichlet_states_travel_as_lists() {
+        let class: ArrayRef = Arc::new(StringArray::from(vec![
+            Some("a"),
+            None,
+            Some("b"),
+            Some("b"),
+        ]));
+        let mut direct = dirichlet();
+        direct
+            .update_batch(std::slice::from_ref(&class), &[0, 0, 0, 1], None, 2)
+            .unwrap();
+        let state = direct.state(EmitTo::All).unwrap();
+        assert_eq!(state.len(), 1);
+        let mut merged = dirichlet();
+        merged.merge_batch(&state, &[0, 1], 2).unwrap();
+        let got = posteriors(&merged.evaluate(EmitTo::All).unwrap());
+        assert_eq!(evidence(&got), [2.0, 1.0]);
     }
 }

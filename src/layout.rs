@@ -45,6 +45,17 @@ pub enum Kind {
 }
 
 impl Kind {
+    /// The family's short name, as written in options and bundles: `beta`, `gamma`,
+    /// `nig`, `dirichlet`.
+    pub fn short_name(self) -> &'static str {
+        match self {
+            Kind::Beta => "beta",
+            Kind::Gamma => "gamma",
+            Kind::Nig => "nig",
+            Kind::Dirichlet => "dirichlet",
+        }
+    }
+
     pub fn name(self) -> &'static str {
         match self {
             Kind::Beta => "Beta",

@@ -1,26 +1,7 @@
 //! What a user asks of `encode`, before it meets the data.
 
 use super::{usage, Result};
-
-/// Which conjugate family the target gets.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Family {
-    Beta,
-    Gamma,
-    Nig,
-    Dirichlet,
-}
-
-impl Family {
-    pub fn name(self) -> &'static str {
-        match self {
-            Family::Beta => "beta",
-            Family::Gamma => "gamma",
-            Family::Nig => "nig",
-            Family::Dirichlet => "dirichlet",
-        }
-    }
-}
+use crate::layout::Kind;
 
 /// How training rows are kept from seeing their own target. (Leave-one-out is not
 /// offered: within a level its values reveal each row's own target to tree learners;
@@ -230,7 +211,7 @@ pub struct EncodeOptions {
     /// Interaction keys, each two or more columns.
     pub interactions: Vec<Vec<String>>,
     /// `None`: inferred from the target's type and values.
-    pub family: Option<Family>,
+    pub family: Option<Kind>,
     pub prior: PriorChoice,
     /// `None`: `Time` when a time column is given, else `Kfold`.
     pub method: Option<Method>,

@@ -6,8 +6,9 @@ use datafusion::arrow::compute::cast;
 use datafusion::arrow::datatypes::{DataType, Float64Type, Int64Type};
 use datafusion::prelude::SessionContext;
 
-use super::options::{EncodeOptions, Family, Method, PriorChoice};
+use super::options::{EncodeOptions, Method, PriorChoice};
 use super::{quote, sanitize, text, usage, EncodeError, Result};
+use crate::layout::Kind;
 
 /// One encoded key: a column or an interaction of columns.
 #[derive(Debug, Clone, PartialEq)]
@@ -50,7 +51,7 @@ impl KeyPlan {
 #[derive(Debug, Clone)]
 pub struct EncodePlan {
     pub options: EncodeOptions,
-    pub family: Family,
+    pub family: Kind,
     pub method: Method,
     /// Dirichlet classes, sorted; empty for the other families.
     pub classes: Vec<String>,
@@ -302,13 +303,13 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
     let family = match options.family {
         Some(f) => f,
         None => match &target_type {
-            DataType::Boolean => Family::Beta,
+            DataType::Boolean => Kind::Beta,
             d if d.is_integer() || d.is_floating() => match (binary().await?, d.is_integer()) {
-                (true, _) => Family::Beta,
-                (false, true) => Family::Gamma,
-                (false, false) => Family::Nig,
+                (true, _) => Kind::Beta,
+                (false, true) => Kind::Gamma,
+                (false, false) => Kind::Nig,
             },
-            DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => Family::Dirichlet,
+            DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => Kind::Dirichlet,
             other => {
                 return usage(format!(
                     "cannot infer a family for target '{target}' of type {other}; pass --family"
@@ -316,14 +317,14 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
             }
         },
     };
-    if options.exposure.is_some() && family != Family::Gamma {
+    if options.exposure.is_some() && family != Kind::Gamma {
         return usage(format!(
             "--exposure is for count targets (the gamma family); target '{target}' is encoded \
              with the {} family",
-            family.name()
+            family.short_name()
         ));
     }
-    let classes = if family == Family::Dirichlet {
+    let classes = if family == Kind::Dirichlet {
         let batches = ctx
             .sql(&format!(
                 "SELECT DISTINCT CAST({t} AS VARCHAR) AS c FROM {from} WHERE {t} IS NOT NULL ORDER BY c"
@@ -350,23 +351,21 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         .collect::<Vec<_>>()
         .join(", ");
     let base_prior = match (family, &options.prior) {
-        (Family::Beta, PriorChoice::Fitted | PriorChoice::Jeffreys) => {
-            "beta_prior(0.5, 0.5)".into()
-        }
-        (Family::Beta, PriorChoice::Uniform) => "beta_prior(1, 1)".into(),
-        (Family::Beta, PriorChoice::Numbers(v)) if v.len() == 2 => {
+        (Kind::Beta, PriorChoice::Fitted | PriorChoice::Jeffreys) => "beta_prior(0.5, 0.5)".into(),
+        (Kind::Beta, PriorChoice::Uniform) => "beta_prior(1, 1)".into(),
+        (Kind::Beta, PriorChoice::Numbers(v)) if v.len() == 2 => {
             format!("beta_prior({}, {})", v[0], v[1])
         }
-        (Family::Gamma, PriorChoice::Numbers(v)) if v.len() == 2 => {
+        (Kind::Gamma, PriorChoice::Numbers(v)) if v.len() == 2 => {
             format!("gamma_prior({}, {})", v[0], v[1])
         }
-        (Family::Gamma, PriorChoice::Numbers(_)) => String::new(),
-        (Family::Gamma, _) => "gamma_prior(0.5, 1)".into(),
-        (Family::Nig, PriorChoice::Numbers(v)) if v.len() == 4 => {
+        (Kind::Gamma, PriorChoice::Numbers(_)) => String::new(),
+        (Kind::Gamma, _) => "gamma_prior(0.5, 1)".into(),
+        (Kind::Nig, PriorChoice::Numbers(v)) if v.len() == 4 => {
             format!("nig_prior({}, {}, {}, {})", v[0], v[1], v[2], v[3])
         }
-        (Family::Nig, PriorChoice::Numbers(_)) => String::new(),
-        (Family::Nig, _) => {
+        (Kind::Nig, PriorChoice::Numbers(_)) => String::new(),
+        (Kind::Nig, _) => {
             // A weak prior on the data's own scale: centred on the overall mean, worth
             // one observation, with the overall variance as the expected within-level
             // variance. posterity's own fit, not AVG/VAR_POP: its sums do not depend on
@@ -394,11 +393,11 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
             };
             format!("nig_prior({}, 1, 2, {})", get(1), var)
         }
-        (Family::Dirichlet, PriorChoice::Fitted | PriorChoice::Jeffreys) => {
+        (Kind::Dirichlet, PriorChoice::Fitted | PriorChoice::Jeffreys) => {
             format!("dirichlet_prior([{class_list}], 0.5)")
         }
-        (Family::Dirichlet, PriorChoice::Uniform) => format!("dirichlet_prior([{class_list}], 1)"),
-        (Family::Dirichlet, PriorChoice::Numbers(v)) if v.len() == 1 => {
+        (Kind::Dirichlet, PriorChoice::Uniform) => format!("dirichlet_prior([{class_list}], 1)"),
+        (Kind::Dirichlet, PriorChoice::Numbers(v)) if v.len() == 1 => {
             format!("dirichlet_prior([{class_list}], {})", v[0])
         }
         _ => String::new(),
@@ -408,7 +407,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
             "--prior '{}' does not fit the {} family; use fitted, jeffreys, uniform or its \
              numbers (beta: a,b; gamma: shape,rate; nig: mu0,kappa0,alpha0,beta0; dirichlet: c)",
             options.prior.describe(),
-            family.name()
+            family.short_name()
         ));
     }
     // A prior given as numbers is checked here, before anything runs.

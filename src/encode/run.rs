@@ -232,7 +232,7 @@ pub(super) async fn finish(
         }
         summary.push(ColumnSummary {
             key: key.name.clone(),
-            family: plan.family.name().to_string(),
+            family: plan.family.short_name().to_string(),
             prior: crate::bundle::posterior_json(&prior),
             prior_text: crate::render::describe(&prior),
             strength,
@@ -267,7 +267,7 @@ pub(super) async fn finish(
     }
     let bundle = Bundle {
         target: plan.options.target.clone(),
-        family: plan.family.name().to_string(),
+        family: plan.family.short_name().to_string(),
         readers: plan.options.readers.iter().map(|r| r.spec()).collect(),
         columns,
     };

@@ -7,9 +7,10 @@
 //! (level, time) — and are joined to the rows; only leave-one-out and file-order
 //! as-of encodings have a posterior per row.
 
-use super::options::{Family, Method, TimeTies};
+use super::options::{Method, TimeTies};
 use super::resolve::{EncodePlan, KeyPlan};
 use super::{quote, text};
+use crate::layout::Kind;
 
 /// The numbered training rows (`__row` in table order), registered by `run`.
 pub(crate) const TRAIN: &str = "__encode_train_rows";
@@ -50,13 +51,13 @@ impl EncodePlan {
         let y = format!("t.{}", quote(&self.options.target));
         let prior = key.prior.as_ref().unwrap_or(&self.base_prior);
         match self.family {
-            Family::Beta => format!("beta_posterior({y}, {prior})"),
-            Family::Nig => format!("nig_posterior({y}, {prior})"),
-            Family::Gamma => match &self.options.exposure {
+            Kind::Beta => format!("beta_posterior({y}, {prior})"),
+            Kind::Nig => format!("nig_posterior({y}, {prior})"),
+            Kind::Gamma => match &self.options.exposure {
                 Some(x) => format!("gamma_posterior({y}, t.{}, {prior})", quote(x)),
                 None => format!("gamma_posterior({y}, 1.0, {prior})"),
             },
-            Family::Dirichlet => format!("dirichlet_posterior(CAST({y} AS VARCHAR), {prior})"),
+            Kind::Dirichlet => format!("dirichlet_posterior(CAST({y} AS VARCHAR), {prior})"),
         }
     }
 

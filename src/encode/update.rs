@@ -10,7 +10,7 @@ use datafusion::arrow::datatypes::{DataType, Field, Schema};
 use datafusion::datasource::MemTable;
 use datafusion::prelude::SessionContext;
 
-use super::options::{EncodeOptions, Family, Method, PriorChoice, Reader, TimeTies};
+use super::options::{EncodeOptions, Method, PriorChoice, Reader, TimeTies};
 use super::resolve::{
     check_output_names, columns_of, require_columns, scoring_columns, EncodePlan, KeyPlan,
 };
@@ -18,7 +18,7 @@ use super::run::{execute, finish, number_rows, EncodeOutput};
 use super::sql::{SCORE, TRAIN};
 use super::{text, usage, EncodeError, Result};
 use crate::bundle::Bundle;
-use crate::layout::{build, AnyPosterior};
+use crate::layout::{build, AnyPosterior, Kind};
 
 /// What a refresh needs.
 #[derive(Debug, Clone)]
@@ -64,12 +64,12 @@ pub fn prior_sql(p: &AnyPosterior) -> String {
     }
 }
 
-fn family_of(name: &str) -> Result<Family> {
+fn family_of(name: &str) -> Result<Kind> {
     Ok(match name.to_ascii_lowercase().as_str() {
-        "beta" => Family::Beta,
-        "gamma" => Family::Gamma,
-        "nig" => Family::Nig,
-        "dirichlet" => Family::Dirichlet,
+        "beta" => Kind::Beta,
+        "gamma" => Kind::Gamma,
+        "nig" => Kind::Nig,
+        "dirichlet" => Kind::Dirichlet,
         other => {
             return usage(format!(
                 "--update: the bundle's family '{other}' is not known"
@@ -90,7 +90,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
             ));
         }
     }
-    if options.exposure.is_some() && family != Family::Gamma {
+    if options.exposure.is_some() && family != Kind::Gamma {
         return usage("--exposure is for count targets (the gamma family)");
     }
     let readers = previous

@@ -6,8 +6,9 @@ use std::path::PathBuf;
 
 use posterity::bundle::Bundle;
 use posterity::encode::{
-    self, EncodeError, EncodeOptions, Family, Method, PriorChoice, Reader, UpdateOptions,
+    self, EncodeError, EncodeOptions, Method, PriorChoice, Reader, UpdateOptions,
 };
+use posterity::layout::Kind;
 
 use super::{Failure, Shell};
 
@@ -148,10 +149,10 @@ fn options(args: &EncodeArgs) -> Result<EncodeOptions, Failure> {
         .map(|spec| spec.split(':').map(|p| p.trim().to_string()).collect())
         .collect();
     o.family = args.family.map(|f| match f {
-        FamilyChoice::Beta => Family::Beta,
-        FamilyChoice::Gamma => Family::Gamma,
-        FamilyChoice::Nig => Family::Nig,
-        FamilyChoice::Dirichlet => Family::Dirichlet,
+        FamilyChoice::Beta => Kind::Beta,
+        FamilyChoice::Gamma => Kind::Gamma,
+        FamilyChoice::Nig => Kind::Nig,
+        FamilyChoice::Dirichlet => Kind::Dirichlet,
     });
     o.prior = PriorChoice::parse(&args.prior)?;
     o.method = match args.method {

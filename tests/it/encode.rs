@@ -619,13 +619,14 @@ fn sample() -> String {
 
 /// A plan for the snapshot, built by hand so that nothing runs.
 fn snapshot_plan() -> posterity::encode::EncodePlan {
-    use posterity::encode::{EncodeOptions, EncodePlan, Family, KeyPlan, Method, Reader};
+    use posterity::encode::{EncodeOptions, EncodePlan, KeyPlan, Method, Reader};
+    use posterity::layout::Kind;
     let mut options = EncodeOptions::new("train", "{class}", &[]);
     options.readers = vec![Reader::Mean, Reader::Quantile(0.05)];
     options.score = Some("score".into());
     EncodePlan {
         options,
-        family: Family::Dirichlet,
+        family: Kind::Dirichlet,
         method: Method::Kfold,
         classes: vec![
             "{y}".into(),
