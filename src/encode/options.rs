@@ -218,6 +218,9 @@ pub struct EncodeOptions {
     pub folds: u32,
     pub seed: u64,
     pub time_column: Option<String>,
+    /// Recency weighting: a row `h` time units older than the newest training row
+    /// counts 2^(-age/h) (out-of-fold encodings; needs a numeric time column).
+    pub half_life: Option<f64>,
     pub time_ties: TimeTies,
     /// Exposure column of a Gamma target.
     pub exposure: Option<String>,
@@ -248,6 +251,7 @@ impl EncodeOptions {
             folds: 5,
             seed: 0,
             time_column: None,
+            half_life: None,
             time_ties: TimeTies::Strict,
             exposure: None,
             readers: vec![Reader::Mean, Reader::Sd],
@@ -260,10 +264,27 @@ impl EncodeOptions {
 
     /// The method after defaults, checked against the other options.
     pub fn method(&self) -> Result<Method> {
+        if let Some(h) = self.half_life {
+            if !(h.is_finite() && h > 0.0) {
+                return usage(format!(
+                    "--half-life {h} is out of range; allowed: a finite number > 0 (in the time \
+                     column's units)"
+                ));
+            }
+            return match (self.method, &self.time_column) {
+                (_, None) => usage("--half-life needs --time-column (the age of each row)"),
+                (Some(Method::Time), _) => usage(
+                    "--half-life weights out-of-fold encodings by age; as-of encodings \
+                     (--method time) already see only the past: use --method kfold",
+                ),
+                _ => Ok(Method::Kfold),
+            };
+        }
         match (self.method, &self.time_column) {
             (Some(Method::Time), None) => usage("--method time needs --time-column"),
             (Some(m @ Method::Kfold), Some(t)) => usage(format!(
-                "--time-column '{t}' is only used by --method time, not --method {}",
+                "--time-column '{t}' is only used by --method time or --half-life, not by \
+                 --method {} alone",
                 m.name()
             )),
             (Some(m), _) => Ok(m),

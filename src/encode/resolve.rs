@@ -64,6 +64,8 @@ pub struct EncodePlan {
     pub train_columns: Vec<String>,
     /// The scoring table's columns, in order.
     pub score_columns: Vec<String>,
+    /// With a half-life: the newest time in the training rows (ages count from it).
+    pub newest_time: Option<f64>,
 }
 
 impl EncodePlan {
@@ -417,7 +419,31 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         .await
         .map_err(|e| EncodeError::Usage(format!("--prior: {}", e.strip_backtrace())))?;
 
+    let newest_time = match (&options.half_life, &options.time_column) {
+        (Some(_), Some(time)) => {
+            let numeric = train
+                .iter()
+                .any(|(n, d)| n == time && (d.is_numeric() || d == &DataType::Null));
+            if !numeric {
+                return usage(format!(
+                    "--half-life needs a numeric --time-column (days, hours, ...); '{time}' is not"
+                ));
+            }
+            let b = one_row(
+                ctx,
+                &format!("SELECT CAST(MAX({}) AS DOUBLE) FROM {from}", quote(time)),
+            )
+            .await?;
+            let c = b.column(0).as_primitive::<Float64Type>();
+            if c.is_null(0) {
+                return usage(format!("--time-column '{time}' has no values"));
+            }
+            Some(c.value(0))
+        }
+        _ => None,
+    };
     let plan = EncodePlan {
+        newest_time,
         options: options.clone(),
         family,
         method,

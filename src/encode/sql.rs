@@ -50,14 +50,38 @@ impl EncodePlan {
     fn fit(&self, key: &KeyPlan) -> String {
         let y = format!("t.{}", quote(&self.options.target));
         let prior = key.prior.as_ref().unwrap_or(&self.base_prior);
+        // With a half-life, each row weighs 2^(-age / half-life), its age counted from
+        // the newest training row (a row with no time weighs nothing).
+        let weight = match (
+            self.newest_time,
+            self.options.half_life,
+            &self.options.time_column,
+        ) {
+            (Some(newest), Some(h), Some(time)) => Some(format!(
+                "decay_weight({newest} - CAST(t.{} AS DOUBLE), {h})",
+                quote(time)
+            )),
+            _ => None,
+        };
+        let w = weight
+            .as_ref()
+            .map(|w| format!(", {w}"))
+            .unwrap_or_default();
         match self.family {
-            Kind::Beta => format!("beta_posterior({y}, {prior})"),
-            Kind::Nig => format!("nig_posterior({y}, {prior})"),
-            Kind::Gamma => match &self.options.exposure {
-                Some(x) => format!("gamma_posterior({y}, t.{}, {prior})", quote(x)),
-                None => format!("gamma_posterior({y}, 1.0, {prior})"),
-            },
-            Kind::Dirichlet => format!("dirichlet_posterior(CAST({y} AS VARCHAR), {prior})"),
+            Kind::Beta => format!("beta_posterior({y}, {prior}{w})"),
+            Kind::Nig => format!("nig_posterior({y}, {prior}{w})"),
+            Kind::Gamma => {
+                let exposure = match &self.options.exposure {
+                    Some(x) => format!("t.{}", quote(x)),
+                    None => "1.0".into(),
+                };
+                match &weight {
+                    // Weighted Poisson rows: events and exposure both scaled.
+                    Some(w) => format!("gamma_posterior({y} * {w}, {exposure} * {w}, {prior})"),
+                    None => format!("gamma_posterior({y}, {exposure}, {prior})"),
+                }
+            }
+            Kind::Dirichlet => format!("dirichlet_posterior(CAST({y} AS VARCHAR), {prior}{w})"),
         }
     }
 

@@ -147,6 +147,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     encode_options.prior = PriorChoice::Numbers(Vec::new());
     encode_options.time_ties = TimeTies::Strict;
     let plan = EncodePlan {
+        newest_time: None,
         options: encode_options,
         family,
         method: Method::Kfold,

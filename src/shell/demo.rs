@@ -224,6 +224,7 @@ pub async fn run(shell: &Shell, dir: &Path, rows: usize, seed: u64) -> Result<()
         method: None,
         folds: 5,
         time_column: None,
+        half_life: None,
         time_ties: super::encode::TimeTies::Strict,
         exposure: None,
         readers: vec!["mean".into(), "sd".into(), "q05".into()],

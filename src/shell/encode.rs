@@ -79,6 +79,10 @@ pub struct EncodeArgs {
     /// Column giving the time order for --method time.
     #[arg(long)]
     pub time_column: Option<String>,
+    /// Recency weighting for out-of-fold encodings: a row this many time units older than
+    /// the newest counts half (needs a numeric --time-column).
+    #[arg(long, value_name = "UNITS")]
+    pub half_life: Option<f64>,
     /// Rows at the same time: strict (default; they never see each other) or file-order.
     #[arg(long, value_enum, default_value = "strict")]
     pub time_ties: TimeTies,
@@ -164,6 +168,7 @@ fn options(args: &EncodeArgs) -> Result<EncodeOptions, Failure> {
     o.folds = args.folds;
     o.seed = args.seed;
     o.time_column = args.time_column.as_ref().map(|t| t.trim().to_string());
+    o.half_life = args.half_life;
     o.time_ties = match args.time_ties {
         TimeTies::Strict => encode::TimeTies::Strict,
         TimeTies::FileOrder => encode::TimeTies::FileOrder,
@@ -282,6 +287,7 @@ async fn update(shell: &Shell, args: &EncodeArgs, previous: &PathBuf) -> Result<
         (args.method.is_some(), "--method"),
         (args.time_column.is_some(), "--time-column"),
         (args.draws.is_some(), "--draws"),
+        (args.half_life.is_some(), "--half-life (use --decay)"),
         (args.prior != "fitted", "--prior"),
     ];
     if let Some((_, flag)) = ignored.iter().find(|(given, _)| *given) {

@@ -655,6 +655,7 @@ fn snapshot_plan() -> posterity::encode::EncodePlan {
             "{class}".into(),
         ],
         score_columns: vec!["a\"b".into(), "naïve café".into(), "{y}".into()],
+        newest_time: None,
     }
 }
 
@@ -1083,4 +1084,76 @@ async fn outputs_are_finite_for_every_family_and_prior() {
         }
     }
     assert!(checked > 100);
+}
+
+// Recency weighting: with --half-life H each row counts 2^(-age/H), its age counted
+// from the newest training row; the serving encodings equal the weighted counts
+// computed independently with power() in SQL.
+#[tokio::test]
+async fn half_life_weights_rows_by_age() {
+    let dir = temp_dir("half-life");
+    let out = dir.join("out");
+    encode(&[
+        "--train",
+        &sample(),
+        "--target",
+        "no_show",
+        "--columns",
+        "breed",
+        "--time-column",
+        "day",
+        "--half-life",
+        "60",
+        "--prior",
+        "2,18",
+        "--readers",
+        "mean",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    let ctx = SessionContext::new();
+    ctx.register_csv("a", &sample(), Default::default())
+        .await
+        .unwrap();
+    ctx.register_parquet(
+        "enc",
+        out.join("encodings/breed.parquet").to_str().unwrap(),
+        ParquetReadOptions::default(),
+    )
+    .await
+    .unwrap();
+    let sql = "WITH w AS (SELECT breed, no_show, power(0.5, ((SELECT MAX(day) FROM a) - day) / 60.0) AS w FROM a),
+        hand AS (SELECT breed, (2.0 + SUM(w * no_show)) / (20.0 + SUM(w)) AS m FROM w GROUP BY breed)
+        SELECT MAX(ABS(e.breed_mean - h.m)), COUNT(*), MAX(ABS(e.breed_mean - (2.0 + c.s) / (20.0 + c.n)))
+        FROM enc e JOIN hand h USING (breed)
+        JOIN (SELECT breed, SUM(no_show) AS s, COUNT(*) AS n FROM a GROUP BY breed) c USING (breed)";
+    let b = ctx.sql(sql).await.unwrap().collect().await.unwrap();
+    let worst = b[0].column(0).as_primitive::<Float64Type>().value(0);
+    let levels = b[0].column(1).as_primitive::<Int64Type>().value(0);
+    let unweighted = b[0].column(2).as_primitive::<Float64Type>().value(0);
+    assert_eq!(levels, 273);
+    assert!(
+        worst < 1e-12,
+        "weighted encodings differ from the hand computation by {worst}"
+    );
+    assert!(unweighted > 1e-3, "the weights must change the encodings");
+    // The options that cannot go with it say so.
+    let o = encode_output(&[
+        "encode",
+        "--train",
+        &sample(),
+        "--target",
+        "no_show",
+        "--columns",
+        "breed",
+        "--time-column",
+        "breed",
+        "--half-life",
+        "60",
+        "--method",
+        "kfold",
+        "--out",
+        dir.join("bad").to_str().unwrap(),
+    ]);
+    assert_eq!(o.status.code(), Some(2));
 }
