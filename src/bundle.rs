@@ -39,6 +39,15 @@ use crate::layout::AnyPosterior;
 pub const FORMAT: &str = "posterity-bundle";
 pub const VERSION: u64 = 2;
 
+/// Messy key text made comparable: Unicode compatibility form (NFKC: full-width
+/// letters, ligatures, non-breaking spaces), lower case, surrounding space removed
+/// and inner runs of white space as one space. `normalize_key` in SQL is the same.
+pub fn normalize_key(text: &str) -> String {
+    use unicode_normalization::UnicodeNormalization;
+    let folded: String = text.nfkc().collect::<String>().to_lowercase();
+    folded.split_whitespace().collect::<Vec<_>>().join(" ")
+}
+
 /// The level of an interaction row: each part prefixed by its length in
 /// characters and `:`, joined by `|`. Collision-free: the lengths say where each
 /// part ends, whatever characters the parts contain.
@@ -150,6 +159,8 @@ pub fn posterior_from_json(v: &Value) -> Result<AnyPosterior, FamilyError> {
 pub struct ColumnEncoding {
     /// The input columns the key is built from (one, or several for an interaction).
     pub key_columns: Vec<String>,
+    /// Whether each column's text went through [`normalize_key`] first.
+    pub normalized: bool,
     pub prior: AnyPosterior,
     pub levels: BTreeMap<String, AnyPosterior>,
     /// The levels with an indicator column, in rank order: `<key>_top1` is 1 for
@@ -160,8 +171,18 @@ pub struct ColumnEncoding {
 impl ColumnEncoding {
     /// The level of a row given its key columns' text (`None` when any is NULL).
     pub fn level_of(&self, values: &[Option<&str>]) -> Option<String> {
-        let parts: Option<Vec<&str>> = values.iter().copied().collect();
-        match parts?.as_slice() {
+        let parts: Option<Vec<String>> = values
+            .iter()
+            .map(|v| {
+                v.map(|v| match self.normalized {
+                    true => normalize_key(v),
+                    false => v.to_string(),
+                })
+            })
+            .collect();
+        let parts = parts?;
+        let parts: Vec<&str> = parts.iter().map(String::as_str).collect();
+        match parts.as_slice() {
             [one] if self.key_columns.len() <= 1 => Some(one.to_string()),
             parts => Some(interaction_key(parts)),
         }
@@ -204,7 +225,7 @@ impl Bundle {
                 .map(|(k, p)| (k.clone(), posterior_json(p)))
                 .collect();
             let mut column = json!({
-                "key": {"columns": c.key_columns, "form": c.key_form()},
+                "key": {"columns": c.key_columns, "form": c.key_form(), "normalize": c.normalized},
                 "prior": posterior_json(&c.prior),
                 "levels": levels
             });
@@ -289,6 +310,11 @@ impl Bundle {
                 name.clone(),
                 ColumnEncoding {
                     key_columns,
+                    normalized: c
+                        .get("key")
+                        .and_then(|k| k.get("normalize"))
+                        .and_then(Value::as_bool)
+                        .unwrap_or(false),
                     prior,
                     levels,
                     indicators: c

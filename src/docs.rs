@@ -318,6 +318,16 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
         example: "SELECT fold_of(appointment_id, 5) AS fold FROM appointments;",
     },
     FunctionDoc {
+        name: "normalize_key",
+        section: HELPERS,
+        description: "Messy key text made comparable: Unicode compatibility form (NFKC), lower \
+            case, surrounding white space removed and inner runs of white space as one space. \
+            NULL stays NULL; other types are normalised through their text form.",
+        syntax: "normalize_key(text)",
+        arguments: &[("text", "The key as text.")],
+        example: "SELECT normalize_key('  Golden\u{00a0}RETRIEVER ');  -- 'golden retriever'",
+    },
+    FunctionDoc {
         name: "decay_weight",
         section: HELPERS,
         description: "Exponential decay weight 0.5^(age / half_life): a row one half-life old counts 0.5.",

@@ -59,6 +59,7 @@ pub enum Op {
     WithPrior,
     FoldOf,
     DecayWeight,
+    NormalizeKey,
 }
 
 /// A scalar SQL function.
@@ -120,6 +121,7 @@ pub fn all() -> Vec<ScalarUDF> {
         ScalarFunction::udf("posterior_with_prior", Op::WithPrior),
         ScalarFunction::udf("fold_of", Op::FoldOf),
         ScalarFunction::udf("decay_weight", Op::DecayWeight),
+        ScalarFunction::udf("normalize_key", Op::NormalizeKey),
     ]
 }
 
@@ -346,6 +348,10 @@ impl ScalarUDFImpl for ScalarFunction {
                 }
                 Ok(out)
             }
+            Op::NormalizeKey => {
+                self.count(n, 1, 1)?;
+                Ok(vec![DataType::Utf8])
+            }
             Op::DecayWeight => {
                 self.count(n, 2, 2)?;
                 Ok(vec![
@@ -362,6 +368,7 @@ impl ScalarUDFImpl for ScalarFunction {
             Op::Read(Reader::Interval) => interval_type(),
             Op::Read(_) | Op::DecayWeight => DataType::Float64,
             Op::FoldOf => DataType::Int64,
+            Op::NormalizeKey => DataType::Utf8,
             Op::Combine(_) | Op::Without | Op::Scale | Op::WithPrior => {
                 self.posterior("p", &t[0])?.data_type()
             }
@@ -379,6 +386,14 @@ impl ScalarUDFImpl for ScalarFunction {
             }
             Op::FoldOf => self.fold_of(&arrays, rows)?,
             Op::DecayWeight => self.decay_weight(&arrays, rows)?,
+            Op::NormalizeKey => {
+                let text = arrays[0].as_string::<i32>();
+                Arc::new(
+                    text.iter()
+                        .map(|t| t.map(crate::bundle::normalize_key))
+                        .collect::<datafusion::arrow::array::StringArray>(),
+                )
+            }
         };
         Ok(ColumnarValue::Array(out))
     }

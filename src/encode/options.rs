@@ -218,6 +218,8 @@ pub struct EncodeOptions {
     pub folds: u32,
     pub seed: u64,
     pub time_column: Option<String>,
+    /// Key text through `normalize_key` (NFKC, case, white space) before encoding.
+    pub normalize_keys: bool,
     /// Recency weighting: a row `h` time units older than the newest training row
     /// counts 2^(-age/h) (out-of-fold encodings; needs a numeric time column).
     pub half_life: Option<f64>,
@@ -251,6 +253,7 @@ impl EncodeOptions {
             folds: 5,
             seed: 0,
             time_column: None,
+            normalize_keys: false,
             half_life: None,
             time_ties: TimeTies::Strict,
             exposure: None,

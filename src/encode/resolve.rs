@@ -26,8 +26,12 @@ impl KeyPlan {
     /// The SQL of the key's text over table alias `t`: the column's text, or for an
     /// interaction each part's text prefixed by its length in characters and `:`,
     /// joined by `|` (collision-free; `crate::bundle::interaction_key` is the same).
-    pub fn sql(&self) -> String {
-        let part = |c: &str| format!("CAST(t.{} AS VARCHAR)", quote(c));
+    /// With `normalize`, each part goes through `normalize_key` first.
+    pub fn sql(&self, normalize: bool) -> String {
+        let part = |c: &str| match normalize {
+            true => format!("normalize_key(CAST(t.{} AS VARCHAR))", quote(c)),
+            false => format!("CAST(t.{} AS VARCHAR)", quote(c)),
+        };
         if let [one] = self.columns.as_slice() {
             return part(one);
         }

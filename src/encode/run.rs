@@ -40,6 +40,8 @@ pub struct ColumnSummary {
     pub unseen_share: Option<f64>,
     /// Levels given an indicator column (big enough, up to the limit).
     pub indicators: usize,
+    /// With normalised keys: how many spellings were merged into other levels.
+    pub merged_levels: u64,
     pub warnings: Vec<String>,
 }
 
@@ -241,8 +243,22 @@ pub(super) async fn finish(
             rows,
             unseen_share,
             indicators: 0,
+            merged_levels: 0,
             warnings,
         });
+        if plan.options.normalize_keys {
+            let raw = ctx
+                .sql(&format!(
+                    "SELECT COUNT(DISTINCT {}) FROM {TRAIN} t",
+                    key.sql(false)
+                ))
+                .await?
+                .collect()
+                .await?;
+            let raw = raw[0].column(0).as_primitive::<Int64Type>().value(0) as u64;
+            summary.last_mut().expect("pushed above").merged_levels =
+                raw.saturating_sub(levels.len() as u64);
+        }
         let mut indicators = Vec::new();
         for batch in ctx
             .sql(&format!("SELECT level FROM __top{i} ORDER BY rank"))
@@ -259,6 +275,7 @@ pub(super) async fn finish(
             key.name.clone(),
             ColumnEncoding {
                 key_columns: key.columns.clone(),
+                normalized: plan.options.normalize_keys,
                 prior,
                 levels,
                 indicators,
@@ -328,6 +345,12 @@ pub fn summary_table(summary: &[ColumnSummary]) -> String {
         ));
     }
     for s in summary {
+        if s.merged_levels > 0 {
+            out.push_str(&format!(
+                "{}: normalising the key text merged {} spellings into other levels\n",
+                s.key, s.merged_levels
+            ));
+        }
         for w in &s.warnings {
             out.push_str(&format!("warning: {w}\n"));
         }
@@ -440,7 +463,7 @@ async fn write_into(output: &EncodeOutput, dir: &Path) -> Result<()> {
             json!({
                 "key": s.key, "family": s.family, "prior": s.prior, "strength": s.strength,
                 "at_bound": s.at_bound, "levels": s.levels, "rows": s.rows,
-                "indicators": s.indicators,
+                "indicators": s.indicators, "merged_levels": s.merged_levels,
                 "unseen_share": s.unseen_share, "warnings": s.warnings,
             })
         })

@@ -139,7 +139,7 @@ impl EncodePlan {
         self.keys
             .iter()
             .enumerate()
-            .map(|(i, k)| format!("{} AS __k{i}", k.sql()))
+            .map(|(i, k)| format!("{} AS __k{i}", k.sql(self.options.normalize_keys)))
             .collect::<Vec<_>>()
             .join(", ")
     }

@@ -142,6 +142,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     let score_columns = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
     let mut encode_options = EncodeOptions::new(&options.train, &previous.target, &[]);
     encode_options.readers = readers;
+    encode_options.normalize_keys = stored.iter().any(|c| c.normalized);
     encode_options.exposure = options.exposure.clone();
     encode_options.score = options.score.clone();
     encode_options.prior = PriorChoice::Numbers(Vec::new());

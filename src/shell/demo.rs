@@ -225,6 +225,7 @@ pub async fn run(shell: &Shell, dir: &Path, rows: usize, seed: u64) -> Result<()
         folds: 5,
         time_column: None,
         half_life: None,
+        normalize_keys: false,
         time_ties: super::encode::TimeTies::Strict,
         exposure: None,
         readers: vec!["mean".into(), "sd".into(), "q05".into()],

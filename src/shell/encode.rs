@@ -83,6 +83,10 @@ pub struct EncodeArgs {
     /// the newest counts half (needs a numeric --time-column).
     #[arg(long, value_name = "UNITS")]
     pub half_life: Option<f64>,
+    /// Normalise key text first (Unicode compatibility form, case, white space), so
+    /// "Golden Retriever" and " golden  retriever" are one level.
+    #[arg(long)]
+    pub normalize_keys: bool,
     /// Rows at the same time: strict (default; they never see each other) or file-order.
     #[arg(long, value_enum, default_value = "strict")]
     pub time_ties: TimeTies,
@@ -169,6 +173,7 @@ fn options(args: &EncodeArgs) -> Result<EncodeOptions, Failure> {
     o.seed = args.seed;
     o.time_column = args.time_column.as_ref().map(|t| t.trim().to_string());
     o.half_life = args.half_life;
+    o.normalize_keys = args.normalize_keys;
     o.time_ties = match args.time_ties {
         TimeTies::Strict => encode::TimeTies::Strict,
         TimeTies::FileOrder => encode::TimeTies::FileOrder,
@@ -261,7 +266,7 @@ pub async fn run(shell: &Shell, args: &EncodeArgs) -> Result<(), Failure> {
         "encoded {} key(s) of {} ({} family, {} prior, {} training encodings) into {}\n{}",
         plan.keys.len(),
         args.train,
-        plan.family.name(),
+        plan.family.short_name(),
         options.prior.describe(),
         plan.method.name(),
         args.out.display(),

@@ -1157,3 +1157,52 @@ async fn half_life_weights_rows_by_age() {
     ]);
     assert_eq!(o.status.code(), Some(2));
 }
+
+// Messy key text: with --normalize-keys, spellings that differ in case, white space
+// or Unicode compatibility form (full-width letters, non-breaking spaces) are one
+// level, the merge is reported, and the bundle scores raw spellings the same way.
+#[tokio::test]
+async fn normalized_keys_merge_spellings() {
+    let dir = temp_dir("normalize");
+    let train = dir.join("train.csv");
+    std::fs::write(
+        &train,
+        "breed,y\nGolden Retriever,1\n golden  retriever ,0\n\u{ff27}\u{ff4f}lden\u{00a0}Retriever,1\nPoodle,0\npoodle,1\n",
+    )
+    .unwrap();
+    let out = dir.join("out");
+    let o = encode_output(&[
+        "encode",
+        "--train",
+        train.to_str().unwrap(),
+        "--target",
+        "y",
+        "--columns",
+        "breed",
+        "--normalize-keys",
+        "--prior",
+        "1,1",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(String::from_utf8_lossy(&o.stdout)
+        .contains("breed: normalising the key text merged 3 spellings into other levels"));
+    let bundle =
+        Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+    let breed = &bundle.columns["breed"];
+    assert_eq!(
+        breed.levels.keys().collect::<Vec<_>>(),
+        ["golden retriever", "poodle"]
+    );
+    assert_eq!(breed.levels["golden retriever"].evidence(), 3.0);
+    assert_eq!(
+        breed.level_of(&[Some("GOLDEN   Retriever")]).as_deref(),
+        Some("golden retriever")
+    );
+    assert_eq!(
+        posterity::bundle::normalize_key("  \u{ff30}oodle\t"),
+        "poodle",
+        "full-width P (U+FF30) is P in compatibility form"
+    );
+}
