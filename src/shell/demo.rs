@@ -115,8 +115,8 @@ pub fn generate(dir: &Path, rows: usize, seed: u64) -> std::io::Result<()> {
 /// The demo's story: each step a heading, a sentence and a query.
 const STORY: &[(&str, &str)] = &[
     ("Parquet copies of the generated files", "
-COPY (SELECT * FROM appointments_csv) TO '{dir}/appointments.parquet' STORED AS PARQUET;
-COPY (SELECT * FROM pets_csv) TO '{dir}/pets.parquet' STORED AS PARQUET;
+COPY (SELECT * FROM appointments_csv ORDER BY appointment_id) TO '{dir}/appointments.parquet' STORED AS PARQUET;
+COPY (SELECT * FROM pets_csv ORDER BY pet_id) TO '{dir}/pets.parquet' STORED AS PARQUET;
 CREATE EXTERNAL TABLE appointments STORED AS PARQUET LOCATION '{dir}/appointments.parquet';
 CREATE EXTERNAL TABLE pets STORED AS PARQUET LOCATION '{dir}/pets.parquet';
 COPY (SELECT * FROM appointments WHERE day < 335 ORDER BY appointment_id) TO '{dir}/train.parquet' STORED AS PARQUET;
