@@ -78,6 +78,17 @@ pub fn posterior_json(p: &AnyPosterior) -> Value {
     }
 }
 
+/// The text elements of an optional JSON list (none when absent).
+fn texts_of(v: Option<&Value>) -> Vec<String> {
+    v.and_then(Value::as_array)
+        .map(|a| {
+            a.iter()
+                .filter_map(|x| x.as_str().map(str::to_string))
+                .collect()
+        })
+        .unwrap_or_default()
+}
+
 fn bad(message: impl Into<String>) -> FamilyError {
     FamilyError::InvalidClasses(format!("serving bundle: {}", message.into()))
 }
@@ -317,30 +328,14 @@ impl Bundle {
                         .unwrap_or(false),
                     prior,
                     levels,
-                    indicators: c
-                        .get("indicators")
-                        .and_then(Value::as_array)
-                        .map(|a| {
-                            a.iter()
-                                .filter_map(|l| l.as_str().map(str::to_string))
-                                .collect()
-                        })
-                        .unwrap_or_default(),
+                    indicators: texts_of(c.get("indicators")),
                 },
             );
         }
         Ok(Bundle {
             target: text_of("target"),
             family: text_of("family"),
-            readers: v
-                .get("readers")
-                .and_then(Value::as_array)
-                .map(|r| {
-                    r.iter()
-                        .filter_map(|x| x.as_str().map(str::to_string))
-                        .collect()
-                })
-                .unwrap_or_default(),
+            readers: texts_of(v.get("readers")),
             columns,
         })
     }

@@ -38,7 +38,7 @@ mod sql;
 mod update;
 
 pub use options::{EncodeOptions, Method, PriorChoice, Reader, TimeTies};
-pub use resolve::{resolve, EncodePlan, KeyPlan};
+pub use resolve::{resolve, EncodePlan, KeyPlan, OutputColumn};
 pub use run::{run, run_with_progress, summary_table, write, ColumnSummary, EncodeOutput};
 pub use sql::Statement;
 pub use update::{update, UpdateOptions};

@@ -6,7 +6,7 @@ use datafusion::arrow::compute::cast;
 use datafusion::arrow::datatypes::{DataType, Float64Type, Int64Type};
 use datafusion::prelude::SessionContext;
 
-use super::options::{EncodeOptions, Method, PriorChoice};
+use super::options::{EncodeOptions, Method, PriorChoice, Reader};
 use super::{quote, sanitize, text, usage, EncodeError, Result};
 use crate::layout::Kind;
 
@@ -23,6 +23,11 @@ pub struct KeyPlan {
 }
 
 impl KeyPlan {
+    /// Its input columns, each with the role named in a message about it.
+    pub(super) fn roles(&self) -> impl Iterator<Item = (&String, String)> {
+        self.columns.iter().map(|c| (c, "key column".to_string()))
+    }
+
     /// The SQL of the key's text over table alias `t`: the column's text, or for an
     /// interaction each part's text prefixed by its length in characters and `:`,
     /// joined by `|` (collision-free; `crate::bundle::interaction_key` is the same).
@@ -72,42 +77,64 @@ pub struct EncodePlan {
     pub newest_time: Option<f64>,
 }
 
+/// What one output column of a key holds.
+#[derive(Debug, Clone, PartialEq)]
+pub enum OutputColumn {
+    /// Reader `index` of the options (for a Dirichlet class when `class` is set).
+    Reader { index: usize, class: Option<String> },
+    /// 1 for rows of the key's `rank`-th largest level, else 0.
+    Indicator { rank: usize },
+    /// A seeded posterior draw (per class for Dirichlet).
+    Draw { class: Option<String> },
+}
+
 impl EncodePlan {
-    /// The output columns of key `key`'s readers, in order, as (name, reader index, class).
-    pub fn reader_columns(&self, key: &KeyPlan) -> Vec<(String, usize, Option<String>)> {
-        let mut out = Vec::new();
-        for (r, reader) in self.options.readers.iter().enumerate() {
-            if self.classes.is_empty() || !reader.per_class() {
-                out.push((format!("{}_{}", key.name, reader.suffix()), r, None));
+    /// The output columns of `key`, in order, with their names.
+    pub fn output_columns(&self, key: &KeyPlan) -> Vec<(String, OutputColumn)> {
+        let per_class = |with_class: bool| -> Vec<(String, Option<String>)> {
+            if self.classes.is_empty() || !with_class {
+                vec![(key.name.clone(), None)]
             } else {
-                for c in &self.classes {
-                    out.push((
-                        format!("{}_{}_{}", key.name, sanitize(c), reader.suffix()),
-                        r,
-                        Some(c.clone()),
-                    ));
-                }
+                self.classes
+                    .iter()
+                    .map(|c| (format!("{}_{}", key.name, sanitize(c)), Some(c.clone())))
+                    .collect()
+            }
+        };
+        let mut out = Vec::new();
+        for (index, reader) in self.options.readers.iter().enumerate() {
+            for (prefix, class) in per_class(reader.per_class()) {
+                out.push((
+                    format!("{prefix}_{}", reader.suffix()),
+                    OutputColumn::Reader { index, class },
+                ));
             }
         }
         for rank in 1..=self.options.indicators {
-            // Indicator columns: reader index usize::MAX - rank marks them.
-            out.push((format!("{}_top{rank}", key.name), usize::MAX - rank, None));
+            out.push((
+                format!("{}_top{rank}", key.name),
+                OutputColumn::Indicator { rank },
+            ));
         }
         if self.options.draws.is_some() {
-            // Draw columns: reader index usize::MAX marks them.
-            if self.classes.is_empty() {
-                out.push((format!("{}_draw", key.name), usize::MAX, None));
-            } else {
-                for c in &self.classes {
-                    out.push((
-                        format!("{}_{}_draw", key.name, sanitize(c)),
-                        usize::MAX,
-                        Some(c.clone()),
-                    ));
-                }
+            for (prefix, class) in per_class(true) {
+                out.push((format!("{prefix}_draw"), OutputColumn::Draw { class }));
             }
         }
         out
+    }
+
+    /// The reader columns of `key` only: (name, reader, class).
+    pub(super) fn reader_columns(&self, key: &KeyPlan) -> Vec<(String, &Reader, Option<String>)> {
+        self.output_columns(key)
+            .into_iter()
+            .filter_map(|(name, column)| match column {
+                OutputColumn::Reader { index, class } => {
+                    Some((name, &self.options.readers[index], class))
+                }
+                _ => None,
+            })
+            .collect()
     }
 }
 
@@ -235,8 +262,7 @@ pub(super) async fn scoring_columns(
     require_columns(
         "scoring table",
         &columns,
-        keys.iter()
-            .flat_map(|k| k.columns.iter().map(|c| (c, "key column".to_string()))),
+        keys.iter().flat_map(KeyPlan::roles),
     )?;
     Ok(columns.into_iter().map(|(n, _)| n).collect())
 }
@@ -274,7 +300,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         "training table",
         &train,
         keys.iter()
-            .flat_map(|k| k.columns.iter().map(|c| (c, "key column".to_string())))
+            .flat_map(KeyPlan::roles)
             .chain(std::iter::once((target, "--target".to_string())))
             .chain(
                 options
@@ -478,7 +504,7 @@ pub(super) fn check_output_names(plan: &EncodePlan) -> Result<()> {
                 key.name
             ));
         }
-        for (name, _, _) in plan.reader_columns(key) {
+        for (name, _) in plan.output_columns(key) {
             if let Some(other) = seen.insert(name.clone(), format!("key '{spelled}'")) {
                 return usage(format!(
                     "the output column '{name}' of key '{spelled}' would repeat {other}; \

@@ -232,21 +232,7 @@ pub(super) async fn finish(
                 levels.len()
             ));
         }
-        summary.push(ColumnSummary {
-            key: key.name.clone(),
-            family: plan.family.short_name().to_string(),
-            prior: crate::bundle::posterior_json(&prior),
-            prior_text: crate::render::describe(&prior),
-            strength,
-            at_bound,
-            levels: levels.len() as u64,
-            rows,
-            unseen_share,
-            indicators: 0,
-            merged_levels: 0,
-            warnings,
-        });
-        if plan.options.normalize_keys {
+        let merged_levels = if plan.options.normalize_keys {
             let raw = ctx
                 .sql(&format!(
                     "SELECT COUNT(DISTINCT {}) FROM {TRAIN} t",
@@ -256,9 +242,10 @@ pub(super) async fn finish(
                 .collect()
                 .await?;
             let raw = raw[0].column(0).as_primitive::<Int64Type>().value(0) as u64;
-            summary.last_mut().expect("pushed above").merged_levels =
-                raw.saturating_sub(levels.len() as u64);
-        }
+            raw.saturating_sub(levels.len() as u64)
+        } else {
+            0
+        };
         let mut indicators = Vec::new();
         for batch in ctx
             .sql(&format!("SELECT level FROM __top{i} ORDER BY rank"))
@@ -270,7 +257,20 @@ pub(super) async fn finish(
             let names = names.as_string::<i32>();
             indicators.extend((0..names.len()).map(|r| names.value(r).to_string()));
         }
-        summary.last_mut().expect("pushed above").indicators = indicators.len();
+        summary.push(ColumnSummary {
+            key: key.name.clone(),
+            family: plan.family.short_name().to_string(),
+            prior: crate::bundle::posterior_json(&prior),
+            prior_text: crate::render::describe(&prior),
+            strength,
+            at_bound,
+            levels: levels.len() as u64,
+            rows,
+            unseen_share,
+            indicators: indicators.len(),
+            merged_levels,
+            warnings,
+        });
         columns.insert(
             key.name.clone(),
             ColumnEncoding {

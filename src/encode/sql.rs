@@ -8,7 +8,7 @@
 //! as-of encodings have a posterior per row.
 
 use super::options::{Method, TimeTies};
-use super::resolve::{EncodePlan, KeyPlan};
+use super::resolve::{EncodePlan, KeyPlan, OutputColumn};
 use super::{quote, text};
 use crate::layout::Kind;
 
@@ -99,13 +99,8 @@ impl EncodePlan {
     fn readers(&self, key: &KeyPlan, p: &str) -> Vec<String> {
         self.reader_columns(key)
             .into_iter()
-            .filter(|(_, r, _)| *r < self.options.readers.len())
-            .map(|(name, r, class)| {
-                format!(
-                    "{} AS {}",
-                    self.options.readers[r].sql(p, class.as_deref()),
-                    quote(&name)
-                )
+            .map(|(name, reader, class)| {
+                format!("{} AS {}", reader.sql(p, class.as_deref()), quote(&name))
             })
             .collect()
     }
@@ -114,20 +109,23 @@ impl EncodePlan {
     /// to the prior's reader in `fallback`; indicators from the level's rank in
     /// `top{i}`; draws from the posterior column `p`.
     fn final_columns(&self, i: usize, key: &KeyPlan, source: &str, fallback: &str) -> Vec<String> {
-        let readers = self.options.readers.len();
-        self.reader_columns(key)
+        self.output_columns(key)
             .into_iter()
-            .map(|(name, r, class)| {
-                let value = if r >= readers && r != usize::MAX {
-                    format!("CAST(COALESCE(top{i}.rank = {}, false) AS INT)", usize::MAX - r)
-                } else if r == usize::MAX {
-                    let class = class.map(|c| format!(", {}", text(&c))).unwrap_or_default();
-                    format!(
-                        "posterior_draw(COALESCE({source}.p, {fallback}.prior){class}, fold_of(t.__row, 9223372036854775807, {}))",
-                        self.options.draws.unwrap_or_default()
-                    )
-                } else {
-                    format!("COALESCE({source}.{q}, {fallback}.{q})", q = quote(&name))
+            .map(|(name, column)| {
+                let value = match column {
+                    OutputColumn::Reader { .. } => {
+                        format!("COALESCE({source}.{q}, {fallback}.{q})", q = quote(&name))
+                    }
+                    OutputColumn::Indicator { rank } => {
+                        format!("CAST(COALESCE(top{i}.rank = {rank}, false) AS INT)")
+                    }
+                    OutputColumn::Draw { class } => {
+                        let class = class.map(|c| format!(", {}", text(&c))).unwrap_or_default();
+                        format!(
+                            "posterior_draw(COALESCE({source}.p, {fallback}.prior){class}, fold_of(t.__row, 9223372036854775807, {}))",
+                            self.options.draws.unwrap_or_default()
+                        )
+                    }
                 };
                 format!("{value} AS {}", quote(&name))
             })
@@ -170,7 +168,6 @@ impl EncodePlan {
         encoding_columns.extend(
             self.reader_columns(key)
                 .into_iter()
-                .filter(|(_, r, _)| *r < self.options.readers.len())
                 .map(|(name, _, _)| format!("e.{}", quote(&name))),
         );
         if self.options.indicators > 0 {

@@ -127,7 +127,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
         "table of new rows",
         &train,
         keys.iter()
-            .flat_map(|k| k.columns.iter().map(|c| (c, "key column".to_string())))
+            .flat_map(KeyPlan::roles)
             .chain(std::iter::once((
                 &previous.target,
                 "the bundle's target".to_string(),

@@ -198,24 +198,12 @@ async fn register_inputs(
     key_columns: &[String],
 ) -> Result<(), Failure> {
     shell
-        .register_table_with_text(&format!("{TRAIN_TABLE}={}", args.train), key_columns)
-        .await
-        .map_err(|f| Failure {
-            message: f
-                .message
-                .replace(&format!("--table {TRAIN_TABLE}"), "--train"),
-            code: f.code,
-        })?;
+        .register_file(TRAIN_TABLE, args.train.trim(), "--train", key_columns)
+        .await?;
     if let Some(score) = &args.score {
         shell
-            .register_table_with_text(&format!("{SCORE_TABLE}={score}"), key_columns)
-            .await
-            .map_err(|f| Failure {
-                message: f
-                    .message
-                    .replace(&format!("--table {SCORE_TABLE}"), "--score"),
-                code: f.code,
-            })?;
+            .register_file(SCORE_TABLE, score.trim(), "--score", key_columns)
+            .await?;
     }
     Ok(())
 }

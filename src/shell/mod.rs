@@ -155,23 +155,6 @@ pub fn session(
 impl Shell {
     /// Register `NAME=PATH` (a file, a directory of files or a glob).
     pub async fn register_table(&self, spec: &str) -> Result<(), Failure> {
-        self.register_table_with_text(spec, &[]).await
-    }
-
-    /// [`Shell::register_table`], reading CSV columns `text` (beyond `--csv-text`)
-    /// as text exactly as written.
-    pub async fn register_table_with_text(
-        &self,
-        spec: &str,
-        text: &[String],
-    ) -> Result<(), Failure> {
-        let text: Vec<&str> = self
-            .csv
-            .text
-            .iter()
-            .chain(text)
-            .map(String::as_str)
-            .collect();
         let Some((name, path)) = spec.split_once('=') else {
             return Err(Failure::usage(format!(
                 "--table expects NAME=PATH, got '{spec}'"
@@ -183,18 +166,37 @@ impl Shell {
                 "--table expects NAME=PATH, got '{spec}'"
             )));
         }
+        self.register_file(name, path, &format!("--table {name}"), &[])
+            .await
+    }
+
+    /// Register the file(s) at `path` as table `name`, reading CSV columns `text`
+    /// (beyond `--csv-text`) as text exactly as written. Messages name `option`,
+    /// the way the user gave the path (`--table NAME`, `--train`).
+    pub async fn register_file(
+        &self,
+        name: &str,
+        path: &str,
+        option: &str,
+        text: &[String],
+    ) -> Result<(), Failure> {
+        let text: Vec<&str> = self
+            .csv
+            .text
+            .iter()
+            .chain(text)
+            .map(String::as_str)
+            .collect();
         let format = file_kind(path).ok_or_else(|| {
             Failure::usage(format!(
-                "--table {name}: cannot tell the format of '{path}'; use a .parquet, .csv, .tsv, .json or .ndjson path"
+                "{option}: cannot tell the format of '{path}'; use a .parquet, .csv, .tsv, .json or .ndjson path"
             ))
         })?;
         if !path.contains('*') && !Path::new(path).exists() {
-            return Err(Failure::query(format!(
-                "--table {name}: '{path}' does not exist"
-            )));
+            return Err(Failure::query(format!("{option}: '{path}' does not exist")));
         }
         preflight(path, format, self.csv.header)
-            .map_err(|e| Failure::query(format!("--table {name}: {e}")))?;
+            .map_err(|e| Failure::query(format!("{option}: {e}")))?;
         let result = match format {
             FileKind::Parquet => {
                 let ext = extension_of(path, ".parquet");
@@ -233,14 +235,14 @@ impl Shell {
             FileKind::Json => {
                 // A JSON array (what --format json writes) is read through NDJSON.
                 let path = json_array_as_ndjson(path)
-                    .map_err(|e| Failure::query(format!("--table {name}: {e}")))?;
+                    .map_err(|e| Failure::query(format!("{option}: {e}")))?;
                 let ext = extension_of(&path, ".json");
                 self.ctx
                     .register_json(name, &path, JsonReadOptions::default().file_extension(&ext))
                     .await
             }
         };
-        result.map_err(|e| Failure::query(format!("--table {name} ({path}): {e}")))
+        result.map_err(|e| Failure::query(format!("{option} ({path}): {e}")))
     }
 
     /// A CSV file with its inferred types, except that columns `text` stay text as
