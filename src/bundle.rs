@@ -26,7 +26,7 @@
 //! — which no two different rows can share ([`interaction_key`]). Version 1
 //! bundles (no `key`; interactions joined by a bare `|`) are still read.
 
-use std::collections::BTreeMap;
+use std::collections::{BTreeMap, HashMap};
 
 use serde_json::{json, Map, Value};
 
@@ -34,10 +34,11 @@ use crate::family::{
     BetaPosterior, DirichletPosterior, DirichletPrior, FamilyError, GammaPosterior, NigPosterior,
     NigPrior,
 };
+use crate::encode::Treatment;
 use crate::layout::AnyPosterior;
 
 pub const FORMAT: &str = "posterity-bundle";
-pub const VERSION: u64 = 2;
+pub const VERSION: u64 = 3;
 
 /// Messy key text made comparable: Unicode compatibility form (NFKC: full-width
 /// letters, ligatures, non-breaking spaces), lower case, surrounding space removed
@@ -177,6 +178,12 @@ pub struct ColumnEncoding {
     /// The levels with an indicator column, in rank order: `<key>_top1` is 1 for
     /// rows of the first, and so on (empty when there are none).
     pub indicators: Vec<String>,
+    /// The factor on each level's data before readers score a row: (k-1)/k after
+    /// k-fold encoding, so scored rows read posteriors with the data weight the
+    /// training rows' out-of-fold posteriors had (1 when absent).
+    pub score_scale: f64,
+    /// What the key became in the training and scored tables.
+    pub treatment: Treatment,
 }
 
 impl ColumnEncoding {
@@ -208,11 +215,34 @@ impl ColumnEncoding {
         }
     }
 
-    /// The posterior for a level, the prior for unseen levels and NULL keys.
+    /// The posterior of all training rows for a level, the prior for unseen levels
+    /// and NULL keys.
     pub fn lookup(&self, level: Option<&str>) -> &AnyPosterior {
         level
             .and_then(|l| self.levels.get(l))
             .unwrap_or(&self.prior)
+    }
+
+    /// The integer code of every level (`Treatment::Codes`): its position among the
+    /// sorted training levels. Unseen levels and NULL keys have code -1.
+    pub fn codes(&self) -> HashMap<&str, i64> {
+        self.levels
+            .keys()
+            .zip(0i64..)
+            .map(|(level, code)| (level.as_str(), code))
+            .collect()
+    }
+
+    /// The posterior a row of this level is scored with: [`lookup`](Self::lookup)
+    /// with its data scaled by `score_scale` (the readers of `scored` and of the
+    /// encoding tables).
+    pub fn scoring(&self, level: Option<&str>) -> Result<AnyPosterior, FamilyError> {
+        let p = self.lookup(level);
+        if self.score_scale < 1.0 {
+            p.scale(self.score_scale)
+        } else {
+            Ok(p.clone())
+        }
     }
 }
 
@@ -243,6 +273,12 @@ impl Bundle {
             if !c.indicators.is_empty() {
                 column["indicators"] = json!(c.indicators);
             }
+            if c.treatment != Treatment::Posterior {
+                column["treatment"] = json!(c.treatment.name());
+            }
+            if c.score_scale != 1.0 {
+                column["score_scale"] = json!(c.score_scale);
+            }
             columns.insert(name.clone(), column);
         }
         let v = json!({
@@ -263,7 +299,7 @@ impl Bundle {
             return Err(bad("not a posterity bundle (field 'format')"));
         }
         let version = v.get("version").and_then(Value::as_u64);
-        if !matches!(version, Some(1) | Some(VERSION)) {
+        if !matches!(version, Some(1..=VERSION)) {
             return Err(bad(format!(
                 "unsupported version {:?}; this build reads versions 1 to {VERSION}",
                 v.get("version")
@@ -329,6 +365,23 @@ impl Bundle {
                     prior,
                     levels,
                     indicators: texts_of(c.get("indicators")),
+                    treatment: match c.get("treatment").and_then(Value::as_str) {
+                        None => Treatment::Posterior,
+                        Some(t) => Treatment::parse(t).map_err(|_| {
+                            bad(format!(
+                                "column '{name}': treatment '{t}' is not posterior, levels or codes"
+                            ))
+                        })?,
+                    },
+                    score_scale: match c.get("score_scale") {
+                        None => 1.0,
+                        Some(v) => v
+                            .as_f64()
+                            .filter(|s| *s > 0.0 && *s <= 1.0)
+                            .ok_or_else(|| {
+                                bad(format!("column '{name}': score_scale is not in (0, 1]"))
+                            })?,
+                    },
                 },
             );
         }

@@ -37,7 +37,7 @@ mod run;
 mod sql;
 mod update;
 
-pub use options::{EncodeOptions, Method, PriorChoice, Reader, TimeTies};
+pub use options::{EncodeOptions, Method, PriorChoice, Reader, ScoreEvidence, TimeTies, Treatment};
 pub use resolve::{resolve, EncodePlan, KeyPlan, OutputColumn};
 pub use run::{run, run_with_progress, summary_table, write, ColumnSummary, EncodeOutput};
 pub use sql::Statement;

@@ -33,6 +33,54 @@ pub enum TimeTies {
     FileOrder,
 }
 
+/// What a key becomes in the training and scored tables.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Treatment {
+    /// Posterior readers (`<key>_mean`, ...) plus indicators of its largest levels.
+    Posterior,
+    /// Indicators of every level (`<key>_top1..N`) and nothing else: for a few large
+    /// levels the learner does better with the levels themselves than with an
+    /// encoding, whose out-of-fold values only add noise.
+    Levels,
+    /// One integer column `<key>_code`: the level's position in the sorted training
+    /// levels (0, 1, ...), -1 for unseen levels and NULL keys.
+    Codes,
+}
+
+impl Treatment {
+    pub fn parse(s: &str) -> Result<Treatment> {
+        match s.trim() {
+            "posterior" => Ok(Treatment::Posterior),
+            "levels" => Ok(Treatment::Levels),
+            "codes" => Ok(Treatment::Codes),
+            other => usage(format!(
+                "--treatment: '{other}' is not posterior, levels or codes"
+            )),
+        }
+    }
+
+    pub fn name(self) -> &'static str {
+        match self {
+            Treatment::Posterior => "posterior",
+            Treatment::Levels => "levels",
+            Treatment::Codes => "codes",
+        }
+    }
+}
+
+/// The data weight of the posteriors that score new rows.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum ScoreEvidence {
+    /// Scored rows read each level's posterior with its data scaled by (k-1)/k, the
+    /// share of a level's rows an out-of-fold training row sees: training and scored
+    /// features then come from the same distribution (shrinkage, sd and data weight
+    /// included), which is what the learner needs to map them alike.
+    #[default]
+    Matched,
+    /// Scored rows read the posterior of all training rows.
+    Full,
+}
+
 /// The prior of every encoded column.
 #[derive(Debug, Clone, PartialEq)]
 pub enum PriorChoice {
@@ -235,8 +283,16 @@ pub struct EncodeOptions {
     pub indicators: usize,
     /// The rows (evidence) a level needs to get an indicator.
     pub indicator_min_rows: f64,
-    /// A table registered on the session to score with the full-data encodings.
+    /// Keys (a column, or an interaction spelled `a:b`) with a chosen treatment;
+    /// the others are decided from the data: a key with at most `indicators` levels,
+    /// each with at least `indicator_min_rows` rows, gets `Levels`, any other
+    /// `Posterior`.
+    pub treatments: Vec<(String, Treatment)>,
+    /// A table registered on the session to score with the encodings.
     pub score: Option<String>,
+    /// The data weight scored rows read (k-fold only; as-of encodings already grow
+    /// with time the way scoring does).
+    pub score_evidence: ScoreEvidence,
 }
 
 impl EncodeOptions {
@@ -261,7 +317,9 @@ impl EncodeOptions {
             draws: None,
             indicators: 20,
             indicator_min_rows: 100.0,
+            treatments: Vec::new(),
             score: None,
+            score_evidence: ScoreEvidence::Matched,
         }
     }
 

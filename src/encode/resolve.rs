@@ -6,7 +6,7 @@ use datafusion::arrow::compute::cast;
 use datafusion::arrow::datatypes::{DataType, Float64Type, Int64Type};
 use datafusion::prelude::SessionContext;
 
-use super::options::{EncodeOptions, Method, PriorChoice, Reader};
+use super::options::{EncodeOptions, Method, PriorChoice, Reader, ScoreEvidence, Treatment};
 use super::{quote, sanitize, text, usage, EncodeError, Result};
 use crate::layout::Kind;
 
@@ -20,9 +20,34 @@ pub struct KeyPlan {
     /// This key's own constant prior (SQL), when it differs from the plan's base
     /// prior: a refresh keeps each column's stored prior.
     pub prior: Option<String>,
+    pub treatment: Treatment,
+    /// Why the treatment was chosen, in the user's words (for the summary).
+    pub why: String,
+    /// Indicator columns: up to this many of the largest levels...
+    pub indicators: usize,
+    /// ...that have at least this many rows.
+    pub indicator_min_rows: f64,
 }
 
 impl KeyPlan {
+    /// A key encoded with posterior readers and the options' indicators.
+    pub fn posterior(name: String, columns: Vec<String>, options: &EncodeOptions) -> KeyPlan {
+        KeyPlan {
+            name,
+            columns,
+            prior: None,
+            treatment: Treatment::Posterior,
+            why: String::new(),
+            indicators: options.indicators,
+            indicator_min_rows: options.indicator_min_rows,
+        }
+    }
+
+    /// How a user names the key: the column, or the columns joined by `:`.
+    pub fn spelled(&self) -> String {
+        self.columns.join(":")
+    }
+
     /// Its input columns, each with the role named in a message about it.
     pub(super) fn roles(&self) -> impl Iterator<Item = (&String, String)> {
         self.columns.iter().map(|c| (c, "key column".to_string()))
@@ -75,6 +100,8 @@ pub struct EncodePlan {
     pub score_columns: Vec<String>,
     /// With a half-life: the newest time in the training rows (ages count from it).
     pub newest_time: Option<f64>,
+    /// The factor on each level's data in the posteriors that score rows (1: all of it).
+    pub score_scale: f64,
 }
 
 /// What one output column of a key holds.
@@ -86,6 +113,8 @@ pub enum OutputColumn {
     Indicator { rank: usize },
     /// A seeded posterior draw (per class for Dirichlet).
     Draw { class: Option<String> },
+    /// The level's position among the sorted training levels; -1 when unseen.
+    Code,
 }
 
 impl EncodePlan {
@@ -102,6 +131,17 @@ impl EncodePlan {
             }
         };
         let mut out = Vec::new();
+        let indicators = (1..=key.indicators).map(|rank| {
+            (
+                format!("{}_top{rank}", key.name),
+                OutputColumn::Indicator { rank },
+            )
+        });
+        match key.treatment {
+            Treatment::Levels => return indicators.collect(),
+            Treatment::Codes => return vec![(format!("{}_code", key.name), OutputColumn::Code)],
+            Treatment::Posterior => {}
+        }
         for (index, reader) in self.options.readers.iter().enumerate() {
             for (prefix, class) in per_class(reader.per_class()) {
                 out.push((
@@ -110,12 +150,7 @@ impl EncodePlan {
                 ));
             }
         }
-        for rank in 1..=self.options.indicators {
-            out.push((
-                format!("{}_top{rank}", key.name),
-                OutputColumn::Indicator { rank },
-            ));
-        }
+        out.extend(indicators);
         if self.options.draws.is_some() {
             for (prefix, class) in per_class(true) {
                 out.push((format!("{prefix}_draw"), OutputColumn::Draw { class }));
@@ -162,11 +197,7 @@ fn keys_of(options: &EncodeOptions) -> Result<Vec<KeyPlan>> {
         if c.is_empty() {
             return usage("--columns: an empty column name");
         }
-        keys.push(KeyPlan {
-            name: sanitize(c),
-            columns: vec![c.clone()],
-            prior: None,
-        });
+        keys.push(KeyPlan::posterior(sanitize(c), vec![c.clone()], options));
     }
     for parts in &options.interactions {
         if parts.len() < 2 || parts.iter().any(|p| p.is_empty()) {
@@ -175,20 +206,116 @@ fn keys_of(options: &EncodeOptions) -> Result<Vec<KeyPlan>> {
                 parts.join(":")
             ));
         }
-        keys.push(KeyPlan {
-            name: parts
-                .iter()
-                .map(|p| sanitize(p))
-                .collect::<Vec<_>>()
-                .join("_x_"),
-            columns: parts.clone(),
-            prior: None,
-        });
+        let name = parts
+            .iter()
+            .map(|p| sanitize(p))
+            .collect::<Vec<_>>()
+            .join("_x_");
+        keys.push(KeyPlan::posterior(name, parts.clone(), options));
     }
     if keys.is_empty() {
         return usage("--columns: name at least one column to encode");
     }
     Ok(keys)
+}
+
+/// Indicator columns one key may have (each is a column of the training table).
+const MAX_INDICATORS: usize = 1000;
+
+/// Each key's treatment: the user's choice, or from the data (see
+/// `EncodeOptions::treatments`), with the reason in the user's words.
+async fn choose_treatments(
+    ctx: &SessionContext,
+    options: &EncodeOptions,
+    keys: &mut [KeyPlan],
+) -> Result<()> {
+    for (spec, _) in &options.treatments {
+        if !keys.iter().any(|k| k.spelled() == *spec) {
+            return usage(format!(
+                "--treatment: '{spec}' is not an encoded key (keys: {})",
+                keys.iter().map(KeyPlan::spelled).collect::<Vec<_>>().join(", ")
+            ));
+        }
+    }
+    for key in keys.iter_mut() {
+        let chosen = options
+            .treatments
+            .iter()
+            .find(|(spec, _)| *spec == key.spelled())
+            .map(|(_, t)| *t);
+        // Level sizes are needed to decide, and for every level's indicator.
+        let sizes = match chosen {
+            Some(Treatment::Codes) | Some(Treatment::Posterior) => None,
+            None if options.indicators == 0 => None,
+            _ => Some(level_sizes(ctx, options, key).await?),
+        };
+        let min_rows = options.indicator_min_rows;
+        key.treatment = chosen.unwrap_or(Treatment::Posterior);
+        key.why = match (chosen, sizes) {
+            (Some(Treatment::Levels), Some((levels, _, _))) => {
+                if levels as usize > MAX_INDICATORS {
+                    return usage(format!(
+                        "--treatment {}=levels: the key has {levels} levels; allowed: at most                          {MAX_INDICATORS} (one indicator column each); use codes or posterior",
+                        key.spelled()
+                    ));
+                }
+                key.indicators = levels as usize;
+                key.indicator_min_rows = 0.0;
+                "chosen (--treatment)".to_string()
+            }
+            (Some(_), _) => "chosen (--treatment)".to_string(),
+            (None, None) => "indicators are off (--indicators 0)".to_string(),
+            (None, Some((levels, smallest, small))) => {
+                if levels > 0 && levels as usize <= options.indicators && smallest >= min_rows {
+                    key.treatment = Treatment::Levels;
+                    key.indicators = levels as usize;
+                    key.indicator_min_rows = 0.0;
+                    format!(
+                        "{levels} levels, each with at least {} rows: given to the learner as they are",
+                        crate::render::short(min_rows)
+                    )
+                } else {
+                    // No column for indicators no level qualifies for.
+                    key.indicators = key.indicators.min((levels - small) as usize);
+                    format!(
+                        "{levels} levels, {small} with fewer than {} rows",
+                        crate::render::short(min_rows)
+                    )
+                }
+            }
+        };
+        if key.treatment == Treatment::Codes {
+            key.indicators = 0;
+        }
+    }
+    Ok(())
+}
+
+/// A key's number of levels, the rows of its smallest level, and the number of
+/// levels with fewer than `indicator_min_rows` rows.
+async fn level_sizes(
+    ctx: &SessionContext,
+    options: &EncodeOptions,
+    key: &KeyPlan,
+) -> Result<(u64, f64, u64)> {
+    let b = one_row(
+        ctx,
+        &format!(
+            "SELECT COUNT(*), CAST(MIN(n) AS DOUBLE), COUNT(*) FILTER (WHERE n < {}) FROM              (SELECT {} AS k, COUNT(*) AS n FROM {} t GROUP BY 1) WHERE k IS NOT NULL",
+            options.indicator_min_rows,
+            key.sql(options.normalize_keys),
+            datafusion::common::TableReference::from(options.train.as_str()).to_quoted_string()
+        ),
+    )
+    .await?;
+    let count = |c: usize| b.column(c).as_primitive::<Int64Type>().value(0) as u64;
+    let smallest = b.column(1).as_primitive::<Float64Type>();
+    let smallest = if smallest.is_null(0) {
+        0.0
+    } else {
+        smallest.value(0)
+    };
+    Ok((count(0), smallest, count(2)))
 }
 
 /// A key built from the target (or time-ordered by it) hands every row its own
@@ -284,15 +411,18 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
     if !(options.indicator_min_rows.is_finite() && options.indicator_min_rows >= 0.0) {
         return usage("--indicator-min-rows must be a finite number >= 0");
     }
-    if options.indicators > 1000 {
-        return usage("--indicators: at most 1000 indicator columns per key");
+    if options.indicators > MAX_INDICATORS {
+        return usage(format!(
+            "--indicators {} is out of range; allowed: 0 to {MAX_INDICATORS} indicator columns per key",
+            options.indicators
+        ));
     }
     if options.readers.is_empty() && options.draws.is_none() && options.indicators == 0 {
         return usage(
             "--readers: name at least one reader (mean, sd, var, data_weight, qNN, above:T)",
         );
     }
-    let keys = keys_of(options)?;
+    let mut keys = keys_of(options)?;
     refuse_leaky_keys(options, &keys)?;
     let train = columns_of(ctx, &options.train).await?;
     let target = &options.target;
@@ -315,6 +445,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
                     .map(|c| (c, "--exposure".to_string())),
             ),
     )?;
+    choose_treatments(ctx, options, &mut keys).await?;
     let score_columns = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
 
     let t = quote(target);
@@ -472,8 +603,15 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         }
         _ => None,
     };
+    let score_scale = match (method, options.score_evidence) {
+        (Method::Kfold, ScoreEvidence::Matched) => {
+            (options.folds - 1) as f64 / options.folds as f64
+        }
+        _ => 1.0,
+    };
     let plan = EncodePlan {
         newest_time,
+        score_scale,
         options: options.clone(),
         family,
         method,

@@ -13,6 +13,7 @@ use datafusion::datasource::MemTable;
 use datafusion::prelude::SessionContext;
 use serde_json::{json, Value};
 
+use super::options::Treatment;
 use super::resolve::EncodePlan;
 use super::sql::{SCORE, TRAIN};
 use super::{EncodeError, Result};
@@ -42,6 +43,9 @@ pub struct ColumnSummary {
     pub indicators: usize,
     /// With normalised keys: how many spellings were merged into other levels.
     pub merged_levels: u64,
+    /// What the key became in the training and scored tables, and why.
+    pub treatment: Treatment,
+    pub why: String,
     pub warnings: Vec<String>,
 }
 
@@ -225,7 +229,7 @@ pub(super) async fn finish(
                 key.name
             ));
         }
-        if plan.fitted && (levels.len() as u64) < FEW_LEVELS {
+        if plan.fitted && key.treatment == Treatment::Posterior && (levels.len() as u64) < FEW_LEVELS {
             warnings.push(format!(
                 "the prior of {} was fitted from only {} levels; consider --prior with numbers",
                 key.name,
@@ -269,6 +273,8 @@ pub(super) async fn finish(
             unseen_share,
             indicators: indicators.len(),
             merged_levels,
+            treatment: key.treatment,
+            why: key.why.clone(),
             warnings,
         });
         columns.insert(
@@ -279,6 +285,8 @@ pub(super) async fn finish(
                 prior,
                 levels,
                 indicators,
+                score_scale: plan.score_scale,
+                treatment: key.treatment,
             },
         );
     }
@@ -325,13 +333,14 @@ fn prior_strength(prior: &AnyPosterior) -> f64 {
 /// The summary as a short table, one line per key.
 pub fn summary_table(summary: &[ColumnSummary]) -> String {
     let mut out = format!(
-        "{:<24} {:<10} {:>9} {:>12} {:>10} {:>8} {:>10}  prior\n",
-        "key", "family", "levels", "rows", "strength", "unseen", "indicators"
+        "{:<24} {:<10} {:<10} {:>9} {:>12} {:>10} {:>8} {:>10}  prior\n",
+        "key", "as", "family", "levels", "rows", "strength", "unseen", "indicators"
     );
     for s in summary {
         out.push_str(&format!(
-            "{:<24} {:<10} {:>9} {:>12} {:>10} {:>8} {:>10}  {}{}\n",
+            "{:<24} {:<10} {:<10} {:>9} {:>12} {:>10} {:>8} {:>10}  {}{}\n",
             s.key,
+            s.treatment.name(),
             s.family,
             s.levels,
             crate::render::short(s.rows),
@@ -345,6 +354,9 @@ pub fn summary_table(summary: &[ColumnSummary]) -> String {
         ));
     }
     for s in summary {
+        if !s.why.is_empty() {
+            out.push_str(&format!("{} as {}: {}\n", s.key, s.treatment.name(), s.why));
+        }
         if s.merged_levels > 0 {
             out.push_str(&format!(
                 "{}: normalising the key text merged {} spellings into other levels\n",
@@ -464,6 +476,7 @@ async fn write_into(output: &EncodeOutput, dir: &Path) -> Result<()> {
                 "key": s.key, "family": s.family, "prior": s.prior, "strength": s.strength,
                 "at_bound": s.at_bound, "levels": s.levels, "rows": s.rows,
                 "indicators": s.indicators, "merged_levels": s.merged_levels,
+                "treatment": s.treatment.name(), "why": s.why,
                 "unseen_share": s.unseen_share, "warnings": s.warnings,
             })
         })

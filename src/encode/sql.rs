@@ -7,7 +7,7 @@
 //! (level, time) — and are joined to the rows; only leave-one-out and file-order
 //! as-of encodings have a posterior per row.
 
-use super::options::{Method, TimeTies};
+use super::options::{Method, TimeTies, Treatment};
 use super::resolve::{EncodePlan, KeyPlan, OutputColumn};
 use super::{quote, text};
 use crate::layout::Kind;
@@ -94,6 +94,37 @@ impl EncodePlan {
         }
     }
 
+    /// `head, reader(p) AS "name", ...`: a select list of `head` and every reader
+    /// column of `key` (none for keys given as levels or codes).
+    fn with_readers(&self, head: &str, key: &KeyPlan, p: &str) -> String {
+        std::iter::once(head.to_string())
+            .chain(self.readers(key, p))
+            .collect::<Vec<_>>()
+            .join(", ")
+    }
+
+    /// Whether `key`'s training rows need out-of-fold or as-of posteriors (readers
+    /// or draws); keys given as levels or codes do not.
+    fn needs_training_posteriors(&self, key: &KeyPlan) -> bool {
+        self.output_columns(key)
+            .iter()
+            .any(|(_, c)| matches!(c, OutputColumn::Reader { .. } | OutputColumn::Draw { .. }))
+    }
+
+    /// The joins every output row needs for `key` `i`'s prior readers, indicators
+    /// and codes.
+    fn level_joins(&self, i: usize, key: &KeyPlan) -> String {
+        let mut joins = format!(
+            "CROSS JOIN __priorread{i} r{i} LEFT JOIN __top{i} top{i} ON top{i}.level = t.__k{i}"
+        );
+        if key.treatment == Treatment::Codes {
+            joins.push_str(&format!(
+                " LEFT JOIN __code{i} code{i} ON code{i}.level = t.__k{i}"
+            ));
+        }
+        joins
+    }
+
     /// `reader(p) AS "name", ...` for every reader column of `key` (draws and
     /// indicators excluded).
     fn readers(&self, key: &KeyPlan, p: &str) -> Vec<String> {
@@ -105,10 +136,27 @@ impl EncodePlan {
             .collect()
     }
 
+    /// The posterior that scores rows, from the full posterior `p`: its data scaled
+    /// to what an out-of-fold training row sees (`ScoreEvidence::Matched`).
+    fn scoring_posterior(&self, p: &str) -> String {
+        if self.score_scale < 1.0 {
+            format!("posterior_scale({p}, {})", self.score_scale)
+        } else {
+            p.to_string()
+        }
+    }
+
     /// Final columns of `key` `i`: each reader from `source` (alias), falling back
     /// to the prior's reader in `fallback`; indicators from the level's rank in
-    /// `top{i}`; draws from the posterior column `p`.
-    fn final_columns(&self, i: usize, key: &KeyPlan, source: &str, fallback: &str) -> Vec<String> {
+    /// `top{i}`; draws from the posterior expression `posterior` (NULL for unseen
+    /// levels and NULL keys: the prior).
+    fn final_columns(
+        &self,
+        i: usize,
+        key: &KeyPlan,
+        (source, fallback): (&str, &str),
+        posterior: &str,
+    ) -> Vec<String> {
         self.output_columns(key)
             .into_iter()
             .map(|(name, column)| {
@@ -119,10 +167,11 @@ impl EncodePlan {
                     OutputColumn::Indicator { rank } => {
                         format!("CAST(COALESCE(top{i}.rank = {rank}, false) AS INT)")
                     }
+                    OutputColumn::Code => format!("COALESCE(code{i}.code, -1)"),
                     OutputColumn::Draw { class } => {
                         let class = class.map(|c| format!(", {}", text(&c))).unwrap_or_default();
                         format!(
-                            "posterior_draw(COALESCE({source}.p, {fallback}.prior){class}, fold_of(t.__row, 9223372036854775807, {}))",
+                            "posterior_draw(COALESCE({posterior}, {fallback}.prior){class}, fold_of(t.__row, 9223372036854775807, {}))",
                             self.options.draws.unwrap_or_default()
                         )
                     }
@@ -170,10 +219,10 @@ impl EncodePlan {
                 .into_iter()
                 .map(|(name, _, _)| format!("e.{}", quote(&name))),
         );
-        if self.options.indicators > 0 {
+        if key.indicators > 0 {
             encoding_columns.push("ranked.rank AS top_rank".to_string());
         }
-        vec![
+        let mut out = vec![
             stage(
                 format!("prior {k}"),
                 &prior,
@@ -190,21 +239,15 @@ impl EncodePlan {
                 format!("encodings {k}"),
                 &enc,
                 format!(
-                    "SELECT level, p, {} FROM (SELECT f.level, {} AS p FROM {fits} f CROSS JOIN {prior} q)",
-                    self.readers(key, "p").join(", "),
+                    "SELECT {} FROM (SELECT f.level, {} AS p FROM {fits} f CROSS JOIN {prior} q)",
+                    self.with_readers("level, p", key, &self.scoring_posterior("p")),
                     self.repriored("f.p")
                 ),
             ),
             stage(
                 format!("prior readers {k}"),
                 &format!("__priorread{i}"),
-                format!(
-                    "SELECT {} FROM {prior}",
-                    std::iter::once("prior".to_string())
-                        .chain(self.readers(key, "prior"))
-                        .collect::<Vec<_>>()
-                        .join(", ")
-                ),
+                format!("SELECT {} FROM {prior}", self.with_readers("prior", key, "prior")),
             ),
             stage(
                 format!("largest levels {k}"),
@@ -212,17 +255,30 @@ impl EncodePlan {
                 format!(
                     "SELECT level, rank FROM (SELECT level, row_number() OVER (ORDER BY posterior_data_weight(p) DESC, level) AS rank \
                      FROM {enc} WHERE posterior_data_weight(p) >= {}) WHERE rank <= {}",
-                    self.options.indicator_min_rows, self.options.indicators
+                    key.indicator_min_rows, key.indicators
                 ),
             ),
-            output(
+        ];
+        if key.treatment == Treatment::Codes {
+            encoding_columns.push("c.code".to_string());
+            out.push(stage(
+                format!("codes {k}"),
+                &format!("__code{i}"),
+                format!("SELECT level, CAST(row_number() OVER (ORDER BY level) - 1 AS BIGINT) AS code FROM {fits}"),
+            ));
+        }
+        let code_join = match key.treatment {
+            Treatment::Codes => format!(" LEFT JOIN __code{i} c ON c.level = e.level"),
+            _ => String::new(),
+        };
+        out.push(output(
                 format!("encodings/{k}"),
                 format!(
-                    "SELECT {} FROM {enc} e LEFT JOIN __top{i} ranked ON ranked.level = e.level ORDER BY e.level",
+                    "SELECT {} FROM {enc} e LEFT JOIN __top{i} ranked ON ranked.level = e.level{code_join} ORDER BY e.level",
                     encoding_columns.join(", ")
                 ),
-            ),
-        ]
+        ));
+        out
     }
 
     /// The statements of a refresh: stored posteriors (registered as `__stored{i}`,
@@ -261,7 +317,6 @@ impl EncodePlan {
         for (i, key) in self.keys.iter().enumerate() {
             let k = &key.name;
             let fit = self.fit(key);
-            let (prior, enc) = (format!("__prior{i}"), format!("__enc{i}"));
             out.push(stage(
                 format!("fit {k}"),
                 &format!("__fit{i}"),
@@ -270,61 +325,18 @@ impl EncodePlan {
             let serving = self.serving_statements(i, key);
             let (stages, encodings) = serving.split_at(serving.len() - 1);
             out.extend_from_slice(stages);
-            let train = format!("__train{i}");
-            let (name, query, on) = match (self.method, o.time_ties) {
-                (Method::Kfold, _) => {
-                    out.push(stage(
-                        format!("fold fits {k}"),
-                        &format!("__foldfit{i}"),
-                        format!("SELECT __k{i} AS level, __fold, {fit} AS p FROM __keyed t WHERE __k{i} IS NOT NULL GROUP BY __k{i}, __fold"),
-                    ));
-                    (
-                        "out-of-fold",
-                        format!(
-                            "SELECT level, __fold, p, {} FROM (SELECT g.level, g.__fold, posterior_subtract(e.p, {}) AS p \
-                             FROM __foldfit{i} g JOIN {enc} e ON e.level = g.level CROSS JOIN {prior} q)",
-                            self.readers(key, "p").join(", "),
-                            self.repriored("g.p")
-                        ),
-                        format!("x{i}.level = t.__k{i} AND x{i}.__fold = t.__fold"),
-                    )
-                }
-                (Method::Time, TimeTies::Strict) => {
-                    let time = quote(o.time_column.as_deref().unwrap_or_default());
-                    (
-                        "as-of",
-                        format!(
-                            "SELECT level, __time, p, {} FROM (SELECT level, __time, COALESCE({}, q.prior) AS p FROM \
-                             (SELECT level, __time, posterior_pool(p) OVER (PARTITION BY level ORDER BY __time ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING) AS p \
-                             FROM (SELECT __k{i} AS level, t.{time} AS __time, {fit} AS p FROM __keyed t WHERE __k{i} IS NOT NULL AND t.{time} IS NOT NULL GROUP BY __k{i}, t.{time})) \
-                             CROSS JOIN {prior} q)",
-                            self.readers(key, "p").join(", "),
-                            self.repriored("p")
-                        ),
-                        format!("x{i}.level = t.__k{i} AND x{i}.__time = t.{time}"),
-                    )
-                }
-                (Method::Time, TimeTies::FileOrder) => {
-                    let time = quote(o.time_column.as_deref().unwrap_or_default());
-                    let window = format!(
-                        "{fit} OVER (PARTITION BY __k{i} ORDER BY t.{time}, t.__row ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)"
-                    );
-                    (
-                        "as-of in file order",
-                        format!(
-                            "SELECT __row, p, {} FROM (SELECT t.__row, {} AS p FROM __keyed t CROSS JOIN {prior} q WHERE t.__k{i} IS NOT NULL)",
-                            self.readers(key, "p").join(", "),
-                            self.repriored(&window)
-                        ),
-                        format!("x{i}.__row = t.__row"),
-                    )
-                }
-            };
-            out.push(stage(format!("{name} {k}"), &train, query));
-            joins.push(format!(
-                "LEFT JOIN {train} x{i} ON {on} CROSS JOIN __priorread{i} r{i} LEFT JOIN __top{i} top{i} ON top{i}.level = t.__k{i}"
+            if self.needs_training_posteriors(key) {
+                let (stages, on) = self.training_posteriors(i, key, &fit);
+                out.extend(stages);
+                joins.push(format!("LEFT JOIN __train{i} x{i} ON {on}"));
+            }
+            joins.push(self.level_joins(i, key));
+            selects.extend(self.final_columns(
+                i,
+                key,
+                (&format!("x{i}"), &format!("r{i}")),
+                &format!("x{i}.p"),
             ));
-            selects.extend(self.final_columns(i, key, &format!("x{i}"), &format!("r{i}")));
             out.extend_from_slice(encodings);
         }
         out.push(output(
@@ -341,7 +353,69 @@ impl EncodePlan {
         out
     }
 
-    /// Scoring with the full-data encodings; unseen levels and NULL keys get the prior.
+    /// The stages giving each training row of key `i` a posterior that never saw
+    /// its own target (out-of-fold or as-of), as `__train{i}`, and the join
+    /// condition of `__train{i} x{i}` on the rows `t`.
+    fn training_posteriors(&self, i: usize, key: &KeyPlan, fit: &str) -> (Vec<Statement>, String) {
+        let o = &self.options;
+        let k = &key.name;
+        let (prior, enc) = (format!("__prior{i}"), format!("__enc{i}"));
+        let mut stages = Vec::new();
+        let (name, query, on) = match (self.method, o.time_ties) {
+            (Method::Kfold, _) => {
+                stages.push(stage(
+                    format!("fold fits {k}"),
+                    &format!("__foldfit{i}"),
+                    format!("SELECT __k{i} AS level, __fold, {fit} AS p FROM __keyed t WHERE __k{i} IS NOT NULL GROUP BY __k{i}, __fold"),
+                ));
+                (
+                    "out-of-fold",
+                    format!(
+                        "SELECT level, __fold, {} FROM (SELECT g.level, g.__fold, posterior_subtract(e.p, {}) AS p \
+                         FROM __foldfit{i} g JOIN {enc} e ON e.level = g.level CROSS JOIN {prior} q)",
+                        self.with_readers("p", key, "p"),
+                        self.repriored("g.p")
+                    ),
+                    format!("x{i}.level = t.__k{i} AND x{i}.__fold = t.__fold"),
+                )
+            }
+            (Method::Time, TimeTies::Strict) => {
+                let time = quote(o.time_column.as_deref().unwrap_or_default());
+                (
+                    "as-of",
+                    format!(
+                        "SELECT level, __time, {} FROM (SELECT level, __time, COALESCE({}, q.prior) AS p FROM \
+                         (SELECT level, __time, posterior_pool(p) OVER (PARTITION BY level ORDER BY __time ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING) AS p \
+                         FROM (SELECT __k{i} AS level, t.{time} AS __time, {fit} AS p FROM __keyed t WHERE __k{i} IS NOT NULL AND t.{time} IS NOT NULL GROUP BY __k{i}, t.{time})) \
+                         CROSS JOIN {prior} q)",
+                        self.with_readers("p", key, "p"),
+                        self.repriored("p")
+                    ),
+                    format!("x{i}.level = t.__k{i} AND x{i}.__time = t.{time}"),
+                )
+            }
+            (Method::Time, TimeTies::FileOrder) => {
+                let time = quote(o.time_column.as_deref().unwrap_or_default());
+                let window = format!(
+                    "{fit} OVER (PARTITION BY __k{i} ORDER BY t.{time}, t.__row ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)"
+                );
+                (
+                    "as-of in file order",
+                    format!(
+                        "SELECT __row, {} FROM (SELECT t.__row, {} AS p FROM __keyed t CROSS JOIN {prior} q WHERE t.__k{i} IS NOT NULL)",
+                        self.with_readers("p", key, "p"),
+                        self.repriored(&window)
+                    ),
+                    format!("x{i}.__row = t.__row"),
+                )
+            }
+        };
+        stages.push(stage(format!("{name} {k}"), &format!("__train{i}"), query));
+        (stages, on)
+    }
+
+    /// Scoring with the encodings' readers (see `scoring_posterior`); unseen levels
+    /// and NULL keys get the prior.
     fn scoring_statements(&self) -> Vec<Statement> {
         let mut out = vec![stage(
             "scoring keys",
@@ -356,9 +430,15 @@ impl EncodePlan {
         let mut joins = Vec::new();
         for (i, key) in self.keys.iter().enumerate() {
             joins.push(format!(
-                "LEFT JOIN __enc{i} e{i} ON e{i}.level = t.__k{i} CROSS JOIN __priorread{i} r{i} LEFT JOIN __top{i} top{i} ON top{i}.level = t.__k{i}"
+                "LEFT JOIN __enc{i} e{i} ON e{i}.level = t.__k{i} {}",
+                self.level_joins(i, key)
             ));
-            selects.extend(self.final_columns(i, key, &format!("e{i}"), &format!("r{i}")));
+            selects.extend(self.final_columns(
+                i,
+                key,
+                (&format!("e{i}"), &format!("r{i}")),
+                &self.scoring_posterior(&format!("e{i}.p")),
+            ));
             out.push(output(
                 format!("unseen/{}", key.name),
                 format!(

@@ -10,7 +10,7 @@ use datafusion::arrow::datatypes::{DataType, Field, Schema};
 use datafusion::datasource::MemTable;
 use datafusion::prelude::SessionContext;
 
-use super::options::{EncodeOptions, Method, PriorChoice, Reader, TimeTies};
+use super::options::{EncodeOptions, Method, PriorChoice, Reader, TimeTies, Treatment};
 use super::resolve::{
     check_output_names, columns_of, require_columns, scoring_columns, EncodePlan, KeyPlan,
 };
@@ -98,6 +98,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
         .iter()
         .map(|r| Reader::parse(r))
         .collect::<Result<Vec<_>>>()?;
+    let defaults = EncodeOptions::new(&options.train, &previous.target, &[]);
     let mut keys = Vec::new();
     let mut stored = Vec::new();
     for (name, column) in &previous.columns {
@@ -107,11 +108,21 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
                  bundle); run encode once more to write a version 2 bundle"
             ));
         }
-        keys.push(KeyPlan {
-            name: name.clone(),
-            columns: column.key_columns.clone(),
-            prior: Some(prior_sql(&column.prior)),
-        });
+        let mut key = KeyPlan::posterior(name.clone(), column.key_columns.clone(), &defaults);
+        key.prior = Some(prior_sql(&column.prior));
+        // The previous run's treatment carries over; given as levels, every stored
+        // level keeps its indicator.
+        key.treatment = column.treatment;
+        key.why = "as in the previous run".into();
+        match column.treatment {
+            Treatment::Posterior => {}
+            Treatment::Levels => {
+                key.indicators = column.indicators.len();
+                key.indicator_min_rows = 0.0;
+            }
+            Treatment::Codes => key.indicators = 0,
+        }
+        keys.push(key);
         stored.push(column);
     }
     let first_prior = &stored
@@ -149,6 +160,8 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     encode_options.time_ties = TimeTies::Strict;
     let plan = EncodePlan {
         newest_time: None,
+        // The previous run's scoring rule carries over (every column has the same one).
+        score_scale: stored.first().map_or(1.0, |c| c.score_scale),
         options: encode_options,
         family,
         method: Method::Kfold,

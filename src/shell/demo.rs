@@ -212,32 +212,25 @@ pub async fn run(shell: &Shell, dir: &Path, rows: usize, seed: u64) -> Result<()
         println!();
     }
     println!("== 11. One command: leak-free training encodings, encoding tables, a serving bundle and a scored month");
-    let encode = super::encode::EncodeArgs {
-        train: format!("{d}/train.parquet"),
-        target: Some("no_show".into()),
-        columns: vec!["breed".into(), "postcode_area".into(), "vet".into()],
-        out: dir.join("encoded"),
-        replace: true,
-        interactions: vec!["breed:clinic".into()],
-        family: None,
-        prior: "fitted".into(),
-        method: None,
-        folds: 5,
-        time_column: None,
-        half_life: None,
-        normalize_keys: false,
-        time_ties: super::encode::TimeTies::Strict,
-        exposure: None,
-        readers: vec!["mean".into(), "sd".into(), "q05".into()],
-        draws: None,
-        indicators: 20,
-        indicator_min_rows: 100.0,
-        seed: 0,
-        score: Some(format!("{d}/next_month.parquet")),
-        update: None,
-        decay: None,
-        show_sql: false,
-    };
+    // The demo's encode is the command a user would type (so it keeps every default).
+    let out = dir.join("encoded");
+    let encode = super::encode::EncodeArgs::from_words(&[
+        "--train",
+        &format!("{d}/train.parquet"),
+        "--target",
+        "no_show",
+        "--columns",
+        "breed,postcode_area,vet",
+        "--interactions",
+        "breed:clinic",
+        "--readers",
+        "mean,sd,q05",
+        "--score",
+        &format!("{d}/next_month.parquet"),
+        "--out",
+        &out.to_string_lossy(),
+        "--replace",
+    ])?;
     super::encode::run(shell, &encode).await?;
     println!("(the same SQL by hand: the files under sql/; see the README)\n");
     println!("Cautions: postcode-area encodings can carry protected characteristics by proxy; a score built on them that\n\

@@ -6,7 +6,7 @@ use std::path::PathBuf;
 
 use posterity::bundle::Bundle;
 use posterity::encode::{
-    self, EncodeError, EncodeOptions, Method, PriorChoice, Reader, UpdateOptions,
+    self, EncodeError, EncodeOptions, Method, PriorChoice, Reader, Treatment, UpdateOptions,
 };
 use posterity::layout::Kind;
 
@@ -30,6 +30,15 @@ pub enum MethodChoice {
     Loo,
     /// Time order: a row's encoding uses earlier rows only (needs --time-column).
     Time,
+}
+
+/// The data behind each level that scored rows read.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, clap::ValueEnum)]
+pub enum ScoreEvidenceChoice {
+    /// (k-1)/k of it, as an out-of-fold training row sees: same feature distribution.
+    Matched,
+    /// All of it.
+    Full,
 }
 
 /// How as-of encodings treat rows that share a time.
@@ -105,12 +114,23 @@ pub struct EncodeArgs {
     /// Rows a level needs to get an indicator column.
     #[arg(long, default_value_t = 100.0, value_name = "ROWS")]
     pub indicator_min_rows: f64,
+    /// Per key, what it becomes: posterior (readers and indicators of its largest
+    /// levels), levels (an indicator for every level) or codes (one integer column,
+    /// -1 when unseen), e.g. clinic=levels,breed:clinic=codes. Keys not named are
+    /// decided from the data: at most --indicators levels, each with at least
+    /// --indicator-min-rows rows, become levels; others posterior.
+    #[arg(long, value_delimiter = ',', value_name = "KEY=AS")]
+    pub treatment: Vec<String>,
     /// Seed of the fold assignment.
     #[arg(long, default_value_t = 0)]
     pub seed: u64,
-    /// File to score with the full-data encodings (unseen levels get the prior).
+    /// File to score with the encodings (unseen levels and NULL keys get the prior).
     #[arg(long)]
     pub score: Option<String>,
+    /// The data behind each level that scored rows read: matched (default; (k-1)/k of
+    /// it, as an out-of-fold training row sees) or full.
+    #[arg(long, value_enum, default_value = "matched")]
+    pub score_evidence: ScoreEvidenceChoice,
     /// Refresh a previous output directory with the --train rows: its posteriors are
     /// pooled with the new rows under its stored priors (no refit).
     #[arg(long, value_name = "PREVIOUS_OUT")]
@@ -121,6 +141,22 @@ pub struct EncodeArgs {
     /// Print every SQL statement run.
     #[arg(long)]
     pub show_sql: bool,
+}
+
+impl EncodeArgs {
+    /// The arguments of `posterity encode WORDS...` (the demo runs the command a
+    /// user would type).
+    pub fn from_words(words: &[&str]) -> Result<EncodeArgs, Failure> {
+        #[derive(clap::Parser)]
+        struct Command {
+            #[command(flatten)]
+            args: EncodeArgs,
+        }
+        let words = std::iter::once("encode").chain(words.iter().copied());
+        <Command as clap::Parser>::try_parse_from(words)
+            .map(|c| c.args)
+            .map_err(|e| Failure::usage(e.to_string()))
+    }
 }
 
 impl From<EncodeError> for Failure {
@@ -187,7 +223,21 @@ fn options(args: &EncodeArgs) -> Result<EncodeOptions, Failure> {
     o.draws = args.draws;
     o.indicators = args.indicators;
     o.indicator_min_rows = args.indicator_min_rows;
+    o.treatments = args
+        .treatment
+        .iter()
+        .map(|spec| match spec.split_once('=') {
+            Some((key, treatment)) => Ok((key.trim().to_string(), Treatment::parse(treatment)?)),
+            None => Err(Failure::usage(format!(
+                "--treatment '{spec}' is not KEY=AS (AS: posterior, levels or codes)"
+            ))),
+        })
+        .collect::<Result<_, Failure>>()?;
     o.score = args.score.as_ref().map(|_| SCORE_TABLE.to_string());
+    o.score_evidence = match args.score_evidence {
+        ScoreEvidenceChoice::Matched => encode::ScoreEvidence::Matched,
+        ScoreEvidenceChoice::Full => encode::ScoreEvidence::Full,
+    };
     Ok(o)
 }
 

@@ -293,7 +293,8 @@ async fn bundle_matches_sql_and_outputs_are_deterministic() {
         let q05 = batch.column(2).as_primitive::<Float64Type>();
         for i in 0..batch.num_rows() {
             let m = enc
-                .lookup(keys.is_valid(i).then(|| keys.value(i)))
+                .scoring(keys.is_valid(i).then(|| keys.value(i)))
+                .unwrap()
                 .marginal(None)
                 .unwrap();
             assert!((m.mean() - means.value(i)).abs() <= 1e-15, "row {i}");
@@ -302,8 +303,11 @@ async fn bundle_matches_sql_and_outputs_are_deterministic() {
         }
     }
     assert_eq!(checked, 3000);
+    // Five folds: scored rows read 4/5 of each level's data, as out-of-fold rows do.
+    assert_eq!(enc.score_scale, 0.8);
     // An unseen level gets the prior.
     assert_eq!(enc.lookup(Some("no-such-area")), &enc.prior);
+    assert_eq!(enc.scoring(Some("no-such-area")).unwrap(), enc.prior);
 }
 
 fn encode_output(args: &[&str]) -> std::process::Output {
@@ -628,6 +632,7 @@ fn snapshot_plan() -> posterity::encode::EncodePlan {
         options,
         family: Kind::Dirichlet,
         method: Method::Kfold,
+        score_scale: 0.8,
         classes: vec![
             "{y}".into(),
             "a\"b".into(),
@@ -1122,8 +1127,10 @@ async fn half_life_weights_rows_by_age() {
     )
     .await
     .unwrap();
+    // The encoding table's readers score rows: each level's data scaled by 4/5, as
+    // five-fold out-of-fold training rows see it.
     let sql = "WITH w AS (SELECT breed, no_show, power(0.5, ((SELECT MAX(day) FROM a) - day) / 60.0) AS w FROM a),
-        hand AS (SELECT breed, (2.0 + SUM(w * no_show)) / (20.0 + SUM(w)) AS m FROM w GROUP BY breed)
+        hand AS (SELECT breed, (2.0 + 0.8 * SUM(w * no_show)) / (20.0 + 0.8 * SUM(w)) AS m FROM w GROUP BY breed)
         SELECT MAX(ABS(e.breed_mean - h.m)), COUNT(*), MAX(ABS(e.breed_mean - (2.0 + c.s) / (20.0 + c.n)))
         FROM enc e JOIN hand h USING (breed)
         JOIN (SELECT breed, SUM(no_show) AS s, COUNT(*) AS n FROM a GROUP BY breed) c USING (breed)";
