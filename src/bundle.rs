@@ -30,11 +30,11 @@ use std::collections::{BTreeMap, HashMap};
 
 use serde_json::{json, Map, Value};
 
+use crate::encode::Treatment;
 use crate::family::{
     BetaPosterior, DirichletPosterior, DirichletPrior, FamilyError, GammaPosterior, NigPosterior,
     NigPrior,
 };
-use crate::encode::Treatment;
 use crate::layout::AnyPosterior;
 
 pub const FORMAT: &str = "posterity-bundle";
@@ -375,12 +375,13 @@ impl Bundle {
                     },
                     score_scale: match c.get("score_scale") {
                         None => 1.0,
-                        Some(v) => v
-                            .as_f64()
-                            .filter(|s| *s > 0.0 && *s <= 1.0)
-                            .ok_or_else(|| {
-                                bad(format!("column '{name}': score_scale is not in (0, 1]"))
-                            })?,
+                        Some(v) => {
+                            v.as_f64()
+                                .filter(|s| *s > 0.0 && *s <= 1.0)
+                                .ok_or_else(|| {
+                                    bad(format!("column '{name}': score_scale is not in (0, 1]"))
+                                })?
+                        }
                     },
                 },
             );

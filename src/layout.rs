@@ -47,6 +47,13 @@ pub enum Kind {
 impl Kind {
     /// The family's short name, as written in options and bundles: `beta`, `gamma`,
     /// `nig`, `dirichlet`.
+    /// The family of a short name (`beta`, `gamma`, `nig`, `dirichlet`).
+    pub fn from_short_name(name: &str) -> Option<Kind> {
+        [Kind::Beta, Kind::Gamma, Kind::Nig, Kind::Dirichlet]
+            .into_iter()
+            .find(|k| k.short_name().eq_ignore_ascii_case(name.trim()))
+    }
+
     pub fn short_name(self) -> &'static str {
         match self {
             Kind::Beta => "beta",

@@ -7,6 +7,8 @@
 //! * [`docs`] — the documentation table behind every function;
 //! * [`encode`] — the encode workflow: plan, statements, outputs, refresh;
 //! * [`bundle`] — the JSON serving bundle, for scoring without the engine;
+//! * [`serve`] — scoring rows with a bundle, without the engine;
+//! * [`files`] — registering Parquet, CSV and JSON files as tables, with checks;
 //! * [`prior_binding`] — a planning rule that binds fits to their constant prior;
 //! * [`optimizer`] — a physical rule that builds joins on the (small) encoding side.
 //!
@@ -22,6 +24,7 @@ pub mod bundle;
 pub mod docs;
 pub mod encode;
 pub mod family;
+pub mod files;
 pub mod fit;
 pub mod layout;
 pub mod optimizer;
@@ -30,6 +33,7 @@ pub mod prior_binding;
 pub mod prior_fit;
 pub mod render;
 pub mod scalar;
+pub mod serve;
 
 pub use datafusion;
 

@@ -37,9 +37,13 @@ mod run;
 mod sql;
 mod update;
 
-pub use options::{EncodeOptions, Method, PriorChoice, Reader, ScoreEvidence, TimeTies, Treatment};
-pub use resolve::{resolve, EncodePlan, KeyPlan, OutputColumn};
-pub use run::{run, run_with_progress, summary_table, write, ColumnSummary, EncodeOutput};
+pub use options::{
+    EncodeOptions, Method, PriorChoice, Reader, ScoreEvidence, TimeTies, Treatment, LOO_REFUSED,
+};
+pub use resolve::{feature_columns, resolve, EncodePlan, KeyPlan, OutputColumn};
+pub use run::{
+    run, run_with_progress, summary_json, summary_table, write, ColumnSummary, EncodeOutput,
+};
 pub use sql::Statement;
 pub use update::{update, UpdateOptions};
 

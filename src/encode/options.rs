@@ -1,6 +1,7 @@
 //! What a user asks of `encode`, before it meets the data.
 
-use super::{usage, Result};
+use super::{usage, EncodeError, Result};
+use crate::layout::AnyPosterior;
 use crate::layout::Kind;
 
 /// How training rows are kept from seeing their own target. (Leave-one-out is not
@@ -14,7 +15,25 @@ pub enum Method {
     Time,
 }
 
+/// Why leave-one-out is not offered for training encodings (the measurement).
+pub const LOO_REFUSED: &str = "--method loo is not offered for training encodings: within a \
+    level, leave-one-out values take one value per outcome, so each row's encoding reveals its \
+    own target and tree learners read it back (benches/modeling/leakage.py: a gradient-boosted \
+    learner gains 4 times as much on its training rows as from pure noise, and its held-out \
+    log-loss is 0.07 worse than the base rate's); use --method kfold (the default) or \
+    --method time";
+
 impl Method {
+    /// `kfold` or `time`; `loo` is refused with its reason.
+    pub fn parse(name: &str) -> Result<Method> {
+        match name.trim() {
+            "kfold" => Ok(Method::Kfold),
+            "time" => Ok(Method::Time),
+            "loo" => usage(LOO_REFUSED),
+            other => usage(format!("--method '{other}' is not kfold or time")),
+        }
+    }
+
     pub fn name(self) -> &'static str {
         match self {
             Method::Kfold => "kfold",
@@ -231,10 +250,49 @@ impl Reader {
     }
 }
 
+impl Reader {
+    /// This reader of posterior `p` (for a Dirichlet class), in Rust: the same
+    /// value as [`Reader::sql`] gives in the engine (scoring without it).
+    pub fn value(&self, p: &AnyPosterior, class: Option<&str>) -> Result<f64> {
+        let marginal = |class| {
+            p.marginal(class)
+                .map_err(|e| EncodeError::Usage(format!("reader {}: {e}", self.spec())))
+        };
+        let value = match self {
+            Reader::DataWeight => p.evidence(),
+            Reader::Mean => marginal(class)?.mean(),
+            Reader::Sd | Reader::Var => {
+                let m = marginal(class)?;
+                let sd = Some(m.sd())
+                    .filter(|v| v.is_finite())
+                    .unwrap_or_else(|| (m.quantile(ONE_SD_ABOVE) - m.quantile(ONE_SD_BELOW)) / 2.0);
+                match self {
+                    Reader::Sd => sd,
+                    _ => Some(m.var()).filter(|v| v.is_finite()).unwrap_or(sd * sd),
+                }
+            }
+            Reader::Quantile(q) => marginal(class)?.quantile(*q),
+            Reader::Above(t) => marginal(class)?.prob_above(*t),
+        };
+        if value.is_finite() {
+            Ok(value)
+        } else {
+            Err(EncodeError::Query(format!(
+                "reader {} of {p:?} is not a finite number",
+                self.spec()
+            )))
+        }
+    }
+}
+
+/// The normal distribution's probabilities one sd below and above the mean.
+const ONE_SD_BELOW: f64 = 0.15865525393145707;
+const ONE_SD_ABOVE: f64 = 0.8413447460685429;
+
 /// Half the central 68.27 % interval of `p` (one normal sd either side).
 fn half_width(p: &str, class: &str) -> String {
     format!(
-        "(posterior_quantile({p}{class}, 0.8413447460685429) - posterior_quantile({p}{class}, 0.15865525393145707)) / 2"
+        "(posterior_quantile({p}{class}, {ONE_SD_ABOVE:?}) - posterior_quantile({p}{class}, {ONE_SD_BELOW:?})) / 2"
     )
 }
 

@@ -120,43 +120,14 @@ pub enum OutputColumn {
 impl EncodePlan {
     /// The output columns of `key`, in order, with their names.
     pub fn output_columns(&self, key: &KeyPlan) -> Vec<(String, OutputColumn)> {
-        let per_class = |with_class: bool| -> Vec<(String, Option<String>)> {
-            if self.classes.is_empty() || !with_class {
-                vec![(key.name.clone(), None)]
-            } else {
-                self.classes
-                    .iter()
-                    .map(|c| (format!("{}_{}", key.name, sanitize(c)), Some(c.clone())))
-                    .collect()
-            }
-        };
-        let mut out = Vec::new();
-        let indicators = (1..=key.indicators).map(|rank| {
-            (
-                format!("{}_top{rank}", key.name),
-                OutputColumn::Indicator { rank },
-            )
-        });
-        match key.treatment {
-            Treatment::Levels => return indicators.collect(),
-            Treatment::Codes => return vec![(format!("{}_code", key.name), OutputColumn::Code)],
-            Treatment::Posterior => {}
-        }
-        for (index, reader) in self.options.readers.iter().enumerate() {
-            for (prefix, class) in per_class(reader.per_class()) {
-                out.push((
-                    format!("{prefix}_{}", reader.suffix()),
-                    OutputColumn::Reader { index, class },
-                ));
-            }
-        }
-        out.extend(indicators);
-        if self.options.draws.is_some() {
-            for (prefix, class) in per_class(true) {
-                out.push((format!("{prefix}_draw"), OutputColumn::Draw { class }));
-            }
-        }
-        out
+        feature_columns(
+            &key.name,
+            key.treatment,
+            key.indicators,
+            &self.options.readers,
+            &self.classes,
+            self.options.draws.is_some(),
+        )
     }
 
     /// The reader columns of `key` only: (name, reader, class).
@@ -171,6 +142,56 @@ impl EncodePlan {
             })
             .collect()
     }
+}
+
+/// The feature columns of a key named `name`, in order, with their names: one
+/// place for the names the training table, the scored table and scoring with a
+/// bundle all use.
+pub fn feature_columns(
+    name: &str,
+    treatment: Treatment,
+    indicators: usize,
+    readers: &[Reader],
+    classes: &[String],
+    draws: bool,
+) -> Vec<(String, OutputColumn)> {
+    let per_class = |with_class: bool| -> Vec<(String, Option<String>)> {
+        if classes.is_empty() || !with_class {
+            vec![(name.to_string(), None)]
+        } else {
+            classes
+                .iter()
+                .map(|c| (format!("{name}_{}", sanitize(c)), Some(c.clone())))
+                .collect()
+        }
+    };
+    let indicators = (1..=indicators).map(|rank| {
+        (
+            format!("{name}_top{rank}"),
+            OutputColumn::Indicator { rank },
+        )
+    });
+    match treatment {
+        Treatment::Levels => return indicators.collect(),
+        Treatment::Codes => return vec![(format!("{name}_code"), OutputColumn::Code)],
+        Treatment::Posterior => {}
+    }
+    let mut out = Vec::new();
+    for (index, reader) in readers.iter().enumerate() {
+        for (prefix, class) in per_class(reader.per_class()) {
+            out.push((
+                format!("{prefix}_{}", reader.suffix()),
+                OutputColumn::Reader { index, class },
+            ));
+        }
+    }
+    out.extend(indicators);
+    if draws {
+        for (prefix, class) in per_class(true) {
+            out.push((format!("{prefix}_draw"), OutputColumn::Draw { class }));
+        }
+    }
+    out
 }
 
 /// The columns of a registered table, with their types.
@@ -233,7 +254,10 @@ async fn choose_treatments(
         if !keys.iter().any(|k| k.spelled() == *spec) {
             return usage(format!(
                 "--treatment: '{spec}' is not an encoded key (keys: {})",
-                keys.iter().map(KeyPlan::spelled).collect::<Vec<_>>().join(", ")
+                keys.iter()
+                    .map(KeyPlan::spelled)
+                    .collect::<Vec<_>>()
+                    .join(", ")
             ));
         }
     }

@@ -229,7 +229,10 @@ pub(super) async fn finish(
                 key.name
             ));
         }
-        if plan.fitted && key.treatment == Treatment::Posterior && (levels.len() as u64) < FEW_LEVELS {
+        if plan.fitted
+            && key.treatment == Treatment::Posterior
+            && (levels.len() as u64) < FEW_LEVELS
+        {
             warnings.push(format!(
                 "the prior of {} was fitted from only {} levels; consider --prior with numbers",
                 key.name,
@@ -328,6 +331,24 @@ fn prior_strength(prior: &AnyPosterior) -> f64 {
         AnyPosterior::Nig(n) => n.prior.kappa0,
         AnyPosterior::Dirichlet(d) => d.prior.alpha0.iter().sum(),
     }
+}
+
+/// The summary as JSON, one object per key (`summary.json`).
+pub fn summary_json(summary: &[ColumnSummary]) -> Value {
+    Value::Array(
+        summary
+            .iter()
+            .map(|s| {
+                json!({
+                    "key": s.key, "family": s.family, "prior": s.prior, "strength": s.strength,
+                    "at_bound": s.at_bound, "levels": s.levels, "rows": s.rows,
+                    "indicators": s.indicators, "merged_levels": s.merged_levels,
+                    "treatment": s.treatment.name(), "why": s.why,
+                    "unseen_share": s.unseen_share, "warnings": s.warnings,
+                })
+            })
+            .collect(),
+    )
 }
 
 /// The summary as a short table, one line per key.
@@ -468,19 +489,7 @@ async fn write_into(output: &EncodeOutput, dir: &Path) -> Result<()> {
     let path = dir.join("bundle.json");
     std::fs::write(&path, output.bundle.to_json()).map_err(|e| io(&path, e))?;
     let path = dir.join("summary.json");
-    let summary: Vec<Value> = output
-        .summary
-        .iter()
-        .map(|s| {
-            json!({
-                "key": s.key, "family": s.family, "prior": s.prior, "strength": s.strength,
-                "at_bound": s.at_bound, "levels": s.levels, "rows": s.rows,
-                "indicators": s.indicators, "merged_levels": s.merged_levels,
-                "treatment": s.treatment.name(), "why": s.why,
-                "unseen_share": s.unseen_share, "warnings": s.warnings,
-            })
-        })
-        .collect();
+    let summary = summary_json(&output.summary);
     std::fs::write(
         &path,
         serde_json::to_string_pretty(&summary).unwrap_or_default(),

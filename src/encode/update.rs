@@ -65,16 +65,10 @@ pub fn prior_sql(p: &AnyPosterior) -> String {
 }
 
 fn family_of(name: &str) -> Result<Kind> {
-    Ok(match name.to_ascii_lowercase().as_str() {
-        "beta" => Kind::Beta,
-        "gamma" => Kind::Gamma,
-        "nig" => Kind::Nig,
-        "dirichlet" => Kind::Dirichlet,
-        other => {
-            return usage(format!(
-                "--update: the bundle's family '{other}' is not known"
-            ))
-        }
+    Kind::from_short_name(name).ok_or_else(|| {
+        EncodeError::Usage(format!(
+            "--update: the bundle's family '{name}' is not known"
+        ))
     })
 }
 

@@ -173,13 +173,6 @@ impl From<EncodeError> for Failure {
 const TRAIN_TABLE: &str = "__encode_train";
 const SCORE_TABLE: &str = "__encode_score";
 
-const LOO_REFUSED: &str = "--method loo is not offered for training encodings: within a level, \
-    leave-one-out values take one value per outcome, so each row's encoding reveals its own \
-    target and tree learners read it back (benches/modeling/leakage.py: a gradient-boosted \
-    learner gains 4 times as much on its training rows as from pure noise, and its held-out \
-    log-loss is 0.07 worse than the base rate's); use --method kfold (the default) or \
-    --method time";
-
 fn split_trimmed(values: &[String]) -> Vec<String> {
     values.iter().map(|c| c.trim().to_string()).collect()
 }
@@ -203,7 +196,7 @@ fn options(args: &EncodeArgs) -> Result<EncodeOptions, Failure> {
         None => None,
         Some(MethodChoice::Kfold) => Some(Method::Kfold),
         Some(MethodChoice::Time) => Some(Method::Time),
-        Some(MethodChoice::Loo) => return Err(Failure::usage(LOO_REFUSED)),
+        Some(MethodChoice::Loo) => return Err(Failure::usage(encode::LOO_REFUSED)),
     };
     o.folds = args.folds;
     o.seed = args.seed;

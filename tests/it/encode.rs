@@ -623,11 +623,31 @@ fn sample() -> String {
 
 /// A plan for the snapshot, built by hand so that nothing runs.
 fn snapshot_plan() -> posterity::encode::EncodePlan {
-    use posterity::encode::{EncodeOptions, EncodePlan, KeyPlan, Method, Reader};
+    use posterity::encode::{EncodeOptions, EncodePlan, KeyPlan, Method, Reader, Treatment};
     use posterity::layout::Kind;
     let mut options = EncodeOptions::new("train", "{class}", &[]);
     options.readers = vec![Reader::Mean, Reader::Quantile(0.05)];
     options.score = Some("score".into());
+    let key = |name: &str, columns: &[&str], treatment: Treatment, indicators: usize| {
+        let mut key = KeyPlan::posterior(
+            name.into(),
+            columns.iter().map(|c| c.to_string()).collect(),
+            &options,
+        );
+        key.treatment = treatment;
+        key.indicators = indicators;
+        key
+    };
+    let keys = vec![
+        key("a_b", &["a\"b"], Treatment::Posterior, 20),
+        key(
+            "naïve_café_x__y_",
+            &["naïve café", "{y}"],
+            Treatment::Codes,
+            0,
+        ),
+        key("_y_", &["{y}"], Treatment::Levels, 3),
+    ];
     EncodePlan {
         options,
         family: Kind::Dirichlet,
@@ -641,18 +661,7 @@ fn snapshot_plan() -> posterity::encode::EncodePlan {
         ],
         base_prior: "dirichlet_prior(['{y}', 'a\"b', 'naïve café', 'it''s'], 0.5)".into(),
         fitted: true,
-        keys: vec![
-            KeyPlan {
-                name: "a_b".into(),
-                columns: vec!["a\"b".into()],
-                prior: None,
-            },
-            KeyPlan {
-                name: "naïve_café_x__y_".into(),
-                columns: vec!["naïve café".into(), "{y}".into()],
-                prior: None,
-            },
-        ],
+        keys,
         train_columns: vec![
             "a\"b".into(),
             "naïve café".into(),
@@ -1212,4 +1221,275 @@ async fn normalized_keys_merge_spellings() {
         "poodle",
         "full-width P (U+FF30) is P in compatibility form"
     );
+}
+
+// Each key's treatment: clinic (12 levels, each with at least 100 rows) is given as
+// levels, one indicator per level ranked by size; breed, asked for as codes, is its
+// position among the sorted training levels, -1 unseen; postcode_area stays a
+// posterior encoding. The summary says why; the bundle gives the same codes.
+#[tokio::test]
+async fn treatments_follow_the_data_and_the_user() {
+    let dir = temp_dir("treatments");
+    let score = dir.join("score.csv");
+    std::fs::write(
+        &score,
+        "clinic,breed,postcode_area\nclinic_03,breed_017,PA0011\nclinic_99,no_such_breed,PA0011\n,,\n",
+    )
+    .unwrap();
+    let out = dir.join("out");
+    let o = encode_output(&[
+        "encode",
+        "--train",
+        &sample(),
+        "--target",
+        "no_show",
+        "--columns",
+        "clinic,breed,postcode_area",
+        "--treatment",
+        "breed=codes",
+        "--score",
+        score.to_str().unwrap(),
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    let stdout = String::from_utf8_lossy(&o.stdout);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    assert!(
+        stdout.contains("clinic as levels: 12 levels, each with at least 100 rows"),
+        "{stdout}"
+    );
+    assert!(
+        stdout.contains("breed as codes: chosen (--treatment)"),
+        "{stdout}"
+    );
+    assert!(
+        stdout.contains("postcode_area as posterior: 829 levels"),
+        "{stdout}"
+    );
+    let ctx = SessionContext::new();
+    ctx.register_csv("a", &sample(), Default::default())
+        .await
+        .unwrap();
+    for (name, file) in [("tr", "train_encoded"), ("sc", "scored")] {
+        ctx.register_parquet(
+            name,
+            out.join(format!("{file}.parquet")).to_str().unwrap(),
+            ParquetReadOptions::default(),
+        )
+        .await
+        .unwrap();
+    }
+    let columns: Vec<String> = ctx
+        .table("tr")
+        .await
+        .unwrap()
+        .schema()
+        .fields()
+        .iter()
+        .map(|f| f.name().clone())
+        .collect();
+    let clinic: Vec<&String> = columns
+        .iter()
+        .filter(|c| c.starts_with("clinic_"))
+        .collect();
+    assert_eq!(clinic.len(), 12, "{columns:?}");
+    assert!(columns.contains(&"breed_code".to_string()));
+    assert!(!columns
+        .iter()
+        .any(|c| c.starts_with("breed_mean") || c.starts_with("clinic_mean")));
+    assert!(columns.contains(&"postcode_area_mean".to_string()));
+    // Every training row has exactly the indicator of its clinic's size rank, and
+    // breed's code is its rank among the sorted distinct breeds.
+    let indicators = clinic
+        .iter()
+        .map(|c| format!("\"{c}\""))
+        .collect::<Vec<_>>()
+        .join(" + ");
+    let rank_sum = clinic
+        .iter()
+        .enumerate()
+        .map(|(i, c)| format!("{} * \"{c}\"", i + 1))
+        .collect::<Vec<_>>()
+        .join(" + ");
+    let sql = format!(
+        "WITH sizes AS (SELECT clinic, row_number() OVER (ORDER BY COUNT(*) DESC, clinic) AS r FROM a GROUP BY clinic),
+              codes AS (SELECT breed, row_number() OVER (ORDER BY breed) - 1 AS code FROM (SELECT DISTINCT breed FROM a))
+         SELECT COUNT(*), COUNT(*) FILTER (WHERE {indicators} = 1 AND {rank_sum} = s.r AND t.breed_code = c.code)
+         FROM tr t JOIN sizes s ON s.clinic = t.clinic JOIN codes c ON c.breed = t.breed"
+    );
+    let b = ctx.sql(&sql).await.unwrap().collect().await.unwrap();
+    let count = |c: usize| b[0].column(c).as_primitive::<Int64Type>().value(0);
+    assert_eq!((count(0), count(1)), (3000, 3000));
+    // Scored: a known clinic and breed, then unseen ones, then NULL keys.
+    let b = ctx
+        .sql(&format!(
+            "SELECT CAST(breed_code AS BIGINT), CAST({indicators} AS BIGINT) FROM sc"
+        ))
+        .await
+        .unwrap()
+        .collect()
+        .await
+        .unwrap();
+    let codes: Vec<i64> = b[0].column(0).as_primitive::<Int64Type>().values().to_vec();
+    let ones: Vec<i64> = b[0].column(1).as_primitive::<Int64Type>().values().to_vec();
+    let bundle =
+        Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+    let breed = &bundle.columns["breed"];
+    assert_eq!(
+        codes,
+        vec![breed.codes()["breed_017"], -1, -1],
+        "bundle and scored codes differ"
+    );
+    assert!(codes[0] >= 0);
+    assert_eq!(ones, vec![1, 0, 0]);
+    let summary = std::fs::read_to_string(out.join("summary.json")).unwrap();
+    assert!(summary.contains("\"treatment\": \"levels\""), "{summary}");
+
+    // What cannot be asked says so, naming the option, the key and the choices.
+    for (treatment, fragments) in [
+        (
+            "nosuch=levels",
+            vec![
+                "--treatment",
+                "'nosuch' is not an encoded key",
+                "clinic, breed",
+            ],
+        ),
+        (
+            "breed=onehot",
+            vec!["--treatment", "'onehot'", "posterior, levels or codes"],
+        ),
+        ("breed", vec!["--treatment 'breed'", "KEY=AS"]),
+        (
+            "appointment_id=levels",
+            vec!["appointment_id=levels", "3000 levels", "at most 1000"],
+        ),
+    ] {
+        let o = encode_output(&[
+            "encode",
+            "--train",
+            &sample(),
+            "--target",
+            "no_show",
+            "--columns",
+            "clinic,breed,appointment_id",
+            "--treatment",
+            treatment,
+            "--out",
+            dir.join("bad").to_str().unwrap(),
+        ]);
+        let err = String::from_utf8_lossy(&o.stderr);
+        assert_eq!(o.status.code(), Some(2), "{treatment}: {err}");
+        for f in fragments {
+            assert!(err.contains(f), "{treatment}: {f} not in {err}");
+        }
+        assert!(!dir.join("bad").exists());
+    }
+}
+
+// Scoring with the bundle alone (`posterity::serve::score`, what Python's
+// `Bundle.score` runs) gives the scored file's columns: the same names and types,
+// the same values (1e-12 relative), for posterior, levels and codes keys, an
+// interaction, a Dirichlet target, unseen levels and NULL keys.
+#[tokio::test]
+async fn scoring_with_the_bundle_equals_the_scored_file() {
+    let dir = temp_dir("serve");
+    let score = dir.join("score.csv");
+    let mut rows = std::fs::read_to_string(sample()).unwrap();
+    rows.push_str(
+        "3000,2025-12-31,365,clinic_99,phone,no_such_breed,PA0011,vet_01,attended,0,1.0\n",
+    );
+    rows.push_str("3001,2025-12-31,365,,,,,,no_show,1,\n");
+    std::fs::write(&score, rows).unwrap();
+    for (target, readers) in [
+        ("no_show", "mean,sd,q05,data_weight,above:0.2"),
+        ("outcome", "mean,q95"),
+    ] {
+        let out = dir.join(format!("out-{target}"));
+        encode(&[
+            "--train",
+            &sample(),
+            "--target",
+            target,
+            "--columns",
+            "breed,clinic,vet,postcode_area",
+            "--interactions",
+            "breed:clinic",
+            "--treatment",
+            "vet=codes",
+            "--readers",
+            readers,
+            "--score",
+            score.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+        ]);
+        let bundle =
+            Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+        let ctx = SessionContext::new();
+        let scored = ctx
+            .read_parquet(
+                out.join("scored.parquet").to_str().unwrap(),
+                ParquetReadOptions::default(),
+            )
+            .await
+            .unwrap();
+        let input_columns: Vec<&str> = vec![
+            "appointment_id",
+            "booked_on",
+            "day",
+            "clinic",
+            "channel",
+            "breed",
+            "postcode_area",
+            "vet",
+            "outcome",
+            "no_show",
+            "amount",
+        ];
+        let want = datafusion::arrow::compute::concat_batches(
+            &scored.schema().as_arrow().clone().into(),
+            &scored.clone().collect().await.unwrap(),
+        )
+        .unwrap();
+        let input = want
+            .project(
+                &input_columns
+                    .iter()
+                    .map(|c| want.schema().index_of(c).unwrap())
+                    .collect::<Vec<_>>(),
+            )
+            .unwrap();
+        let got = posterity::serve::score(&bundle, &input).unwrap();
+        assert_eq!(got.num_columns(), want.num_columns(), "{target}");
+        for field in want.schema().fields() {
+            let w = want.column_by_name(field.name()).unwrap();
+            let g = got
+                .column_by_name(field.name())
+                .unwrap_or_else(|| panic!("{target}: no column {}", field.name()));
+            let w = cast(w, g.data_type()).unwrap();
+            if g.data_type() == &DataType::Float64 {
+                let (w, g) = (
+                    w.as_primitive::<Float64Type>(),
+                    g.as_primitive::<Float64Type>(),
+                );
+                for i in 0..w.len() {
+                    let (a, b) = (w.value(i), g.value(i));
+                    assert!(
+                        (a - b).abs() <= 1e-12 * a.abs().max(1e-300),
+                        "{target}: {} row {i}: {a} vs {b}",
+                        field.name()
+                    );
+                }
+            } else {
+                assert_eq!(&w, g, "{target}: {}", field.name());
+            }
+        }
+        // The last two rows: an unseen level and NULL keys read the prior.
+        let code = got
+            .column_by_name("vet_code")
+            .unwrap()
+            .as_primitive::<Int64Type>();
+        assert_eq!(code.value(3001), -1);
+    }
 }

@@ -1,0 +1,241 @@
+"""posterity: conjugate Bayesian encodings of categorical columns, in DataFusion.
+
+    import datafusion, posterity
+    ctx = datafusion.SessionContext()
+    fns = posterity.register(ctx)          # every function, in SQL and as expressions
+    ctx.sql("SELECT breed, beta_posterior(no_show) AS p FROM a GROUP BY breed")
+
+    enc = posterity.encode(train_df, target="no_show", columns=["breed", "clinic"],
+                           score=next_month_df)
+    enc.train_encoded, enc.scored, enc.encodings["breed"], enc.bundle, enc.summary
+    posterity.Bundle.load("encoded/").score(rows_df)
+
+Results come back in the kind of table that went in: pandas for pandas, polars for
+polars, pyarrow otherwise. Every refusal is a ``posterity.Error`` (a ``ValueError``)
+whose message names the function, the argument and what is allowed.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from types import SimpleNamespace
+from typing import Any
+
+import pyarrow as pa
+
+from . import _posterity
+from ._posterity import Error
+
+__all__ = ["Bundle", "Encoded", "Error", "doc", "encode", "engine_version", "functions",
+           "register"]
+
+
+def engine_version() -> str:
+    """The DataFusion version posterity is built on."""
+    return _posterity.engine_version()
+
+
+def _documentation() -> dict[str, dict]:
+    return {d["name"]: d for d in json.loads(_posterity.documentation())}
+
+
+def doc(name: str) -> str:
+    """The documentation of one function: description, syntax, arguments, example."""
+    docs = _documentation()
+    if name not in docs:
+        raise Error(f"doc: no posterity function named '{name}' (see posterity.functions())")
+    d = docs[name]
+    arguments = "\n".join(f"  {a}: {text}" for a, text in d["arguments"])
+    return (f"{d['syntax']}\n\n{d['description']}\n\nArguments:\n{arguments}\n\n"
+            f"Example:\n  {d['example']}")
+
+
+def functions() -> list[str]:
+    """The names of every posterity function."""
+    return sorted(_documentation())
+
+
+def _check_engine() -> None:
+    import datafusion
+
+    installed = getattr(datafusion, "__version__", "unknown")
+    built_on = engine_version()
+    if installed.split(".")[0] != built_on.split(".")[0]:
+        raise Error(
+            f"posterity is built on DataFusion {built_on}; the installed datafusion package "
+            f"is {installed}, built on another engine version, whose function interface "
+            f"differs. Install datafusion {built_on.split('.')[0]}.x "
+            f"(pip install 'datafusion>={built_on.split('.')[0]},<"
+            f"{int(built_on.split('.')[0]) + 1}')")
+
+
+def register(ctx) -> SimpleNamespace:
+    """Register every posterity function on a ``datafusion.SessionContext``.
+
+    Returns the functions by name, for the DataFrame API and windows:
+    ``fns.beta_posterior(col("no_show"))``,
+    ``fns.posterior_mean(col("p"))``,
+    ``fns.beta_posterior(col("y")).over(Window(partition_by=[col("breed")]))``.
+    Each carries its documentation (``help(fns.beta_posterior)``).
+
+    One difference from posterity inside Rust: the planning rule that gives empty
+    window frames and empty groups the call's own prior cannot travel through the
+    engine's function interface. Give as-of windows a frame that holds rows, or
+    COALESCE the result with the prior (README, "posterity from Python").
+    """
+    from datafusion import AggregateUDF, ScalarUDF
+
+    _check_engine()
+    docs = _documentation()
+    out = {}
+    for f in _posterity.scalar_functions():
+        udf = ScalarUDF.from_pycapsule(f)
+        ctx.register_udf(udf)
+        out[f.name] = udf
+    for f in _posterity.aggregate_functions():
+        udaf = AggregateUDF.from_pycapsule(f)
+        ctx.register_udaf(udaf)
+        out[f.name] = udaf
+    for name, udf in out.items():
+        if name in docs:
+            try:
+                udf.__doc__ = doc(name)
+            except (AttributeError, TypeError):
+                pass
+    return SimpleNamespace(**out)
+
+
+# ------------------------------------------------------------------ tables
+
+def _kind(data: Any) -> str:
+    module = type(data).__module__.split(".")[0]
+    if module == "pandas":
+        return "pandas"
+    if module == "polars":
+        return "polars"
+    return "arrow"
+
+
+def _as_input(data: Any, what: str):
+    """A path (str or PathLike) as text, or an object with ``__arrow_c_stream__``."""
+    if isinstance(data, (str, os.PathLike)):
+        return os.fspath(data)
+    if _kind(data) == "pandas":
+        # The index is not data; a named one is a column in pandas' own Arrow form.
+        return pa.Table.from_pandas(data, preserve_index=False)
+    if hasattr(data, "__arrow_c_stream__"):
+        return data
+    raise Error(f"{what}: expected a file path, a pyarrow Table, a pandas or a polars DataFrame; "
+                f"got {type(data).__name__}")
+
+
+def _as_output(data, kind: str):
+    if data is None:
+        return None
+    table = pa.table(data)
+    if kind == "pandas":
+        return table.to_pandas()
+    if kind == "polars":
+        import polars as pl
+
+        return pl.from_arrow(table)
+    return table
+
+
+class Bundle:
+    """A serving bundle: each key's prior and per-level posteriors.
+
+    ``Bundle.load("encoded/")`` reads ``bundle.json``; ``score(rows)`` appends every
+    key's feature columns (the columns ``encode`` gives scored rows, same values)
+    without an engine session.
+    """
+
+    def __init__(self, inner):
+        self._inner = inner
+
+    @staticmethod
+    def load(path) -> "Bundle":
+        return Bundle(_posterity.Bundle.load(os.fspath(path)))
+
+    @staticmethod
+    def from_json(text: str) -> "Bundle":
+        return Bundle(_posterity.Bundle.from_json(text))
+
+    def to_json(self) -> str:
+        return self._inner.to_json()
+
+    @property
+    def target(self) -> str:
+        return self._inner.target
+
+    @property
+    def family(self) -> str:
+        return self._inner.family
+
+    @property
+    def readers(self) -> list[str]:
+        return self._inner.readers
+
+    @property
+    def keys(self) -> list[str]:
+        return self._inner.keys
+
+    def score(self, rows):
+        """``rows`` (pandas, polars or pyarrow) with the feature columns appended."""
+        kind = _kind(rows)
+        data = _as_input(rows, "Bundle.score")
+        if isinstance(data, str):
+            raise Error("Bundle.score: give the rows as a table (pandas, polars or pyarrow); "
+                        "read the file first")
+        return _as_output(self._inner.score_data(data), kind)
+
+    def __repr__(self) -> str:
+        return f"Bundle(target={self.target!r}, family={self.family!r}, keys={self.keys!r})"
+
+
+class Encoded:
+    """What ``encode`` returns: tables in the kind that went in, and the bundle."""
+
+    def __init__(self, inner, kind: str):
+        self._inner = inner
+        self.train_encoded = _as_output(inner.train_encoded, kind)
+        self.scored = _as_output(inner.scored, kind)
+        self.encodings = {k: _as_output(v, kind) for k, v in inner.encodings}
+        self.bundle = Bundle(inner.bundle)
+        self.summary = json.loads(inner.summary_json)
+
+    def write(self, out, replace: bool = False) -> None:
+        """Write the directory the shell's ``encode --out`` writes, whole or not at all."""
+        self._inner.write(os.fspath(out), replace)
+
+    def __str__(self) -> str:
+        return self._inner.summary_text
+
+    def __repr__(self) -> str:
+        return f"Encoded(keys={list(self.encodings)})\n{self._inner.summary_text}"
+
+
+def encode(train, target: str, columns: list[str], score=None, out=None, replace: bool = False,
+           **options) -> Encoded:
+    """Training encodings, encoding tables, a serving bundle and (with ``score``) scored rows.
+
+    ``train`` and ``score``: a file path (Parquet, CSV, TSV, NDJSON), a pyarrow Table, a
+    pandas or a polars DataFrame. The options are the shell's ``encode`` flags with
+    underscores: ``interactions=[["breed", "clinic"]]``, ``family``, ``prior`` ("fitted",
+    "jeffreys", "uniform" or numbers), ``method`` ("kfold" or "time"), ``folds``, ``seed``,
+    ``time_column``, ``half_life``, ``normalize_keys``, ``time_ties``, ``exposure``,
+    ``readers=["mean", "sd"]``, ``draws``, ``indicators``, ``indicator_min_rows``,
+    ``treatment={"clinic": "levels"}``, ``score_evidence`` ("matched" or "full"). The same
+    inputs give the shell's numbers. With ``out``, the outputs are also written there.
+    """
+    if isinstance(columns, str):
+        columns = [columns]
+    kind = _kind(train)
+    inner = _posterity.encode_data(_as_input(train, "train"), target, list(columns),
+                                   None if score is None else _as_input(score, "score"),
+                                   **options)
+    result = Encoded(inner, kind)
+    if out is not None:
+        result.write(out, replace)
+    return result

@@ -1,0 +1,603 @@
+//! `posterity._posterity`, the engine of the Python package: posterity's functions
+//! as foreign functions for datafusion-python (the engine's FFI structs in
+//! PyCapsules), and the encode workflow and bundle scoring over Arrow data (the
+//! Arrow C stream interface, no copy). The user-facing API is the Python package in
+//! `pysrc/posterity`.
+//!
+//! Nothing here panics on user input: every failure becomes a `posterity.Error`
+//! with the library's message.
+
+use std::fmt::Display;
+use std::path::PathBuf;
+use std::sync::{Arc, OnceLock};
+
+use datafusion_ffi::udaf::FFI_AggregateUDF;
+use datafusion_ffi::udf::FFI_ScalarUDF;
+use posterity::bundle::Bundle as RustBundle;
+use posterity::datafusion::arrow::array::{RecordBatch, RecordBatchIterator};
+use posterity::datafusion::arrow::datatypes::SchemaRef;
+use posterity::datafusion::arrow::ffi_stream::{ArrowArrayStreamReader, FFI_ArrowArrayStream};
+use posterity::datafusion::datasource::MemTable;
+use posterity::datafusion::logical_expr::{AggregateUDF, ScalarUDF};
+use posterity::datafusion::prelude::{DataFrame, SessionContext};
+use posterity::encode::{
+    self, EncodeOptions, EncodeOutput, Method, PriorChoice, Reader, ScoreEvidence, TimeTies,
+    Treatment,
+};
+use posterity::files::CsvOptions;
+use posterity::layout::Kind;
+use pyo3::prelude::*;
+use pyo3::types::PyCapsule;
+
+pyo3::create_exception!(
+    posterity,
+    Error,
+    pyo3::exceptions::PyValueError,
+    "A posterity function, encode or bundle refused its input; the message names the \
+     function, the argument and what is allowed."
+);
+
+fn error(e: impl Display) -> PyErr {
+    Error::new_err(e.to_string())
+}
+
+/// One runtime for every call from Python (the engine is asynchronous).
+fn runtime() -> PyResult<&'static tokio::runtime::Runtime> {
+    static RUNTIME: OnceLock<Option<tokio::runtime::Runtime>> = OnceLock::new();
+    RUNTIME
+        .get_or_init(|| {
+            tokio::runtime::Builder::new_multi_thread()
+                .enable_all()
+                .build()
+                .ok()
+        })
+        .as_ref()
+        .ok_or_else(|| error("posterity: cannot start its worker threads"))
+}
+
+// ------------------------------------------------------------------ functions
+
+/// A scalar function, shared with datafusion-python through its FFI capsule.
+#[pyclass(frozen, module = "posterity")]
+struct ScalarFunction {
+    udf: Arc<ScalarUDF>,
+}
+
+#[pymethods]
+impl ScalarFunction {
+    #[getter]
+    fn name(&self) -> String {
+        self.udf.name().to_string()
+    }
+
+    fn __datafusion_scalar_udf__<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyCapsule>> {
+        PyCapsule::new_with_value(
+            py,
+            FFI_ScalarUDF::from(Arc::clone(&self.udf)),
+            c"datafusion_scalar_udf",
+        )
+    }
+}
+
+/// An aggregate (and window) function, shared through its FFI capsule.
+#[pyclass(frozen, module = "posterity")]
+struct AggregateFunction {
+    udaf: Arc<AggregateUDF>,
+}
+
+#[pymethods]
+impl AggregateFunction {
+    #[getter]
+    fn name(&self) -> String {
+        self.udaf.name().to_string()
+    }
+
+    fn __datafusion_aggregate_udf__<'py>(
+        &self,
+        py: Python<'py>,
+    ) -> PyResult<Bound<'py, PyCapsule>> {
+        PyCapsule::new_with_value(
+            py,
+            FFI_AggregateUDF::from(Arc::clone(&self.udaf)),
+            c"datafusion_aggregate_udf",
+        )
+    }
+}
+
+#[pyfunction]
+fn scalar_functions() -> Vec<ScalarFunction> {
+    posterity::scalar::all()
+        .into_iter()
+        .map(|udf| ScalarFunction { udf: Arc::new(udf) })
+        .collect()
+}
+
+#[pyfunction]
+fn aggregate_functions() -> Vec<AggregateFunction> {
+    posterity::aggregates()
+        .into_iter()
+        .map(|udaf| AggregateFunction {
+            udaf: Arc::new(udaf),
+        })
+        .collect()
+}
+
+/// Every function's documentation, as JSON: name, section, description, syntax,
+/// arguments ([name, text] pairs), example.
+#[pyfunction]
+fn documentation() -> String {
+    let docs: Vec<serde_json::Value> = posterity::docs::FUNCTIONS
+        .iter()
+        .map(|f| {
+            serde_json::json!({
+                "name": f.name, "section": f.section, "description": f.description,
+                "syntax": f.syntax, "arguments": f.arguments, "example": f.example,
+            })
+        })
+        .collect();
+    serde_json::Value::Array(docs).to_string()
+}
+
+/// The DataFusion version posterity is built on.
+#[pyfunction]
+fn engine_version() -> &'static str {
+    posterity::datafusion::DATAFUSION_VERSION
+}
+
+// ------------------------------------------------------------------ Arrow data
+
+/// Record batches handed to Python through the Arrow C stream interface
+/// (`pyarrow.table(x)`, `polars.from_arrow(x)`), without a copy.
+#[pyclass(frozen, module = "posterity")]
+struct ArrowData {
+    schema: SchemaRef,
+    batches: Vec<RecordBatch>,
+}
+
+#[pymethods]
+impl ArrowData {
+    #[pyo3(signature = (requested_schema=None))]
+    fn __arrow_c_stream__<'py>(
+        &self,
+        py: Python<'py>,
+        requested_schema: Option<Bound<'py, PyAny>>,
+    ) -> PyResult<Bound<'py, PyCapsule>> {
+        // The schema is what it is; a consumer that asked for another casts.
+        let _ = requested_schema;
+        let reader = RecordBatchIterator::new(
+            self.batches.clone().into_iter().map(Ok),
+            Arc::clone(&self.schema),
+        );
+        PyCapsule::new_with_value(
+            py,
+            FFI_ArrowArrayStream::new(Box::new(reader)),
+            c"arrow_array_stream",
+        )
+    }
+
+    #[getter]
+    fn num_rows(&self) -> usize {
+        self.batches.iter().map(RecordBatch::num_rows).sum()
+    }
+}
+
+/// The batches of an object with `__arrow_c_stream__` (pyarrow, polars, ...).
+fn read_stream(data: &Bound<'_, PyAny>, what: &str) -> PyResult<(SchemaRef, Vec<RecordBatch>)> {
+    let capsule = data.call_method0("__arrow_c_stream__").map_err(|_| {
+        error(format!(
+            "{what}: expected a path, a pyarrow Table, a pandas or a polars DataFrame (an object \
+             with __arrow_c_stream__), got {}",
+            data.get_type()
+                .name()
+                .map(|n| n.to_string())
+                .unwrap_or_default()
+        ))
+    })?;
+    let capsule = capsule.cast::<PyCapsule>().map_err(|_| {
+        error(format!(
+            "{what}: __arrow_c_stream__ did not return a capsule"
+        ))
+    })?;
+    let pointer = capsule.pointer_checked(Some(c"arrow_array_stream"))?;
+    // SAFETY: the capsule holds an ArrowArrayStream (checked by name); from_raw
+    // moves it out and marks the original released, as the protocol requires.
+    let reader = unsafe {
+        ArrowArrayStreamReader::from_raw(pointer.as_ptr().cast::<FFI_ArrowArrayStream>())
+    }
+    .map_err(|e| error(format!("{what}: {e}")))?;
+    let schema = posterity::datafusion::arrow::array::RecordBatchReader::schema(&reader);
+    let batches = reader
+        .collect::<Result<Vec<_>, _>>()
+        .map_err(|e| error(format!("{what}: {e}")))?;
+    Ok((schema, batches))
+}
+
+async fn collect(df: DataFrame) -> posterity::datafusion::error::Result<ArrowData> {
+    let schema = Arc::new(df.schema().as_arrow().clone());
+    let batches = df.collect().await?;
+    Ok(ArrowData { schema, batches })
+}
+
+// ------------------------------------------------------------------ encode
+
+/// A training or scoring input: a file path (registered like the shell does, key
+/// columns of CSV files as text) or Arrow batches.
+enum Input {
+    Path(String),
+    Batches(SchemaRef, Vec<RecordBatch>),
+}
+
+impl Input {
+    fn from_python(data: &Bound<'_, PyAny>, what: &str) -> PyResult<Input> {
+        if let Ok(path) = data.extract::<PathBuf>() {
+            return Ok(Input::Path(path.to_string_lossy().to_string()));
+        }
+        let (schema, batches) = read_stream(data, what)?;
+        Ok(Input::Batches(schema, batches))
+    }
+
+    async fn register(
+        self,
+        ctx: &SessionContext,
+        name: &str,
+        what: &str,
+        key_columns: &[String],
+    ) -> Result<(), String> {
+        match self {
+            Input::Path(path) => {
+                let csv = CsvOptions {
+                    text: key_columns.to_vec(),
+                    ..CsvOptions::default()
+                };
+                posterity::files::register(ctx, name, &path, &csv)
+                    .await
+                    .map_err(|e| format!("{what}: {e}"))
+            }
+            Input::Batches(schema, batches) => {
+                let table = MemTable::try_new(schema, vec![batches]).map_err(|e| e.to_string())?;
+                ctx.register_table(name, Arc::new(table))
+                    .map(|_| ())
+                    .map_err(|e| e.to_string())
+            }
+        }
+    }
+}
+
+/// What `encode` returned: the tables (collected), the bundle and the summary; it
+/// can write the same directory as the shell's `--out`.
+#[pyclass(module = "posterity")]
+struct EncodeResult {
+    output: EncodeOutput,
+    train_encoded: Option<Py<ArrowData>>,
+    scored: Option<Py<ArrowData>>,
+    encodings: Vec<(String, Py<ArrowData>)>,
+}
+
+#[pymethods]
+impl EncodeResult {
+    #[getter]
+    fn train_encoded(&self, py: Python<'_>) -> Option<Py<ArrowData>> {
+        self.train_encoded.as_ref().map(|d| d.clone_ref(py))
+    }
+
+    #[getter]
+    fn scored(&self, py: Python<'_>) -> Option<Py<ArrowData>> {
+        self.scored.as_ref().map(|d| d.clone_ref(py))
+    }
+
+    #[getter]
+    fn encodings(&self, py: Python<'_>) -> Vec<(String, Py<ArrowData>)> {
+        self.encodings
+            .iter()
+            .map(|(k, d)| (k.clone(), d.clone_ref(py)))
+            .collect()
+    }
+
+    #[getter]
+    fn bundle(&self) -> Bundle {
+        Bundle {
+            inner: self.output.bundle.clone(),
+        }
+    }
+
+    /// The summary as JSON (what `summary.json` holds).
+    #[getter]
+    fn summary_json(&self) -> String {
+        encode::summary_json(&self.output.summary).to_string()
+    }
+
+    /// The summary as the shell prints it.
+    #[getter]
+    fn summary_text(&self) -> String {
+        encode::summary_table(&self.output.summary)
+    }
+
+    /// Write the directory the shell's `--out` writes (whole, or not at all).
+    #[pyo3(signature = (path, replace=false))]
+    fn write(&self, py: Python<'_>, path: PathBuf, replace: bool) -> PyResult<()> {
+        let rt = runtime()?;
+        py.detach(|| rt.block_on(encode::write(&self.output, &path, replace)))
+            .map_err(error)
+    }
+}
+
+fn parse_options(options: &Bound<'_, pyo3::types::PyDict>, o: &mut EncodeOptions) -> PyResult<()> {
+    for (key, value) in options.iter() {
+        let key: String = key.extract()?;
+        let text = || -> PyResult<String> { value.extract::<String>() };
+        let texts = || -> PyResult<Vec<String>> { value.extract::<Vec<String>>() };
+        let wrong = |what: &str| error(format!("encode: {key} must be {what}"));
+        match key.as_str() {
+            "interactions" => {
+                o.interactions = value
+                    .extract::<Vec<Vec<String>>>()
+                    .map_err(|_| wrong("a list of column lists, e.g. [['breed', 'clinic']]"))?
+            }
+            "family" => {
+                let name = text().map_err(|_| wrong("a family name"))?;
+                o.family = Some(Kind::from_short_name(&name).ok_or_else(|| {
+                    error(format!(
+                        "encode: family '{name}' is not beta, gamma, nig or dirichlet"
+                    ))
+                })?)
+            }
+            "prior" => {
+                o.prior = match value.extract::<Vec<f64>>() {
+                    Ok(numbers) => PriorChoice::parse(
+                        &numbers
+                            .iter()
+                            .map(f64::to_string)
+                            .collect::<Vec<_>>()
+                            .join(","),
+                    ),
+                    Err(_) => PriorChoice::parse(
+                        &text().map_err(|_| wrong("'fitted', 'jeffreys', 'uniform' or numbers"))?,
+                    ),
+                }
+                .map_err(error)?
+            }
+            "method" => {
+                o.method = Some(
+                    Method::parse(&text().map_err(|_| wrong("'kfold' or 'time'"))?)
+                        .map_err(error)?,
+                )
+            }
+            "folds" => o.folds = value.extract().map_err(|_| wrong("an integer >= 2"))?,
+            "seed" => o.seed = value.extract().map_err(|_| wrong("an integer >= 0"))?,
+            "time_column" => o.time_column = Some(text().map_err(|_| wrong("a column name"))?),
+            "half_life" => o.half_life = Some(value.extract().map_err(|_| wrong("a number > 0"))?),
+            "normalize_keys" => {
+                o.normalize_keys = value.extract().map_err(|_| wrong("True or False"))?
+            }
+            "time_ties" => {
+                o.time_ties = match text()
+                    .map_err(|_| wrong("'strict' or 'file-order'"))?
+                    .as_str()
+                {
+                    "strict" => TimeTies::Strict,
+                    "file-order" | "file_order" => TimeTies::FileOrder,
+                    other => {
+                        return Err(error(format!(
+                            "encode: time_ties '{other}' is not 'strict' or 'file-order'"
+                        )))
+                    }
+                }
+            }
+            "exposure" => o.exposure = Some(text().map_err(|_| wrong("a column name"))?),
+            "readers" => {
+                o.readers = texts()
+                    .map_err(|_| wrong("a list such as ['mean', 'sd', 'q05']"))?
+                    .iter()
+                    .map(|r| Reader::parse(r))
+                    .collect::<Result<_, _>>()
+                    .map_err(error)?
+            }
+            "draws" => {
+                o.draws = Some(
+                    value
+                        .extract()
+                        .map_err(|_| wrong("a seed (integer >= 0)"))?,
+                )
+            }
+            "indicators" => o.indicators = value.extract().map_err(|_| wrong("an integer >= 0"))?,
+            "indicator_min_rows" => {
+                o.indicator_min_rows = value.extract().map_err(|_| wrong("a number >= 0"))?
+            }
+            "treatment" => {
+                let map: std::collections::BTreeMap<String, String> = value
+                    .extract()
+                    .map_err(|_| wrong("a dict such as {'clinic': 'levels'}"))?;
+                o.treatments = map
+                    .into_iter()
+                    .map(|(k, t)| Ok((k, Treatment::parse(&t).map_err(error)?)))
+                    .collect::<PyResult<_>>()?
+            }
+            "score_evidence" => {
+                o.score_evidence = match text().map_err(|_| wrong("'matched' or 'full'"))?.as_str()
+                {
+                    "matched" => ScoreEvidence::Matched,
+                    "full" => ScoreEvidence::Full,
+                    other => {
+                        return Err(error(format!(
+                            "encode: score_evidence '{other}' is not 'matched' or 'full'"
+                        )))
+                    }
+                }
+            }
+            other => return Err(error(format!("encode: unknown option '{other}'"))),
+        }
+    }
+    Ok(())
+}
+
+/// Run the encode workflow on `train` (and `score`), as the shell's command does.
+#[pyfunction]
+#[pyo3(signature = (train, target, columns, score=None, **options))]
+fn encode_data(
+    py: Python<'_>,
+    train: &Bound<'_, PyAny>,
+    target: String,
+    columns: Vec<String>,
+    score: Option<&Bound<'_, PyAny>>,
+    options: Option<&Bound<'_, pyo3::types::PyDict>>,
+) -> PyResult<EncodeResult> {
+    const TRAIN: &str = "train";
+    const SCORE: &str = "score";
+    let mut o = EncodeOptions::new(TRAIN, &target, &[]);
+    o.columns = columns;
+    if let Some(options) = options {
+        parse_options(options, &mut o)?;
+    }
+    let train = Input::from_python(train, "train")?;
+    let score = score.map(|s| Input::from_python(s, "score")).transpose()?;
+    if score.is_some() {
+        o.score = Some(SCORE.to_string());
+    }
+    let key_columns: Vec<String> = o
+        .columns
+        .iter()
+        .chain(o.interactions.iter().flatten())
+        .cloned()
+        .collect();
+    let rt = runtime()?;
+    let (output, train_encoded, scored, encodings) = py
+        .detach(|| {
+            rt.block_on(async {
+                let ctx = SessionContext::new();
+                posterity::register(&ctx);
+                train.register(&ctx, TRAIN, "train", &key_columns).await?;
+                if let Some(score) = score {
+                    score.register(&ctx, SCORE, "score", &key_columns).await?;
+                }
+                let plan = encode::resolve(&ctx, &o).await.map_err(|e| e.to_string())?;
+                let output = encode::run(&ctx, &plan).await.map_err(|e| e.to_string())?;
+                let take = |df: &Option<DataFrame>| df.clone();
+                let train_encoded = match take(&output.train_encoded) {
+                    Some(df) => Some(collect(df).await.map_err(|e| e.to_string())?),
+                    None => None,
+                };
+                let scored = match take(&output.scored) {
+                    Some(df) => Some(collect(df).await.map_err(|e| e.to_string())?),
+                    None => None,
+                };
+                let mut encodings = Vec::new();
+                for (name, df) in &output.encodings {
+                    encodings.push((
+                        name.clone(),
+                        collect(df.clone()).await.map_err(|e| e.to_string())?,
+                    ));
+                }
+                Ok::<_, String>((output, train_encoded, scored, encodings))
+            })
+        })
+        .map_err(error)?;
+    Ok(EncodeResult {
+        output,
+        train_encoded: train_encoded.map(|d| Py::new(py, d)).transpose()?,
+        scored: scored.map(|d| Py::new(py, d)).transpose()?,
+        encodings: encodings
+            .into_iter()
+            .map(|(k, d)| Ok((k, Py::new(py, d)?)))
+            .collect::<PyResult<_>>()?,
+    })
+}
+
+// ------------------------------------------------------------------ bundle
+
+/// A serving bundle: priors and per-level posteriors, to score rows without an
+/// engine session.
+#[pyclass(frozen, module = "posterity")]
+struct Bundle {
+    inner: RustBundle,
+}
+
+#[pymethods]
+impl Bundle {
+    /// Read `bundle.json` (or a directory holding one, as `encode` writes).
+    #[staticmethod]
+    fn load(path: PathBuf) -> PyResult<Bundle> {
+        let file = if path.is_dir() {
+            path.join("bundle.json")
+        } else {
+            path
+        };
+        let text = std::fs::read_to_string(&file)
+            .map_err(|e| error(format!("Bundle.load: cannot read {}: {e}", file.display())))?;
+        RustBundle::from_json(&text)
+            .map(|inner| Bundle { inner })
+            .map_err(|e| error(format!("Bundle.load {}: {e}", file.display())))
+    }
+
+    #[staticmethod]
+    fn from_json(text: &str) -> PyResult<Bundle> {
+        RustBundle::from_json(text)
+            .map(|inner| Bundle { inner })
+            .map_err(|e| error(format!("Bundle.from_json: {e}")))
+    }
+
+    fn to_json(&self) -> String {
+        self.inner.to_json()
+    }
+
+    #[getter]
+    fn target(&self) -> String {
+        self.inner.target.clone()
+    }
+
+    #[getter]
+    fn family(&self) -> String {
+        self.inner.family.clone()
+    }
+
+    #[getter]
+    fn readers(&self) -> Vec<String> {
+        self.inner.readers.clone()
+    }
+
+    /// The encoded keys, in the order their columns are added.
+    #[getter]
+    fn keys(&self) -> Vec<String> {
+        self.inner.columns.keys().cloned().collect()
+    }
+
+    /// Score rows (an object with `__arrow_c_stream__`): the rows with every
+    /// key's feature columns appended.
+    fn score_data(&self, py: Python<'_>, data: &Bound<'_, PyAny>) -> PyResult<ArrowData> {
+        let (schema, batches) = read_stream(data, "Bundle.score")?;
+        py.detach(|| {
+            let mut out = Vec::with_capacity(batches.len());
+            for batch in &batches {
+                out.push(posterity::serve::score(&self.inner, batch).map_err(error)?);
+            }
+            let schema = match out.first() {
+                Some(b) => b.schema(),
+                None => {
+                    let empty = RecordBatch::new_empty(schema);
+                    posterity::serve::score(&self.inner, &empty)
+                        .map_err(error)?
+                        .schema()
+                }
+            };
+            Ok(ArrowData {
+                schema,
+                batches: out,
+            })
+        })
+    }
+}
+
+#[pymodule]
+fn _posterity(m: &Bound<'_, PyModule>) -> PyResult<()> {
+    m.add("Error", m.py().get_type::<Error>())?;
+    m.add_class::<ScalarFunction>()?;
+    m.add_class::<AggregateFunction>()?;
+    m.add_class::<ArrowData>()?;
+    m.add_class::<EncodeResult>()?;
+    m.add_class::<Bundle>()?;
+    m.add_function(wrap_pyfunction!(scalar_functions, m)?)?;
+    m.add_function(wrap_pyfunction!(aggregate_functions, m)?)?;
+    m.add_function(wrap_pyfunction!(documentation, m)?)?;
+    m.add_function(wrap_pyfunction!(engine_version, m)?)?;
+    m.add_function(wrap_pyfunction!(encode_data, m)?)?;
+    Ok(())
+}

@@ -1,0 +1,378 @@
+//! Registering files as tables: Parquet, CSV, TSV, NDJSON and JSON arrays, a file,
+//! a directory of files or a glob, with checks the engine does not make (broken
+//! Parquet, empty CSV, unterminated quotes, CSV directories whose headers disagree)
+//! so that a broken file fails at registration with its name. Used by the shell
+//! and by every front end that reads files for `encode`.
+
+use std::path::Path;
+
+use datafusion::datasource::file_format::options::{
+    CsvReadOptions, JsonReadOptions, ParquetReadOptions,
+};
+use datafusion::prelude::SessionContext;
+
+/// How tables from CSV files are read.
+#[derive(Debug, Clone)]
+pub struct CsvOptions {
+    pub header: bool,
+    pub delimiter: u8,
+    pub null: Option<String>,
+    /// Columns read as text whatever they look like.
+    pub text: Vec<String>,
+}
+
+impl Default for CsvOptions {
+    fn default() -> Self {
+        CsvOptions {
+            header: true,
+            delimiter: b',',
+            null: None,
+            text: Vec::new(),
+        }
+    }
+}
+
+/// Why a file could not be registered.
+#[derive(Debug, Clone, PartialEq)]
+pub enum FileError {
+    /// The path says nothing the reader can use (no known format).
+    Usage(String),
+    /// The file is missing, unreadable or broken.
+    Read(String),
+    /// The engine refused the file at `path`.
+    Engine { path: String, message: String },
+}
+
+impl std::fmt::Display for FileError {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        match self {
+            FileError::Usage(m) | FileError::Read(m) => f.write_str(m),
+            FileError::Engine { path, message } => write!(f, "{path}: {message}"),
+        }
+    }
+}
+
+impl std::error::Error for FileError {}
+
+/// Register the file(s) at `path` (a file, a directory of files or a glob;
+/// Parquet, CSV, TSV, NDJSON or a JSON array) as table `name`. CSV columns
+/// named in `csv.text` are read as text exactly as written.
+pub async fn register(
+    ctx: &SessionContext,
+    name: &str,
+    path: &str,
+    csv: &CsvOptions,
+) -> Result<(), FileError> {
+    let text: Vec<&str> = csv.text.iter().map(String::as_str).collect();
+    let format = file_kind(path).ok_or_else(|| {
+        FileError::Usage(format!(
+            "cannot tell the format of '{path}'; use a .parquet, .csv, .tsv, .json or .ndjson path"
+        ))
+    })?;
+    if !path.contains('*') && !Path::new(path).exists() {
+        return Err(FileError::Read(format!("'{path}' does not exist")));
+    }
+    preflight(path, format, csv.header).map_err(FileError::Read)?;
+    let result = match format {
+        FileKind::Parquet => {
+            let ext = extension_of(path, ".parquet");
+            ctx.register_parquet(
+                name,
+                path,
+                ParquetReadOptions::default().file_extension(&ext),
+            )
+            .await
+        }
+        FileKind::Csv | FileKind::Tsv => {
+            let ext = extension_of(
+                path,
+                if format == FileKind::Tsv {
+                    ".tsv"
+                } else {
+                    ".csv"
+                },
+            );
+            let delimiter = if format == FileKind::Tsv {
+                b'\t'
+            } else {
+                csv.delimiter
+            };
+            let mut options = CsvReadOptions::new()
+                .has_header(csv.header)
+                .delimiter(delimiter)
+                .file_extension(&ext);
+            if let Some(null) = &csv.null {
+                options = options.null_regex(Some(regex_escape(null)));
+            }
+            register_csv(ctx, name, path, options, csv.null.as_deref(), &text).await
+        }
+        FileKind::Json => {
+            // A JSON array (what --format json writes) is read through NDJSON.
+            let path = json_array_as_ndjson(path).map_err(FileError::Read)?;
+            let ext = extension_of(&path, ".json");
+            ctx.register_json(name, &path, JsonReadOptions::default().file_extension(&ext))
+                .await
+        }
+    };
+    result.map_err(|e| FileError::Engine {
+        path: path.to_string(),
+        message: e.to_string(),
+    })
+}
+
+/// A CSV file with its inferred types, except that columns `text` stay text as
+/// written. DataFusion 55 honours a CSV null marker only while inferring the
+/// schema, so with a marker the file is read as text and a view turns the
+/// marker into NULL and casts each column to its type.
+async fn register_csv(
+    ctx: &SessionContext,
+    name: &str,
+    path: &str,
+    options: CsvReadOptions<'_>,
+    null: Option<&str>,
+    text: &[&str],
+) -> datafusion::error::Result<()> {
+    use datafusion::arrow::datatypes::{DataType, Field, Schema};
+    if null.is_none() && text.is_empty() {
+        return ctx.register_csv(name, path, options).await;
+    }
+    let inferred = ctx
+        .read_csv(path, options.clone())
+        .await?
+        .schema()
+        .as_arrow()
+        .clone();
+    let typed = Schema::new(
+        inferred
+            .fields()
+            .iter()
+            .map(|f| match text.contains(&f.name().as_str()) {
+                true => Field::new(f.name(), DataType::Utf8, true),
+                false => f.as_ref().clone(),
+            })
+            .collect::<Vec<_>>(),
+    );
+    let Some(null) = null else {
+        return ctx.register_csv(name, path, options.schema(&typed)).await;
+    };
+    let all_text = Schema::new(
+        typed
+            .fields()
+            .iter()
+            .map(|f| Field::new(f.name(), DataType::Utf8, true))
+            .collect::<Vec<_>>(),
+    );
+    let raw = ctx.read_csv(path, options.schema(&all_text)).await?;
+    let columns: Vec<datafusion::prelude::Expr> = typed
+        .fields()
+        .iter()
+        .map(|f| {
+            let column = datafusion::prelude::ident(f.name());
+            datafusion::prelude::cast(
+                datafusion::prelude::nullif(column, datafusion::prelude::lit(null)),
+                f.data_type().clone(),
+            )
+            .alias(f.name())
+        })
+        .collect();
+    ctx.register_table(name, raw.select(columns)?.into_view())?;
+    Ok(())
+}
+
+/// For a file holding one JSON array of objects: the same rows as NDJSON in a
+/// temporary file (removed when the shell ends... by the system's temp cleaning);
+/// any other path unchanged.
+fn json_array_as_ndjson(path: &str) -> Result<String, String> {
+    use std::io::Read;
+    let Ok(mut file) = std::fs::File::open(path) else {
+        return Ok(path.to_string());
+    };
+    let mut head = [0u8; 64];
+    let n = file.read(&mut head).unwrap_or(0);
+    if head[..n].iter().find(|b| !b.is_ascii_whitespace()) != Some(&b'[') {
+        return Ok(path.to_string());
+    }
+    let text = std::fs::read_to_string(path).map_err(|e| format!("cannot read {path}: {e}"))?;
+    // Raw elements keep their keys in the order written (the columns' order).
+    let rows: Vec<Box<serde_json::value::RawValue>> =
+        serde_json::from_str(&text).map_err(|e| format!("{path} is not a JSON array: {e}"))?;
+    if rows.is_empty() {
+        return Err(format!(
+            "{path} holds an empty JSON array: no columns to read"
+        ));
+    }
+    let mut out = String::new();
+    for row in &rows {
+        let raw = row.get().trim();
+        if !raw.starts_with('{') {
+            return Err(format!(
+                "{path}: every element of the JSON array must be an object"
+            ));
+        }
+        // One line per row: NDJSON allows no line breaks inside a row.
+        out.push_str(&raw.replace(['\n', '\r'], " "));
+        out.push('\n');
+    }
+    let tmp = std::env::temp_dir().join(format!(
+        "posterity-{}-{}.json",
+        std::process::id(),
+        Path::new(path)
+            .file_stem()
+            .map(|s| s.to_string_lossy().to_string())
+            .unwrap_or_default()
+    ));
+    std::fs::write(&tmp, out).map_err(|e| format!("cannot write {}: {e}", tmp.display()))?;
+    Ok(tmp.display().to_string())
+}
+
+/// Checks the engine does not make, so that broken files fail at registration with
+/// the file's name: Parquet magic bytes, empty CSV files, unterminated quotes, and
+/// CSV directories whose files disagree on the header.
+fn preflight(path: &str, kind: FileKind, header: bool) -> Result<(), String> {
+    use std::io::Read as _;
+    let p = Path::new(path);
+    let files: Vec<std::path::PathBuf> = if p.is_dir() {
+        let mut f: Vec<_> = std::fs::read_dir(p)
+            .map_err(|e| format!("cannot list {path}: {e}"))?
+            .filter_map(|e| e.ok().map(|e| e.path()))
+            .filter(|f| f.is_file() && kind_of_name(&f.to_string_lossy()) == Some(kind))
+            .collect();
+        f.sort();
+        f
+    } else if p.is_file() {
+        vec![p.to_path_buf()]
+    } else {
+        return Ok(()); // globs are checked by the engine
+    };
+    let mut first_header: Option<(String, std::path::PathBuf)> = None;
+    for file in files {
+        let shown = file.display();
+        let mut f = std::fs::File::open(&file).map_err(|e| format!("cannot open {shown}: {e}"))?;
+        let len = f.metadata().map(|m| m.len()).unwrap_or(0);
+        match kind {
+            FileKind::Parquet => {
+                let mut head = [0u8; 4];
+                let ok = len >= 12 && f.read_exact(&mut head).is_ok() && &head == b"PAR1" && {
+                    use std::io::Seek as _;
+                    let mut tail = [0u8; 4];
+                    f.seek(std::io::SeekFrom::End(-4)).is_ok()
+                        && f.read_exact(&mut tail).is_ok()
+                        && &tail == b"PAR1"
+                };
+                if !ok {
+                    return Err(format!("{shown} is not a complete Parquet file ({len} bytes; empty, truncated or another format)"));
+                }
+            }
+            FileKind::Csv | FileKind::Tsv => {
+                if len == 0 && header {
+                    return Err(format!("{shown} is empty: no header row (use --csv-no-header for files without one)"));
+                }
+                let mut quotes = 0u64;
+                let mut first_line = Vec::new();
+                let mut in_first = true;
+                let mut buf = vec![0u8; 1 << 16];
+                loop {
+                    let n = f
+                        .read(&mut buf)
+                        .map_err(|e| format!("cannot read {shown}: {e}"))?;
+                    if n == 0 {
+                        break;
+                    }
+                    for &b in &buf[..n] {
+                        quotes += u64::from(b == b'"');
+                        if in_first {
+                            if b == b'\n' {
+                                in_first = false;
+                            } else if b != b'\r' {
+                                first_line.push(b);
+                            }
+                        }
+                    }
+                }
+                if quotes % 2 == 1 {
+                    return Err(format!("{shown} has an unterminated quoted field (an odd number of '\"' characters)"));
+                }
+                if header && kind_of_name(path).is_none() {
+                    let line = String::from_utf8_lossy(&first_line).to_string();
+                    match &first_header {
+                        None => first_header = Some((line, file.clone())),
+                        Some((h, other)) if *h != line => {
+                            return Err(format!(
+                                "files in {path} disagree on their columns: {} has '{h}', {shown} has '{line}'",
+                                other.display()
+                            ))
+                        }
+                        _ => {}
+                    }
+                }
+            }
+            FileKind::Json => {}
+        }
+    }
+    Ok(())
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+enum FileKind {
+    Parquet,
+    Csv,
+    Tsv,
+    Json,
+}
+
+fn kind_of_name(name: &str) -> Option<FileKind> {
+    let lower = name.to_ascii_lowercase();
+    if lower.ends_with(".parquet") || lower.ends_with(".parq") {
+        Some(FileKind::Parquet)
+    } else if lower.ends_with(".csv") {
+        Some(FileKind::Csv)
+    } else if lower.ends_with(".tsv") {
+        Some(FileKind::Tsv)
+    } else if lower.ends_with(".json") || lower.ends_with(".ndjson") || lower.ends_with(".jsonl") {
+        Some(FileKind::Json)
+    } else {
+        None
+    }
+}
+
+/// The format of a file, glob or directory (from its first data file).
+fn file_kind(path: &str) -> Option<FileKind> {
+    if let Some(k) = kind_of_name(path) {
+        return Some(k);
+    }
+    let dir = Path::new(path);
+    if dir.is_dir() {
+        let mut names: Vec<String> = std::fs::read_dir(dir)
+            .ok()?
+            .filter_map(|e| e.ok())
+            .map(|e| e.file_name().to_string_lossy().to_string())
+            .filter(|n| !n.starts_with('.') && !n.starts_with('_'))
+            .collect();
+        names.sort();
+        return names.iter().find_map(|n| kind_of_name(n));
+    }
+    None
+}
+
+/// The extension a listing should match: the path's own when it names a file.
+fn extension_of(path: &str, default: &str) -> String {
+    let p = Path::new(path);
+    if !p.is_dir() {
+        if let Some(ext) = p.extension() {
+            return format!(".{}", ext.to_string_lossy());
+        }
+    }
+    default.to_string()
+}
+
+fn regex_escape(s: &str) -> String {
+    let mut out = String::from("^");
+    for c in s.chars() {
+        if "\\.+*?()|[]{}^$".contains(c) {
+            out.push('\\');
+        }
+        out.push(c);
+    }
+    out.push('$');
+    out
+}

@@ -1,0 +1,174 @@
+//! Scoring rows with a serving bundle, without the engine: the feature columns
+//! `encode` writes for scored rows (the same names, types and values), computed
+//! from the rows' key columns. For services and for Python's `Bundle.score`.
+
+use std::collections::HashMap;
+use std::sync::Arc;
+
+use datafusion::arrow::array::{
+    Array, ArrayRef, AsArray, Float64Array, Int32Array, Int64Array, RecordBatch,
+};
+use datafusion::arrow::compute::cast;
+use datafusion::arrow::datatypes::{DataType, Field, Schema};
+
+use crate::bundle::{Bundle, ColumnEncoding};
+use crate::encode::{feature_columns, EncodeError, OutputColumn, Reader};
+use crate::layout::AnyPosterior;
+
+type Result<T> = std::result::Result<T, EncodeError>;
+
+fn usage<T>(message: String) -> Result<T> {
+    Err(EncodeError::Usage(message))
+}
+
+/// `batch` with every encoded key's feature columns appended, key by key in the
+/// bundle's (name) order. Unseen levels and rows with a NULL key column read the
+/// prior (indicators 0, code -1). Posterior draws are not part of a bundle.
+pub fn score(bundle: &Bundle, batch: &RecordBatch) -> Result<RecordBatch> {
+    let readers = bundle
+        .readers
+        .iter()
+        .map(|r| Reader::parse(r))
+        .collect::<Result<Vec<_>>>()?;
+    let mut fields: Vec<Field> = batch
+        .schema()
+        .fields()
+        .iter()
+        .map(|f| f.as_ref().clone())
+        .collect();
+    let mut columns: Vec<ArrayRef> = batch.columns().to_vec();
+    for (name, encoding) in &bundle.columns {
+        let levels = levels_of(name, encoding, batch)?;
+        for (column_name, array) in features(name, encoding, &readers, &levels)? {
+            if fields.iter().any(|f| f.name() == &column_name) {
+                return usage(format!(
+                    "score: the input already has a column '{column_name}', which scoring \
+                     would add; drop or rename it"
+                ));
+            }
+            fields.push(Field::new(column_name, array.data_type().clone(), true));
+            columns.push(array);
+        }
+    }
+    Ok(RecordBatch::try_new(
+        Arc::new(Schema::new(fields)),
+        columns,
+    )?)
+}
+
+/// Each row's level of `encoding` (`None` when a key column is NULL).
+fn levels_of(
+    name: &str,
+    encoding: &ColumnEncoding,
+    batch: &RecordBatch,
+) -> Result<Vec<Option<String>>> {
+    let key_columns = if encoding.key_columns.is_empty() {
+        // Version 1 bundles did not record it: the key is the column of its name.
+        vec![name.to_string()]
+    } else {
+        encoding.key_columns.clone()
+    };
+    let mut texts = Vec::with_capacity(key_columns.len());
+    for c in &key_columns {
+        let Some(array) = batch.column_by_name(c) else {
+            let have: Vec<String> = batch
+                .schema()
+                .fields()
+                .iter()
+                .map(|f| f.name().clone())
+                .collect();
+            return usage(format!(
+                "score: key '{name}' needs column '{c}', which the rows do not have (columns: {})",
+                have.join(", ")
+            ));
+        };
+        texts.push(cast(array, &DataType::Utf8).map_err(|e| {
+            EncodeError::Usage(format!(
+                "score: column '{c}' of key '{name}' cannot be read as text: {e}"
+            ))
+        })?);
+    }
+    let texts: Vec<_> = texts.iter().map(|t| t.as_string::<i32>()).collect();
+    Ok((0..batch.num_rows())
+        .map(|row| {
+            let parts: Vec<Option<&str>> = texts
+                .iter()
+                .map(|t| t.is_valid(row).then(|| t.value(row)))
+                .collect();
+            encoding.level_of(&parts)
+        })
+        .collect())
+}
+
+/// The feature columns of one key for rows at `levels`.
+fn features(
+    name: &str,
+    encoding: &ColumnEncoding,
+    readers: &[Reader],
+    levels: &[Option<String>],
+) -> Result<Vec<(String, ArrayRef)>> {
+    let classes = match &encoding.prior {
+        AnyPosterior::Dirichlet(d) => d.prior.classes.clone(),
+        _ => Vec::new(),
+    };
+    let outputs = feature_columns(
+        name,
+        encoding.treatment,
+        encoding.indicators.len(),
+        readers,
+        &classes,
+        false,
+    );
+    // Readers are computed once per level (quantiles are the costly part).
+    let mut cache: HashMap<Option<&str>, Vec<f64>> = HashMap::new();
+    let reader_outputs: Vec<(usize, Option<&str>)> = outputs
+        .iter()
+        .filter_map(|(_, c)| match c {
+            OutputColumn::Reader { index, class } => Some((*index, class.as_deref())),
+            _ => None,
+        })
+        .collect();
+    let mut values: Vec<Vec<f64>> = vec![Vec::with_capacity(levels.len()); reader_outputs.len()];
+    for level in levels {
+        let level = level.as_deref();
+        if !cache.contains_key(&level) {
+            let p = encoding.scoring(level).map_err(|e| {
+                EncodeError::Query(format!("score: key '{name}', level {level:?}: {e}"))
+            })?;
+            let row = reader_outputs
+                .iter()
+                .map(|(index, class)| readers[*index].value(&p, *class))
+                .collect::<Result<Vec<f64>>>()?;
+            cache.insert(level, row);
+        }
+        for (column, v) in values.iter_mut().zip(&cache[&level]) {
+            column.push(*v);
+        }
+    }
+    let codes = encoding.codes();
+    let mut values = values.into_iter();
+    let mut out = Vec::with_capacity(outputs.len());
+    for (column_name, column) in outputs {
+        let array: ArrayRef = match column {
+            OutputColumn::Reader { .. } => {
+                Arc::new(Float64Array::from(values.next().unwrap_or_default()))
+            }
+            OutputColumn::Indicator { rank } => {
+                let wanted = encoding.indicators.get(rank - 1).map(String::as_str);
+                Arc::new(Int32Array::from_iter_values(
+                    levels
+                        .iter()
+                        .map(|l| i32::from(l.as_deref() == wanted && wanted.is_some())),
+                ))
+            }
+            OutputColumn::Code => Arc::new(Int64Array::from_iter_values(levels.iter().map(|l| {
+                l.as_deref()
+                    .and_then(|l| codes.get(l).copied())
+                    .unwrap_or(-1)
+            }))),
+            OutputColumn::Draw { .. } => continue,
+        };
+        out.push((column_name, array));
+    }
+    Ok(out)
+}
