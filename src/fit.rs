@@ -762,6 +762,10 @@ pub struct FitAggregate<K: FitKernel> {
     signature: Signature,
     /// The constant prior of the call this instance was bound to.
     prior: Option<ScalarValue>,
+    /// Shared with an engine that cannot run the binding rule (Python, through the
+    /// engine's function interface): empty frames and groups are NULL there, so
+    /// the result is declared nullable.
+    foreign: bool,
     _kernel: std::marker::PhantomData<K>,
 }
 
@@ -783,7 +787,18 @@ impl<K: FitKernel> Default for FitAggregate<K> {
         FitAggregate {
             signature: Signature::user_defined(Volatility::Immutable),
             prior: None,
+            foreign: false,
             _kernel: std::marker::PhantomData,
+        }
+    }
+}
+
+impl<K: FitKernel> FitAggregate<K> {
+    /// The aggregate for an engine that cannot run posterity's planning rules.
+    pub fn for_foreign_engine() -> Self {
+        FitAggregate {
+            foreign: true,
+            ..FitAggregate::default()
         }
     }
 }
@@ -812,23 +827,10 @@ impl<K: FitKernel> BindPrior for FitAggregate<K> {
         Ok(AggregateUDF::new_from_impl(FitAggregate::<K> {
             signature: self.signature.clone(),
             prior: Some(prior),
+            foreign: self.foreign,
             _kernel: std::marker::PhantomData,
         }))
     }
-}
-
-/// Evaluate an expression on one row of no columns (errors for column references).
-fn evaluate_without_columns(
-    expr: &dyn datafusion::physical_expr::PhysicalExpr,
-) -> Result<datafusion::logical_expr::ColumnarValue> {
-    use datafusion::arrow::array::{RecordBatch, RecordBatchOptions};
-    use datafusion::arrow::datatypes::Schema;
-    let batch = RecordBatch::try_new_with_options(
-        Arc::new(Schema::empty()),
-        vec![],
-        &RecordBatchOptions::new().with_row_count(Some(1)),
-    )?;
-    expr.evaluate(&batch)
 }
 
 /// The kernel for a constant prior value (a NULL prior means the default).
@@ -844,29 +846,38 @@ impl<K: FitKernel> FitAggregate<K> {
         let Some(expr) = args.exprs.get(K::PRIOR_ARG) else {
             return K::new(None);
         };
-        let Some(literal) = expr.downcast_ref::<Literal>() else {
-            // A constant that failed to fold (beta_prior(0, 1)): say why it fails.
-            let constant = datafusion::physical_expr::utils::collect_columns(expr).is_empty();
-            if let (true, Err(e)) = (constant, evaluate_without_columns(expr.as_ref())) {
-                return plan_err!(
-                    "{}: the prior (argument {}) is invalid: {}",
-                    K::NAME,
-                    K::PRIOR_ARG + 1,
-                    match e.find_root() {
-                        DataFusionError::Execution(m) | DataFusionError::Plan(m) => m.clone(),
-                        other => other.strip_backtrace(),
-                    }
-                );
+        let invalid = |e: DataFusionError| {
+            plan_err!(
+                "{}: the prior (argument {}) is invalid: {}",
+                K::NAME,
+                K::PRIOR_ARG + 1,
+                match e.find_root() {
+                    DataFusionError::Execution(m) | DataFusionError::Plan(m) => m.clone(),
+                    other => other.strip_backtrace(),
+                }
+            )
+        };
+        if let Some(literal) = expr.downcast_ref::<Literal>() {
+            return decode_prior::<K>(literal.value());
+        }
+        // Not folded: a constant that failed to fold (beta_prior(0, 1)), or one that
+        // reached us through the foreign-function interface (Python), where
+        // expressions are opaque. A constant evaluates to a single value on no rows.
+        let no_rows =
+            datafusion::arrow::array::RecordBatch::new_empty(Arc::new(args.schema.clone()));
+        match expr.evaluate(&no_rows) {
+            Ok(datafusion::logical_expr::ColumnarValue::Scalar(value)) => decode_prior::<K>(&value),
+            Err(e) if datafusion::physical_expr::utils::collect_columns(expr).is_empty() => {
+                invalid(e)
             }
-            return plan_err!(
+            _ => plan_err!(
                 "{}: the prior (argument {}) must be a constant such as beta_prior(1, 1); to give \
                  levels different priors, fit with one prior and re-prior the result with \
                  posterior_with_prior",
                 K::NAME,
                 K::PRIOR_ARG + 1
-            );
-        };
-        decode_prior::<K>(literal.value())
+            ),
+        }
     }
 
     fn state_fields_for(name: &str) -> Vec<FieldRef> {
@@ -903,7 +914,7 @@ impl<K: FitKernel> AggregateUDFImpl for FitAggregate<K> {
     }
 
     fn is_nullable(&self) -> bool {
-        false
+        self.foreign
     }
 
     fn accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {

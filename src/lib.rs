@@ -44,12 +44,29 @@ use fit::{BetaCounts, BetaOutcomes, DirichletClasses, FitAggregate, GammaCounts,
 
 /// Every aggregate function of the SQL surface.
 pub fn aggregates() -> Vec<AggregateUDF> {
+    aggregate_list(false)
+}
+
+/// The aggregates for an engine reached through DataFusion's foreign-function
+/// interface (Python), which cannot run [`prior_binding`]: there an empty window
+/// frame or group gives NULL, and the fits say their result may be NULL.
+pub fn foreign_aggregates() -> Vec<AggregateUDF> {
+    aggregate_list(true)
+}
+
+fn aggregate_list(foreign: bool) -> Vec<AggregateUDF> {
+    fn fit<K: fit::FitKernel>(foreign: bool) -> AggregateUDF {
+        AggregateUDF::new_from_impl(match foreign {
+            true => FitAggregate::<K>::for_foreign_engine(),
+            false => FitAggregate::<K>::default(),
+        })
+    }
     vec![
-        AggregateUDF::new_from_impl(FitAggregate::<BetaOutcomes>::default()),
-        AggregateUDF::new_from_impl(FitAggregate::<BetaCounts>::default()),
-        AggregateUDF::new_from_impl(FitAggregate::<GammaCounts>::default()),
-        AggregateUDF::new_from_impl(FitAggregate::<NigValues>::default()),
-        AggregateUDF::new_from_impl(FitAggregate::<DirichletClasses>::default()),
+        fit::<BetaOutcomes>(foreign),
+        fit::<BetaCounts>(foreign),
+        fit::<GammaCounts>(foreign),
+        fit::<NigValues>(foreign),
+        fit::<DirichletClasses>(foreign),
         AggregateUDF::new_from_impl(pool::PosteriorPool::default()),
         AggregateUDF::new_from_impl(prior_fit::FitPrior::new(false)),
         AggregateUDF::new_from_impl(prior_fit::FitPrior::new(true)),

@@ -395,6 +395,18 @@ impl ScalarUDFImpl for ScalarFunction {
                 )
             }
         };
+        // Constant arguments give a constant (the engine's convention; it also lets
+        // a fit recognise a prior that reached it unfolded, as through Python).
+        if out.len() == 1
+            && args
+                .args
+                .iter()
+                .all(|a| matches!(a, ColumnarValue::Scalar(_)))
+        {
+            return Ok(ColumnarValue::Scalar(
+                datafusion::common::ScalarValue::try_from_array(&out, 0)?,
+            ));
+        }
         Ok(ColumnarValue::Array(out))
     }
 }

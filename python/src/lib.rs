@@ -41,6 +41,30 @@ fn error(e: impl Display) -> PyErr {
     Error::new_err(e.to_string())
 }
 
+/// A message of the encode workflow in a Python user's words: its option names
+/// are the shell's flags (`--time-column`); here they are keyword arguments
+/// (`time_column`).
+fn in_python_words(message: impl Display) -> PyErr {
+    let message = message.to_string();
+    let mut out = String::with_capacity(message.len());
+    let mut rest = message.as_str();
+    while let Some(at) = rest.find("--") {
+        out.push_str(&rest[..at]);
+        let after = &rest[at + 2..];
+        let end = after
+            .find(|c: char| !(c.is_ascii_lowercase() || c == '-'))
+            .unwrap_or(after.len());
+        if end == 0 {
+            out.push_str("--");
+        } else {
+            out.push_str(&after[..end].replace('-', "_"));
+        }
+        rest = &after[end..];
+    }
+    out.push_str(rest);
+    error(out)
+}
+
 /// One runtime for every call from Python (the engine is asynchronous).
 fn runtime() -> PyResult<&'static tokio::runtime::Runtime> {
     static RUNTIME: OnceLock<Option<tokio::runtime::Runtime>> = OnceLock::new();
@@ -114,7 +138,7 @@ fn scalar_functions() -> Vec<ScalarFunction> {
 
 #[pyfunction]
 fn aggregate_functions() -> Vec<AggregateFunction> {
-    posterity::aggregates()
+    posterity::foreign_aggregates()
         .into_iter()
         .map(|udaf| AggregateFunction {
             udaf: Arc::new(udaf),
@@ -490,7 +514,7 @@ fn encode_data(
                 Ok::<_, String>((output, train_encoded, scored, encodings))
             })
         })
-        .map_err(error)?;
+        .map_err(in_python_words)?;
     Ok(EncodeResult {
         output,
         train_encoded: train_encoded.map(|d| Py::new(py, d)).transpose()?,

@@ -479,6 +479,13 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         .find(|(n, _)| n == target)
         .map(|(_, d)| d.clone())
         .unwrap_or(DataType::Null);
+    let with_target = one_row(ctx, &format!("SELECT COUNT({t}) FROM {from}")).await?;
+    if with_target.column(0).as_primitive::<Int64Type>().value(0) == 0 {
+        return usage(format!(
+            "the training table has no rows with a value of --target '{target}' (it is empty or \
+             the target is all NULL); encode needs at least one"
+        ));
+    }
     let binary = || async {
         let b = one_row(
             ctx,

@@ -214,7 +214,7 @@ impl Shell {
                     })?,
                     None => emit(&text)?,
                 }
-                format!("{rows} {}", if rows == 1 { "row" } else { "rows" })
+                rows_text(rows)
             }
         };
         if !self.quiet && (std::io::stderr().is_terminal() || !returns_rows(sql)) {
@@ -248,7 +248,11 @@ impl Shell {
                             .value(0)
                     })
                     .unwrap_or(0);
-                Some(format!("wrote {written} rows to {}", copy.target))
+                Some(format!(
+                    "wrote {} to {}",
+                    rows_text(written as usize),
+                    copy.target
+                ))
             }
             Statement::Statement(s) => match *s {
                 ast::Statement::CreateTable(create) if create.query.is_some() => {
@@ -258,7 +262,7 @@ impl Shell {
                         Err(_) => None,
                     };
                     Some(match stored {
-                        Some(n) => format!("stored {n} rows in table {name}"),
+                        Some(n) => format!("stored {} in table {name}", rows_text(n)),
                         None => format!("created table {name}"),
                     })
                 }
@@ -496,6 +500,11 @@ pub fn functions_help(name: Option<&str>) -> Result<String, Failure> {
 }
 
 /// Rows produced so far by the plan's leaves (the scans), from the engine's metrics.
+
+/// "1 row", "2 rows".
+fn rows_text(rows: usize) -> String {
+    format!("{rows} {}", if rows == 1 { "row" } else { "rows" })
+}
 
 /// A duration for people: milliseconds below a second.
 fn elapsed(started: Instant) -> String {

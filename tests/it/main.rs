@@ -9,6 +9,7 @@ mod family_examples;
 mod family_reference;
 mod faults;
 mod leakage;
+mod python;
 mod readme;
 mod recipes;
 mod shell_manners;

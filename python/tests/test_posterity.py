@@ -1,0 +1,288 @@
+"""posterity from Python: the same numbers as the shell, tables in and out, bad input.
+
+Run by .ci/run (python/tests/run.sh): a fresh virtual environment, `pip install
+./python[test]`, then pytest. The shell binary (target/debug or target/release,
+or POSTERITY_BIN) is the reference for every number.
+"""
+
+import json
+import math
+import os
+import subprocess
+from pathlib import Path
+
+import datafusion
+import pandas as pd
+import polars as pl
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+from datafusion import col, lit
+
+import posterity
+
+ROOT = Path(__file__).resolve().parents[2]
+SAMPLE = ROOT / "demo/sample/appointments.csv"
+PETS = ROOT / "demo/sample/pets.csv"
+
+
+def shell_binary() -> str:
+    for candidate in [os.environ.get("POSTERITY_BIN"), ROOT / "target/release/posterity",
+                      ROOT / "target/debug/posterity"]:
+        if candidate and Path(candidate).exists():
+            return str(candidate)
+    pytest.fail("build the shell first: cargo build")
+
+
+def shell_rows(sql: str) -> list[dict]:
+    out = subprocess.run(
+        [shell_binary(), "-q", "-t", f"a={SAMPLE}", "-t", f"pets={PETS}", "-c", sql, "--format",
+         "json"], check=True, capture_output=True, text=True).stdout
+    return json.loads(out)
+
+
+def python_rows(ctx, sql: str) -> list[dict]:
+    return ctx.sql(sql).to_pandas().to_dict("records")
+
+
+@pytest.fixture(scope="module")
+def ctx():
+    c = datafusion.SessionContext()
+    posterity.register(c)
+    c.register_csv("a", str(SAMPLE))
+    c.register_csv("pets", str(PETS))
+    return c
+
+
+def same(a, b, what):
+    """Equal, with floats within 1e-12 relative (identical for integers)."""
+    assert len(a) == len(b), what
+    for i, (ra, rb) in enumerate(zip(a, b)):
+        assert set(ra) == set(rb), f"{what}: columns {set(ra)} vs {set(rb)}"
+        for k in ra:
+            x, y = ra[k], rb[k]
+            if isinstance(x, float) or isinstance(y, float):
+                x, y = float(x), float(y)
+                if math.isnan(x) and math.isnan(y):
+                    continue
+                assert abs(x - y) <= 1e-12 * max(abs(x), abs(y), 1e-300), f"{what} row {i} {k}: {x} vs {y}"
+            else:
+                assert x == y, f"{what} row {i} {k}: {x!r} vs {y!r}"
+
+
+# Every family, readers, pooling, fit_prior and windows: the same SQL in both.
+SAME_AS_SHELL = {
+    "beta readers": """SELECT breed, posterior_mean(p) AS m, posterior_sd(p) AS s,
+        posterior_quantile(p, 0.05) AS q05, posterior_prob_above(p, 0.2) AS above,
+        posterior_data_weight(p) AS n
+        FROM (SELECT breed, beta_posterior(no_show, beta_prior(2, 18)) AS p FROM a GROUP BY breed)
+        ORDER BY breed""",
+    "gamma": """SELECT breed, posterior_mean(p) AS m, posterior_quantile(p, 0.95) AS q95
+        FROM (SELECT breed, gamma_posterior(visits, years_enrolled, gamma_prior(2, 1)) AS p
+              FROM pets GROUP BY breed) ORDER BY breed""",
+    "nig": """SELECT clinic, posterior_mean(p) AS m, posterior_sd(p) AS s
+        FROM (SELECT clinic, nig_posterior(amount, nig_prior(90, 1, 2, 200)) AS p FROM a
+              WHERE amount IS NOT NULL GROUP BY clinic) ORDER BY clinic""",
+    "dirichlet": """SELECT clinic, posterior_mean(p, 'no_show') AS m
+        FROM (SELECT clinic, dirichlet_posterior(outcome,
+              dirichlet_prior(['attended', 'late_cancellation', 'no_show', 'rescheduled'], 1)) AS p FROM a GROUP BY clinic)
+        ORDER BY clinic""",
+    "fit_prior": """SELECT posterior_mean(q) AS m, posterior_data_weight(q) AS n
+        FROM (SELECT fit_prior(p) AS q FROM (SELECT beta_posterior(no_show) AS p FROM a
+              GROUP BY postcode_area))""",
+    "out-of-fold": """SELECT appointment_id, posterior_mean(posterior_subtract(e.p, f.p)) AS m
+        FROM (SELECT breed, fold_of(appointment_id, 5, 0) AS fold, beta_posterior(no_show) AS p
+              FROM a GROUP BY breed, fold_of(appointment_id, 5, 0)) f
+        JOIN (SELECT breed, beta_posterior(no_show) AS p FROM a GROUP BY breed) e USING (breed)
+        JOIN a ON a.breed = f.breed AND fold_of(a.appointment_id, 5, 0) = f.fold
+        ORDER BY appointment_id""",
+    "as-of window": """SELECT appointment_id, posterior_mean(beta_posterior(no_show, beta_prior(2, 18))
+        OVER (PARTITION BY breed ORDER BY day RANGE BETWEEN 30 PRECEDING AND 0 PRECEDING)) AS m
+        FROM a ORDER BY appointment_id""",
+}
+
+
+@pytest.mark.parametrize("name", list(SAME_AS_SHELL))
+def test_sql_equals_the_shell(ctx, name):
+    sql = SAME_AS_SHELL[name]
+    same(python_rows(ctx, sql), shell_rows(sql), name)
+
+
+def test_dataframe_api_and_windows(ctx):
+    fns = posterity.register(ctx)
+    df = ctx.table("a").aggregate(
+        [col("breed")], [fns.beta_posterior(col("no_show"), fns.beta_prior(lit(2), lit(18)))
+                         .alias("p")])
+    got = df.select(col("breed"), fns.posterior_mean(col("p")).alias("m")).sort(col("breed"))
+    want = shell_rows("SELECT breed, posterior_mean(beta_posterior(no_show, beta_prior(2, 18))) "
+                      "AS m FROM a GROUP BY breed ORDER BY breed")
+    same(got.to_pandas().to_dict("records"), want, "DataFrame API")
+    assert "beta_posterior" in posterity.doc("beta_posterior")
+    assert "posterior_mean" in posterity.functions()
+
+
+# ------------------------------------------------------------------ encode
+
+OPTIONS = dict(columns=["breed", "postcode_area", "vet"], interactions=[["breed", "clinic"]],
+               readers=["mean", "sd", "q05"])
+
+
+def shell_encode(out: Path, extra=()):
+    subprocess.run(
+        [shell_binary(), "-q", "encode", "--train", str(SAMPLE), "--target", "no_show",
+         "--columns", "breed,postcode_area,vet", "--interactions", "breed:clinic",
+         "--readers", "mean,sd,q05", "--score", str(SAMPLE), "--out", str(out), *extra],
+        check=True, capture_output=True)
+
+
+def table_rows(t: pa.Table) -> list[dict]:
+    return t.to_pylist()
+
+
+def test_encode_equals_the_shell(tmp_path):
+    shell_encode(tmp_path / "shell")
+    enc = posterity.encode(SAMPLE, target="no_show", score=SAMPLE, **OPTIONS)
+    same(table_rows(enc.train_encoded), table_rows(pq.read_table(tmp_path / "shell/train_encoded.parquet")),
+         "train_encoded")
+    same(table_rows(enc.scored), table_rows(pq.read_table(tmp_path / "shell/scored.parquet")), "scored")
+    for key in ["breed", "postcode_area", "vet", "breed_x_clinic"]:
+        want = pq.read_table(tmp_path / f"shell/encodings/{key}.parquet").drop_columns(["p"])
+        same(table_rows(enc.encodings[key].drop_columns(["p"])), table_rows(want), key)
+    # Written by Python: the shell's files, byte for byte.
+    enc.write(tmp_path / "python")
+    for f in ["train_encoded.parquet", "scored.parquet", "bundle.json", "encodings/breed.parquet"]:
+        assert (tmp_path / "python" / f).read_bytes() == (tmp_path / "shell" / f).read_bytes(), f
+    assert [s["key"] for s in enc.summary] == ["breed", "postcode_area", "vet", "breed_x_clinic"]
+
+
+def test_pandas_and_polars_in_and_out(tmp_path):
+    frame = pd.read_csv(SAMPLE, dtype={"breed": "string", "postcode_area": "string", "vet": "string",
+                                       "clinic": "string"})
+    from_path = posterity.encode(SAMPLE, target="no_show", score=SAMPLE, **OPTIONS)
+    from_pandas = posterity.encode(frame, target="no_show", score=frame, **OPTIONS)
+    assert isinstance(from_pandas.train_encoded, pd.DataFrame)
+    assert isinstance(from_pandas.encodings["breed"], pd.DataFrame)
+    for c in ["breed_mean", "postcode_area_sd", "breed_x_clinic_q05", "vet_mean"]:
+        assert from_pandas.train_encoded[c].tolist() == from_path.train_encoded.column(c).to_pylist(), c
+        assert from_pandas.scored[c].tolist() == from_path.scored.column(c).to_pylist(), c
+    from_polars = posterity.encode(pl.from_pandas(frame), target="no_show", **OPTIONS)
+    assert isinstance(from_polars.train_encoded, pl.DataFrame)
+    assert from_polars.train_encoded["breed_mean"].to_list() == from_path.train_encoded.column("breed_mean").to_pylist()
+    # The bundle scores a pandas DataFrame in process as scored rows were.
+    scored = from_path.bundle.score(frame)
+    assert isinstance(scored, pd.DataFrame)
+    for c in ["breed_mean", "breed_sd", "postcode_area_q05", "breed_x_clinic_mean"]:
+        got, want = scored[c].tolist(), from_path.scored.column(c).to_pylist()
+        assert all(abs(x - y) <= 1e-12 * abs(y) for x, y in zip(got, want)), c
+    assert isinstance(from_path.bundle.score(pl.from_pandas(frame)), pl.DataFrame)
+
+
+def test_key_types_nulls_and_empty():
+    rows = pa.table({
+        "text": ["a", "b", None, "a", "b", "c"] * 50,
+        "number": [1, 2, 2, None, 3, 1] * 50,
+        "flag": [True, False, None, True, True, False] * 50,
+        "y": [1, 0, 1, 0, 0, 1] * 50,
+    })
+    enc = posterity.encode(rows, target="y", columns=["text", "number", "flag"], score=rows,
+                           readers=["mean"], indicators=0)
+    t = enc.train_encoded
+    assert t.num_rows == 300
+    for c in ["text_mean", "number_mean", "flag_mean"]:
+        assert t.column(c).null_count == 0
+    # NULL keys read the prior: every NULL-key row gets the same value.
+    nulls = {v for k, v in zip(t.column("text").to_pylist(), enc.scored.column("text_mean").to_pylist())
+             if k is None}
+    assert len(nulls) == 1
+    prior_mean = posterity.Bundle.from_json(enc.bundle.to_json()).score(
+        pa.table({"text": pa.array([None], pa.string()), "number": [None], "flag": [None]}))
+    assert prior_mean.column("text_mean").to_pylist() == list(nulls)
+    # An empty table is refused with the reason, not a crash.
+    with pytest.raises(posterity.Error, match="training table has no rows with a value of target 'y'"):
+        posterity.encode(rows.slice(0, 0), target="y", columns=["text"])
+
+
+# ------------------------------------------------------------------ bad input
+
+def test_bad_input_is_a_python_error(ctx):
+    cases = [
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["no_such"]),
+         ["key column 'no_such'", "training table"]),
+        (lambda: posterity.encode(SAMPLE, target="no_such", columns=["breed"]), ["target 'no_such'"]),
+        (lambda: posterity.encode(42, target="y", columns=["k"]), ["train", "int"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], method="loo"),
+         ["loo", "tree learners"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], readers="mean"),
+         ["readers"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], folds=1),
+         ["folds must be at least 2"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], method="time"),
+         ["method time needs time_column"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], colour="red"),
+         ["unknown option 'colour'"]),
+        (lambda: posterity.encode(pa.table({"k": ["a", "b"], "y": [0.5, float("nan")]}), target="y",
+                                  columns=["k"]), ["nig_posterior", "NaN"]),
+        (lambda: posterity.Bundle.load("/no/such/bundle.json"), ["Bundle.load", "cannot read"]),
+        (lambda: posterity.Bundle.from_json("{}"), ["Bundle.from_json", "posterity bundle"]),
+    ]
+    for call, fragments in cases:
+        with pytest.raises(posterity.Error) as e:
+            call()
+        for f in fragments:
+            assert f in str(e.value), f"{f!r} not in {e.value}"
+    # SQL errors from the functions carry their messages through the engine.
+    for sql, fragments in [
+        ("SELECT beta_posterior(y, p) FROM (VALUES (1, beta_prior(1, 1))) t(y, p)",
+         ["beta_posterior", "prior (argument 2) must be a constant"]),
+        ("SELECT beta_posterior(2)", ["beta_posterior", "outcome = 2", "0 or 1"]),
+        ("SELECT beta_prior('x', 1)", ["beta_prior"]),
+        ("SELECT posterior_quantile(beta_prior(1, 1), 1.5)", ["posterior_quantile", "q = 1.5"]),
+        ("SELECT nig_posterior(x) FROM (VALUES ('NaN'::double)) t(x)", ["nig_posterior", "value = NaN"]),
+    ]:
+        with pytest.raises(Exception) as e:
+            ctx.sql(sql).collect()
+        for f in fragments:
+            assert f in str(e.value), f"{sql}: {f!r} not in {e.value}"
+
+
+def test_the_interpreter_survives_every_function_with_wrong_arguments(ctx):
+    # Every function, called with no argument, text, NULL, a number and a list: an
+    # error or a value, never a crash (the test getting to its end is the check).
+    failures = 0
+    for name in posterity.functions():
+        for args in ["", "'text'", "NULL", "1.5", "[1, 2]", "'text', 'text', 'text'"]:
+            try:
+                ctx.sql(f"SELECT {name}({args})").collect()
+            except Exception as e:  # noqa: BLE001 - any refusal is fine, a crash is not
+                assert "panicked" not in str(e), f"{name}({args}): {e}"
+                failures += 1
+    assert failures > 0
+
+
+def test_other_engine_versions_are_refused(monkeypatch):
+    monkeypatch.setattr(datafusion, "__version__", "54.1.0")
+    with pytest.raises(posterity.Error, match="built on DataFusion 55.*54.1.0"):
+        posterity.register(datafusion.SessionContext())
+
+
+def test_empty_frames_are_null_never_a_default_prior(ctx):
+    # Through the engine's function interface posterity's planning rule cannot run,
+    # so an empty window frame cannot get the call's own prior: it is NULL (as the
+    # README says), never another prior's number. Frames that hold rows agree with
+    # the shell, and an empty input without groups still reads the call's prior.
+    rows = python_rows(ctx, """SELECT appointment_id, posterior_mean(beta_posterior(no_show,
+        beta_prior(2, 18)) OVER (PARTITION BY breed ORDER BY day
+        RANGE BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)) AS m FROM a ORDER BY appointment_id""")
+    shell = shell_rows("""SELECT appointment_id, posterior_mean(beta_posterior(no_show,
+        beta_prior(2, 18)) OVER (PARTITION BY breed ORDER BY day
+        RANGE BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)) AS m FROM a ORDER BY appointment_id""")
+    empty = [r for r in rows if r["m"] is None or math.isnan(r["m"])]
+    assert empty, "some rows have no earlier day of their breed"
+    for r, s in zip(rows, shell):
+        if r["m"] is None or math.isnan(r["m"]):
+            assert s["m"] == 0.1  # the shell binds the prior Beta(2, 18)
+        else:
+            assert abs(r["m"] - s["m"]) <= 1e-12 * s["m"]
+    none = python_rows(ctx, "SELECT posterior_mean(beta_posterior(no_show, beta_prior(2, 18))) AS m "
+                            "FROM a WHERE false")
+    assert none == [{"m": 0.1}]
