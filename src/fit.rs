@@ -833,6 +833,48 @@ impl<K: FitKernel> BindPrior for FitAggregate<K> {
     }
 }
 
+/// The value of `expr` when it is a constant (`None` when it reads a column; an
+/// error when computing the constant fails). A native constant evaluates to one
+/// value on no rows. Through the foreign-function interface constants come back as
+/// arrays, so one row of NULLs decides: a column gives NULL, a constant its value.
+fn constant_value(
+    expr: &Arc<dyn datafusion::physical_expr::PhysicalExpr>,
+    schema: &datafusion::arrow::datatypes::Schema,
+) -> Result<Option<ScalarValue>> {
+    use datafusion::arrow::array::{new_null_array, RecordBatch};
+    use datafusion::arrow::datatypes::Schema;
+    use datafusion::logical_expr::ColumnarValue;
+    let no_rows = RecordBatch::new_empty(Arc::new(schema.clone()));
+    match expr.evaluate(&no_rows) {
+        Ok(ColumnarValue::Scalar(value)) => return Ok(Some(value)),
+        Err(e) if datafusion::physical_expr::utils::collect_columns(expr).is_empty() => {
+            return Err(e)
+        }
+        Err(_) => return Ok(None),
+        Ok(ColumnarValue::Array(_)) => {}
+    }
+    let nullable = Schema::new(
+        schema
+            .fields()
+            .iter()
+            .map(|f| f.as_ref().clone().with_nullable(true))
+            .collect::<Vec<_>>(),
+    );
+    let nulls = nullable
+        .fields()
+        .iter()
+        .map(|f| new_null_array(f.data_type(), 1))
+        .collect();
+    let one_row = RecordBatch::try_new(Arc::new(nullable), nulls)?;
+    Ok(match expr.evaluate(&one_row)? {
+        ColumnarValue::Scalar(value) => Some(value).filter(|v| !v.is_null()),
+        ColumnarValue::Array(a) if a.len() == 1 && a.is_valid(0) => {
+            Some(ScalarValue::try_from_array(&a, 0)?)
+        }
+        ColumnarValue::Array(_) => None,
+    })
+}
+
 /// The kernel for a constant prior value (a NULL prior means the default).
 fn decode_prior<K: FitKernel>(prior: &ScalarValue) -> Result<K> {
     let array = prior.to_array()?;
@@ -862,14 +904,10 @@ impl<K: FitKernel> FitAggregate<K> {
         }
         // Not folded: a constant that failed to fold (beta_prior(0, 1)), or one that
         // reached us through the foreign-function interface (Python), where
-        // expressions are opaque. A constant evaluates to a single value on no rows.
-        let no_rows =
-            datafusion::arrow::array::RecordBatch::new_empty(Arc::new(args.schema.clone()));
-        match expr.evaluate(&no_rows) {
-            Ok(datafusion::logical_expr::ColumnarValue::Scalar(value)) => decode_prior::<K>(&value),
-            Err(e) if datafusion::physical_expr::utils::collect_columns(expr).is_empty() => {
-                invalid(e)
-            }
+        // expressions are opaque.
+        match constant_value(expr, args.schema) {
+            Ok(Some(value)) => decode_prior::<K>(&value),
+            Err(e) => invalid(e),
             _ => plan_err!(
                 "{}: the prior (argument {}) must be a constant such as beta_prior(1, 1); to give \
                  levels different priors, fit with one prior and re-prior the result with \

@@ -377,7 +377,14 @@ impl ScalarUDFImpl for ScalarFunction {
 
     fn invoke_with_args(&self, args: ScalarFunctionArgs) -> Result<ColumnarValue> {
         let arrays = ColumnarValue::values_to_arrays(&args.args)?;
-        let rows = args.number_rows;
+        // Constant arguments give a constant (the engine's convention; it also lets a
+        // fit recognise a prior that reached it unfolded, as through Python), whatever
+        // the number of rows: one value.
+        let constant = args
+            .args
+            .iter()
+            .all(|a| matches!(a, ColumnarValue::Scalar(_)));
+        let rows = if constant { 1 } else { args.number_rows };
         let out = match self.op {
             Op::Prior(kind) => self.priors(kind, &arrays, rows)?,
             Op::Read(reader) => self.read(reader, &arrays, rows)?,

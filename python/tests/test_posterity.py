@@ -235,6 +235,8 @@ def test_bad_input_is_a_python_error(ctx):
         ("SELECT beta_posterior(y, p) FROM (VALUES (1, beta_prior(1, 1))) t(y, p)",
          ["beta_posterior", "prior (argument 2) must be a constant"]),
         ("SELECT beta_posterior(2)", ["beta_posterior", "outcome = 2", "0 or 1"]),
+        ("SELECT beta_posterior(y, beta_prior(0, 1)) FROM (VALUES (1)) t(y)",
+         ["beta_posterior: the prior (argument 2) is invalid", "a = 0"]),
         ("SELECT beta_prior('x', 1)", ["beta_prior"]),
         ("SELECT posterior_quantile(beta_prior(1, 1), 1.5)", ["posterior_quantile", "q = 1.5"]),
         ("SELECT nig_posterior(x) FROM (VALUES ('NaN'::double)) t(x)", ["nig_posterior", "value = NaN"]),
