@@ -131,17 +131,21 @@ fn features(
     let mut values: Vec<Vec<f64>> = vec![Vec::with_capacity(levels.len()); reader_outputs.len()];
     for level in levels {
         let level = level.as_deref();
-        if !cache.contains_key(&level) {
-            let p = encoding.scoring(level).map_err(|e| {
-                EncodeError::Query(format!("score: key '{name}', level {level:?}: {e}"))
-            })?;
-            let row = reader_outputs
-                .iter()
-                .map(|(index, class)| readers[*index].value(&p, *class))
-                .collect::<Result<Vec<f64>>>()?;
-            cache.insert(level, row);
-        }
-        for (column, v) in values.iter_mut().zip(&cache[&level]) {
+        let row = match cache.entry(level) {
+            std::collections::hash_map::Entry::Occupied(row) => row.into_mut(),
+            std::collections::hash_map::Entry::Vacant(slot) => {
+                let p = encoding.scoring(level).map_err(|e| {
+                    EncodeError::Query(format!("score: key '{name}', level {level:?}: {e}"))
+                })?;
+                slot.insert(
+                    reader_outputs
+                        .iter()
+                        .map(|(index, class)| readers[*index].value(&p, *class))
+                        .collect::<Result<Vec<f64>>>()?,
+                )
+            }
+        };
+        for (column, v) in values.iter_mut().zip(row.iter()) {
             column.push(*v);
         }
     }

@@ -133,7 +133,7 @@ def hand_encodings(name, tr, te, ytr, keys, seed):
     return out_tr, out_te
 
 
-def posterity_encodings(tr, te, ytr, keys, seed, readers, work):
+def posterity_encodings(tr, te, ytr, keys, seed, readers, work, extra=()):
     train = tr[keys].copy()
     train["y"] = ytr.values
     train.to_parquet(work / "train.parquet", index=False)
@@ -142,7 +142,7 @@ def posterity_encodings(tr, te, ytr, keys, seed, readers, work):
     subprocess.run(
         [posterity_bin(), "-q", "encode", "--train", str(work / "train.parquet"), "--target", "y",
          "--columns", ",".join(keys), "--readers", readers, "--seed", str(seed),
-         "--score", str(work / "test.parquet"), "--out", str(out), "--replace"],
+         "--score", str(work / "test.parquet"), "--out", str(out), "--replace", *extra],
         check=True, stdout=subprocess.DEVNULL)
     enc_tr = pd.read_parquet(out / "train_encoded.parquet").drop(columns=keys + ["y"])
     enc_te = pd.read_parquet(out / "scored.parquet").drop(columns=keys)

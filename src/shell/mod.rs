@@ -499,8 +499,6 @@ pub fn functions_help(name: Option<&str>) -> Result<String, Failure> {
     }
 }
 
-/// Rows produced so far by the plan's leaves (the scans), from the engine's metrics.
-
 /// "1 row", "2 rows".
 fn rows_text(rows: usize) -> String {
     format!("{rows} {}", if rows == 1 { "row" } else { "rows" })
@@ -516,6 +514,7 @@ fn elapsed(started: Instant) -> String {
     }
 }
 
+/// Rows produced so far by the plan's leaves (the scans), from the engine's metrics.
 fn rows_read(plan: &dyn datafusion::physical_plan::ExecutionPlan) -> usize {
     let children = plan.children();
     if children.is_empty() {
