@@ -57,9 +57,7 @@ pub enum TimeTies {
 pub enum Treatment {
     /// Posterior readers (`<key>_mean`, ...) plus indicators of its largest levels.
     Posterior,
-    /// Indicators of every level (`<key>_top1..N`) and nothing else: for a few large
-    /// levels the learner does better with the levels themselves than with an
-    /// encoding, whose out-of-fold values only add noise.
+    /// Indicators of every level (`<key>_top1..N`) and nothing else (on request).
     Levels,
     /// One integer column `<key>_code`: the level's position in the sorted training
     /// levels (0, 1, ...), -1 for unseen levels and NULL keys.
@@ -342,9 +340,8 @@ pub struct EncodeOptions {
     /// The rows (evidence) a level needs to get an indicator.
     pub indicator_min_rows: f64,
     /// Keys (a column, or an interaction spelled `a:b`) with a chosen treatment;
-    /// the others are decided from the data: a key with at most `indicators` levels,
-    /// each with at least `indicator_min_rows` rows, gets `Levels`, any other
-    /// `Posterior`.
+    /// the others get `Posterior`, with the reason from their level sizes in the
+    /// summary (giving few large levels as `Levels` alone was measured worse).
     pub treatments: Vec<(String, Treatment)>,
     /// A table registered on the session to score with the encodings.
     pub score: Option<String>,

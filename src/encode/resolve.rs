@@ -279,7 +279,7 @@ async fn choose_treatments(
             (Some(Treatment::Levels), Some((levels, _, _))) => {
                 if levels as usize > MAX_INDICATORS {
                     return usage(format!(
-                        "--treatment {}=levels: the key has {levels} levels; allowed: at most                          {MAX_INDICATORS} (one indicator column each); use codes or posterior",
+                        "--treatment {}=levels: the key has {levels} levels; allowed: at most {MAX_INDICATORS} (one indicator column each); use codes or posterior",
                         key.spelled()
                     ));
                 }
@@ -290,17 +290,18 @@ async fn choose_treatments(
             (Some(_), _) => "chosen (--treatment)".to_string(),
             (None, None) => "indicators are off (--indicators 0)".to_string(),
             (None, Some((levels, smallest, small))) => {
+                // No column for indicators no level qualifies for.
+                key.indicators = key.indicators.min((levels - small) as usize);
+                // Few large levels stay posterior encodings with an indicator each:
+                // measured on held-out data, giving them as indicators alone did
+                // worse (MODELING.md, ablation), so `levels` is only chosen on request.
                 if levels > 0 && levels as usize <= options.indicators && smallest >= min_rows {
-                    key.treatment = Treatment::Levels;
-                    key.indicators = levels as usize;
-                    key.indicator_min_rows = 0.0;
                     format!(
-                        "{levels} levels, each with at least {} rows: given to the learner as they are",
+                        "{levels} levels, each with at least {} rows: readers and an indicator \
+                         for every level",
                         crate::render::short(min_rows)
                     )
                 } else {
-                    // No column for indicators no level qualifies for.
-                    key.indicators = key.indicators.min((levels - small) as usize);
                     format!(
                         "{levels} levels, {small} with fewer than {} rows",
                         crate::render::short(min_rows)

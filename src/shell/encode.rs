@@ -117,8 +117,7 @@ pub struct EncodeArgs {
     /// Per key, what it becomes: posterior (readers and indicators of its largest
     /// levels), levels (an indicator for every level) or codes (one integer column,
     /// -1 when unseen), e.g. clinic=levels,breed:clinic=codes. Keys not named are
-    /// decided from the data: at most --indicators levels, each with at least
-    /// --indicator-min-rows rows, become levels; others posterior.
+    /// posterior; the summary says how their levels are sized.
     #[arg(long, value_delimiter = ',', value_name = "KEY=AS")]
     pub treatment: Vec<String>,
     /// Seed of the fold assignment.

@@ -1223,17 +1223,18 @@ async fn normalized_keys_merge_spellings() {
     );
 }
 
-// Each key's treatment: clinic (12 levels, each with at least 100 rows) is given as
-// levels, one indicator per level ranked by size; breed, asked for as codes, is its
-// position among the sorted training levels, -1 unseen; postcode_area stays a
-// posterior encoding. The summary says why; the bundle gives the same codes.
+// Each key's treatment: clinic, asked for as levels, is one indicator per level
+// ranked by size; breed, asked for as codes, is its position among the sorted
+// training levels, -1 unseen; postcode_area and channel (5 levels, each with at
+// least 100 rows) stay posterior encodings, channel with an indicator for every
+// level. The summary says why; the bundle gives the same codes.
 #[tokio::test]
 async fn treatments_follow_the_data_and_the_user() {
     let dir = temp_dir("treatments");
     let score = dir.join("score.csv");
     std::fs::write(
         &score,
-        "clinic,breed,postcode_area\nclinic_03,breed_017,PA0011\nclinic_99,no_such_breed,PA0011\n,,\n",
+        "clinic,breed,postcode_area,channel\nclinic_03,breed_017,PA0011,phone\nclinic_99,no_such_breed,PA0011,phone\n,,,\n",
     )
     .unwrap();
     let out = dir.join("out");
@@ -1244,9 +1245,9 @@ async fn treatments_follow_the_data_and_the_user() {
         "--target",
         "no_show",
         "--columns",
-        "clinic,breed,postcode_area",
+        "clinic,breed,postcode_area,channel",
         "--treatment",
-        "breed=codes",
+        "breed=codes,clinic=levels",
         "--score",
         score.to_str().unwrap(),
         "--out",
@@ -1255,7 +1256,14 @@ async fn treatments_follow_the_data_and_the_user() {
     let stdout = String::from_utf8_lossy(&o.stdout);
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(
-        stdout.contains("clinic as levels: 12 levels, each with at least 100 rows"),
+        stdout.contains("clinic as levels: chosen (--treatment)"),
+        "{stdout}"
+    );
+    assert!(
+        stdout.contains(
+            "channel as posterior: 5 levels, each with at least 100 rows: readers and an \
+             indicator for every level"
+        ),
         "{stdout}"
     );
     assert!(
