@@ -29,9 +29,9 @@ import pyarrow.parquet as pq
 
 import posterity
 
-FIT = "SELECT SUM(posterior_mean(p)) FROM (SELECT k1, beta_posterior(y) AS p FROM d GROUP BY k1)"
+FIT = "SELECT SUM(posterior_mean(p)) FROM (SELECT key, beta_posterior(y) AS p FROM d GROUP BY key)"
 JOIN = ("SELECT SUM(posterior_mean(e.p)) FROM d LEFT JOIN "
-        "(SELECT k1, beta_posterior(y) AS p FROM d GROUP BY k1) e ON e.k1 = d.k1")
+        "(SELECT key, beta_posterior(y) AS p FROM d GROUP BY key) e ON e.key = d.key")
 RUNS = 5
 
 
@@ -73,25 +73,25 @@ def main():
         "python_join": median_time(lambda: ctx.sql(JOIN).collect()),
         "shell_join": shell_time(binary, data, JOIN),
     }
-    frame = pd.read_parquet(data, columns=["k1", "k2", "y"])
+    frame = pd.read_parquet(data, columns=["key", "key2", "y"])
     with tempfile.TemporaryDirectory() as d:
         small = Path(d) / "train.parquet"
         frame.to_parquet(small, index=False)
-        options = dict(target="y", columns=["k1", "k2"], readers=["mean"], indicators=0)
+        options = dict(target="y", columns=["key", "key2"], readers=["mean"], indicators=0)
         result["encode_from_parquet"] = median_time(lambda: posterity.encode(str(small), **options),
                                                     runs=3)
         result["encode_from_pandas"] = median_time(lambda: posterity.encode(frame, **options),
                                                    runs=3)
         enc = posterity.encode(str(small), **options)
         bundle = enc.bundle
-        rows = frame.head(1_000_000)[["k1", "k2"]]
+        rows = frame.head(1_000_000)[["key", "key2"]]
         result["bundle_score_1m"] = median_time(lambda: bundle.score(rows))
         # The same posterior means by hand: one merge per key on the per-level table.
         doc = json.loads(bundle.to_json())
 
         def by_hand():
             out = rows.copy()
-            for key in ["k1", "k2"]:
+            for key in ["key", "key2"]:
                 column = doc["columns"][key]
                 scale = column.get("score_scale", 1.0)
                 levels = pd.DataFrame.from_dict(column["levels"], orient="index")

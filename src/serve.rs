@@ -2,7 +2,7 @@
 //! `encode` writes for scored rows (the same names, types and values), computed
 //! from the rows' key columns. For services and for Python's `Bundle.score`.
 
-use std::collections::HashMap;
+use std::borrow::Cow;
 use std::sync::Arc;
 
 use datafusion::arrow::array::{
@@ -38,7 +38,8 @@ pub fn score(bundle: &Bundle, batch: &RecordBatch) -> Result<RecordBatch> {
         .collect();
     let mut columns: Vec<ArrayRef> = batch.columns().to_vec();
     for (name, encoding) in &bundle.columns {
-        let levels = levels_of(name, encoding, batch)?;
+        let texts = key_texts(name, encoding, batch)?;
+        let levels = levels_of(encoding, &texts, batch.num_rows());
         for (column_name, array) in features(name, encoding, &readers, &levels)? {
             if fields.iter().any(|f| f.name() == &column_name) {
                 return usage(format!(
@@ -56,12 +57,8 @@ pub fn score(bundle: &Bundle, batch: &RecordBatch) -> Result<RecordBatch> {
     )?)
 }
 
-/// Each row's level of `encoding` (`None` when a key column is NULL).
-fn levels_of(
-    name: &str,
-    encoding: &ColumnEncoding,
-    batch: &RecordBatch,
-) -> Result<Vec<Option<String>>> {
+/// The key columns of `encoding` in `batch`, as text.
+fn key_texts(name: &str, encoding: &ColumnEncoding, batch: &RecordBatch) -> Result<Vec<ArrayRef>> {
     let key_columns = if encoding.key_columns.is_empty() {
         // Version 1 bundles did not record it: the key is the column of its name.
         vec![name.to_string()]
@@ -88,16 +85,33 @@ fn levels_of(
             ))
         })?);
     }
+    Ok(texts)
+}
+
+/// Each row's level (`None` when a key column is NULL): the text itself for a
+/// plain one-column key (no copy), else built as the bundle says.
+fn levels_of<'a>(
+    encoding: &ColumnEncoding,
+    texts: &'a [ArrayRef],
+    rows: usize,
+) -> Vec<Option<Cow<'a, str>>> {
     let texts: Vec<_> = texts.iter().map(|t| t.as_string::<i32>()).collect();
-    Ok((0..batch.num_rows())
+    if let [one] = texts.as_slice() {
+        if !encoding.normalized {
+            return (0..rows)
+                .map(|row| one.is_valid(row).then(|| Cow::Borrowed(one.value(row))))
+                .collect();
+        }
+    }
+    (0..rows)
         .map(|row| {
             let parts: Vec<Option<&str>> = texts
                 .iter()
                 .map(|t| t.is_valid(row).then(|| t.value(row)))
                 .collect();
-            encoding.level_of(&parts)
+            encoding.level_of(&parts).map(Cow::Owned)
         })
-        .collect())
+        .collect()
 }
 
 /// The feature columns of one key for rows at `levels`.
@@ -105,7 +119,7 @@ fn features(
     name: &str,
     encoding: &ColumnEncoding,
     readers: &[Reader],
-    levels: &[Option<String>],
+    levels: &[Option<Cow<'_, str>>],
 ) -> Result<Vec<(String, ArrayRef)>> {
     let classes = match &encoding.prior {
         AnyPosterior::Dirichlet(d) => d.prior.classes.clone(),
@@ -120,7 +134,8 @@ fn features(
         false,
     );
     // Readers are computed once per level (quantiles are the costly part).
-    let mut cache: HashMap<Option<&str>, Vec<f64>> = HashMap::new();
+    // The engine's hash map (a fast hasher): one lookup per row.
+    let mut cache: datafusion::common::HashMap<Option<&str>, Vec<f64>> = Default::default();
     let reader_outputs: Vec<(usize, Option<&str>)> = outputs
         .iter()
         .filter_map(|(_, c)| match c {
@@ -132,8 +147,8 @@ fn features(
     for level in levels {
         let level = level.as_deref();
         let row = match cache.entry(level) {
-            std::collections::hash_map::Entry::Occupied(row) => row.into_mut(),
-            std::collections::hash_map::Entry::Vacant(slot) => {
+            datafusion::common::hash_map::Entry::Occupied(row) => row.into_mut(),
+            datafusion::common::hash_map::Entry::Vacant(slot) => {
                 let p = encoding.scoring(level).map_err(|e| {
                     EncodeError::Query(format!("score: key '{name}', level {level:?}: {e}"))
                 })?;
