@@ -242,6 +242,13 @@ async fn collect(df: DataFrame) -> posterity::datafusion::error::Result<ArrowDat
     Ok(ArrowData { schema, batches })
 }
 
+async fn collect_some(df: &Option<DataFrame>) -> Result<Option<ArrowData>, String> {
+    match df {
+        Some(df) => Ok(Some(collect(df.clone()).await.map_err(|e| e.to_string())?)),
+        None => Ok(None),
+    }
+}
+
 // ------------------------------------------------------------------ encode
 
 /// A training or scoring input: a file path (registered like the shell does, key
@@ -394,18 +401,9 @@ fn parse_options(options: &Bound<'_, pyo3::types::PyDict>, o: &mut EncodeOptions
                 o.normalize_keys = value.extract().map_err(|_| wrong("True or False"))?
             }
             "time_ties" => {
-                o.time_ties = match text()
-                    .map_err(|_| wrong("'strict' or 'file-order'"))?
-                    .as_str()
-                {
-                    "strict" => TimeTies::Strict,
-                    "file-order" | "file_order" => TimeTies::FileOrder,
-                    other => {
-                        return Err(error(format!(
-                            "encode: time_ties '{other}' is not 'strict' or 'file-order'"
-                        )))
-                    }
-                }
+                o.time_ties =
+                    TimeTies::parse(&text().map_err(|_| wrong("'strict' or 'file-order'"))?)
+                        .map_err(in_python_words)?
             }
             "exposure" => o.exposure = Some(text().map_err(|_| wrong("a column name"))?),
             "readers" => {
@@ -437,16 +435,9 @@ fn parse_options(options: &Bound<'_, pyo3::types::PyDict>, o: &mut EncodeOptions
                     .collect::<PyResult<_>>()?
             }
             "score_evidence" => {
-                o.score_evidence = match text().map_err(|_| wrong("'matched' or 'full'"))?.as_str()
-                {
-                    "matched" => ScoreEvidence::Matched,
-                    "full" => ScoreEvidence::Full,
-                    other => {
-                        return Err(error(format!(
-                            "encode: score_evidence '{other}' is not 'matched' or 'full'"
-                        )))
-                    }
-                }
+                o.score_evidence =
+                    ScoreEvidence::parse(&text().map_err(|_| wrong("'matched' or 'full'"))?)
+                        .map_err(in_python_words)?
             }
             other => return Err(error(format!("encode: unknown option '{other}'"))),
         }
@@ -495,15 +486,8 @@ fn encode_data(
                 }
                 let plan = encode::resolve(&ctx, &o).await.map_err(|e| e.to_string())?;
                 let output = encode::run(&ctx, &plan).await.map_err(|e| e.to_string())?;
-                let take = |df: &Option<DataFrame>| df.clone();
-                let train_encoded = match take(&output.train_encoded) {
-                    Some(df) => Some(collect(df).await.map_err(|e| e.to_string())?),
-                    None => None,
-                };
-                let scored = match take(&output.scored) {
-                    Some(df) => Some(collect(df).await.map_err(|e| e.to_string())?),
-                    None => None,
-                };
+                let train_encoded = collect_some(&output.train_encoded).await?;
+                let scored = collect_some(&output.scored).await?;
                 let mut encodings = Vec::new();
                 for (name, df) in &output.encodings {
                     encodings.push((

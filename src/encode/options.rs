@@ -85,6 +85,17 @@ impl Treatment {
     }
 }
 
+impl TimeTies {
+    /// `strict` or `file-order` (`file_order` accepted).
+    pub fn parse(name: &str) -> Result<TimeTies> {
+        match name.trim() {
+            "strict" => Ok(TimeTies::Strict),
+            "file-order" | "file_order" => Ok(TimeTies::FileOrder),
+            other => usage(format!("--time-ties '{other}' is not strict or file-order")),
+        }
+    }
+}
+
 /// The data weight of the posteriors that score new rows.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub enum ScoreEvidence {
@@ -96,6 +107,17 @@ pub enum ScoreEvidence {
     Matched,
     /// Scored rows read the posterior of all training rows.
     Full,
+}
+
+impl ScoreEvidence {
+    /// `matched` or `full`.
+    pub fn parse(name: &str) -> Result<ScoreEvidence> {
+        match name.trim() {
+            "matched" => Ok(ScoreEvidence::Matched),
+            "full" => Ok(ScoreEvidence::Full),
+            other => usage(format!("--score-evidence '{other}' is not matched or full")),
+        }
+    }
 }
 
 /// The prior of every encoded column.

@@ -92,7 +92,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
         .iter()
         .map(|r| Reader::parse(r))
         .collect::<Result<Vec<_>>>()?;
-    let defaults = EncodeOptions::new(&options.train, &previous.target, &[]);
+    let mut encode_options = EncodeOptions::new(&options.train, &previous.target, &[]);
     let mut keys = Vec::new();
     let mut stored = Vec::new();
     for (name, column) in &previous.columns {
@@ -102,7 +102,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
                  bundle); run encode once more to write a version 2 bundle"
             ));
         }
-        let mut key = KeyPlan::posterior(name.clone(), column.key_columns.clone(), &defaults);
+        let mut key = KeyPlan::posterior(name.clone(), column.key_columns.clone(), &encode_options);
         key.prior = Some(prior_sql(&column.prior));
         // The previous run's treatment carries over; given as levels, every stored
         // level keeps its indicator.
@@ -145,7 +145,6 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
             ),
     )?;
     let score_columns = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
-    let mut encode_options = EncodeOptions::new(&options.train, &previous.target, &[]);
     encode_options.readers = readers;
     encode_options.normalize_keys = stored.iter().any(|c| c.normalized);
     encode_options.exposure = options.exposure.clone();
