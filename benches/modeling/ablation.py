@@ -26,9 +26,8 @@ def variants(keys):
         "defaults": [],
         "score-evidence full": ["--score-evidence", "full"],
         "every key posterior": every_key_posterior,
-        "readers mean": ["--readers", "mean"],
+        "readers mean,sd": ["--readers", "mean,sd"],
         "indicators 0": ["--indicators", "0"],
-        "readers mean, indicators 0": ["--readers", "mean", "--indicators", "0"],
     }
 
 
@@ -53,7 +52,7 @@ def main():
                 if only and name not in only:
                     continue
                 scores = []
-                readers = "mean,sd"
+                readers = None  # encode's defaults
                 if "--readers" in extra:
                     i = extra.index("--readers")
                     readers, extra = extra[i + 1], extra[:i] + extra[i + 2:]

@@ -373,7 +373,7 @@ pub struct EncodeOptions {
 }
 
 impl EncodeOptions {
-    /// The defaults: fitted prior, 5-fold out-of-fold encodings, readers mean and sd.
+    /// The defaults: fitted prior, 5-fold out-of-fold encodings, the mean reader.
     pub fn new(train: &str, target: &str, columns: &[&str]) -> EncodeOptions {
         EncodeOptions {
             train: train.to_string(),
@@ -390,7 +390,7 @@ impl EncodeOptions {
             half_life: None,
             time_ties: TimeTies::Strict,
             exposure: None,
-            readers: vec![Reader::Mean, Reader::Sd],
+            readers: vec![Reader::Mean],
             draws: None,
             indicators: 20,
             indicator_min_rows: 100.0,

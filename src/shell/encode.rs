@@ -102,8 +102,8 @@ pub struct EncodeArgs {
     /// Exposure column for the gamma family (events per unit of exposure).
     #[arg(long)]
     pub exposure: Option<String>,
-    /// Readers: mean, sd, var, data_weight (evidence), qNN (quantile at NN percent), above:T (P(theta > T)).
-    #[arg(long, value_delimiter = ',', default_value = "mean,sd")]
+    /// Readers: mean (default), sd, var, data_weight (evidence), qNN (quantile at NN percent), above:T (P(theta > T)).
+    #[arg(long, value_delimiter = ',', default_value = "mean")]
     pub readers: Vec<String>,
     /// Add a seeded posterior draw per row and column (stochastic training encodings).
     #[arg(long, value_name = "SEED")]

@@ -225,7 +225,7 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     underscores: ``interactions=[["breed", "clinic"]]``, ``family``, ``prior`` ("fitted",
     "jeffreys", "uniform" or numbers), ``method`` ("kfold" or "time"), ``folds``, ``seed``,
     ``time_column``, ``half_life``, ``normalize_keys``, ``time_ties``, ``exposure``,
-    ``readers=["mean", "sd"]``, ``draws``, ``indicators``, ``indicator_min_rows``,
+    ``readers=["mean", "sd"]`` (default ``["mean"]``), ``draws``, ``indicators``, ``indicator_min_rows``,
     ``treatment={"clinic": "levels"}``, ``score_evidence`` ("matched" or "full"). The same
     inputs give the shell's numbers. With ``out``, the outputs are also written there.
     """
