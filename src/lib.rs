@@ -8,6 +8,7 @@
 //! * [`encode`] — the encode workflow: plan, statements, outputs, refresh;
 //! * [`bundle`] — the JSON serving bundle, for scoring without the engine;
 //! * [`serve`] — scoring rows with a bundle, without the engine;
+//! * [`report`] — the encode report: interval, shrinkage and prior plots in one HTML file;
 //! * [`files`] — registering Parquet, CSV and JSON files as tables, with checks;
 //! * [`prior_binding`] — a planning rule that binds fits to their constant prior;
 //! * [`optimizer`] — a physical rule that builds joins on the (small) encoding side.
@@ -32,6 +33,7 @@ pub mod pool;
 pub mod prior_binding;
 pub mod prior_fit;
 pub mod render;
+pub mod report;
 pub mod scalar;
 pub mod serve;
 

@@ -370,6 +370,8 @@ pub struct EncodeOptions {
     /// The data weight scored rows read (k-fold only; as-of encodings already grow
     /// with time the way scoring does).
     pub score_evidence: ScoreEvidence,
+    /// Draw the HTML report (`EncodeOutput::report`, `report.html`).
+    pub report: bool,
 }
 
 impl EncodeOptions {
@@ -397,6 +399,7 @@ impl EncodeOptions {
             treatments: Vec::new(),
             score: None,
             score_evidence: ScoreEvidence::Matched,
+            report: false,
         }
     }
 

@@ -10,6 +10,7 @@ use datafusion::arrow::compute::cast;
 use datafusion::arrow::datatypes::{DataType, Field, Int64Type, Schema};
 use datafusion::dataframe::{DataFrame, DataFrameWriteOptions};
 use datafusion::datasource::MemTable;
+use datafusion::error::DataFusionError;
 use datafusion::prelude::SessionContext;
 use serde_json::{json, Value};
 
@@ -63,6 +64,8 @@ pub struct EncodeOutput {
     pub unseen: Option<Value>,
     pub bundle: Bundle,
     pub summary: Vec<ColumnSummary>,
+    /// With `EncodeOptions::report`: the HTML report (`crate::report`).
+    pub report: Option<String>,
 }
 
 /// Fewer levels than this give a fitted prior too little to go on (common
@@ -140,10 +143,16 @@ pub(super) async fn execute(
     let mut outputs = BTreeMap::new();
     for statement in statements {
         progress(&statement.name);
-        let df = ctx.sql(&statement.sql).await?;
+        // CREATE TABLE ... AS runs inside `sql`; queries run when collected.
+        let df = ctx
+            .sql(&statement.sql)
+            .await
+            .map_err(|e| in_encode_words(&statement.name, e))?;
         match &statement.output {
             None => {
-                df.collect().await?;
+                df.collect()
+                    .await
+                    .map_err(|e| in_encode_words(&statement.name, e))?;
             }
             Some(name) => {
                 outputs.insert(name.clone(), df);
@@ -151,6 +160,21 @@ pub(super) async fn execute(
         }
     }
     Ok(outputs)
+}
+
+/// A statement's failure in the words of encode's options where the engine's would
+/// name an inner function: a fitted prior for a key without a single level with
+/// target values.
+fn in_encode_words(statement: &str, e: DataFusionError) -> EncodeError {
+    let message = e.to_string();
+    match statement.strip_prefix("prior ") {
+        Some(key) if message.contains("no level has any evidence") => EncodeError::Usage(format!(
+            "--columns {key}: no training row has both a key value and a target value, so \
+             there is nothing to fit a prior from; choose one with --prior (jeffreys, uniform \
+             or numbers) or leave the key out"
+        )),
+        _ => e.into(),
+    }
 }
 
 /// The bundle and the summary from the finished tables, and the outputs.
@@ -313,6 +337,10 @@ pub(super) async fn finish(
             take(&mut outputs, &format!("encodings/{}", key.name))?,
         ));
     }
+    let report = match plan.options.report {
+        true => Some(crate::report::html(&bundle, &summary).map_err(EncodeError::Query)?),
+        false => None,
+    };
     Ok(EncodeOutput {
         train_encoded,
         encodings,
@@ -320,6 +348,7 @@ pub(super) async fn finish(
         unseen: plan.options.score.as_ref().map(|_| Value::Object(unseen)),
         bundle,
         summary,
+        report,
     })
 }
 
@@ -397,8 +426,8 @@ fn is_previous_run(dir: &Path) -> bool {
 }
 
 /// Write the outputs into `dir`: `train_encoded.parquet`, `encodings/<key>.parquet`,
-/// `bundle.json` (with the summary), and with a scoring table `scored.parquet` and
-/// `unseen_levels.json`. Everything is written into a new sibling directory first
+/// `bundle.json`, `summary.json`, with a scoring table `scored.parquet` and
+/// `unseen_levels.json`, and with a report `report.html`. Everything is written into a new sibling directory first
 /// and swapped in at the end, so `dir` holds exactly this run's files or, on
 /// failure, what it held before. A `dir` that is neither empty nor a previous
 /// run's output is refused unless `replace` is set.
@@ -485,6 +514,10 @@ async fn write_into(output: &EncodeOutput, dir: &Path) -> Result<()> {
             serde_json::to_string_pretty(unseen).unwrap_or_default(),
         )
         .map_err(|e| io(&path, e))?;
+    }
+    if let Some(report) = &output.report {
+        let path = dir.join("report.html");
+        std::fs::write(&path, report).map_err(|e| io(&path, e))?;
     }
     let path = dir.join("bundle.json");
     std::fs::write(&path, output.bundle.to_json()).map_err(|e| io(&path, e))?;

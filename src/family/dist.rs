@@ -112,6 +112,33 @@ impl Marginal {
         }
     }
 
+    /// Probability density at x (0 outside the support). For drawing priors; the
+    /// readers never need it.
+    pub fn density(&self, x: f64) -> f64 {
+        match *self {
+            Marginal::Beta { a, b } => {
+                if x <= 0.0 || x >= 1.0 {
+                    return 0.0;
+                }
+                ((a - 1.0) * x.ln() + (b - 1.0) * (-x).ln_1p() - ln_beta(a, b)).exp()
+            }
+            Marginal::Gamma { shape, rate } => {
+                if x <= 0.0 {
+                    return 0.0;
+                }
+                (shape * rate.ln() + (shape - 1.0) * x.ln() - rate * x - ln_gamma(shape)).exp()
+            }
+            Marginal::StudentT { scale: 0.0, .. } => 0.0,
+            Marginal::StudentT { loc, scale, dof } => {
+                let t = (x - loc) / scale;
+                let ln_norm = ln_gamma((dof + 1.0) / 2.0)
+                    - ln_gamma(dof / 2.0)
+                    - 0.5 * (dof * std::f64::consts::PI).ln();
+                (ln_norm - (dof + 1.0) / 2.0 * (t * t / dof).ln_1p()).exp() / scale
+            }
+        }
+    }
+
     /// Inverse CDF at q in [0, 1].
     pub fn quantile(&self, q: f64) -> f64 {
         match *self {

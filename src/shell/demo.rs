@@ -211,7 +211,7 @@ pub async fn run(shell: &Shell, dir: &Path, rows: usize, seed: u64) -> Result<()
         shell.run_script(&sql.replace("{dir}", &d), "demo").await?;
         println!();
     }
-    println!("== 11. One command: leak-free training encodings, encoding tables, a serving bundle and a scored month");
+    println!("== 11. One command: leak-free training encodings, encoding tables, a serving bundle, a scored month and a report");
     // The demo's encode is the command a user would type (so it keeps every default).
     let out = dir.join("encoded");
     let encode = super::encode::EncodeArgs::from_words(&[
@@ -230,8 +230,13 @@ pub async fn run(shell: &Shell, dir: &Path, rows: usize, seed: u64) -> Result<()
         "--out",
         &out.to_string_lossy(),
         "--replace",
+        "--report",
     ])?;
     super::encode::run(shell, &encode).await?;
+    println!(
+        "(pictures of every encoded column: {})",
+        out.join("report.html").display()
+    );
     println!("(the same SQL by hand: the files under sql/; see the README)\n");
     println!("Cautions: postcode-area encodings can carry protected characteristics by proxy; a score built on them that\n\
               decides about people falls under local law on automated decisions and fair treatment. Intervals describe\n\

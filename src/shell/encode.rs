@@ -130,6 +130,10 @@ pub struct EncodeArgs {
     /// it, as an out-of-fold training row sees) or full.
     #[arg(long, value_enum, default_value = "matched")]
     pub score_evidence: ScoreEvidenceChoice,
+    /// Also write report.html: interval, shrinkage and prior plots of every encoded
+    /// column in one self-contained file.
+    #[arg(long)]
+    pub report: bool,
     /// Refresh a previous output directory with the --train rows: its posteriors are
     /// pooled with the new rows under its stored priors (no refit).
     #[arg(long, value_name = "PREVIOUS_OUT")]
@@ -230,6 +234,7 @@ fn options(args: &EncodeArgs) -> Result<EncodeOptions, Failure> {
         ScoreEvidenceChoice::Matched => encode::ScoreEvidence::Matched,
         ScoreEvidenceChoice::Full => encode::ScoreEvidence::Full,
     };
+    o.report = args.report;
     Ok(o)
 }
 

@@ -1,4 +1,4 @@
-//! Rendering query results: table, CSV, TSV, JSON and NDJSON, written atomically
+//! Rendering query results: table, CSV, TSV, JSON, NDJSON and an SVG interval plot, written atomically
 //! when they go to a file.
 
 use std::io::Write;
@@ -18,10 +18,12 @@ pub enum Format {
     Tsv,
     Json,
     Ndjson,
+    /// An interval plot of a result with a label column and a posterior column.
+    Svg,
 }
 
 impl Format {
-    /// The format a file name asks for: .csv, .tsv, .json, .ndjson/.jsonl, .txt (table).
+    /// The format a file name asks for: .csv, .tsv, .json, .ndjson/.jsonl, .txt (table), .svg.
     pub fn from_extension(path: &std::path::Path) -> Option<Format> {
         let ext = path.extension()?.to_str()?.to_ascii_lowercase();
         Some(match ext.as_str() {
@@ -30,6 +32,7 @@ impl Format {
             "json" => Format::Json,
             "ndjson" | "jsonl" => Format::Ndjson,
             "txt" => Format::Table,
+            "svg" => Format::Svg,
             _ => return None,
         })
     }
@@ -65,6 +68,7 @@ pub fn render(
             .into_iter()
             .map(|r| format!("{r}\n"))
             .collect()),
+        Format::Svg => posterity::report::query_svg(batches),
     }
 }
 

@@ -789,7 +789,11 @@ async fn library_encode_equals_the_shell() {
     }
     assert_eq!(
         column(&lib_dir.join("train_encoded.parquet"), "postcode_area_mean").await,
-        column(&shell_dir.join("train_encoded.parquet"), "postcode_area_mean").await
+        column(
+            &shell_dir.join("train_encoded.parquet"),
+            "postcode_area_mean"
+        )
+        .await
     );
     assert_eq!(output.summary.len(), 2);
     assert_eq!(output.summary[0].levels, 273);

@@ -12,5 +12,6 @@ mod leakage;
 mod python;
 mod readme;
 mod recipes;
+mod report;
 mod shell_manners;
 mod sql;
