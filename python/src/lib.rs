@@ -337,6 +337,12 @@ impl EncodeResult {
         encode::summary_json(&self.output.summary).to_string()
     }
 
+    /// With `report=True`: the HTML report (what `report.html` holds).
+    #[getter]
+    fn report(&self) -> Option<String> {
+        self.output.report.clone()
+    }
+
     /// The summary as the shell prints it.
     #[getter]
     fn summary_text(&self) -> String {
@@ -400,6 +406,7 @@ fn parse_options(options: &Bound<'_, pyo3::types::PyDict>, o: &mut EncodeOptions
             "normalize_keys" => {
                 o.normalize_keys = value.extract().map_err(|_| wrong("True or False"))?
             }
+            "report" => o.report = value.extract().map_err(|_| wrong("True or False"))?,
             "time_ties" => {
                 o.time_ties =
                     TimeTies::parse(&text().map_err(|_| wrong("'strict' or 'file-order'"))?)

@@ -153,6 +153,18 @@ def test_encode_equals_the_shell(tmp_path):
     for f in ["train_encoded.parquet", "scored.parquet", "bundle.json", "encodings/breed.parquet"]:
         assert (tmp_path / "python" / f).read_bytes() == (tmp_path / "shell" / f).read_bytes(), f
     assert [s["key"] for s in enc.summary] == ["breed", "postcode_area", "vet", "breed_x_clinic"]
+    assert enc.report is None
+
+
+def test_report_equals_the_shell(tmp_path):
+    shell_encode(tmp_path / "shell", extra=["--report"])
+    enc = posterity.encode(SAMPLE, target="no_show", score=SAMPLE, report=True, **OPTIONS)
+    want = (tmp_path / "shell/report.html").read_text()
+    assert enc.report == want
+    enc.write(tmp_path / "python")
+    assert (tmp_path / "python/report.html").read_text() == want
+    with pytest.raises(posterity.Error, match="report"):
+        posterity.encode(SAMPLE, target="no_show", report="yes", **OPTIONS)
 
 
 def test_pandas_and_polars_in_and_out(tmp_path):

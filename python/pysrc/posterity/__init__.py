@@ -204,6 +204,8 @@ class Encoded:
         self.encodings = {k: _as_output(v, kind) for k, v in inner.encodings}
         self.bundle = Bundle(inner.bundle)
         self.summary = json.loads(inner.summary_json)
+        # With report=True: the self-contained HTML report (write() also saves it).
+        self.report = inner.report
 
     def write(self, out, replace: bool = False) -> None:
         """Write the directory the shell's ``encode --out`` writes, whole or not at all."""
@@ -226,7 +228,8 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     "jeffreys", "uniform" or numbers), ``method`` ("kfold" or "time"), ``folds``, ``seed``,
     ``time_column``, ``half_life``, ``normalize_keys``, ``time_ties``, ``exposure``,
     ``readers=["mean", "sd"]`` (default ``["mean"]``), ``draws``, ``indicators``, ``indicator_min_rows``,
-    ``treatment={"clinic": "levels"}``, ``score_evidence`` ("matched" or "full"). The same
+    ``treatment={"clinic": "levels"}``, ``score_evidence`` ("matched" or "full"),
+    ``report=True`` (the HTML report: ``Encoded.report``, ``report.html``). The same
     inputs give the shell's numbers. With ``out``, the outputs are also written there.
     """
     if isinstance(columns, str):
