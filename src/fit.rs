@@ -809,6 +809,8 @@ pub trait BindPrior {
     fn prior_argument(&self) -> usize;
     /// Whether this instance is already bound.
     fn is_bound(&self) -> bool;
+    /// The prior this instance is bound to.
+    fn bound_prior(&self) -> Option<&ScalarValue>;
     /// An instance bound to `prior` (checked as this family's prior).
     fn bind(&self, prior: ScalarValue) -> Result<AggregateUDF>;
 }
@@ -820,6 +822,10 @@ impl<K: FitKernel> BindPrior for FitAggregate<K> {
 
     fn is_bound(&self) -> bool {
         self.prior.is_some()
+    }
+
+    fn bound_prior(&self) -> Option<&ScalarValue> {
+        self.prior.as_ref()
     }
 
     fn bind(&self, prior: ScalarValue) -> Result<AggregateUDF> {

@@ -8,6 +8,7 @@
 //! * [`encode`] — the encode workflow: plan, statements, outputs, refresh;
 //! * [`bundle`] — the JSON serving bundle, for scoring without the engine;
 //! * [`serve`] — scoring rows with a bundle, without the engine;
+//! * [`shell`] — the command line (the `posterity` binary is a thin wrapper);
 //! * [`report`] — the encode report: interval, shrinkage and prior plots in one HTML file;
 //! * [`files`] — registering Parquet, CSV and JSON files as tables, with checks;
 //! * [`prior_binding`] — a planning rule that binds fits to their constant prior;
@@ -36,6 +37,7 @@ pub mod render;
 pub mod report;
 pub mod scalar;
 pub mod serve;
+pub mod shell;
 
 pub use datafusion;
 

@@ -16,7 +16,7 @@ use std::sync::Arc;
 
 use datafusion::common::config::ConfigOptions;
 use datafusion::common::tree_node::{Transformed, TreeNode};
-use datafusion::common::Result;
+use datafusion::common::{Result, ScalarValue};
 use datafusion::logical_expr::expr::{AggregateFunction, WindowFunction};
 use datafusion::logical_expr::simplify::SimplifyContext;
 use datafusion::logical_expr::{AggregateUDF, Expr, LogicalPlan, WindowFunctionDefinition};
@@ -59,6 +59,19 @@ impl AnalyzerRule for BindPriors {
     fn name(&self) -> &str {
         RULE_NAME
     }
+}
+
+/// The constant prior a fit aggregate instance was bound to by this rule, for
+/// engines that ship plans to other processes: functions travel by name, so the
+/// binding has to travel beside them ([`rebind`] restores it).
+pub fn bound_prior(f: &AggregateUDF) -> Option<ScalarValue> {
+    as_fit(f)?.bound_prior().cloned()
+}
+
+/// `f` (a fit aggregate looked up by name) bound to `prior` again; `None` when `f`
+/// is not a fit aggregate.
+pub fn rebind(f: &AggregateUDF, prior: ScalarValue) -> Result<Option<AggregateUDF>> {
+    as_fit(f).map(|fit| fit.bind(prior)).transpose()
 }
 
 /// The fit aggregates' binding interface, if `f` is one of them.

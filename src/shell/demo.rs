@@ -5,7 +5,7 @@
 use std::fmt::Write as _;
 use std::path::Path;
 
-use posterity::family::rng::SplitMix;
+use crate::family::rng::SplitMix;
 
 use super::{Failure, Shell};
 

@@ -1,14 +1,14 @@
 //! `posterity encode`: argument handling and file output over
-//! [`posterity::encode`], which plans, runs and writes the workflow.
+//! [`crate::encode`], which plans, runs and writes the workflow.
 
 use std::io::IsTerminal;
 use std::path::PathBuf;
 
-use posterity::bundle::Bundle;
-use posterity::encode::{
+use crate::bundle::Bundle;
+use crate::encode::{
     self, EncodeError, EncodeOptions, Method, PriorChoice, Reader, Treatment, UpdateOptions,
 };
-use posterity::layout::Kind;
+use crate::layout::Kind;
 
 use super::{Failure, Shell};
 

@@ -3,6 +3,7 @@
 //! interactive prompt. It reads and writes local paths only, runs no shell
 //! commands and opens no network connection.
 
+pub mod cli;
 pub mod complete;
 pub mod demo;
 pub mod encode;
@@ -19,8 +20,8 @@ use datafusion::prelude::{SessionConfig, SessionContext};
 
 use output::Format;
 
-pub use posterity::files::CsvOptions;
-use posterity::files::FileError;
+pub use crate::files::CsvOptions;
+use crate::files::FileError;
 
 /// Settings shared by every way of running SQL.
 pub struct Shell {
@@ -129,7 +130,7 @@ pub fn session(
     let runtime = runtime
         .build_arc()
         .map_err(|e| Failure::usage(e.to_string()))?;
-    let state = posterity::optimizer::with_build_on_aggregate(
+    let state = crate::optimizer::with_build_on_aggregate(
         datafusion::execution::session_state::SessionStateBuilder::new()
             .with_config(config)
             .with_runtime_env(runtime)
@@ -138,7 +139,7 @@ pub fn session(
     .build();
     // File paths quoted directly in FROM ('appointments.parquet') resolve to tables.
     let ctx = SessionContext::new_with_state(state).enable_url_table();
-    posterity::register(&ctx);
+    crate::register(&ctx);
     Ok(ctx)
 }
 
@@ -172,7 +173,7 @@ impl Shell {
     ) -> Result<(), Failure> {
         let mut csv = self.csv.clone();
         csv.text.extend_from_slice(text);
-        posterity::files::register(&self.ctx, name, path, &csv)
+        crate::files::register(&self.ctx, name, path, &csv)
             .await
             .map_err(|e| match e {
                 FileError::Usage(m) => Failure::usage(format!("{option}: {m}")),
@@ -198,7 +199,10 @@ impl Shell {
     /// Run one statement and print (or write) its result.
     pub async fn run(&self, sql: &str) -> Result<(), Failure> {
         let started = Instant::now();
-        let batches = self.collect(sql).await?;
+        let batches = self
+            .collect(sql)
+            .await
+            .map_err(|f| with_cluster_hint(f, sql))?;
         let rows: usize = batches.iter().map(RecordBatch::num_rows).sum();
         let feedback = match self.feedback(sql, &batches).await {
             Some(feedback) => feedback,
@@ -481,12 +485,12 @@ impl Shell {
 
 /// `posterity functions [NAME]`: the reference from the functions' documentation.
 pub fn functions_help(name: Option<&str>) -> Result<String, Failure> {
-    let functions = posterity::docs::FUNCTIONS;
+    let functions = crate::docs::FUNCTIONS;
     match name {
         Some(n) => functions
             .iter()
             .find(|f| f.name.eq_ignore_ascii_case(n))
-            .map(posterity::docs::help_text)
+            .map(crate::docs::help_text)
             .ok_or_else(|| {
                 Failure::usage(format!(
                     "no posterity function named '{n}'; run 'posterity functions' for the list"
@@ -494,7 +498,7 @@ pub fn functions_help(name: Option<&str>) -> Result<String, Failure> {
             }),
         None => Ok(format!(
             "{}\nDetails: posterity functions NAME\n",
-            posterity::docs::summary_text()
+            crate::docs::summary_text()
         )),
     }
 }
@@ -545,4 +549,32 @@ fn clean(e: datafusion::error::DataFusionError) -> String {
     }
     text.replace("Execution error: ", "")
         .replace("Error during planning: ", "")
+}
+
+/// A cluster reports a task an executor could not decode only as "rejected"; for
+/// posterity's SQL the usual cause is an executor without posterity's functions, so
+/// name the ones the statement uses and the executor that has them.
+fn with_cluster_hint(f: Failure, sql: &str) -> Failure {
+    if !f.message.contains("rejected by executor") {
+        return f;
+    }
+    let lower = sql.to_lowercase();
+    let names = crate::scalar::all()
+        .into_iter()
+        .map(|f| f.name().to_string())
+        .chain(
+            crate::aggregates()
+                .into_iter()
+                .map(|f| f.name().to_string()),
+        );
+    let used: Vec<String> = names.filter(|n| lower.contains(&format!("{n}("))).collect();
+    if used.is_empty() {
+        return f;
+    }
+    Failure::query(format!(
+        "{}; the statement uses {}: an executor that is not a posterity-executor lacks \
+         these functions (start executors with posterity-executor)",
+        f.message,
+        used.join(", ")
+    ))
 }

@@ -4,10 +4,10 @@
 use std::io::Write;
 use std::path::Path;
 
+use crate::render::{describe, short};
 use datafusion::arrow::array::{Array, ArrayRef, AsArray, RecordBatch};
 use datafusion::arrow::datatypes::{DataType, Float64Type};
 use datafusion::arrow::util::display::{ArrayFormatter, FormatOptions};
-use posterity::render::{describe, short};
 use serde_json::{Map, Number, Value};
 
 /// Output formats of the shell.
@@ -68,7 +68,7 @@ pub fn render(
             .into_iter()
             .map(|r| format!("{r}\n"))
             .collect()),
-        Format::Svg => posterity::report::query_svg(batches),
+        Format::Svg => crate::report::query_svg(batches),
     }
 }
 
@@ -212,8 +212,8 @@ fn readable_batch(batch: &RecordBatch) -> Result<RecordBatch, String> {
     let mut columns: Vec<ArrayRef> = Vec::new();
     for (field, column) in batch.schema().fields().iter().zip(batch.columns()) {
         let text: Option<Vec<Option<String>>> =
-            if posterity::layout::Kind::detect(column.data_type()).is_some() {
-                let decoded = posterity::layout::PosteriorColumn::new("display", column)
+            if crate::layout::Kind::detect(column.data_type()).is_some() {
+                let decoded = crate::layout::PosteriorColumn::new("display", column)
                     .map_err(|e| e.to_string())?;
                 Some(
                     (0..column.len())

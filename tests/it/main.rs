@@ -3,6 +3,7 @@
 
 mod bad_inputs;
 mod cli;
+mod cluster;
 mod empirical;
 mod encode;
 mod family_examples;

@@ -1,0 +1,236 @@
+//! posterity on a Ballista cluster: the same functions, the same numbers.
+//!
+//! Three pieces make a stock Ballista cluster run posterity's SQL:
+//!
+//! * the scheduler plans with a session that knows every posterity function, the
+//!   rule that binds fits to their constant prior, and the join rule
+//!   ([`scheduler_session`]);
+//! * executors look functions up in a registry that holds posterity's
+//!   ([`function_registry`]);
+//! * plans travel with [`PosterityCodec`]: functions go by name, so a fit's bound
+//!   prior (what an empty window frame returns) travels beside the name and is bound
+//!   again where the plan arrives.
+//!
+//! [`connect`] gives a client session on a cluster (the `posterity-cluster` shell).
+
+use std::sync::Arc;
+
+use ballista::prelude::SessionContextExt;
+use ballista_core::extension::SessionConfigExt;
+use ballista_core::registry::BallistaFunctionRegistry;
+use ballista_core::serde::BallistaPhysicalExtensionCodec;
+use datafusion::common::{DataFusionError, Result, ScalarValue};
+use datafusion::execution::context::SessionState;
+use datafusion::execution::runtime_env::RuntimeEnvBuilder;
+use datafusion::execution::session_state::SessionStateBuilder;
+use datafusion::execution::TaskContext;
+use datafusion::logical_expr::AggregateUDF;
+use datafusion::physical_plan::ExecutionPlan;
+use datafusion::prelude::{SessionConfig, SessionContext};
+use datafusion_proto::physical_plan::{PhysicalExtensionCodec, PhysicalProtoConverterExtension};
+use datafusion_proto::protobuf;
+use prost::Message;
+
+use posterity::prior_binding::{bound_prior, rebind, BindPriors};
+
+/// The physical plan codec of scheduler and executors: Ballista's own (shuffles),
+/// plus posterity's fit aggregates with their bound prior.
+#[derive(Debug, Default)]
+pub struct PosterityCodec {
+    ballista: BallistaPhysicalExtensionCodec,
+}
+
+/// A posterity aggregate by name (the fits and pools), unbound.
+fn posterity_aggregate(name: &str) -> Option<AggregateUDF> {
+    posterity::aggregates()
+        .into_iter()
+        .find(|f| f.name() == name)
+}
+
+impl PhysicalExtensionCodec for PosterityCodec {
+    fn try_decode(
+        &self,
+        buf: &[u8],
+        inputs: &[Arc<dyn ExecutionPlan>],
+        ctx: &TaskContext,
+        converter: &dyn PhysicalProtoConverterExtension,
+    ) -> Result<Arc<dyn ExecutionPlan>> {
+        self.ballista.try_decode(buf, inputs, ctx, converter)
+    }
+
+    fn try_encode(
+        &self,
+        node: Arc<dyn ExecutionPlan>,
+        buf: &mut Vec<u8>,
+        converter: &dyn PhysicalProtoConverterExtension,
+    ) -> Result<()> {
+        self.ballista.try_encode(node, buf, converter)
+    }
+
+    /// A bound fit writes its prior; everything else goes by name alone.
+    fn try_encode_udaf(&self, node: &AggregateUDF, buf: &mut Vec<u8>) -> Result<()> {
+        if let Some(prior) = bound_prior(node) {
+            let proto = protobuf::ScalarValue::try_from(&prior).map_err(|e| {
+                DataFusionError::Internal(format!("{}: cannot encode its prior: {e}", node.name()))
+            })?;
+            proto
+                .encode(buf)
+                .map_err(|e| DataFusionError::Internal(e.to_string()))?;
+        }
+        Ok(())
+    }
+
+    /// Called with the bytes [`try_encode_udaf`](Self::try_encode_udaf) wrote, or with
+    /// none for a function the receiving registry does not hold.
+    fn try_decode_udaf(&self, name: &str, buf: &[u8]) -> Result<Arc<AggregateUDF>> {
+        let Some(function) = posterity_aggregate(name) else {
+            return Err(DataFusionError::Plan(format!(
+                "this process does not know the aggregate function '{name}'"
+            )));
+        };
+        if buf.is_empty() {
+            return Ok(Arc::new(function));
+        }
+        let proto = protobuf::ScalarValue::decode(buf)
+            .map_err(|e| DataFusionError::Internal(format!("{name}: prior: {e}")))?;
+        let prior = ScalarValue::try_from(&proto)
+            .map_err(|e| DataFusionError::Internal(format!("{name}: prior: {e}")))?;
+        Ok(Arc::new(rebind(&function, prior)?.unwrap_or(function)))
+    }
+}
+
+/// Every function an executor needs: Ballista's defaults and posterity's.
+pub fn function_registry() -> BallistaFunctionRegistry {
+    let mut registry = BallistaFunctionRegistry::default();
+    for f in posterity::scalar::all() {
+        registry
+            .scalar_functions
+            .insert(f.name().to_string(), Arc::new(f));
+    }
+    for f in posterity::aggregates() {
+        registry
+            .aggregate_functions
+            .insert(f.name().to_string(), Arc::new(f));
+    }
+    registry
+}
+
+/// The session state the scheduler plans with: Ballista's optimizer rules, every
+/// posterity function, the prior-binding rule and posterity's join rule.
+pub fn scheduler_session(config: SessionConfig) -> Result<SessionState> {
+    let builder = SessionStateBuilder::new()
+        .with_default_features()
+        .with_config(config)
+        .with_runtime_env(Arc::new(RuntimeEnvBuilder::new().build()?))
+        .with_optimizer_rules(ballista_core::optimizer::ballista_default_optimizer_rules())
+        .with_analyzer_rule(Arc::new(BindPriors));
+    let mut state = posterity::optimizer::with_build_on_aggregate(builder).build();
+    register_functions(&mut state)?;
+    Ok(state)
+}
+
+fn register_functions(state: &mut SessionState) -> Result<()> {
+    use datafusion::execution::FunctionRegistry;
+    for f in posterity::scalar::all() {
+        state.register_udf(Arc::new(f))?;
+    }
+    for f in posterity::aggregates() {
+        state.register_udaf(Arc::new(f))?;
+    }
+    Ok(())
+}
+
+/// The session config every process of a posterity cluster uses: Ballista's, with
+/// [`PosterityCodec`] for physical plans.
+pub fn session_config() -> SessionConfig {
+    SessionConfig::new_with_ballista()
+        .with_ballista_physical_extension_codec(Arc::new(PosterityCodec::default()))
+}
+
+/// A client session on the cluster whose scheduler listens at `url`
+/// (`df://host:port`), with posterity registered for planning.
+pub async fn connect(url: &str) -> Result<SessionContext> {
+    let state = SessionStateBuilder::new()
+        .with_default_features()
+        .with_config(session_config())
+        .build();
+    let ctx = SessionContext::remote_with_state(url, state).await?;
+    posterity::register(&ctx);
+    Ok(ctx)
+}
+
+/// An in-process cluster (scheduler and executor in this process), for tests.
+pub async fn standalone() -> Result<SessionContext> {
+    let state = scheduler_session(session_config())?;
+    let ctx = SessionContext::standalone_with_state(state).await?;
+    posterity::register(&ctx);
+    Ok(ctx)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use datafusion::arrow::array::{Array, Float64Array};
+    use datafusion::arrow::util::pretty::pretty_format_batches;
+    use datafusion::prelude::CsvReadOptions;
+
+    async fn prior(sql: &str) -> ScalarValue {
+        let ctx = SessionContext::new();
+        posterity::register(&ctx);
+        let batches = ctx.sql(sql).await.unwrap().collect().await.unwrap();
+        ScalarValue::try_from_array(batches[0].column(0), 0).unwrap()
+    }
+
+    #[tokio::test]
+    async fn a_bound_prior_travels_with_the_function() {
+        let codec = PosterityCodec::default();
+        let unbound = posterity_aggregate("beta_posterior").unwrap();
+        let mut buf = Vec::new();
+        codec.try_encode_udaf(&unbound, &mut buf).unwrap();
+        assert!(buf.is_empty(), "an unbound fit goes by name alone");
+        let value = prior("SELECT beta_prior(3, 7)").await;
+        let bound = rebind(&unbound, value.clone()).unwrap().unwrap();
+        codec.try_encode_udaf(&bound, &mut buf).unwrap();
+        let decoded = codec.try_decode_udaf("beta_posterior", &buf).unwrap();
+        assert_eq!(bound_prior(&decoded), Some(value));
+        let err = codec.try_decode_udaf("no_such_fit", &[]).unwrap_err();
+        assert!(err.to_string().contains("no_such_fit"), "{err}");
+    }
+
+    /// An in-process cluster (scheduler and executor in this process) against a
+    /// plain session: a grouped fit and an as-of window whose first rows are empty
+    /// frames (they must read the query's prior, 0.3, not a default).
+    #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+    async fn an_in_process_cluster_gives_the_local_numbers() {
+        let dir =
+            std::env::temp_dir().join(format!("posterity-cluster-unit-{}", std::process::id()));
+        std::fs::create_dir_all(&dir).unwrap();
+        let path = dir.join("visits.csv");
+        let mut csv = String::from("clinic,day,missed\n");
+        for i in 0..400u32 {
+            csv.push_str(&format!("c{},{},{}\n", i % 7, i / 7, u32::from(i % 5 == 0)));
+        }
+        std::fs::write(&path, csv).unwrap();
+        let sql = "SELECT clinic, day, posterior_mean(beta_posterior(missed, beta_prior(3, 7)) \
+                   OVER (PARTITION BY clinic ORDER BY day RANGE BETWEEN UNBOUNDED PRECEDING AND \
+                   1 PRECEDING)) AS m FROM visits ORDER BY clinic, day";
+        let local = SessionContext::new();
+        posterity::register(&local);
+        let cluster = standalone().await.unwrap();
+        let mut results = Vec::new();
+        for ctx in [&local, &cluster] {
+            ctx.register_csv("visits", path.to_str().unwrap(), CsvReadOptions::new())
+                .await
+                .unwrap();
+            let batches = ctx.sql(sql).await.unwrap().collect().await.unwrap();
+            results.push(pretty_format_batches(&batches).unwrap().to_string());
+            let first = batches[0]
+                .column(2)
+                .as_any()
+                .downcast_ref::<Float64Array>()
+                .unwrap();
+            assert!(first.is_valid(0) && (first.value(0) - 0.3).abs() < 1e-15);
+        }
+        assert_eq!(results[0], results[1]);
+    }
+}
