@@ -8,6 +8,7 @@
 //! reads the same.
 
 use plotters::coord::ranged1d::SegmentValue;
+use plotters::coord::types::RangedCoordf64;
 use plotters::prelude::*;
 
 use super::levels::{LevelPoint, Panel};
@@ -146,6 +147,25 @@ pub fn interval_svg(panel: &Panel, chosen: &[usize], title: Option<&str>) -> Res
     Ok(svg)
 }
 
+type ValueChart<'a, 'b> =
+    ChartContext<'a, SVGBackend<'b>, Cartesian2d<RangedCoordf64, RangedCoordf64>>;
+
+/// Axes, labels and a light grid for a chart with numbers on both axes.
+fn value_mesh(chart: &mut ValueChart<'_, '_>, x_desc: &str, y_desc: &str) -> Result<()> {
+    chart
+        .configure_mesh()
+        .x_desc(x_desc)
+        .y_desc(y_desc)
+        .x_label_formatter(&|x| short(*x))
+        .y_label_formatter(&|y| short(*y))
+        .label_style((FONT, 12))
+        .axis_desc_style((FONT, 13))
+        .max_light_lines(2)
+        .light_line_style(RGBColor(0xEE, 0xEE, 0xEE))
+        .draw()
+        .map_err(failed)
+}
+
 /// Each level's raw in-sample value against its posterior mean, sized by data, with
 /// the identity line: how far the prior pulled each level.
 pub fn shrinkage_svg(panel: &Panel, chosen: &[usize]) -> Result<String> {
@@ -165,18 +185,11 @@ pub fn shrinkage_svg(panel: &Panel, chosen: &[usize]) -> Result<String> {
             .y_label_area_size(70)
             .build_cartesian_2d(lo..hi, lo..hi)
             .map_err(failed)?;
-        chart
-            .configure_mesh()
-            .x_desc(format!("raw in-sample value — {}", panel.axis))
-            .y_desc("posterior mean")
-            .x_label_formatter(&|x| short(*x))
-            .y_label_formatter(&|y| short(*y))
-            .label_style((FONT, 12))
-            .axis_desc_style((FONT, 13))
-            .max_light_lines(2)
-            .light_line_style(RGBColor(0xEE, 0xEE, 0xEE))
-            .draw()
-            .map_err(failed)?;
+        value_mesh(
+            &mut chart,
+            &format!("raw in-sample value — {}", panel.axis),
+            "posterior mean",
+        )?;
         chart
             .draw_series(DashedLineSeries::new(
                 [(lo, lo), (hi, hi)],
@@ -257,18 +270,7 @@ pub fn prior_svg(panel: &Panel, min_data: f64) -> Result<String> {
             .y_label_area_size(70)
             .build_cartesian_2d(x0..x1, 0.0..top)
             .map_err(failed)?;
-        chart
-            .configure_mesh()
-            .x_desc(panel.axis.as_str())
-            .y_desc("density")
-            .x_label_formatter(&|x| short(*x))
-            .y_label_formatter(&|y| short(*y))
-            .label_style((FONT, 12))
-            .axis_desc_style((FONT, 13))
-            .max_light_lines(2)
-            .light_line_style(RGBColor(0xEE, 0xEE, 0xEE))
-            .draw()
-            .map_err(failed)?;
+        value_mesh(&mut chart, &panel.axis, "density")?;
         chart
             .draw_series(bars.iter().enumerate().map(|(i, &h)| {
                 let left = x0 + i as f64 * width;
