@@ -87,8 +87,10 @@ fn wait_for_port(port: u16) {
 }
 
 impl Cluster {
-    /// A scheduler and `executors` executors (`plain` ones lack posterity's functions).
-    fn start(name: &str, executors: usize, plain: bool) -> Cluster {
+    /// A scheduler and `executors` executors (`plain` ones lack posterity's functions)
+    /// that the scheduler gives up on after `timeout` seconds without a heartbeat
+    /// (short only where a test kills one: on a busy machine heartbeats run late).
+    fn start(name: &str, executors: usize, plain: bool, timeout: u64) -> Cluster {
         let bins = cluster_binaries();
         let dir =
             std::env::temp_dir().join(format!("posterity-cluster-{name}-{}", std::process::id()));
@@ -97,7 +99,8 @@ impl Cluster {
         let port = free_port();
         let scheduler = Command::new(bins.join("posterity-scheduler"))
             .args(["--bind-host", "127.0.0.1", "--external-host", "127.0.0.1"])
-            .args(["--port", &port.to_string(), "--executor-timeout", "8"])
+            .args(["--port", &port.to_string()])
+            .args(["--executor-timeout", &timeout.to_string()])
             .stdout(Stdio::null())
             .stderr(Stdio::null())
             .spawn()
@@ -241,7 +244,7 @@ fn same(local: &[Value], cluster: &[Value], what: &str) {
 /// The four families, fit_prior, out-of-fold and as-of windows: cluster = one process.
 #[test]
 fn the_cluster_gives_the_single_process_numbers() {
-    let cluster = Cluster::start("numbers", 2, false);
+    let cluster = Cluster::start("numbers", 2, false, 120);
     let table = format!("t={}", data_dir().display());
     let queries = [
         (
@@ -317,7 +320,7 @@ fn an_unreachable_scheduler_is_named_within_seconds() {
 
 #[test]
 fn an_executor_without_posterity_gives_a_clear_error() {
-    let cluster = Cluster::start("plain", 1, true);
+    let cluster = Cluster::start("plain", 1, true, 120);
     let table = format!("t={}", data_dir().display());
     let o = cluster.shell(&[
         "-t",
@@ -338,7 +341,7 @@ fn an_executor_without_posterity_gives_a_clear_error() {
 /// absent, never partial.
 #[test]
 fn a_killed_executor_leaves_no_partial_output() {
-    let mut cluster = Cluster::start("kill", 2, false);
+    let mut cluster = Cluster::start("kill", 2, false, 8);
     let table = format!("t={}", data_dir().display());
     let out = cluster._dir.join("out.csv");
     let sql =
