@@ -42,7 +42,7 @@ run() { # label, extra args
   printf "%-28s %6.2f s  client peak %s MiB" "$label" "$(echo "$end - $start" | bc)" "$(( $(cat /tmp/cluster-bench-client) / 1024 ))"
 }
 echo "rows $rows, levels $levels"
-run "single process"; echo
+for r in 1 2 3; do run "single process"; echo; done
 for executors in 1 2; do
   port=$((52000 + executors * 10))
   "$bin/posterity-scheduler" --bind-host 127.0.0.1 --external-host 127.0.0.1 --port $port > /dev/null 2>&1 &
@@ -50,7 +50,7 @@ for executors in 1 2; do
   sleep 1
   pids=()
   for i in $(seq 1 $executors); do
-    mkdir -p "target/cluster-bench/work-$i"
+    rm -rf "target/cluster-bench/work-$i"; mkdir -p "target/cluster-bench/work-$i"
     "$bin/posterity-executor" --scheduler-host 127.0.0.1 --scheduler-port $port \
       --port $((port + 2 * i)) --grpc-port $((port + 2 * i + 1)) \
       --concurrent-tasks $((2 / executors)) --work-dir "target/cluster-bench/work-$i" > /dev/null 2>&1 &
@@ -58,8 +58,11 @@ for executors in 1 2; do
   done
   sleep 3
   run "cluster, warm-up" --cluster "df://127.0.0.1:$port" > /dev/null
+  for r in 1 2; do run "cluster, $executors executor(s)" --cluster "df://127.0.0.1:$port"; echo; done
   run "cluster, $executors executor(s)" --cluster "df://127.0.0.1:$port"
   printf "  scheduler %s" "$(peak $sched)"
+  # Shuffle files of the four jobs (a warm-up and three runs) kept in the work dirs.
+  printf "  shuffle files %s bytes per job" "$(du -sb target/cluster-bench/work-* | awk '{s += $1} END {print int(s / 4)}')"
   for p in "${pids[@]}"; do printf "  executor %s" "$(peak $p)"; done
   echo
   kill "${pids[@]}" $sched 2>/dev/null || true
