@@ -171,7 +171,7 @@ async fn run(args: Args, connect: Option<Connect>) -> Result<(), Failure> {
         (None, Some(path)) => Format::from_extension(path).ok_or_else(|| {
             Failure::usage(format!(
                 "--output {}: cannot tell the format from the extension; give --format \
-                 (table, csv, tsv, json or ndjson)",
+                 (table, csv, tsv, json, ndjson or svg)",
                 path.display()
             ))
         })?,
