@@ -1,7 +1,7 @@
 //! Benchmarks: posterity's aggregates, join-back readers and family readers
 //! against the engine's own COUNT/SUM group-by on the same data, in one run.
 //!
-//!   cargo bench --bench fit -- [--rows N] [--levels L] [--data DIR] [--runs R]
+//!   cargo bench --bench fit -- [--rows N] [--levels L] [--data DIR] [--runs R] [--readers-only]
 //!
 //! The data set (Parquet, deterministic) is written to DIR/data_<rows>_<levels>.parquet
 //! on first use and shared with the peer script (benches/peers.py). Timings go to
@@ -153,6 +153,10 @@ fn peak_rss_mib() -> f64 {
 
 #[tokio::main]
 async fn main() {
+    if std::env::args().any(|a| a == "--readers-only") {
+        readers();
+        return;
+    }
     let o = options();
     std::fs::create_dir_all(&o.dir).unwrap();
     let file = o.dir.join(format!("data_{}_{}.parquet", o.rows, o.levels));
@@ -254,6 +258,17 @@ async fn main() {
     )
     .unwrap();
 
+    readers();
+}
+
+/// The family readers on one core, and the tail evaluations each quantile costs.
+fn readers() {
+    let evaluations = |f: &dyn Fn(usize) -> f64, n: usize| {
+        let before = posterity::family::dist::quantile_evaluations();
+        let sum: f64 = (0..n).map(f).sum();
+        std::hint::black_box(sum);
+        (posterity::family::dist::quantile_evaluations() - before) as f64 / n as f64
+    };
     let n = 2_000_000;
     let beta = |i: usize| Marginal::Beta {
         a: 0.5 + (i % 97) as f64,
@@ -276,19 +291,39 @@ async fn main() {
         }
         .quantile(0.975)
     });
-    println!("\n| family reader (one core) | million per second |");
-    println!("|---|---|");
-    println!("| Beta mean + variance | {:.1} |", mean / 1e6);
+    let beta_q = |i: usize| beta(i).quantile(0.05);
+    let gamma_e = |i: usize| {
+        Marginal::Gamma {
+            shape: 0.5 + (i % 301) as f64,
+            rate: 1.0,
+        }
+        .quantile(0.95)
+    };
+    let t_e = |i: usize| {
+        Marginal::StudentT {
+            loc: 0.0,
+            scale: 1.0,
+            dof: 3.0 + (i % 500) as f64,
+        }
+        .quantile(0.975)
+    };
+    let m = 10_000;
+    println!("\n| family reader (one core) | million per second | tail evaluations each |");
+    println!("|---|---|---|");
+    println!("| Beta mean + variance | {:.1} | - |", mean / 1e6);
     println!(
-        "| Beta quantile (a 0.5-96.5, b 10.5-1022.5, q 0.05) | {:.2} |",
-        quantile / 1e6
+        "| Beta quantile (a 0.5-96.5, b 10.5-1022.5, q 0.05) | {:.2} | {:.2} |",
+        quantile / 1e6,
+        evaluations(&beta_q, m)
     );
     println!(
-        "| Gamma quantile (shape 0.5-300.5, q 0.95) | {:.2} |",
-        gamma_q / 1e6
+        "| Gamma quantile (shape 0.5-300.5, q 0.95) | {:.2} | {:.2} |",
+        gamma_q / 1e6,
+        evaluations(&gamma_e, m)
     );
     println!(
-        "| Student-t quantile (dof 3-502, q 0.975) | {:.2} |",
-        t_q / 1e6
+        "| Student-t quantile (dof 3-502, q 0.975) | {:.2} | {:.2} |",
+        t_q / 1e6,
+        evaluations(&t_e, m)
     );
 }

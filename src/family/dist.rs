@@ -212,6 +212,7 @@ pub fn beta_quantile(a: f64, b: f64, q: f64) -> (f64, f64) {
     if q >= 1.0 {
         return (1.0, 0.0);
     }
+    count_evaluation();
     let (at_half, _) = beta_inc(a, b, 0.5, 0.5);
     if q <= at_half {
         let x = beta_quantile_below_half(a, b, q, 1.0 - q);
@@ -229,7 +230,8 @@ fn beta_quantile_below_half(a: f64, b: f64, q: f64, qc: f64) -> f64 {
     let target = if lower { q } else { qc };
     let eval = |x: f64| {
         let (p, pc, density) = beta_inc_density(a, b, x, 1.0 - x);
-        (if lower { p } else { pc }, density)
+        let log_slope = (a - 1.0) / x - (b - 1.0) / (1.0 - x);
+        (if lower { p } else { pc }, density, log_slope)
     };
     // Start from the small-x power law I_x ~ x^a / (a B(a, b)) or a normal guess.
     let power = ((q.ln() + a.ln() + ln_beta(a, b)) / a).exp();
@@ -251,6 +253,21 @@ fn beta_quantile_below_half(a: f64, b: f64, q: f64, qc: f64) -> f64 {
     )
 }
 
+thread_local! {
+    /// Tail evaluations made by the quantile solvers on this thread.
+    static EVALUATIONS: std::cell::Cell<u64> = const { std::cell::Cell::new(0) };
+}
+
+fn count_evaluation() {
+    EVALUATIONS.with(|c| c.set(c.get() + 1));
+}
+
+/// Tail evaluations (incomplete beta or gamma functions) the quantile solvers have
+/// made on this thread so far: the cost that dominates a quantile.
+pub fn quantile_evaluations() -> u64 {
+    EVALUATIONS.with(|c| c.get())
+}
+
 /// Quantile of Gamma(shape, 1).
 pub fn gamma_quantile(a: f64, q: f64) -> f64 {
     if q.is_nan() || a.is_nan() {
@@ -266,7 +283,7 @@ pub fn gamma_quantile(a: f64, q: f64) -> f64 {
     let target = if lower { q } else { 1.0 - q };
     let eval = |x: f64| {
         let (p, pc, density) = gamma_inc_density(a, x);
-        (if lower { p } else { pc }, density)
+        (if lower { p } else { pc }, density, (a - 1.0) / x - 1.0)
     };
     // Wilson–Hilferty cube-root normal approximation, or the small-x power law.
     let z = normal_quantile_approx(q);
@@ -292,22 +309,29 @@ pub fn gamma_quantile(a: f64, q: f64) -> f64 {
 /// Solve tail(x) = target for x in [lo, hi] by Newton steps on ln tail(x), inside a
 /// bracket with bisection whenever a step leaves it. `increasing` says whether the
 /// tail is the CDF (true) or the survival function (false); `eval` returns the tail
-/// probability and the density at x. A lower tail behaves like a power of x near
-/// zero, so its steps are taken in ln x; an upper tail falls off like an exponential
-/// in x, so its steps are taken in x itself.
+/// probability, the density at x and its log-derivative f'/f. A lower tail behaves
+/// like a power of x near zero, so its steps are taken in ln x; an upper tail falls
+/// off like an exponential in x, so its steps are taken in x itself.
+///
+/// Near the root a Newton step's own error is about (g''/2g') times the step
+/// squared (g = ln tail - ln target). When that predicted error is far below the
+/// last bit (`SETTLED`), the step's end is returned without evaluating it again.
 fn solve_log(
     target: f64,
     increasing: bool,
     start: f64,
     lo: f64,
     hi: f64,
-    eval: impl Fn(f64) -> (f64, f64),
+    eval: impl Fn(f64) -> (f64, f64, f64),
 ) -> f64 {
+    /// A predicted relative error this small is below half an ulp.
+    const SETTLED: f64 = 1e-17;
     let ln_target = target.ln();
     let (mut lo, mut hi) = (lo, hi);
     let mut x = start.clamp(lo, hi);
     for _ in 0..200 {
-        let (tail, density) = eval(x);
+        count_evaluation();
+        let (tail, density, log_slope) = eval(x);
         if tail == target {
             return x;
         }
@@ -334,6 +358,21 @@ fn solve_log(
             } else {
                 lo + 0.5 * (hi - lo)
             };
+        } else if h.abs() < 1e-4 {
+            // g''/g' in the step's variable: ln x for a lower tail (where
+            // g' = s = x f / tail), x for an upper tail (where g' = -f / tail).
+            let (curvature, relative_step) = if increasing {
+                let s = x * slope;
+                (1.0 + x * log_slope - s, (next / x).ln())
+            } else {
+                (log_slope + slope.abs(), (next - x) / x)
+            };
+            let step = if increasing { relative_step } else { next - x };
+            let predicted = 0.5 * curvature.abs() * step * step;
+            let scale = if increasing { 1.0 } else { x.abs() };
+            if predicted <= SETTLED * scale && relative_step.is_finite() {
+                return next;
+            }
         }
         if (next - x).abs() <= 2.0 * f64::EPSILON * x.abs()
             || hi - lo <= 4.0 * f64::EPSILON * hi.abs()
