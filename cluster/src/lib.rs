@@ -40,11 +40,20 @@ pub struct PosterityCodec {
     ballista: BallistaPhysicalExtensionCodec,
 }
 
-/// A posterity aggregate by name (the fits and pools), unbound.
+/// A posterity aggregate by name (the fits and pools), unbound. Built once: every
+/// aggregate of every task a plan holds is decoded through here.
 fn posterity_aggregate(name: &str) -> Option<AggregateUDF> {
-    posterity::aggregates()
-        .into_iter()
-        .find(|f| f.name() == name)
+    static BY_NAME: std::sync::OnceLock<std::collections::HashMap<String, AggregateUDF>> =
+        std::sync::OnceLock::new();
+    BY_NAME
+        .get_or_init(|| {
+            posterity::aggregates()
+                .into_iter()
+                .map(|f| (f.name().to_string(), f))
+                .collect()
+        })
+        .get(name)
+        .cloned()
 }
 
 impl PhysicalExtensionCodec for PosterityCodec {
