@@ -188,16 +188,18 @@ fn panel_html(panel: &Panel, prior_text: &str) -> Result<String, String> {
         scatter.len(),
         panel.levels.len()
     );
-    let with_data = panel
-        .levels
-        .iter()
-        .filter(|l| l.data >= HISTOGRAM_MIN_DATA)
-        .count();
-    let min_data = if with_data >= 5 {
-        HISTOGRAM_MIN_DATA
-    } else {
-        0.0
+    let raw_means = |min_data: f64| -> Vec<f64> {
+        panel
+            .levels
+            .iter()
+            .filter(|l| l.data >= min_data)
+            .filter_map(|l| l.raw)
+            .collect()
     };
+    let (mut min_data, mut means) = (HISTOGRAM_MIN_DATA, raw_means(HISTOGRAM_MIN_DATA));
+    if means.len() < 5 {
+        (min_data, means) = (0.0, raw_means(0.0));
+    }
     let _ = write!(
         out,
         "<figure>\n{}\n<figcaption><code>{title}</code>: the prior ({}) as a density, over a \
@@ -205,13 +207,9 @@ fn panel_html(panel: &Panel, prior_text: &str) -> Result<String, String> {
          narrower than the bars pulls levels too hard; much wider, too little (the raw means \
          also carry sampling noise, so the bars are somewhat wider than the prior).\
          </figcaption>\n</figure>\n",
-        plots::prior_svg(panel, min_data)?,
+        plots::prior_svg(panel, &means)?,
         escape(prior_text),
-        panel
-            .levels
-            .iter()
-            .filter(|l| l.data >= min_data && l.raw.is_some())
-            .count(),
+        means.len(),
         short(min_data)
     );
     Ok(out)

@@ -221,15 +221,9 @@ const BINS: usize = 30;
 /// Points on the prior's density curve.
 const CURVE_POINTS: usize = 240;
 
-/// The prior's density over a histogram (as a density) of the raw means of the
-/// levels with at least `min_data` rows: does the prior fit the spread of the levels?
-pub fn prior_svg(panel: &Panel, min_data: f64) -> Result<String> {
-    let means: Vec<f64> = panel
-        .levels
-        .iter()
-        .filter(|l| l.data >= min_data)
-        .filter_map(|l| l.raw)
-        .collect();
+/// The prior's density over a histogram (as a density) of `means`, the raw means
+/// of the levels the caller chose: does the prior fit the spread of the levels?
+pub fn prior_svg(panel: &Panel, means: &[f64]) -> Result<String> {
     let prior = panel.prior;
     let tails = [prior.quantile(0.005), prior.quantile(0.995)];
     let (mut x0, mut x1) = span(means.iter().copied().chain(tails));
@@ -241,7 +235,7 @@ pub fn prior_svg(panel: &Panel, min_data: f64) -> Result<String> {
     }
     let width = (x1 - x0) / BINS as f64;
     let mut counts = [0usize; BINS];
-    for m in &means {
+    for m in means {
         let bin = (((m - x0) / width) as usize).min(BINS - 1);
         counts[bin] += 1;
     }
