@@ -33,6 +33,7 @@
 
 mod options;
 mod resolve;
+mod rows;
 mod run;
 mod sql;
 mod update;

@@ -3,13 +3,11 @@
 
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
-use std::sync::Arc;
 
-use datafusion::arrow::array::{Array, ArrayRef, AsArray, Int64Array, RecordBatch};
+use datafusion::arrow::array::{Array, AsArray, RecordBatch};
 use datafusion::arrow::compute::cast;
-use datafusion::arrow::datatypes::{DataType, Field, Int64Type, Schema};
+use datafusion::arrow::datatypes::{DataType, Int64Type};
 use datafusion::dataframe::{DataFrame, DataFrameWriteOptions};
-use datafusion::datasource::MemTable;
 use datafusion::error::DataFusionError;
 use datafusion::prelude::SessionContext;
 use serde_json::{json, Value};
@@ -72,40 +70,10 @@ pub struct EncodeOutput {
 /// practice, no source).
 const FEW_LEVELS: u64 = 20;
 
-/// Register `source` as `name` with a `__row` column numbering its rows in scan
-/// order. The scan runs without the engine's work stealing, which lets an idle
-/// partition read a sibling's byte ranges and so would shuffle the numbers (and
-/// the folds) from run to run.
+/// Register `source` as `name` with a `__row` column numbering its rows in file
+/// order (see `rows`: streamed, not copied).
 pub(super) async fn number_rows(ctx: &SessionContext, source: &str, name: &str) -> Result<()> {
-    let mut state = ctx.state();
-    state
-        .config_mut()
-        .options_mut()
-        .execution
-        .enable_file_stream_work_stealing = false;
-    let df = SessionContext::new_with_state(state).table(source).await?;
-    let schema = df.schema().as_arrow().clone();
-    let parts = df.collect_partitioned().await?;
-    let mut fields: Vec<Field> = schema.fields().iter().map(|f| f.as_ref().clone()).collect();
-    fields.push(Field::new("__row", DataType::Int64, false));
-    let numbered = Arc::new(Schema::new(fields));
-    let mut row = 0i64;
-    let mut batches = Vec::new();
-    for batch in parts.into_iter().flatten() {
-        let n = batch.num_rows() as i64;
-        let mut columns: Vec<ArrayRef> = batch.columns().to_vec();
-        columns.push(Arc::new(Int64Array::from_iter_values(row..row + n)));
-        row += n;
-        batches.push(RecordBatch::try_new(numbered.clone(), columns)?);
-    }
-    let partitions = ctx.state().config().target_partitions().max(1);
-    let chunk = batches.len().div_ceil(partitions).max(1);
-    let mut split: Vec<Vec<RecordBatch>> = batches.chunks(chunk).map(|c| c.to_vec()).collect();
-    if split.is_empty() {
-        split.push(vec![]);
-    }
-    ctx.deregister_table(name)?;
-    ctx.register_table(name, Arc::new(MemTable::try_new(numbered, split)?))?;
+    super::rows::register(ctx, source, name).await?;
     Ok(())
 }
 

@@ -35,6 +35,16 @@ fn stage(name: impl Into<String>, table: &str, query: String) -> Statement {
     }
 }
 
+/// A view: the training or scoring rows with keys and folds, computed as they
+/// stream past rather than stored (they are as large as the input).
+fn view(name: impl Into<String>, table: &str, query: String) -> Statement {
+    Statement {
+        name: name.into(),
+        sql: format!("CREATE OR REPLACE VIEW {table} AS {query}"),
+        output: None,
+    }
+}
+
 fn output(name: impl Into<String>, query: String) -> Statement {
     let name = name.into();
     Statement {
@@ -192,7 +202,7 @@ impl EncodePlan {
     }
 
     fn keys_stage(&self) -> Statement {
-        stage(
+        view(
             "keys and folds",
             "__keyed",
             format!(
@@ -417,7 +427,7 @@ impl EncodePlan {
     /// Scoring with the encodings' readers (see `scoring_posterior`); unseen levels
     /// and NULL keys get the prior.
     fn scoring_statements(&self) -> Vec<Statement> {
-        let mut out = vec![stage(
+        let mut out = vec![view(
             "scoring keys",
             "__scorekeyed",
             format!("SELECT t.*, {} FROM {SCORE} t", self.key_columns()),

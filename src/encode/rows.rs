@@ -1,0 +1,342 @@
+//! Training and scoring rows numbered in file order, streamed rather than held in
+//! memory.
+//!
+//! encode needs a stable number per row: folds are a hash of it and the outputs come
+//! back in file order. The number is the row's position in the table's scan: the
+//! scan's partitions are contiguous stretches of the input (whole files or byte
+//! ranges of one), so counting each partition's rows once gives every partition its
+//! first number, and every later scan numbers its rows as they stream past, with no
+//! copy of the table. Each scan also declares its rows sorted by the number within a
+//! partition, so a plan that keeps that order writes the outputs in file order by
+//! merging instead of sorting.
+//!
+//! The numbering depends on every scan producing the same partitions with the same
+//! rows in the same order: the scan runs without the engine's work stealing (which
+//! lets an idle partition read a sibling's byte ranges), and each stream checks at
+//! its end that it saw the rows the count promised.
+
+use std::collections::HashMap;
+use std::fmt;
+use std::sync::atomic::{AtomicI64, Ordering};
+use std::sync::Arc;
+
+use async_trait::async_trait;
+use datafusion::arrow::array::{ArrayRef, Int64Array, RecordBatch, RecordBatchOptions};
+use datafusion::arrow::compute::SortOptions;
+use datafusion::arrow::datatypes::{DataType, Field, Schema, SchemaRef};
+use datafusion::catalog::Session;
+use datafusion::common::stats::Precision;
+use datafusion::common::tree_node::TreeNodeRecursion;
+use datafusion::common::{DataFusionError, Result, Statistics};
+use datafusion::datasource::{TableProvider, TableType};
+use datafusion::execution::{SendableRecordBatchStream, TaskContext};
+use datafusion::logical_expr::Expr;
+use datafusion::physical_expr::expressions::Column;
+use datafusion::physical_expr::{EquivalenceProperties, PhysicalExpr, PhysicalSortExpr};
+use datafusion::physical_plan::execution_plan::{Boundedness, EmissionType};
+use datafusion::physical_plan::statistics::StatisticsArgs;
+use datafusion::physical_plan::stream::RecordBatchStreamAdapter;
+use datafusion::physical_plan::{
+    DisplayAs, ExecutionPlanProperties, DisplayFormatType, ExecutionPlan, Partitioning, PlanProperties,
+};
+use datafusion::prelude::SessionContext;
+use futures::StreamExt;
+
+/// The column holding each row's number (internal: never in an output).
+pub(super) const ROW: &str = "__row";
+
+/// A table's rows with a [`ROW`] column numbering them in scan order.
+#[derive(Debug)]
+pub(super) struct NumberedTable {
+    source: Arc<dyn TableProvider>,
+    /// The source's columns and `__row`.
+    schema: SchemaRef,
+    /// The first row number of each scan partition, and the total at the end.
+    starts: Arc<Vec<i64>>,
+}
+
+/// Register `source` as `name` with its rows numbered (one counting pass over the
+/// source; nothing is kept in memory).
+pub(super) async fn register(ctx: &SessionContext, source: &str, name: &str) -> Result<()> {
+    let provider = ctx.table_provider(source).await?;
+    let state = ctx.state();
+    let counting = source_scan(provider.as_ref(), &state, Some(&vec![])).await?;
+    let task = ctx.task_ctx();
+    let mut counts = Vec::new();
+    for partition in 0..counting.output_partitioning().partition_count() {
+        let mut stream = counting.execute(partition, without_work_stealing(&task))?;
+        let mut rows = 0i64;
+        while let Some(batch) = stream.next().await {
+            rows += batch?.num_rows() as i64;
+        }
+        counts.push(rows);
+    }
+    let mut starts = vec![0i64];
+    for c in counts {
+        starts.push(starts.last().copied().unwrap_or(0) + c);
+    }
+    let mut fields: Vec<Field> = provider
+        .schema()
+        .fields()
+        .iter()
+        .map(|f| f.as_ref().clone())
+        .collect();
+    fields.push(Field::new(ROW, DataType::Int64, false));
+    let table = NumberedTable {
+        source: provider,
+        schema: Arc::new(Schema::new(fields)),
+        starts: Arc::new(starts),
+    };
+    ctx.deregister_table(name)?;
+    ctx.register_table(name, Arc::new(table))?;
+    Ok(())
+}
+
+/// The source's scan of `projection`, split into partitions exactly as every scan
+/// of it is (the same byte ranges whatever the projection).
+async fn source_scan(
+    source: &dyn TableProvider,
+    state: &dyn Session,
+    projection: Option<&Vec<usize>>,
+) -> Result<Arc<dyn ExecutionPlan>> {
+    let plan = source.scan(state, projection, &[], None).await?;
+    let options = state.config_options();
+    let partitions = options.execution.target_partitions.max(1);
+    Ok(plan.repartitioned(partitions, options)?.unwrap_or(plan))
+}
+
+/// The task's context with the file scan's work stealing turned off, so that each
+/// partition reads exactly its own files and byte ranges.
+fn without_work_stealing(task: &Arc<TaskContext>) -> Arc<TaskContext> {
+    let mut config = task.session_config().clone();
+    config
+        .options_mut()
+        .execution
+        .enable_file_stream_work_stealing = false;
+    Arc::new(TaskContext::new(
+        task.task_id(),
+        task.session_id(),
+        config,
+        HashMap::new(),
+        HashMap::new(),
+        HashMap::new(),
+        HashMap::new(),
+        task.runtime_env(),
+    ))
+}
+
+#[async_trait]
+impl TableProvider for NumberedTable {
+    fn schema(&self) -> SchemaRef {
+        self.schema.clone()
+    }
+
+    fn table_type(&self) -> TableType {
+        TableType::Base
+    }
+
+    async fn scan(
+        &self,
+        state: &dyn Session,
+        projection: Option<&Vec<usize>>,
+        _filters: &[Expr],
+        _limit: Option<usize>,
+    ) -> Result<Arc<dyn ExecutionPlan>> {
+        let row_index = self.schema.fields().len() - 1;
+        let wanted: Vec<usize> = match projection {
+            Some(p) => p.clone(),
+            None => (0..self.schema.fields().len()).collect(),
+        };
+        let from_source: Vec<usize> = wanted.iter().copied().filter(|&i| i != row_index).collect();
+        let inner = source_scan(self.source.as_ref(), state, Some(&from_source)).await?;
+        if inner.output_partitioning().partition_count() + 1 != self.starts.len() {
+            return Err(DataFusionError::Execution(
+                "encode: the training or scoring table changed while encoding (its scan has \
+                 a different number of parts than when its rows were counted)"
+                    .into(),
+            ));
+        }
+        // Where each output column comes from: the source's projected column or the number.
+        let mut sources = Vec::with_capacity(wanted.len());
+        let mut next = 0;
+        for &i in &wanted {
+            if i == row_index {
+                sources.push(None);
+            } else {
+                sources.push(Some(next));
+                next += 1;
+            }
+        }
+        Ok(Arc::new(NumberedScan::new(
+            inner,
+            Arc::new(self.schema.project(&wanted)?),
+            sources,
+            self.starts.clone(),
+        )))
+    }
+
+    fn statistics(&self) -> Option<Statistics> {
+        let total = self.starts.last().copied().unwrap_or(0) as usize;
+        Some(Statistics::new_unknown(&self.schema).with_num_rows(Precision::Exact(total)))
+    }
+}
+
+/// The scan of a [`NumberedTable`]: the source's scan, run partition by partition
+/// without work stealing, with the row numbers added. A leaf to the optimizer, so
+/// nothing it does can change the inner scan's partitions or drop rows before they
+/// are numbered.
+#[derive(Debug)]
+struct NumberedScan {
+    inner: Arc<dyn ExecutionPlan>,
+    schema: SchemaRef,
+    /// Per output column: `Some(i)` the inner scan's column `i`, `None` the number.
+    sources: Vec<Option<usize>>,
+    starts: Arc<Vec<i64>>,
+    properties: Arc<PlanProperties>,
+}
+
+impl NumberedScan {
+    fn new(
+        inner: Arc<dyn ExecutionPlan>,
+        schema: SchemaRef,
+        sources: Vec<Option<usize>>,
+        starts: Arc<Vec<i64>>,
+    ) -> Self {
+        let ordering = sources.iter().position(Option::is_none).map(|i| {
+            PhysicalSortExpr::new(
+                Arc::new(Column::new(ROW, i)),
+                SortOptions {
+                    descending: false,
+                    nulls_first: false,
+                },
+            )
+        });
+        let equivalences = match ordering {
+            Some(o) => EquivalenceProperties::new_with_orderings(schema.clone(), [[o]]),
+            None => EquivalenceProperties::new(schema.clone()),
+        };
+        let properties = PlanProperties::new(
+            equivalences,
+            Partitioning::UnknownPartitioning(starts.len() - 1),
+            EmissionType::Incremental,
+            Boundedness::Bounded,
+        );
+        Self {
+            inner,
+            schema,
+            sources,
+            starts,
+            properties: Arc::new(properties),
+        }
+    }
+}
+
+impl DisplayAs for NumberedScan {
+    fn fmt_as(&self, _t: DisplayFormatType, f: &mut fmt::Formatter) -> fmt::Result {
+        write!(f, "NumberedScan: partitions={}", self.starts.len() - 1)
+    }
+}
+
+impl ExecutionPlan for NumberedScan {
+    fn name(&self) -> &str {
+        "NumberedScan"
+    }
+
+    fn properties(&self) -> &Arc<PlanProperties> {
+        &self.properties
+    }
+
+    fn children(&self) -> Vec<&Arc<dyn ExecutionPlan>> {
+        vec![]
+    }
+
+    fn apply_expressions(
+        &self,
+        _f: &mut dyn FnMut(&Arc<dyn PhysicalExpr>) -> Result<TreeNodeRecursion>,
+    ) -> Result<TreeNodeRecursion> {
+        Ok(TreeNodeRecursion::Continue)
+    }
+
+    fn with_new_children(
+        self: Arc<Self>,
+        _children: Vec<Arc<dyn ExecutionPlan>>,
+    ) -> Result<Arc<dyn ExecutionPlan>> {
+        Ok(self)
+    }
+
+    fn statistics_from_inputs(
+        &self,
+        _input_stats: &[Arc<Statistics>],
+        args: &StatisticsArgs,
+    ) -> Result<Arc<Statistics>> {
+        let rows = match args.partition() {
+            Some(p) if p + 1 < self.starts.len() => self.starts[p + 1] - self.starts[p],
+            _ => self.starts.last().copied().unwrap_or(0),
+        };
+        Ok(Arc::new(
+            Statistics::new_unknown(&self.schema).with_num_rows(Precision::Exact(rows as usize)),
+        ))
+    }
+
+    fn execute(
+        &self,
+        partition: usize,
+        context: Arc<TaskContext>,
+    ) -> Result<SendableRecordBatchStream> {
+        let (Some(&start), Some(&end)) = (
+            self.starts.get(partition),
+            self.starts.get(partition + 1),
+        ) else {
+            return Err(DataFusionError::Execution(format!(
+                "encode: no part {partition} in the numbered rows"
+            )));
+        };
+        let inner = self
+            .inner
+            .execute(partition, without_work_stealing(&context))?;
+        let schema = self.schema.clone();
+        let sources = self.sources.clone();
+        let position = Arc::new(AtomicI64::new(start));
+        let counter = position.clone();
+        let numbered = inner.map(move |batch| {
+            let batch = batch?;
+            let next = counter.load(Ordering::Relaxed);
+            let n = batch.num_rows() as i64;
+            if next + n > end {
+                return Err(changed());
+            }
+            let columns: Vec<ArrayRef> = sources
+                .iter()
+                .map(|s| match s {
+                    Some(i) => batch.column(*i).clone(),
+                    None => Arc::new(Int64Array::from_iter_values(next..next + n)) as ArrayRef,
+                })
+                .collect();
+            counter.store(next + n, Ordering::Relaxed);
+            let options = RecordBatchOptions::new().with_row_count(Some(n as usize));
+            Ok(RecordBatch::try_new_with_options(
+                schema.clone(),
+                columns,
+                &options,
+            )?)
+        });
+        // A part that ends early would leave numbers unused: the table changed.
+        let short = futures::stream::once(async move {
+            (position.load(Ordering::Relaxed) != end).then(|| Err(changed()))
+        })
+        .filter_map(futures::future::ready);
+        let checked = numbered.chain(short);
+        Ok(Box::pin(RecordBatchStreamAdapter::new(
+            self.schema.clone(),
+            checked,
+        )))
+    }
+}
+
+fn changed() -> DataFusionError {
+    DataFusionError::Execution(
+        "encode: the training or scoring table changed while encoding (a part of it has \
+         more or fewer rows than when its rows were counted)"
+            .into(),
+    )
+}
