@@ -108,6 +108,7 @@ pub(super) async fn execute(
     statements: Vec<super::Statement>,
     progress: &mut dyn FnMut(&str),
 ) -> Result<BTreeMap<String, DataFrame>> {
+    let ctx = &keeping_file_order(ctx);
     let mut outputs = BTreeMap::new();
     for statement in statements {
         progress(&statement.name);
@@ -128,6 +129,19 @@ pub(super) async fn execute(
         }
     }
     Ok(outputs)
+}
+
+/// `ctx` (the same tables) planning every join with the level tables as one shared
+/// build side. The engine otherwise splits both sides by key hash once a level
+/// table passes a size threshold, which scatters the training rows across parts:
+/// the outputs would then need a sort of every row to come back in file order,
+/// where now the scan's parts, each in order, are merged.
+fn keeping_file_order(ctx: &SessionContext) -> SessionContext {
+    let mut state = ctx.state();
+    let joins = &mut state.config_mut().options_mut().optimizer;
+    joins.hash_join_single_partition_threshold = usize::MAX;
+    joins.hash_join_single_partition_threshold_rows = usize::MAX;
+    SessionContext::new_with_state(state)
 }
 
 /// A statement's failure in the words of encode's options where the engine's would

@@ -125,7 +125,7 @@ impl EncodePlan {
     /// and codes.
     fn level_joins(&self, i: usize, key: &KeyPlan) -> String {
         let mut joins = format!(
-            "CROSS JOIN __priorread{i} r{i} LEFT JOIN __top{i} top{i} ON top{i}.level = t.__k{i}"
+            "LEFT JOIN __top{i} top{i} ON top{i}.level = t.__k{i}"
         );
         if key.treatment == Treatment::Codes {
             joins.push_str(&format!(
@@ -157,7 +157,9 @@ impl EncodePlan {
     }
 
     /// Final columns of `key` `i`: each reader from `source` (alias), falling back
-    /// to the prior's reader in `fallback`; indicators from the level's rank in
+    /// to the prior's reader in the one-row table `fallback` (a scalar subquery, run
+    /// once: unlike a cross join it keeps the rows' order, so the output needs no
+    /// sort); indicators from the level's rank in
     /// `top{i}`; draws from the posterior expression `posterior` (NULL for unseen
     /// levels and NULL keys: the prior).
     fn final_columns(
@@ -172,7 +174,7 @@ impl EncodePlan {
             .map(|(name, column)| {
                 let value = match column {
                     OutputColumn::Reader { .. } => {
-                        format!("COALESCE({source}.{q}, {fallback}.{q})", q = quote(&name))
+                        format!("COALESCE({source}.{q}, (SELECT {q} FROM {fallback}))", q = quote(&name))
                     }
                     OutputColumn::Indicator { rank } => {
                         format!("CAST(COALESCE(top{i}.rank = {rank}, false) AS INT)")
@@ -181,7 +183,7 @@ impl EncodePlan {
                     OutputColumn::Draw { class } => {
                         let class = class.map(|c| format!(", {}", text(&c))).unwrap_or_default();
                         format!(
-                            "posterior_draw(COALESCE({posterior}, {fallback}.prior){class}, fold_of(t.__row, 9223372036854775807, {}))",
+                            "posterior_draw(COALESCE({posterior}, (SELECT prior FROM {fallback})){class}, fold_of(t.__row, 9223372036854775807, {}))",
                             self.options.draws.unwrap_or_default()
                         )
                     }
@@ -344,7 +346,7 @@ impl EncodePlan {
             selects.extend(self.final_columns(
                 i,
                 key,
-                (&format!("x{i}"), &format!("r{i}")),
+                (&format!("x{i}"), &format!("__priorread{i}")),
                 &format!("x{i}.p"),
             ));
             out.extend_from_slice(encodings);
@@ -446,7 +448,7 @@ impl EncodePlan {
             selects.extend(self.final_columns(
                 i,
                 key,
-                (&format!("e{i}"), &format!("r{i}")),
+                (&format!("e{i}"), &format!("__priorread{i}")),
                 &self.scoring_posterior(&format!("e{i}.p")),
             ));
             out.push(output(

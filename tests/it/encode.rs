@@ -1505,3 +1505,59 @@ async fn scoring_with_the_bundle_equals_the_scored_file() {
         assert_eq!(code.value(3001), -1);
     }
 }
+
+// The training rows are never held in memory or sorted: they stream from the file,
+// numbered as they pass, and the training table comes back in file order by
+// merging the scan's parts (each already in order), not by sorting all rows.
+#[tokio::test]
+async fn training_rows_stream_in_file_order_without_a_sort() {
+    use datafusion::physical_plan::displayable;
+    use posterity::encode::{self, EncodeOptions};
+    let dir = temp_dir("streamed");
+    // Four files, so the scan has several parts.
+    let text = std::fs::read_to_string(sample()).unwrap();
+    let mut lines = text.lines();
+    let header = lines.next().unwrap().to_string();
+    let rows: Vec<&str> = lines.collect();
+    for (i, chunk) in rows.chunks(rows.len().div_ceil(4)).enumerate() {
+        std::fs::write(
+            dir.join(format!("part-{i}.csv")),
+            format!("{header}\n{}\n", chunk.join("\n")),
+        )
+        .unwrap();
+    }
+    let config = datafusion::prelude::SessionConfig::new().with_target_partitions(4);
+    let ctx = SessionContext::new_with_config(config);
+    posterity::register(&ctx);
+    ctx.register_csv("appointments", dir.to_str().unwrap(), Default::default())
+        .await
+        .unwrap();
+    let options = EncodeOptions::new("appointments", "no_show", &["breed", "postcode_area"]);
+    let plan = encode::resolve(&ctx, &options).await.unwrap();
+    let output = encode::run(&ctx, &plan).await.unwrap();
+    let train = output.train_encoded.unwrap();
+    let physical = train.clone().create_physical_plan().await.unwrap();
+    let shown = displayable(physical.as_ref()).indent(true).to_string();
+    println!("{shown}");
+    assert!(!shown.contains("SortExec"), "a sort of all rows:\n{shown}");
+    assert!(shown.contains("NumberedScan: partitions=4"), "{shown}");
+    // File order: the appointment ids come back as the files list them.
+    let batches = train.collect().await.unwrap();
+    let ids: Vec<String> = batches
+        .iter()
+        .flat_map(|b| {
+            let c = datafusion::arrow::compute::cast(
+                b.column_by_name("appointment_id").unwrap(),
+                &datafusion::arrow::datatypes::DataType::Utf8,
+            )
+            .unwrap();
+            let c = c.as_string::<i32>().clone();
+            (0..c.len()).map(move |i| c.value(i).to_string())
+        })
+        .collect();
+    let expected: Vec<String> = rows
+        .iter()
+        .map(|r| r.split(',').next().unwrap().to_string())
+        .collect();
+    assert_eq!(ids, expected);
+}
