@@ -37,7 +37,8 @@ use datafusion::physical_plan::execution_plan::{Boundedness, EmissionType};
 use datafusion::physical_plan::statistics::StatisticsArgs;
 use datafusion::physical_plan::stream::RecordBatchStreamAdapter;
 use datafusion::physical_plan::{
-    DisplayAs, ExecutionPlanProperties, DisplayFormatType, ExecutionPlan, Partitioning, PlanProperties,
+    DisplayAs, DisplayFormatType, ExecutionPlan, ExecutionPlanProperties, Partitioning,
+    PlanProperties,
 };
 use datafusion::prelude::SessionContext;
 use futures::StreamExt;
@@ -283,10 +284,9 @@ impl ExecutionPlan for NumberedScan {
         partition: usize,
         context: Arc<TaskContext>,
     ) -> Result<SendableRecordBatchStream> {
-        let (Some(&start), Some(&end)) = (
-            self.starts.get(partition),
-            self.starts.get(partition + 1),
-        ) else {
+        let (Some(&start), Some(&end)) =
+            (self.starts.get(partition), self.starts.get(partition + 1))
+        else {
             return Err(DataFusionError::Execution(format!(
                 "encode: no part {partition} in the numbered rows"
             )));

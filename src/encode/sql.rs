@@ -124,9 +124,7 @@ impl EncodePlan {
     /// The joins every output row needs for `key` `i`'s prior readers, indicators
     /// and codes.
     fn level_joins(&self, i: usize, key: &KeyPlan) -> String {
-        let mut joins = format!(
-            "LEFT JOIN __top{i} top{i} ON top{i}.level = t.__k{i}"
-        );
+        let mut joins = format!("LEFT JOIN __top{i} top{i} ON top{i}.level = t.__k{i}");
         if key.treatment == Treatment::Codes {
             joins.push_str(&format!(
                 " LEFT JOIN __code{i} code{i} ON code{i}.level = t.__k{i}"
