@@ -29,6 +29,7 @@ pub mod family;
 pub mod files;
 pub mod fit;
 pub mod layout;
+pub mod numbered;
 pub mod optimizer;
 pub mod pool;
 pub mod prior_binding;

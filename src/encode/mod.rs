@@ -33,7 +33,6 @@
 
 mod options;
 mod resolve;
-mod rows;
 mod run;
 mod sql;
 mod update;

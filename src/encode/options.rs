@@ -372,6 +372,10 @@ pub struct EncodeOptions {
     pub score_evidence: ScoreEvidence,
     /// Draw the HTML report (`EncodeOutput::report`, `report.html`).
     pub report: bool,
+    /// Write the intermediate tables (fits, priors, encodings) as Parquet under this
+    /// directory instead of holding them in the session's memory: what a cluster
+    /// needs, where every executor must read them (`--work-dir`).
+    pub work_dir: Option<std::path::PathBuf>,
 }
 
 impl EncodeOptions {
@@ -400,6 +404,7 @@ impl EncodeOptions {
             score: None,
             score_evidence: ScoreEvidence::Matched,
             report: false,
+            work_dir: None,
         }
     }
 

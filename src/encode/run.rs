@@ -7,7 +7,11 @@ use std::path::{Path, PathBuf};
 use datafusion::arrow::array::{Array, AsArray, RecordBatch};
 use datafusion::arrow::compute::cast;
 use datafusion::arrow::datatypes::{DataType, Int64Type};
+use std::sync::Arc;
+
 use datafusion::dataframe::{DataFrame, DataFrameWriteOptions};
+use datafusion::datasource::file_format::parquet::ParquetFormat;
+use datafusion::datasource::listing::ListingOptions;
 use datafusion::error::DataFusionError;
 use datafusion::prelude::SessionContext;
 use serde_json::{json, Value};
@@ -71,9 +75,9 @@ pub struct EncodeOutput {
 const FEW_LEVELS: u64 = 20;
 
 /// Register `source` as `name` with a `__row` column numbering its rows in file
-/// order (see `rows`: streamed, not copied).
+/// order (see [`crate::numbered`]: streamed, not copied).
 pub(super) async fn number_rows(ctx: &SessionContext, source: &str, name: &str) -> Result<()> {
-    super::rows::register(ctx, source, name).await?;
+    crate::numbered::register(ctx, source, name).await?;
     Ok(())
 }
 
@@ -98,30 +102,35 @@ pub async fn run_with_progress(
     if let Some(score) = &plan.options.score {
         number_rows(ctx, score, SCORE).await?;
     }
-    let outputs = execute(ctx, plan.statements(), progress).await?;
+    let work_dir = plan.options.work_dir.as_deref();
+    let outputs = execute(ctx, plan.statements(), work_dir, progress).await?;
     finish(ctx, plan, outputs).await
 }
 
 /// Run `statements`; the results of output queries come back by name, unevaluated.
+/// With `work_dir`, tables are written there as Parquet and read back from it.
 pub(super) async fn execute(
     ctx: &SessionContext,
     statements: Vec<super::Statement>,
+    work_dir: Option<&Path>,
     progress: &mut dyn FnMut(&str),
 ) -> Result<BTreeMap<String, DataFrame>> {
     let ctx = &keeping_file_order(ctx);
     let mut outputs = BTreeMap::new();
     for statement in statements {
         progress(&statement.name);
+        let in_words = |e| in_encode_words(&statement.name, e);
+        if let (Some((table, query)), Some(dir)) = (&statement.table, work_dir) {
+            write_table(ctx, dir, table, query)
+                .await
+                .map_err(in_words)?;
+            continue;
+        }
         // CREATE TABLE ... AS runs inside `sql`; queries run when collected.
-        let df = ctx
-            .sql(&statement.sql)
-            .await
-            .map_err(|e| in_encode_words(&statement.name, e))?;
+        let df = ctx.sql(&statement.sql).await.map_err(in_words)?;
         match &statement.output {
             None => {
-                df.collect()
-                    .await
-                    .map_err(|e| in_encode_words(&statement.name, e))?;
+                df.collect().await.map_err(in_words)?;
             }
             Some(name) => {
                 outputs.insert(name.clone(), df);
@@ -129,6 +138,38 @@ pub(super) async fn execute(
         }
     }
     Ok(outputs)
+}
+
+/// `query`'s result written as Parquet files into `dir/table/` (replacing an earlier
+/// run's) and registered as `table`, with the query's own schema (so an empty
+/// result is still a table).
+async fn write_table(
+    ctx: &SessionContext,
+    dir: &Path,
+    table: &str,
+    query: &str,
+) -> std::result::Result<(), DataFusionError> {
+    let path = dir.join(table);
+    let io = |e: std::io::Error| {
+        DataFusionError::Execution(format!(
+            "--work-dir: cannot prepare {}: {e}",
+            path.display()
+        ))
+    };
+    if path.exists() {
+        std::fs::remove_dir_all(&path).map_err(io)?;
+    }
+    std::fs::create_dir_all(&path).map_err(io)?;
+    let df = ctx.sql(query).await?;
+    let schema = Arc::new(df.schema().as_arrow().clone());
+    let location = format!("{}/", path.display());
+    df.write_parquet(&location, DataFrameWriteOptions::new(), None)
+        .await?;
+    ctx.deregister_table(table)?;
+    let format =
+        ListingOptions::new(Arc::new(ParquetFormat::default())).with_file_extension(".parquet");
+    ctx.register_listing_table(table, &location, format, Some(schema), None)
+        .await
 }
 
 /// `ctx` (the same tables) planning every join with the level tables as one shared

@@ -25,6 +25,9 @@ pub struct Statement {
     /// `Some(name)` for a query whose result is an output (`train_encoded`,
     /// `encodings/<key>`, `scored`); `None` for a table the later statements use.
     pub output: Option<String>,
+    /// For a table the later statements use: its name and query (`sql` creates it
+    /// in memory; with a work directory it is written there as Parquet instead).
+    pub table: Option<(String, String)>,
 }
 
 fn stage(name: impl Into<String>, table: &str, query: String) -> Statement {
@@ -32,6 +35,7 @@ fn stage(name: impl Into<String>, table: &str, query: String) -> Statement {
         name: name.into(),
         sql: format!("CREATE OR REPLACE TABLE {table} AS {query}"),
         output: None,
+        table: Some((table.to_string(), query)),
     }
 }
 
@@ -42,6 +46,7 @@ fn view(name: impl Into<String>, table: &str, query: String) -> Statement {
         name: name.into(),
         sql: format!("CREATE OR REPLACE VIEW {table} AS {query}"),
         output: None,
+        table: None,
     }
 }
 
@@ -51,6 +56,7 @@ fn output(name: impl Into<String>, query: String) -> Statement {
         name: name.clone(),
         sql: query,
         output: Some(name),
+        table: None,
     }
 }
 

@@ -200,6 +200,12 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     if let Some(score) = &options.score {
         number_rows(ctx, score, SCORE).await?;
     }
-    let outputs = execute(ctx, plan.update_statements(), &mut |_| {}).await?;
+    let outputs = execute(
+        ctx,
+        plan.update_statements(),
+        plan.options.work_dir.as_deref(),
+        &mut |_| {},
+    )
+    .await?;
     finish(ctx, &plan, outputs).await
 }

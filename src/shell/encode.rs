@@ -144,6 +144,11 @@ pub struct EncodeArgs {
     /// Print every SQL statement run.
     #[arg(long)]
     pub show_sql: bool,
+    /// Write the intermediate tables (fits, priors, encodings) as Parquet under DIR
+    /// instead of holding them in memory; needed with --cluster, where every
+    /// executor must be able to read DIR.
+    #[arg(long, value_name = "DIR")]
+    pub work_dir: Option<PathBuf>,
 }
 
 impl EncodeArgs {
@@ -235,6 +240,7 @@ fn options(args: &EncodeArgs) -> Result<EncodeOptions, Failure> {
         ScoreEvidenceChoice::Full => encode::ScoreEvidence::Full,
     };
     o.report = args.report;
+    o.work_dir = args.work_dir.clone();
     Ok(o)
 }
 

@@ -44,24 +44,60 @@ use datafusion::prelude::SessionContext;
 use futures::StreamExt;
 
 /// The column holding each row's number (internal: never in an output).
-pub(super) const ROW: &str = "__row";
+pub const ROW: &str = "__row";
 
 /// A table's rows with a [`ROW`] column numbering them in scan order.
 #[derive(Debug)]
-pub(super) struct NumberedTable {
+pub struct NumberedTable {
     source: Arc<dyn TableProvider>,
     /// The source's columns and `__row`.
     schema: SchemaRef,
     /// The first row number of each scan partition, and the total at the end.
     starts: Arc<Vec<i64>>,
+    /// How many parts the scan was asked for when the rows were counted: every
+    /// later scan asks for the same, whatever the session that plans it says.
+    parts: usize,
+}
+
+impl NumberedTable {
+    /// `source` numbered from the first row number of each of its scan's parts
+    /// (`starts`, with the total at the end) when scanned in `parts` parts.
+    pub fn new(source: Arc<dyn TableProvider>, starts: Vec<i64>, parts: usize) -> Self {
+        let mut fields: Vec<Field> = source
+            .schema()
+            .fields()
+            .iter()
+            .map(|f| f.as_ref().clone())
+            .collect();
+        fields.push(Field::new(ROW, DataType::Int64, false));
+        NumberedTable {
+            source,
+            schema: Arc::new(Schema::new(fields)),
+            starts: Arc::new(starts),
+            parts,
+        }
+    }
+
+    pub fn source(&self) -> &Arc<dyn TableProvider> {
+        &self.source
+    }
+
+    pub fn starts(&self) -> &[i64] {
+        &self.starts
+    }
+
+    pub fn parts(&self) -> usize {
+        self.parts
+    }
 }
 
 /// Register `source` as `name` with its rows numbered (one counting pass over the
 /// source; nothing is kept in memory).
-pub(super) async fn register(ctx: &SessionContext, source: &str, name: &str) -> Result<()> {
+pub async fn register(ctx: &SessionContext, source: &str, name: &str) -> Result<()> {
     let provider = ctx.table_provider(source).await?;
     let state = ctx.state();
-    let counting = source_scan(provider.as_ref(), &state, Some(&vec![])).await?;
+    let parts = state.config().target_partitions().max(1);
+    let counting = source_scan(provider.as_ref(), &state, Some(&vec![]), parts).await?;
     let task = ctx.task_ctx();
     let mut counts = Vec::new();
     for partition in 0..counting.output_partitioning().partition_count() {
@@ -76,34 +112,24 @@ pub(super) async fn register(ctx: &SessionContext, source: &str, name: &str) -> 
     for c in counts {
         starts.push(starts.last().copied().unwrap_or(0) + c);
     }
-    let mut fields: Vec<Field> = provider
-        .schema()
-        .fields()
-        .iter()
-        .map(|f| f.as_ref().clone())
-        .collect();
-    fields.push(Field::new(ROW, DataType::Int64, false));
-    let table = NumberedTable {
-        source: provider,
-        schema: Arc::new(Schema::new(fields)),
-        starts: Arc::new(starts),
-    };
+    let table = NumberedTable::new(provider, starts, parts);
     ctx.deregister_table(name)?;
     ctx.register_table(name, Arc::new(table))?;
     Ok(())
 }
 
-/// The source's scan of `projection`, split into partitions exactly as every scan
+/// The source's scan of `projection` in `parts` parts, split exactly as every scan
 /// of it is (the same byte ranges whatever the projection).
 async fn source_scan(
     source: &dyn TableProvider,
     state: &dyn Session,
     projection: Option<&Vec<usize>>,
+    parts: usize,
 ) -> Result<Arc<dyn ExecutionPlan>> {
     let plan = source.scan(state, projection, &[], None).await?;
-    let options = state.config_options();
-    let partitions = options.execution.target_partitions.max(1);
-    Ok(plan.repartitioned(partitions, options)?.unwrap_or(plan))
+    Ok(plan
+        .repartitioned(parts, state.config_options())?
+        .unwrap_or(plan))
 }
 
 /// The task's context with the file scan's work stealing turned off, so that each
@@ -149,7 +175,8 @@ impl TableProvider for NumberedTable {
             None => (0..self.schema.fields().len()).collect(),
         };
         let from_source: Vec<usize> = wanted.iter().copied().filter(|&i| i != row_index).collect();
-        let inner = source_scan(self.source.as_ref(), state, Some(&from_source)).await?;
+        let inner =
+            source_scan(self.source.as_ref(), state, Some(&from_source), self.parts).await?;
         if inner.output_partitioning().partition_count() + 1 != self.starts.len() {
             return Err(DataFusionError::Execution(
                 "encode: the training or scoring table changed while encoding (its scan has \
@@ -170,9 +197,8 @@ impl TableProvider for NumberedTable {
         }
         Ok(Arc::new(NumberedScan::new(
             inner,
-            Arc::new(self.schema.project(&wanted)?),
             sources,
-            self.starts.clone(),
+            self.starts.to_vec(),
         )))
     }
 
@@ -187,7 +213,7 @@ impl TableProvider for NumberedTable {
 /// nothing it does can change the inner scan's partitions or drop rows before they
 /// are numbered.
 #[derive(Debug)]
-struct NumberedScan {
+pub struct NumberedScan {
     inner: Arc<dyn ExecutionPlan>,
     schema: SchemaRef,
     /// Per output column: `Some(i)` the inner scan's column `i`, `None` the number.
@@ -197,12 +223,23 @@ struct NumberedScan {
 }
 
 impl NumberedScan {
-    fn new(
+    /// The rows of `inner` (one part per part of `starts`) as the columns `sources`
+    /// says: `Some(i)` the inner scan's column `i`, `None` the row number.
+    pub fn new(
         inner: Arc<dyn ExecutionPlan>,
-        schema: SchemaRef,
         sources: Vec<Option<usize>>,
-        starts: Arc<Vec<i64>>,
+        starts: Vec<i64>,
     ) -> Self {
+        let inner_schema = inner.schema();
+        let fields: Vec<Field> = sources
+            .iter()
+            .map(|s| match s {
+                Some(i) => inner_schema.field(*i).clone(),
+                None => Field::new(ROW, DataType::Int64, false),
+            })
+            .collect();
+        let schema = Arc::new(Schema::new(fields));
+        let starts = Arc::new(starts);
         let ordering = sources.iter().position(Option::is_none).map(|i| {
             PhysicalSortExpr::new(
                 Arc::new(Column::new(ROW, i)),
@@ -218,7 +255,7 @@ impl NumberedScan {
         };
         let properties = PlanProperties::new(
             equivalences,
-            Partitioning::UnknownPartitioning(starts.len() - 1),
+            Partitioning::UnknownPartitioning(starts.len().saturating_sub(1)),
             EmissionType::Incremental,
             Boundedness::Bounded,
         );
@@ -232,9 +269,27 @@ impl NumberedScan {
     }
 }
 
+impl NumberedScan {
+    pub fn inner(&self) -> &Arc<dyn ExecutionPlan> {
+        &self.inner
+    }
+
+    pub fn sources(&self) -> &[Option<usize>] {
+        &self.sources
+    }
+
+    pub fn starts(&self) -> &[i64] {
+        &self.starts
+    }
+}
+
 impl DisplayAs for NumberedScan {
     fn fmt_as(&self, _t: DisplayFormatType, f: &mut fmt::Formatter) -> fmt::Result {
-        write!(f, "NumberedScan: partitions={}", self.starts.len() - 1)
+        write!(
+            f,
+            "NumberedScan: partitions={}",
+            self.starts.len().saturating_sub(1)
+        )
     }
 }
 
