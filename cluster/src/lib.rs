@@ -13,12 +13,14 @@
 //!
 //! [`connect`] gives a client session on a cluster (the `posterity-cluster` shell).
 
+mod numbered;
+
 use std::sync::Arc;
 
 use ballista::prelude::SessionContextExt;
 use ballista_core::extension::SessionConfigExt;
 use ballista_core::registry::BallistaFunctionRegistry;
-use ballista_core::serde::BallistaPhysicalExtensionCodec;
+use ballista_core::serde::{BallistaLogicalExtensionCodec, BallistaPhysicalExtensionCodec};
 use datafusion::common::{DataFusionError, Result, ScalarValue};
 use datafusion::execution::context::SessionState;
 use datafusion::execution::runtime_env::RuntimeEnvBuilder;
@@ -27,6 +29,7 @@ use datafusion::execution::TaskContext;
 use datafusion::logical_expr::AggregateUDF;
 use datafusion::physical_plan::ExecutionPlan;
 use datafusion::prelude::{SessionConfig, SessionContext};
+use datafusion_proto::logical_plan::LogicalExtensionCodec;
 use datafusion_proto::physical_plan::{PhysicalExtensionCodec, PhysicalProtoConverterExtension};
 use datafusion_proto::protobuf;
 use prost::Message;
@@ -64,6 +67,9 @@ impl PhysicalExtensionCodec for PosterityCodec {
         ctx: &TaskContext,
         converter: &dyn PhysicalProtoConverterExtension,
     ) -> Result<Arc<dyn ExecutionPlan>> {
+        if let Some(scan) = numbered::decode_scan(buf, ctx, self)? {
+            return Ok(scan);
+        }
         self.ballista.try_decode(buf, inputs, ctx, converter)
     }
 
@@ -73,6 +79,9 @@ impl PhysicalExtensionCodec for PosterityCodec {
         buf: &mut Vec<u8>,
         converter: &dyn PhysicalProtoConverterExtension,
     ) -> Result<()> {
+        if numbered::encode_scan(&node, self, buf)? {
+            return Ok(());
+        }
         self.ballista.try_encode(node, buf, converter)
     }
 
@@ -105,6 +114,75 @@ impl PhysicalExtensionCodec for PosterityCodec {
         let prior = ScalarValue::try_from(&proto)
             .map_err(|e| DataFusionError::Internal(format!("{name}: prior: {e}")))?;
         Ok(Arc::new(rebind(&function, prior)?.unwrap_or(function)))
+    }
+}
+
+/// The logical plan codec of client and scheduler: Ballista's, plus encode's
+/// numbered training and scoring rows (a table provider of posterity's).
+#[derive(Debug, Default)]
+pub struct PosterityLogicalCodec {
+    ballista: BallistaLogicalExtensionCodec,
+}
+
+impl LogicalExtensionCodec for PosterityLogicalCodec {
+    fn try_decode(
+        &self,
+        buf: &[u8],
+        inputs: &[datafusion::logical_expr::LogicalPlan],
+        ctx: &TaskContext,
+    ) -> Result<datafusion::logical_expr::Extension> {
+        self.ballista.try_decode(buf, inputs, ctx)
+    }
+
+    fn try_encode(
+        &self,
+        node: &datafusion::logical_expr::Extension,
+        buf: &mut Vec<u8>,
+    ) -> Result<()> {
+        self.ballista.try_encode(node, buf)
+    }
+
+    fn try_decode_table_provider(
+        &self,
+        buf: &[u8],
+        table_ref: &datafusion::common::TableReference,
+        schema: datafusion::arrow::datatypes::SchemaRef,
+        ctx: &TaskContext,
+    ) -> Result<Arc<dyn datafusion::catalog::TableProvider>> {
+        if let Some(table) = numbered::decode_table(buf, ctx, self)? {
+            return Ok(table);
+        }
+        self.ballista
+            .try_decode_table_provider(buf, table_ref, schema, ctx)
+    }
+
+    fn try_encode_table_provider(
+        &self,
+        table_ref: &datafusion::common::TableReference,
+        node: Arc<dyn datafusion::catalog::TableProvider>,
+        buf: &mut Vec<u8>,
+    ) -> Result<()> {
+        if numbered::encode_table(&node, self, buf)? {
+            return Ok(());
+        }
+        self.ballista
+            .try_encode_table_provider(table_ref, node, buf)
+    }
+
+    fn try_decode_file_format(
+        &self,
+        buf: &[u8],
+        ctx: &TaskContext,
+    ) -> Result<Arc<dyn datafusion::datasource::file_format::FileFormatFactory>> {
+        self.ballista.try_decode_file_format(buf, ctx)
+    }
+
+    fn try_encode_file_format(
+        &self,
+        buf: &mut Vec<u8>,
+        node: Arc<dyn datafusion::datasource::file_format::FileFormatFactory>,
+    ) -> Result<()> {
+        self.ballista.try_encode_file_format(buf, node)
     }
 }
 
@@ -150,10 +228,11 @@ fn register_functions(state: &mut SessionState) -> Result<()> {
 }
 
 /// The session config every process of a posterity cluster uses: Ballista's, with
-/// [`PosterityCodec`] for physical plans.
+/// [`PosterityCodec`] for physical plans and [`PosterityLogicalCodec`] for logical ones.
 pub fn session_config() -> SessionConfig {
     SessionConfig::new_with_ballista()
         .with_ballista_physical_extension_codec(Arc::new(PosterityCodec::default()))
+        .with_ballista_logical_extension_codec(Arc::new(PosterityLogicalCodec::default()))
 }
 
 /// A client session on the cluster whose scheduler listens at `url`
@@ -241,5 +320,58 @@ mod tests {
             assert!(first.is_valid(0) && (first.value(0) - 0.3).abs() < 1e-15);
         }
         assert_eq!(results[0], results[1]);
+    }
+
+    /// encode on an in-process cluster with a work directory against a plain
+    /// session: the numbered rows travel to the scheduler and executors, the
+    /// intermediate tables are Parquet files, and every number is the same.
+    #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
+    async fn encode_on_an_in_process_cluster_gives_the_local_numbers() {
+        use posterity::encode::{self, EncodeOptions};
+        let dir =
+            std::env::temp_dir().join(format!("posterity-cluster-encode-{}", std::process::id()));
+        std::fs::remove_dir_all(&dir).ok();
+        let data = dir.join("visits");
+        std::fs::create_dir_all(&data).unwrap();
+        for part in 0..2u32 {
+            let mut csv = String::from("visit,clinic,breed,missed\n");
+            for i in 0..600u32 {
+                let v = part * 600 + i;
+                let missed = u32::from(v.wrapping_mul(2654435761) % 7 < 2 + v % 5 / 2);
+                // 11 clinics of about 109 visits (indicator columns) and 41 breeds
+                // of about 29 (none: an empty table of indicator levels).
+                csv.push_str(&format!("{v},c{},b{},{missed}\n", v % 11, v % 41));
+            }
+            std::fs::write(data.join(format!("part-{part}.csv")), csv).unwrap();
+        }
+        let local = SessionContext::new();
+        posterity::register(&local);
+        let cluster = standalone().await.unwrap();
+        let mut results = Vec::new();
+        for (ctx, work) in [(&local, None), (&cluster, Some(dir.join("work")))] {
+            ctx.register_csv("visits", data.to_str().unwrap(), CsvReadOptions::new())
+                .await
+                .unwrap();
+            let mut options = EncodeOptions::new("visits", "missed", &["clinic", "breed"]);
+            options.work_dir = work;
+            let plan = encode::resolve(ctx, &options).await.unwrap();
+            let output = encode::run(ctx, &plan).await.unwrap();
+            let train = output.train_encoded.clone().unwrap();
+            let sorted = train
+                .sort_by(vec![datafusion::prelude::col("visit")])
+                .unwrap();
+            let limit = std::time::Duration::from_secs(120);
+            let batches = tokio::time::timeout(limit, sorted.collect())
+                .await
+                .expect("the training table within two minutes")
+                .unwrap();
+            results.push((
+                pretty_format_batches(&batches).unwrap().to_string(),
+                output.bundle.to_json(),
+            ));
+        }
+        assert_eq!(results[0].1, results[1].1, "bundle");
+        assert_eq!(results[0].0, results[1].0, "training table");
+        std::fs::remove_dir_all(&dir).ok();
     }
 }

@@ -4,15 +4,16 @@
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
-use datafusion::arrow::array::{Array, AsArray, RecordBatch};
+use datafusion::arrow::array::{new_null_array, Array, AsArray, RecordBatch};
 use datafusion::arrow::compute::cast;
-use datafusion::arrow::datatypes::{DataType, Int64Type};
+use datafusion::arrow::datatypes::{DataType, Field, Int64Type, Schema};
 use std::sync::Arc;
 
 use datafusion::dataframe::{DataFrame, DataFrameWriteOptions};
 use datafusion::datasource::file_format::parquet::ParquetFormat;
 use datafusion::datasource::listing::ListingOptions;
 use datafusion::error::DataFusionError;
+use datafusion::parquet::arrow::ArrowWriter;
 use datafusion::prelude::SessionContext;
 use serde_json::{json, Value};
 
@@ -165,6 +166,34 @@ async fn write_table(
     let location = format!("{}/", path.display());
     df.write_parquet(&location, DataFrameWriteOptions::new(), None)
         .await?;
+    // An empty result writes no file. A Ballista cluster never finishes a job that
+    // joins an empty table, so an empty table holds instead one row of NULLs: its
+    // NULL level matches no key, and readers of these tables skip NULL levels.
+    let has_file = std::fs::read_dir(&path)
+        .map_err(io)?
+        .any(|e| e.is_ok_and(|e| e.path().extension().is_some_and(|x| x == "parquet")));
+    let schema = match has_file {
+        true => schema,
+        false => {
+            let nullable: Vec<Field> = schema
+                .fields()
+                .iter()
+                .map(|f| f.as_ref().clone().with_nullable(true))
+                .collect();
+            let nullable = Arc::new(Schema::new(nullable));
+            let nulls = nullable
+                .fields()
+                .iter()
+                .map(|f| new_null_array(f.data_type(), 1))
+                .collect();
+            let row = RecordBatch::try_new(nullable.clone(), nulls)?;
+            let file = std::fs::File::create(path.join("empty.parquet")).map_err(io)?;
+            let mut writer = ArrowWriter::try_new(file, nullable.clone(), None)?;
+            writer.write(&row)?;
+            writer.close()?;
+            nullable
+        }
+    };
     ctx.deregister_table(table)?;
     let format =
         ListingOptions::new(Arc::new(ParquetFormat::default())).with_file_extension(".parquet");
@@ -180,8 +209,9 @@ async fn write_table(
 fn keeping_file_order(ctx: &SessionContext) -> SessionContext {
     let mut state = ctx.state();
     let joins = &mut state.config_mut().options_mut().optimizer;
-    joins.hash_join_single_partition_threshold = usize::MAX;
-    joins.hash_join_single_partition_threshold_rows = usize::MAX;
+    // Large, not usize::MAX: planners multiply these.
+    joins.hash_join_single_partition_threshold = 1 << 40;
+    joins.hash_join_single_partition_threshold_rows = 1 << 36;
     SessionContext::new_with_state(state)
 }
 
@@ -302,7 +332,9 @@ pub(super) async fn finish(
         };
         let mut indicators = Vec::new();
         for batch in ctx
-            .sql(&format!("SELECT level FROM __top{i} ORDER BY rank"))
+            .sql(&format!(
+                "SELECT level FROM __top{i} WHERE level IS NOT NULL ORDER BY rank"
+            ))
             .await?
             .collect()
             .await?

@@ -131,12 +131,27 @@ impl EncodePlan {
     /// and codes.
     fn level_joins(&self, i: usize, key: &KeyPlan) -> String {
         let mut joins = format!("LEFT JOIN __top{i} top{i} ON top{i}.level = t.__k{i}");
+        if self.options.work_dir.is_some() {
+            joins = format!("CROSS JOIN __priorread{i} r{i} {joins}");
+        }
         if key.treatment == Treatment::Codes {
             joins.push_str(&format!(
                 " LEFT JOIN __code{i} code{i} ON code{i}.level = t.__k{i}"
             ));
         }
         joins
+    }
+
+    /// Column `column` of key `i`'s one-row prior table `table`: a scalar subquery
+    /// in one process (run once; unlike a cross join it keeps the rows' order, so
+    /// the output needs no sort); with a work directory, for a cluster, the cross
+    /// joined `r{i}` (a cluster turns a scalar subquery beside outer joins into a
+    /// join whose unmatched rows each task repeats).
+    fn prior_reader(&self, i: usize, column: &str, table: &str) -> String {
+        match self.options.work_dir {
+            Some(_) => format!("r{i}.{column}"),
+            None => format!("(SELECT {column} FROM {table})"),
+        }
     }
 
     /// `reader(p) AS "name", ...` for every reader column of `key` (draws and
@@ -178,7 +193,8 @@ impl EncodePlan {
             .map(|(name, column)| {
                 let value = match column {
                     OutputColumn::Reader { .. } => {
-                        format!("COALESCE({source}.{q}, (SELECT {q} FROM {fallback}))", q = quote(&name))
+                        let q = quote(&name);
+                        format!("COALESCE({source}.{q}, {})", self.prior_reader(i, &q, fallback))
                     }
                     OutputColumn::Indicator { rank } => {
                         format!("CAST(COALESCE(top{i}.rank = {rank}, false) AS INT)")
@@ -187,7 +203,8 @@ impl EncodePlan {
                     OutputColumn::Draw { class } => {
                         let class = class.map(|c| format!(", {}", text(&c))).unwrap_or_default();
                         format!(
-                            "posterior_draw(COALESCE({posterior}, (SELECT prior FROM {fallback})){class}, fold_of(t.__row, 9223372036854775807, {}))",
+                            "posterior_draw(COALESCE({posterior}, {}){class}, fold_of(t.__row, 9223372036854775807, {}))",
+                            self.prior_reader(i, "prior", fallback),
                             self.options.draws.unwrap_or_default()
                         )
                     }

@@ -6,7 +6,7 @@ use std::sync::Arc;
 
 use ballista_executor::executor_process::{start_executor_process, ExecutorProcessConfig};
 use clap::Parser;
-use posterity_cluster::{function_registry, session_config, PosterityCodec};
+use posterity_cluster::{function_registry, session_config, PosterityCodec, PosterityLogicalCodec};
 
 /// A Ballista executor for posterity's SQL.
 #[derive(Parser, Debug)]
@@ -67,6 +67,7 @@ async fn main() -> ExitCode {
     if !args.without_posterity {
         config.override_function_registry = Some(Arc::new(function_registry()));
         config.override_physical_codec = Some(Arc::new(PosterityCodec::default()));
+        config.override_logical_codec = Some(Arc::new(PosterityLogicalCodec::default()));
     }
     match start_executor_process(Arc::new(config)).await {
         Ok(()) => ExitCode::SUCCESS,

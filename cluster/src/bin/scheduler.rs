@@ -9,7 +9,7 @@ use ballista_scheduler::cluster::BallistaCluster;
 use ballista_scheduler::config::SchedulerConfig;
 use ballista_scheduler::scheduler_process::start_server;
 use clap::Parser;
-use posterity_cluster::{scheduler_session, session_config, PosterityCodec};
+use posterity_cluster::{scheduler_session, session_config, PosterityCodec, PosterityLogicalCodec};
 
 /// A Ballista scheduler for posterity's SQL.
 #[derive(Parser, Debug)]
@@ -52,6 +52,7 @@ async fn main() -> ExitCode {
     config.override_config_producer = Some(Arc::new(session_config));
     config.override_session_builder = Some(Arc::new(scheduler_session));
     config.override_physical_codec = Some(Arc::new(PosterityCodec::default()));
+    config.override_logical_codec = Some(Arc::new(PosterityLogicalCodec::default()));
     let result = async {
         let cluster = BallistaCluster::new_from_config(&config).await?;
         start_server(cluster, addr, Arc::new(config)).await
