@@ -324,7 +324,13 @@ mod tests {
 
     /// encode on an in-process cluster with a work directory against a plain
     /// session: the numbered rows travel to the scheduler and executors, the
-    /// intermediate tables are Parquet files, and every number is the same.
+    /// intermediate tables are Parquet files, and every number should be the same.
+    ///
+    /// Known defect (why `encode --cluster` is refused): with two scan parts this
+    /// passes, with four (four files here) every fit counts each row twice — each
+    /// of the stage's tasks was seen running all four parts of the numbered scan,
+    /// although the distributed plan shows one part per task. Not yet explained.
+    #[ignore = "encode on a cluster counts rows twice with four scan parts (see above)"]
     #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
     async fn encode_on_an_in_process_cluster_gives_the_local_numbers() {
         use posterity::encode::{self, EncodeOptions};
@@ -333,10 +339,10 @@ mod tests {
         std::fs::remove_dir_all(&dir).ok();
         let data = dir.join("visits");
         std::fs::create_dir_all(&data).unwrap();
-        for part in 0..2u32 {
+        for part in 0..4u32 {
             let mut csv = String::from("visit,clinic,breed,missed\n");
-            for i in 0..600u32 {
-                let v = part * 600 + i;
+            for i in 0..300u32 {
+                let v = part * 300 + i;
                 let missed = u32::from(v.wrapping_mul(2654435761) % 7 < 2 + v % 5 / 2);
                 // 11 clinics of about 109 visits (indicator columns) and 41 breeds
                 // of about 29 (none: an empty table of indicator levels).

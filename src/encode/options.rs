@@ -372,9 +372,9 @@ pub struct EncodeOptions {
     pub score_evidence: ScoreEvidence,
     /// Draw the HTML report (`EncodeOutput::report`, `report.html`).
     pub report: bool,
-    /// Write the intermediate tables (fits, priors, encodings) as Parquet under this
-    /// directory instead of holding them in the session's memory: what a cluster
-    /// needs, where every executor must read them (`--work-dir`).
+    /// Write the intermediate tables (fits, priors, per-level encodings) as Parquet
+    /// under this directory instead of holding them in the session's memory
+    /// (`--work-dir`; on a cluster every executor would read them there).
     pub work_dir: Option<std::path::PathBuf>,
 }
 

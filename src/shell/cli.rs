@@ -203,30 +203,25 @@ async fn run(args: Args, connect: Option<Connect>) -> Result<(), Failure> {
     let interactive = args.command.is_none()
         && scripts.is_empty()
         && std::io::IsTerminal::is_terminal(&std::io::stdin());
-    let ctx =
-        match (&args.cluster, connect) {
-            (Some(url), Some(connect)) => {
-                match &args.command {
-                    Some(Command::Demo { .. }) => return Err(Failure::usage(
-                        "--cluster: the demo runs on one machine; on a cluster, run its encode \
-                         command with --work-dir (README, \"When one machine is not enough\")"
-                            .to_string(),
-                    )),
-                    Some(Command::Encode(e)) if e.work_dir.is_none() => {
-                        return Err(Failure::usage(
-                            "--cluster: encode needs --work-dir DIR, a directory every executor \
-                         can read and write (its intermediate tables are written there)"
-                                .to_string(),
-                        ))
-                    }
-                    _ => {}
-                }
-                connect(url.clone())
-                    .await
-                    .map_err(|e| Failure::query(format!("--cluster {url}: {e}")))?
+    let ctx = match (&args.cluster, connect) {
+        (Some(url), Some(connect)) => {
+            if matches!(
+                args.command,
+                Some(Command::Encode(_)) | Some(Command::Demo { .. })
+            ) {
+                return Err(Failure::usage(
+                    "--cluster: encode and demo run on one machine for now; encode streams \
+                         the training rows from the file, so its memory stays flat as rows \
+                         grow; run the SQL functions on the cluster"
+                        .to_string(),
+                ));
             }
-            _ => super::session(memory, args.threads)?,
-        };
+            connect(url.clone())
+                .await
+                .map_err(|e| Failure::query(format!("--cluster {url}: {e}")))?
+        }
+        _ => super::session(memory, args.threads)?,
+    };
     let shell = Shell {
         ctx,
         format,

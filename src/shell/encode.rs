@@ -144,9 +144,8 @@ pub struct EncodeArgs {
     /// Print every SQL statement run.
     #[arg(long)]
     pub show_sql: bool,
-    /// Write the intermediate tables (fits, priors, encodings) as Parquet under DIR
-    /// instead of holding them in memory; needed with --cluster, where every
-    /// executor must be able to read DIR.
+    /// Write the intermediate tables (fits, priors, per-level encodings) as Parquet
+    /// under DIR instead of holding them in memory (they grow with levels and folds).
     #[arg(long, value_name = "DIR")]
     pub work_dir: Option<PathBuf>,
 }
