@@ -41,6 +41,7 @@ use datafusion::physical_plan::{
     PlanProperties,
 };
 use datafusion::prelude::SessionContext;
+use futures::stream::BoxStream;
 use futures::StreamExt;
 
 /// The column holding each row's number (internal: never in an output).
@@ -57,6 +58,8 @@ pub struct NumberedTable {
     /// How many parts the scan was asked for when the rows were counted: every
     /// later scan asks for the same, whatever the session that plans it says.
     parts: usize,
+    /// Scans read all parts as one (see [`NumberedScan::new`]).
+    serial: bool,
 }
 
 impl NumberedTable {
@@ -75,7 +78,14 @@ impl NumberedTable {
             schema: Arc::new(Schema::new(fields)),
             starts: Arc::new(starts),
             parts,
+            serial: false,
         }
+    }
+
+    /// The same table, scanned as one part (for a cluster's scheduler).
+    pub fn serial(mut self) -> Self {
+        self.serial = true;
+        self
     }
 
     pub fn source(&self) -> &Arc<dyn TableProvider> {
@@ -199,6 +209,7 @@ impl TableProvider for NumberedTable {
             inner,
             sources,
             self.starts.to_vec(),
+            self.serial,
         )))
     }
 
@@ -219,16 +230,23 @@ pub struct NumberedScan {
     /// Per output column: `Some(i)` the inner scan's column `i`, `None` the number.
     sources: Vec<Option<usize>>,
     starts: Arc<Vec<i64>>,
+    /// All parts in order as one output partition (on a cluster).
+    serial: bool,
     properties: Arc<PlanProperties>,
 }
 
 impl NumberedScan {
     /// The rows of `inner` (one part per part of `starts`) as the columns `sources`
     /// says: `Some(i)` the inner scan's column `i`, `None` the row number.
+    ///
+    /// `serial` reads every part in order as one: what a cluster needs, whose
+    /// scheduler splits only the scans it knows into its tasks and would hand each
+    /// task every part of this one.
     pub fn new(
         inner: Arc<dyn ExecutionPlan>,
         sources: Vec<Option<usize>>,
         starts: Vec<i64>,
+        serial: bool,
     ) -> Self {
         let inner_schema = inner.schema();
         let fields: Vec<Field> = sources
@@ -255,7 +273,10 @@ impl NumberedScan {
         };
         let properties = PlanProperties::new(
             equivalences,
-            Partitioning::UnknownPartitioning(starts.len().saturating_sub(1)),
+            Partitioning::UnknownPartitioning(match serial {
+                true => 1,
+                false => starts.len().saturating_sub(1),
+            }),
             EmissionType::Incremental,
             Boundedness::Bounded,
         );
@@ -264,6 +285,7 @@ impl NumberedScan {
             schema,
             sources,
             starts,
+            serial,
             properties: Arc::new(properties),
         }
     }
@@ -280,6 +302,10 @@ impl NumberedScan {
 
     pub fn starts(&self) -> &[i64] {
         &self.starts
+    }
+
+    pub fn serial(&self) -> bool {
+        self.serial
     }
 }
 
@@ -326,7 +352,9 @@ impl ExecutionPlan for NumberedScan {
         args: &StatisticsArgs,
     ) -> Result<Arc<Statistics>> {
         let rows = match args.partition() {
-            Some(p) if p + 1 < self.starts.len() => self.starts[p + 1] - self.starts[p],
+            Some(p) if !self.serial && p + 1 < self.starts.len() => {
+                self.starts[p + 1] - self.starts[p]
+            }
             _ => self.starts.last().copied().unwrap_or(0),
         };
         Ok(Arc::new(
@@ -339,16 +367,40 @@ impl ExecutionPlan for NumberedScan {
         partition: usize,
         context: Arc<TaskContext>,
     ) -> Result<SendableRecordBatchStream> {
-        let (Some(&start), Some(&end)) =
-            (self.starts.get(partition), self.starts.get(partition + 1))
-        else {
+        let stream: BoxStream<'static, Result<RecordBatch>> = match self.serial {
+            false => self.numbered_part(partition, &context)?,
+            true if partition == 0 => {
+                let parts = (0..self.starts.len().saturating_sub(1))
+                    .map(|p| self.numbered_part(p, &context))
+                    .collect::<Result<Vec<_>>>()?;
+                futures::stream::iter(parts).flatten().boxed()
+            }
+            true => {
+                return Err(DataFusionError::Execution(format!(
+                    "encode: no part {partition} in the numbered rows (read as one part)"
+                )))
+            }
+        };
+        Ok(Box::pin(RecordBatchStreamAdapter::new(
+            self.schema.clone(),
+            stream,
+        )))
+    }
+}
+
+impl NumberedScan {
+    /// Part `part` of the source with its row numbers, checked against the count.
+    fn numbered_part(
+        &self,
+        part: usize,
+        context: &Arc<TaskContext>,
+    ) -> Result<BoxStream<'static, Result<RecordBatch>>> {
+        let (Some(&start), Some(&end)) = (self.starts.get(part), self.starts.get(part + 1)) else {
             return Err(DataFusionError::Execution(format!(
-                "encode: no part {partition} in the numbered rows"
+                "encode: no part {part} in the numbered rows"
             )));
         };
-        let inner = self
-            .inner
-            .execute(partition, without_work_stealing(&context))?;
+        let inner = self.inner.execute(part, without_work_stealing(context))?;
         let schema = self.schema.clone();
         let sources = self.sources.clone();
         let position = Arc::new(AtomicI64::new(start));
@@ -380,11 +432,7 @@ impl ExecutionPlan for NumberedScan {
             (position.load(Ordering::Relaxed) != end).then(|| Err(changed()))
         })
         .filter_map(futures::future::ready);
-        let checked = numbered.chain(short);
-        Ok(Box::pin(RecordBatchStreamAdapter::new(
-            self.schema.clone(),
-            checked,
-        )))
+        Ok(numbered.chain(short).boxed())
     }
 }
 

@@ -247,6 +247,18 @@ pub async fn connect(url: &str) -> Result<SessionContext> {
     Ok(ctx)
 }
 
+/// The runtime of the cluster's processes. encode's training table is a deep plan
+/// (a join per key and per indicator table, dozens of columns); planning, encoding
+/// and decoding it recurse further than tokio's 2 MiB worker stacks allow in a
+/// debug build (the scheduler aborted with a stack overflow), so workers get 64 MiB
+/// (address space, touched only as deep as a plan goes).
+pub fn runtime() -> std::io::Result<tokio::runtime::Runtime> {
+    tokio::runtime::Builder::new_multi_thread()
+        .thread_stack_size(64 << 20)
+        .enable_all()
+        .build()
+}
+
 /// An in-process cluster (scheduler and executor in this process), for tests.
 pub async fn standalone() -> Result<SessionContext> {
     let state = scheduler_session(session_config())?;
@@ -326,15 +338,9 @@ mod tests {
     /// session: the numbered rows travel to the scheduler and executors, the
     /// intermediate tables are Parquet files, and every number should be the same.
     ///
-    /// Known defect (why `encode --cluster` is refused): with two scan parts this
-    /// passes, with four (four files here) every fit counts each row twice. Seen:
-    /// the distributed plan has one stage of four partitions over the numbered
-    /// scan, but each of its tasks ran all four parts — Ballista 55's sort-based
-    /// shuffle writer (`run_coordinator` in ballista-core's
-    /// execution_plans/sort_shuffle/writer.rs) writes every input partition of the
-    /// plan it is given. Plain file scans come out right, so the scheduler must
-    /// narrow those per task; the numbered scan needs the same narrowing.
-    #[ignore = "encode on a cluster counts rows twice with four scan parts (see above)"]
+    /// Four files make four scan parts: the cluster reads the numbered rows as
+    /// one part (its scheduler would give each task every part of a scan it does
+    /// not know, and each row would be counted once per task).
     #[tokio::test(flavor = "multi_thread", worker_threads = 2)]
     async fn encode_on_an_in_process_cluster_gives_the_local_numbers() {
         use posterity::encode::{self, EncodeOptions};

@@ -113,7 +113,11 @@ pub fn decode_table(
     };
     let source = source_as_provider(&scan.source)?;
     let parts = usize::try_from(parts).map_err(|_| malformed("table"))?;
-    Ok(Some(Arc::new(NumberedTable::new(source, starts, parts))))
+    // The scheduler splits a stage's work into tasks only for scans it knows, and
+    // gives every task all the parts of any other: read this one as one part.
+    Ok(Some(Arc::new(
+        NumberedTable::new(source, starts, parts).serial(),
+    )))
 }
 
 /// `node` written if it is a numbered scan; `Ok(false)` otherwise.
@@ -127,6 +131,7 @@ pub fn encode_scan(
     };
     let inner = PhysicalPlanNode::try_from_physical_plan(scan.inner().clone(), codec)?;
     let mut w = Writer::new(SCAN_MAGIC);
+    w.int(i64::from(scan.serial()));
     w.ints(scan.starts().iter().copied());
     w.ints(scan.sources().iter().map(|s| s.map_or(-1, |i| i as i64)));
     w.0.extend(inner.encode_to_vec());
@@ -143,6 +148,7 @@ pub fn decode_scan(
     let Some(mut r) = Reader::new(buf, SCAN_MAGIC, "scan") else {
         return Ok(None);
     };
+    let serial = r.int()? != 0;
     let starts = r.ints()?;
     let sources: Vec<Option<usize>> = r
         .ints()?
@@ -155,5 +161,7 @@ pub fn decode_scan(
     if sources.iter().flatten().any(|&i: &usize| i >= columns) {
         return Err(malformed("scan"));
     }
-    Ok(Some(Arc::new(NumberedScan::new(inner, sources, starts))))
+    Ok(Some(Arc::new(NumberedScan::new(
+        inner, sources, starts, serial,
+    ))))
 }

@@ -99,6 +99,9 @@ pub fn main(connect: Option<Connect>) -> ExitCode {
     }
     let threads = args.threads;
     let mut runtime = tokio::runtime::Builder::new_multi_thread();
+    // Deep plans (encode's training table joins a table per key and per indicator
+    // set) recurse further than tokio's 2 MiB worker stacks in a debug build.
+    runtime.thread_stack_size(64 << 20);
     if let Some(n) = threads {
         runtime.worker_threads(n.max(1));
     }
@@ -205,16 +208,22 @@ async fn run(args: Args, connect: Option<Connect>) -> Result<(), Failure> {
         && std::io::IsTerminal::is_terminal(&std::io::stdin());
     let ctx = match (&args.cluster, connect) {
         (Some(url), Some(connect)) => {
-            if matches!(
-                args.command,
-                Some(Command::Encode(_)) | Some(Command::Demo { .. })
-            ) {
-                return Err(Failure::usage(
-                    "--cluster: encode and demo run on one machine for now; encode streams \
-                         the training rows from the file, so its memory stays flat as rows \
-                         grow; run the SQL functions on the cluster"
-                        .to_string(),
-                ));
+            match &args.command {
+                Some(Command::Demo { .. }) => {
+                    return Err(Failure::usage(
+                        "--cluster: the demo runs on one machine; on a cluster, run its encode \
+                         command with --work-dir (README, \"When one machine is not enough\")"
+                            .to_string(),
+                    ))
+                }
+                Some(Command::Encode(e)) if e.work_dir.is_none() => {
+                    return Err(Failure::usage(
+                        "--cluster: encode needs --work-dir DIR, a directory every executor can \
+                         read and write (its intermediate tables go there)"
+                            .to_string(),
+                    ))
+                }
+                _ => {}
             }
             connect(url.clone())
                 .await

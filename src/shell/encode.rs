@@ -145,7 +145,8 @@ pub struct EncodeArgs {
     #[arg(long)]
     pub show_sql: bool,
     /// Write the intermediate tables (fits, priors, per-level encodings) as Parquet
-    /// under DIR instead of holding them in memory (they grow with levels and folds).
+    /// under DIR instead of holding them in memory (they grow with levels and folds);
+    /// needed with --cluster, where every executor must read and write DIR.
     #[arg(long, value_name = "DIR")]
     pub work_dir: Option<PathBuf>,
 }

@@ -46,8 +46,17 @@ struct Args {
     without_posterity: bool,
 }
 
-#[tokio::main]
-async fn main() -> ExitCode {
+fn main() -> ExitCode {
+    match posterity_cluster::runtime() {
+        Ok(runtime) => runtime.block_on(serve()),
+        Err(e) => {
+            eprintln!("error: cannot start the runtime: {e}");
+            ExitCode::from(1)
+        }
+    }
+}
+
+async fn serve() -> ExitCode {
     let args = Args::parse();
     let mut config = ExecutorProcessConfig {
         scheduler_host: args.scheduler_host,

@@ -29,8 +29,17 @@ struct Args {
     executor_timeout: u64,
 }
 
-#[tokio::main]
-async fn main() -> ExitCode {
+fn main() -> ExitCode {
+    match posterity_cluster::runtime() {
+        Ok(runtime) => runtime.block_on(serve()),
+        Err(e) => {
+            eprintln!("error: cannot start the runtime: {e}");
+            ExitCode::from(1)
+        }
+    }
+}
+
+async fn serve() -> ExitCode {
     let args = Args::parse();
     let addr: SocketAddr = match format!("{}:{}", args.bind_host, args.port).parse() {
         Ok(a) => a,
