@@ -3,6 +3,8 @@
 # time of a whole `posterity` command and peak memory (VmHWM) of every process.
 #
 #   benches/cluster_bench.sh [ROWS] [LEVELS]     (defaults 10000000 30000)
+#   BENCH=encode benches/cluster_bench.sh ...     `posterity encode` of the key instead
+#                                                 (5 folds, reader mean; --work-dir on a cluster)
 #
 # Needs `cargo build --release --workspace` and target/modeling-venv (numpy, pyarrow)
 # to write the data (a Zipf-like key, a 0/1 target; not committed).
@@ -37,7 +39,14 @@ run() { # label, extra args
   local label=$1; shift
   local start end
   start=$(date +%s.%N)
-  /usr/bin/time -f "%M" -o /tmp/cluster-bench-client "$bin/posterity" -q "$@" -t "t=$data" --format csv -c "$sql" > /dev/null
+  if [ "${BENCH:-sql}" = encode ]; then
+    local work=()
+    [ "$#" -gt 0 ] && work=(--work-dir target/cluster-bench/encode-work)
+    /usr/bin/time -f "%M" -o /tmp/cluster-bench-client "$bin/posterity" -q "$@" encode --train "$data" \
+      --target y --columns key --out target/cluster-bench/encode-out --replace "${work[@]}" > /dev/null
+  else
+    /usr/bin/time -f "%M" -o /tmp/cluster-bench-client "$bin/posterity" -q "$@" -t "t=$data" --format csv -c "$sql" > /dev/null
+  fi
   end=$(date +%s.%N)
   printf "%-28s %6.2f s  client peak %s MiB" "$label" "$(echo "$end - $start" | bc)" "$(( $(cat /tmp/cluster-bench-client) / 1024 ))"
 }
