@@ -247,16 +247,25 @@ pub async fn connect(url: &str) -> Result<SessionContext> {
     Ok(ctx)
 }
 
-/// The runtime of the cluster's processes. encode's training table is a deep plan
-/// (a join per key and per indicator table, dozens of columns); planning, encoding
-/// and decoding it recurse further than tokio's 2 MiB worker stacks allow in a
-/// debug build (the scheduler aborted with a stack overflow), so workers get 64 MiB
-/// (address space, touched only as deep as a plan goes).
-pub fn runtime() -> std::io::Result<tokio::runtime::Runtime> {
-    tokio::runtime::Builder::new_multi_thread()
+/// Run a cluster process's `serve` to its exit code. encode's training table is a
+/// deep plan (a join per key and per indicator table, dozens of columns); planning,
+/// encoding and decoding it recurse further than tokio's 2 MiB worker stacks allow
+/// in a debug build (the scheduler aborted with a stack overflow), so workers get
+/// 64 MiB (address space, touched only as deep as a plan goes).
+pub fn run_process(
+    serve: impl std::future::Future<Output = std::process::ExitCode>,
+) -> std::process::ExitCode {
+    let runtime = tokio::runtime::Builder::new_multi_thread()
         .thread_stack_size(64 << 20)
         .enable_all()
-        .build()
+        .build();
+    match runtime {
+        Ok(runtime) => runtime.block_on(serve),
+        Err(e) => {
+            eprintln!("error: cannot start the runtime: {e}");
+            std::process::ExitCode::from(1)
+        }
+    }
 }
 
 /// An in-process cluster (scheduler and executor in this process), for tests.

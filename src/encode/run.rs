@@ -75,13 +75,6 @@ pub struct EncodeOutput {
 /// practice, no source).
 const FEW_LEVELS: u64 = 20;
 
-/// Register `source` as `name` with a `__row` column numbering its rows in file
-/// order (see [`crate::numbered`]: streamed, not copied).
-pub(super) async fn number_rows(ctx: &SessionContext, source: &str, name: &str) -> Result<()> {
-    crate::numbered::register(ctx, source, name).await?;
-    Ok(())
-}
-
 fn posterior_at(batch: &RecordBatch, column: usize, row: usize) -> Result<Option<AnyPosterior>> {
     PosteriorColumn::new("encode", batch.column(column))?
         .get(row)
@@ -99,9 +92,9 @@ pub async fn run_with_progress(
     plan: &EncodePlan,
     progress: &mut dyn FnMut(&str),
 ) -> Result<EncodeOutput> {
-    number_rows(ctx, &plan.options.train, TRAIN).await?;
+    crate::numbered::register(ctx, &plan.options.train, TRAIN).await?;
     if let Some(score) = &plan.options.score {
-        number_rows(ctx, score, SCORE).await?;
+        crate::numbered::register(ctx, score, SCORE).await?;
     }
     let work_dir = plan.options.work_dir.as_deref();
     let outputs = execute(ctx, plan.statements(), work_dir, progress).await?;

@@ -14,7 +14,7 @@ use super::options::{EncodeOptions, Method, PriorChoice, Reader, TimeTies, Treat
 use super::resolve::{
     check_output_names, columns_of, require_columns, scoring_columns, EncodePlan, KeyPlan,
 };
-use super::run::{execute, finish, number_rows, EncodeOutput};
+use super::run::{execute, finish, EncodeOutput};
 use super::sql::{SCORE, TRAIN};
 use super::{text, usage, EncodeError, Result};
 use crate::bundle::Bundle;
@@ -196,9 +196,9 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
             Arc::new(MemTable::try_new(schema, vec![vec![batch]])?),
         )?;
     }
-    number_rows(ctx, &options.train, TRAIN).await?;
+    crate::numbered::register(ctx, &options.train, TRAIN).await?;
     if let Some(score) = &options.score {
-        number_rows(ctx, score, SCORE).await?;
+        crate::numbered::register(ctx, score, SCORE).await?;
     }
     let outputs = execute(
         ctx,

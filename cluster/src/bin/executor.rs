@@ -47,13 +47,7 @@ struct Args {
 }
 
 fn main() -> ExitCode {
-    match posterity_cluster::runtime() {
-        Ok(runtime) => runtime.block_on(serve()),
-        Err(e) => {
-            eprintln!("error: cannot start the runtime: {e}");
-            ExitCode::from(1)
-        }
-    }
+    posterity_cluster::run_process(serve())
 }
 
 async fn serve() -> ExitCode {
