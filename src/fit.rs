@@ -9,14 +9,17 @@
 //! partitioning; see [`crate::family::compensated`]). The prior is a
 //! planning-time constant held by the kernel, so nothing per group is boxed.
 
+use std::collections::HashMap;
 use std::fmt::Debug;
 use std::hash::Hash;
 use std::sync::Arc;
 
-use datafusion::arrow::array::{Array, ArrayRef, AsArray, BooleanArray, Float64Array, ListArray};
+use datafusion::arrow::array::{
+    make_view, Array, ArrayRef, AsArray, BooleanArray, Float64Array, ListArray,
+};
 use datafusion::arrow::buffer::OffsetBuffer;
 use datafusion::arrow::compute::cast;
-use datafusion::arrow::datatypes::{DataType, Field, FieldRef, Float64Type};
+use datafusion::arrow::datatypes::{DataType, Field, FieldRef, Float64Type, Int32Type, Int64Type};
 use datafusion::common::{exec_err, plan_err, DataFusionError, Result, ScalarValue};
 use datafusion::logical_expr::function::{AccumulatorArgs, StateFieldsArgs};
 use datafusion::logical_expr::{
@@ -192,6 +195,30 @@ fn values_of(stats: &[f64], per_group: usize) -> Vec<Vec<f64>> {
 
 // ---------------------------------------------------------------- Beta (0/1 rows)
 
+/// Add 0/1 outcomes with unit weights: successes in slot 0, trials in slot 2 of
+/// each group. Returns the first value that is not 0 or 1, if any (the counts are
+/// then discarded with the query's error).
+fn count_outcomes<T: Copy>(
+    values: &[T],
+    groups: &[usize],
+    stats: &mut [f64],
+    as_f64: impl Fn(T) -> f64,
+) -> Option<f64> {
+    let mut bad = false;
+    for (&g, &v) in groups.iter().zip(values) {
+        let v = as_f64(v);
+        bad |= v != 0.0 && v != 1.0;
+        stats[4 * g] += v;
+        stats[4 * g + 2] += 1.0;
+    }
+    bad.then(|| {
+        let v = values.iter().map(|v| as_f64(*v));
+        v.into_iter()
+            .find(|v| *v != 0.0 && *v != 1.0)
+            .unwrap_or(f64::NAN)
+    })
+}
+
 #[derive(Debug, Clone)]
 pub struct BetaOutcomes {
     prior: BetaPrior,
@@ -237,13 +264,18 @@ impl FitKernel for BetaOutcomes {
     }
 
     fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
-        value_prior_weight(
+        let mut out = value_prior_weight(
             Self::NAME,
             "outcome",
             Kind::Beta,
             "beta_posterior(outcome [, prior [, weight]])",
             t,
-        )
+        )?;
+        // 0/1 integers and booleans are counted as they are, without a cast per batch.
+        if matches!(t[0], DataType::Int64 | DataType::Int32 | DataType::Boolean) {
+            out[0] = t[0].clone();
+        }
+        Ok(out)
     }
 
     fn stats(&self) -> usize {
@@ -258,31 +290,37 @@ impl FitKernel for BetaOutcomes {
         stats: &mut [f64],
         retract: bool,
     ) -> Result<()> {
-        let y = f64_column(values, 0)?;
-        let w = optional_f64(values, 2)?;
-        if filter.is_none() && w.is_none() && y.null_count() == 0 && !retract {
+        let column = &values[0];
+        if filter.is_none() && values.len() < 3 && column.null_count() == 0 && !retract {
             // Hot path: every row counts with weight one; validate after the loop.
             // Sums of 0/1 are exact integers in the high slots (the low slots stay
             // zero), so plain additions are already order-independent.
-            let mut bad = false;
-            for (&g, &v) in groups.iter().zip(y.values().iter()) {
-                bad |= v != 0.0 && v != 1.0;
-                stats[4 * g] += v;
-                stats[4 * g + 2] += 1.0;
-            }
-            if bad {
-                let v = y
-                    .values()
-                    .iter()
-                    .find(|v| **v != 0.0 && **v != 1.0)
-                    .copied();
-                return Err(family_error(
-                    Self::NAME,
-                    check_outcome(v.unwrap_or(f64::NAN)).unwrap_err(),
-                ));
-            }
-            return Ok(());
+            let bad = match column.data_type() {
+                DataType::Int64 => {
+                    let v = column.as_primitive::<Int64Type>().values();
+                    count_outcomes(v, groups, stats, |v| v as f64)
+                }
+                DataType::Int32 => {
+                    let v = column.as_primitive::<Int32Type>().values();
+                    count_outcomes(v, groups, stats, f64::from)
+                }
+                DataType::Boolean => {
+                    let bits = column.as_boolean().values();
+                    for (&g, v) in groups.iter().zip(bits.iter()) {
+                        stats[4 * g] += f64::from(u8::from(v));
+                        stats[4 * g + 2] += 1.0;
+                    }
+                    None
+                }
+                _ => count_outcomes(f64_column(values, 0)?.values(), groups, stats, |v| v),
+            };
+            return match bad {
+                Some(v) => Err(family_error(Self::NAME, check_outcome(v).unwrap_err())),
+                None => Ok(()),
+            };
         }
+        let y = f64_column(values, 0)?;
+        let w = optional_f64(values, 2)?;
         for (i, &g) in groups.iter().enumerate() {
             let cols: Vec<&dyn Array> = match &w {
                 Some(w) => vec![&y, w],
@@ -588,6 +626,7 @@ impl FitKernel for NigValues {
 #[derive(Debug, Clone)]
 pub struct DirichletClasses {
     prior: DirichletPrior,
+    classes: ClassIndex,
 }
 
 impl FitKernel for DirichletClasses {
@@ -600,6 +639,7 @@ impl FitKernel for DirichletClasses {
     fn new(prior: Option<AnyPosterior>) -> Result<Self> {
         match prior {
             Some(AnyPosterior::Dirichlet(p)) => Ok(DirichletClasses {
+                classes: ClassIndex::new(&p.prior.classes),
                 prior: DirichletPrior {
                     classes: p.prior.classes.clone(),
                     alpha0: p.params(),
@@ -647,47 +687,45 @@ impl FitKernel for DirichletClasses {
     ) -> Result<()> {
         let w = optional_f64(values, 2)?;
         let column = &values[0];
-        match column.data_type() {
-            DataType::Utf8View => self.count(
-                column.as_string_view().iter(),
-                column,
-                groups,
-                filter,
-                w,
-                stats,
-                retract,
-            ),
-            DataType::LargeUtf8 => self.count(
-                column.as_string::<i64>().iter(),
-                column,
-                groups,
-                filter,
-                w,
-                stats,
-                retract,
-            ),
-            DataType::Utf8 => self.count(
-                column.as_string::<i32>().iter(),
-                column,
-                groups,
-                filter,
-                w,
-                stats,
-                retract,
-            ),
-            _ => {
-                let text = cast(column, &DataType::Utf8)?;
-                self.count(
-                    text.as_string::<i32>().iter(),
-                    &text,
-                    groups,
-                    filter,
-                    w,
-                    stats,
-                    retract,
-                )
+        let codes = self.class_codes(column)?;
+        let k = self.stats();
+        if filter.is_none() && w.is_none() && !retract {
+            // Hot path: unit weights. Counts are exact integers in the high slots
+            // (the low slots stay zero), so plain additions are order-independent.
+            let mut unknown = false;
+            for (&g, &c) in groups.iter().zip(&codes) {
+                if c < UNKNOWN {
+                    stats[2 * (k * g + c as usize)] += 1.0;
+                } else {
+                    unknown |= c == UNKNOWN;
+                }
             }
+            if unknown {
+                let i = codes.iter().position(|&c| c == UNKNOWN).unwrap_or(0);
+                return Err(self.unknown_class(column, i));
+            }
+            return Ok(());
         }
+        for (i, (&g, &c)) in groups.iter().zip(&codes).enumerate() {
+            let ok = match &w {
+                Some(w) => row_ok(filter, &[w as &dyn Array], i),
+                None => row_ok(filter, &[], i),
+            };
+            if c == SKIP || !ok {
+                continue;
+            }
+            if c == UNKNOWN {
+                return Err(self.unknown_class(column, i));
+            }
+            let wt = match &w {
+                Some(w) => crate::family::beta::check_weight(w.value(i))
+                    .map_err(|e| family_error(Self::NAME, e))?,
+                None => 1.0,
+            };
+            let slot = 2 * (k * g + c as usize);
+            add_stat(&mut stats[slot..slot + 2], wt, retract);
+        }
+        Ok(())
     }
 
     fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
@@ -707,44 +745,112 @@ impl FitKernel for DirichletClasses {
     }
 }
 
+/// The code of a row whose class is NULL: it does not count.
+const SKIP: u32 = u32::MAX;
+/// The code of a class the prior does not name: an error if the row counts.
+const UNKNOWN: u32 = u32::MAX - 1;
+
 impl DirichletClasses {
-    /// Add (or remove) one weight per row to its class's count.
-    #[allow(clippy::too_many_arguments)]
-    fn count<'a>(
-        &self,
-        classes: impl Iterator<Item = Option<&'a str>>,
-        column: &ArrayRef,
-        groups: &[usize],
-        filter: Option<&BooleanArray>,
-        w: Option<Float64Array>,
-        stats: &mut [f64],
-        retract: bool,
-    ) -> Result<()> {
-        let k = self.stats();
-        for ((i, &g), class) in groups.iter().enumerate().zip(classes) {
-            let ok = match &w {
-                Some(w) => row_ok(filter, &[column.as_ref(), w], i),
-                None => row_ok(filter, &[], i),
-            };
-            let Some(class) = class.filter(|_| ok) else {
-                continue;
-            };
-            let c = match self.prior.classes.iter().position(|known| known == class) {
-                Some(c) => c,
-                None => {
-                    let e = self.prior.index_of(class).unwrap_err();
-                    return Err(family_error(Self::NAME, e));
-                }
-            };
-            let wt = match &w {
-                Some(w) => crate::family::beta::check_weight(w.value(i))
-                    .map_err(|e| family_error(Self::NAME, e))?,
-                None => 1.0,
-            };
-            let slot = 2 * (k * g + c);
-            add_stat(&mut stats[slot..slot + 2], wt, retract);
+    /// Each row's class position in the prior's list, `SKIP` or `UNKNOWN`.
+    fn class_codes(&self, column: &ArrayRef) -> Result<Vec<u32>> {
+        let classes = &self.classes;
+        Ok(match column.data_type() {
+            DataType::Utf8View => {
+                let text = column.as_string_view();
+                let views = text.views().iter().enumerate();
+                views
+                    .map(|(i, &view)| match text.is_null(i) {
+                        true => SKIP,
+                        false => classes.find_view(view, || text.value(i)),
+                    })
+                    .collect()
+            }
+            DataType::LargeUtf8 => codes_of(classes, column.as_string::<i64>().iter()),
+            DataType::Utf8 => codes_of(classes, column.as_string::<i32>().iter()),
+            _ => codes_of(
+                classes,
+                cast(column, &DataType::Utf8)?.as_string::<i32>().iter(),
+            ),
+        })
+    }
+
+    /// The error for row `i`, whose class the prior does not name.
+    fn unknown_class(&self, column: &ArrayRef, i: usize) -> DataFusionError {
+        let class = match cast(&column.slice(i, 1), &DataType::Utf8) {
+            Ok(text) => text.as_string::<i32>().value(0).to_owned(),
+            Err(e) => return e.into(),
+        };
+        match self.prior.index_of(&class) {
+            Err(e) => family_error(Self::NAME, e),
+            Ok(_) => DataFusionError::Internal(format!("{}: class lookup failed", Self::NAME)),
         }
-        Ok(())
+    }
+}
+
+fn codes_of<'a>(classes: &ClassIndex, text: impl Iterator<Item = Option<&'a str>>) -> Vec<u32> {
+    text.map(|c| c.map_or(SKIP, |c| classes.find(c))).collect()
+}
+
+/// The prior's classes, found by their text. A `Utf8View` holds text of at most
+/// 12 bytes inside its 16-byte view, so such a class is found by comparing one
+/// integer per row, without touching the text buffers.
+#[derive(Debug, Clone)]
+struct ClassIndex {
+    classes: Vec<String>,
+    /// Each class's view when it is short enough to be inlined.
+    inline: Vec<Option<u128>>,
+    /// For long class lists, a map instead of a scan.
+    by_text: Option<HashMap<String, u32>>,
+}
+
+/// Up to this many classes a scan beats hashing the text (common practice, no source).
+const SCAN_CLASSES: usize = 16;
+
+impl ClassIndex {
+    fn new(classes: &[String]) -> Self {
+        let inline = classes
+            .iter()
+            .map(|c| (c.len() <= 12).then(|| make_view(c.as_bytes(), 0, 0)))
+            .collect();
+        let by_text = (classes.len() > SCAN_CLASSES).then(|| {
+            let positions = classes.iter().enumerate();
+            positions.map(|(i, c)| (c.clone(), i as u32)).collect()
+        });
+        ClassIndex {
+            classes: classes.to_vec(),
+            inline,
+            by_text,
+        }
+    }
+
+    fn find(&self, class: &str) -> u32 {
+        let found = match &self.by_text {
+            Some(map) => map.get(class).copied(),
+            None => self
+                .classes
+                .iter()
+                .position(|c| c == class)
+                .map(|c| c as u32),
+        };
+        found.unwrap_or(UNKNOWN)
+    }
+
+    /// The class of one view; `text` reads the full value when it is not inlined.
+    #[inline]
+    fn find_view<'a>(&self, view: u128, text: impl FnOnce() -> &'a str) -> u32 {
+        let len = view as u32 as usize;
+        if len > 12 || self.by_text.is_some() {
+            return self.find(text());
+        }
+        // Bytes past the length are zero in a valid view; mask them anyway so
+        // that a writer that left them dirty still matches.
+        let mask = match len {
+            12 => u128::MAX,
+            _ => (1u128 << (32 + 8 * len)) - 1,
+        };
+        let view = view & mask;
+        let found = self.inline.iter().position(|c| *c == Some(view));
+        found.map_or(UNKNOWN, |c| c as u32)
     }
 }
 
@@ -890,6 +996,14 @@ fn decode_prior<K: FitKernel>(prior: &ScalarValue) -> Result<K> {
 
 impl<K: FitKernel> FitAggregate<K> {
     /// The kernel for one call: the prior argument must be a planning-time constant.
+    /// The kernel for a call: a bound instance's own prior, else the call's.
+    fn kernel_for(&self, args: &AccumulatorArgs) -> Result<K> {
+        match &self.prior {
+            Some(prior) => decode_prior::<K>(prior),
+            None => Self::kernel(args),
+        }
+    }
+
     fn kernel(args: &AccumulatorArgs) -> Result<K> {
         let Some(expr) = args.exprs.get(K::PRIOR_ARG) else {
             return K::new(None);
@@ -950,7 +1064,18 @@ impl<K: FitKernel> AggregateUDFImpl for FitAggregate<K> {
     }
 
     fn coerce_types(&self, arg_types: &[DataType]) -> Result<Vec<DataType>> {
-        K::coerce(arg_types)
+        // A bound instance reads its prior from itself; the planning rule replaced
+        // the call's prior argument by a NULL (see `crate::prior_binding`).
+        let prior_gone =
+            self.prior.is_some() && arg_types.get(K::PRIOR_ARG) == Some(&DataType::Null);
+        if !prior_gone {
+            return K::coerce(arg_types);
+        }
+        let mut types = arg_types.to_vec();
+        types[K::PRIOR_ARG] = K::KIND.data_type();
+        let mut out = K::coerce(&types)?;
+        out[K::PRIOR_ARG] = DataType::Null;
+        Ok(out)
     }
 
     fn return_type(&self, _arg_types: &[DataType]) -> Result<DataType> {
@@ -963,7 +1088,7 @@ impl<K: FitKernel> AggregateUDFImpl for FitAggregate<K> {
 
     fn accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {
         Ok(Box::new(FitAccumulator {
-            groups: FitGroups::new(Self::kernel(&args)?),
+            groups: FitGroups::new(self.kernel_for(&args)?),
         }))
     }
 
@@ -979,7 +1104,7 @@ impl<K: FitKernel> AggregateUDFImpl for FitAggregate<K> {
         &self,
         args: AccumulatorArgs,
     ) -> Result<Box<dyn GroupsAccumulator>> {
-        Ok(Box::new(FitGroups::new(Self::kernel(&args)?)))
+        Ok(Box::new(FitGroups::new(self.kernel_for(&args)?)))
     }
 
     fn create_sliding_accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {

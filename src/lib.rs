@@ -12,6 +12,7 @@
 //! * [`report`] — the encode report: interval, shrinkage and prior plots in one HTML file;
 //! * [`files`] — registering Parquet, CSV and JSON files as tables, with checks;
 //! * [`prior_binding`] — a planning rule that binds fits to their constant prior;
+//! * [`read_before_join`] — a planning rule that reads posteriors before a join, once per level;
 //! * [`optimizer`] — a physical rule that builds joins on the (small) encoding side.
 //!
 //! ```no_run
@@ -34,6 +35,7 @@ pub mod optimizer;
 pub mod pool;
 pub mod prior_binding;
 pub mod prior_fit;
+pub mod read_before_join;
 pub mod render;
 pub mod report;
 pub mod scalar;
@@ -84,6 +86,7 @@ fn aggregate_list(foreign: bool) -> Vec<AggregateUDF> {
 /// leaves that rule out.
 pub fn register(ctx: &SessionContext) {
     prior_binding::install(ctx);
+    read_before_join::install(ctx);
     for f in scalar::all() {
         ctx.register_udf(f);
     }

@@ -119,13 +119,31 @@ fn bound(
     Ok(Some(Arc::new(fit.bind(value)?)))
 }
 
+/// The bound instance carries its prior, so the call's prior argument is replaced
+/// by a NULL: the engine evaluates every argument into a column per batch, and a
+/// constant prior (a struct with lists for Dirichlet classes) repeated 8,192 times
+/// per batch cost more than the fit itself. The NULL is aliased to the prior's
+/// text, so the call keeps its name (and the output column its header).
+fn drop_prior(f: &AggregateUDF, args: &mut [Expr]) {
+    let Some(i) = as_fit(f).map(|fit| fit.prior_argument()) else {
+        return;
+    };
+    if let Some(prior) = args.get_mut(i) {
+        let name = prior.schema_name().to_string();
+        *prior = Expr::Literal(ScalarValue::Null, None).alias(name);
+    }
+}
+
 fn bind_expr(e: Expr, config: &Arc<ConfigOptions>) -> Result<Transformed<Expr>> {
     match e {
-        Expr::AggregateFunction(AggregateFunction { func, params }) => {
+        Expr::AggregateFunction(AggregateFunction { func, mut params }) => {
             match bound(&func, &params.args, config)? {
-                Some(func) => Ok(Transformed::yes(Expr::AggregateFunction(
-                    AggregateFunction { func, params },
-                ))),
+                Some(func) => {
+                    drop_prior(&func, &mut params.args);
+                    Ok(Transformed::yes(Expr::AggregateFunction(
+                        AggregateFunction { func, params },
+                    )))
+                }
                 None => Ok(Transformed::no(Expr::AggregateFunction(
                     AggregateFunction { func, params },
                 ))),
@@ -135,6 +153,7 @@ fn bind_expr(e: Expr, config: &Arc<ConfigOptions>) -> Result<Transformed<Expr>> 
             let WindowFunction { fun, params } = w.as_mut();
             if let WindowFunctionDefinition::AggregateUDF(f) = fun {
                 if let Some(b) = bound(f, &params.args, config)? {
+                    drop_prior(&b, &mut params.args);
                     *fun = WindowFunctionDefinition::AggregateUDF(b);
                     return Ok(Transformed::yes(Expr::WindowFunction(w)));
                 }

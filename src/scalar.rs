@@ -86,6 +86,12 @@ impl ScalarFunction {
         ScalarUDF::new_from_impl(ScalarFunction::new(name, op))
     }
 
+    /// `true` for the readers (posterior_mean, posterior_quantile, ...): one number
+    /// per posterior, NULL for a NULL posterior.
+    pub fn is_reader(&self) -> bool {
+        matches!(self.op, Op::Read(_))
+    }
+
     /// A function that also answers to an earlier name.
     pub fn udf_with_alias(name: &'static str, alias: &str, op: Op) -> ScalarUDF {
         let mut f = ScalarFunction::new(name, op);

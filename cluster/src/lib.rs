@@ -85,36 +85,45 @@ impl PhysicalExtensionCodec for PosterityCodec {
         self.ballista.try_encode(node, buf, converter)
     }
 
-    /// A bound fit writes its prior; everything else goes by name alone.
     fn try_encode_udaf(&self, node: &AggregateUDF, buf: &mut Vec<u8>) -> Result<()> {
-        if let Some(prior) = bound_prior(node) {
-            let proto = protobuf::ScalarValue::try_from(&prior).map_err(|e| {
-                DataFusionError::Internal(format!("{}: cannot encode its prior: {e}", node.name()))
-            })?;
-            proto
-                .encode(buf)
-                .map_err(|e| DataFusionError::Internal(e.to_string()))?;
-        }
-        Ok(())
+        encode_bound_prior(node, buf)
     }
 
-    /// Called with the bytes [`try_encode_udaf`](Self::try_encode_udaf) wrote, or with
-    /// none for a function the receiving registry does not hold.
     fn try_decode_udaf(&self, name: &str, buf: &[u8]) -> Result<Arc<AggregateUDF>> {
-        let Some(function) = posterity_aggregate(name) else {
-            return Err(DataFusionError::Plan(format!(
-                "this process does not know the aggregate function '{name}'"
-            )));
-        };
-        if buf.is_empty() {
-            return Ok(Arc::new(function));
-        }
-        let proto = protobuf::ScalarValue::decode(buf)
-            .map_err(|e| DataFusionError::Internal(format!("{name}: prior: {e}")))?;
-        let prior = ScalarValue::try_from(&proto)
-            .map_err(|e| DataFusionError::Internal(format!("{name}: prior: {e}")))?;
-        Ok(Arc::new(rebind(&function, prior)?.unwrap_or(function)))
+        decode_aggregate(name, buf)
     }
+}
+
+/// A bound fit writes its prior beside its name (the plan's prior argument is a
+/// NULL once bound, see `posterity::prior_binding`); everything else goes by name.
+fn encode_bound_prior(node: &AggregateUDF, buf: &mut Vec<u8>) -> Result<()> {
+    if let Some(prior) = bound_prior(node) {
+        let proto = protobuf::ScalarValue::try_from(&prior).map_err(|e| {
+            DataFusionError::Internal(format!("{}: cannot encode its prior: {e}", node.name()))
+        })?;
+        proto
+            .encode(buf)
+            .map_err(|e| DataFusionError::Internal(e.to_string()))?;
+    }
+    Ok(())
+}
+
+/// Called with the bytes [`encode_bound_prior`] wrote, or with none for a
+/// function the receiving registry does not hold.
+fn decode_aggregate(name: &str, buf: &[u8]) -> Result<Arc<AggregateUDF>> {
+    let Some(function) = posterity_aggregate(name) else {
+        return Err(DataFusionError::Plan(format!(
+            "this process does not know the aggregate function '{name}'"
+        )));
+    };
+    if buf.is_empty() {
+        return Ok(Arc::new(function));
+    }
+    let proto = protobuf::ScalarValue::decode(buf)
+        .map_err(|e| DataFusionError::Internal(format!("{name}: prior: {e}")))?;
+    let prior = ScalarValue::try_from(&proto)
+        .map_err(|e| DataFusionError::Internal(format!("{name}: prior: {e}")))?;
+    Ok(Arc::new(rebind(&function, prior)?.unwrap_or(function)))
 }
 
 /// The logical plan codec of client and scheduler: Ballista's, plus encode's
@@ -183,6 +192,14 @@ impl LogicalExtensionCodec for PosterityLogicalCodec {
         node: Arc<dyn datafusion::datasource::file_format::FileFormatFactory>,
     ) -> Result<()> {
         self.ballista.try_encode_file_format(buf, node)
+    }
+
+    fn try_encode_udaf(&self, node: &AggregateUDF, buf: &mut Vec<u8>) -> Result<()> {
+        encode_bound_prior(node, buf)
+    }
+
+    fn try_decode_udaf(&self, name: &str, buf: &[u8]) -> Result<Arc<AggregateUDF>> {
+        decode_aggregate(name, buf)
     }
 }
 

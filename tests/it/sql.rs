@@ -129,6 +129,190 @@ async fn fit_matches_count_and_sum() {
     }
 }
 
+/// 0/1 outcomes give the same posterior in every layout the fit reads natively
+/// (BIGINT, INT, BOOLEAN) or through a cast (SMALLINT, DOUBLE), and a value that is
+/// not 0 or 1 is named in the error whatever its layout.
+#[tokio::test]
+async fn beta_outcomes_in_every_layout() {
+    let c = ctx_with(2, 7).await;
+    let layouts = [
+        "CAST(no_show AS BIGINT)",
+        "no_show",
+        "no_show = 1",
+        "CAST(no_show AS SMALLINT)",
+        "CAST(no_show AS DOUBLE)",
+    ];
+    // One query per layout: the engine leaves casts out of column names, so two
+    // layouts in one query would collide.
+    let mut means = Vec::new();
+    for y in layouts {
+        let sql = format!(
+            "SELECT posterior_mean(beta_posterior({y}, beta_prior(1, 3))) FROM appts GROUP BY breed ORDER BY breed"
+        );
+        means.push(floats(&c, &sql).await);
+    }
+    assert_eq!(means[0].len(), 4);
+    for m in &means {
+        assert_eq!(m, &means[4], "{layouts:?}");
+    }
+    for y in [
+        "CAST(no_show + t AS BIGINT)",
+        "no_show + t",
+        "CAST(no_show + t AS DOUBLE)",
+    ] {
+        let e = error(
+            &c,
+            &format!("SELECT beta_posterior({y}) FROM appts GROUP BY breed"),
+        )
+        .await;
+        assert!(e.contains("beta_posterior") && e.contains("outcome"), "{e}");
+    }
+}
+
+/// Class counts equal the engine's own COUNT per class, whatever the text's
+/// layout (inline and long views, plain and large strings, dictionaries), with
+/// NULL classes skipped, filtered-out unknown classes ignored, a weight column,
+/// and a class list long enough to be looked up by hash.
+#[tokio::test]
+async fn dirichlet_counts_match_count_per_class() {
+    let c = ctx_with(2, 7).await;
+    // 24 classes: short ones, long ones that share their first 12 bytes, and one
+    // exactly 12 bytes long (the longest text a view holds inline).
+    let mut classes: Vec<String> = (0..12).map(|i| format!("c{i}")).collect();
+    classes.extend((0..11).map(|i| format!("long_class_name_{i}")));
+    classes.push("twelve_bytes".into());
+    let rows: Vec<String> = (0..300)
+        .map(|i| {
+            let class = match i % 29 {
+                0 => "NULL".to_string(),
+                1 => "'not_a_class'".to_string(),
+                r => format!("'{}'", classes[(r * 7 + i / 29) % classes.len()]),
+            };
+            format!("({}, {class}, {})", i % 5, 0.5 + (i % 3) as f64)
+        })
+        .collect();
+    query(
+        &c,
+        &format!(
+            "CREATE TABLE cls (g INT, class VARCHAR, w DOUBLE) AS VALUES {}",
+            rows.join(", ")
+        ),
+    )
+    .await;
+    let all: Vec<String> = classes.iter().map(|c| format!("'{c}'")).collect();
+    let prior = format!("dirichlet_prior([{}], 1)", all.join(", "));
+    let few = format!("dirichlet_prior([{}], 1)", all[..3].join(", "));
+    let k = classes.len() as f64;
+    for layout in ["Utf8", "LargeUtf8", "Utf8View", "Dictionary(Int32, Utf8)"] {
+        let text = format!("arrow_cast(class, '{layout}')");
+        for (i, name) in classes.iter().enumerate() {
+            // Every class of a long list, then the first three of a short list.
+            let (p, n) = match i < 3 {
+                true => (&few, "3.0".to_string()),
+                false => (&prior, format!("{k:.1}")),
+            };
+            let keep = match i < 3 {
+                true => format!("class IN ({})", all[..3].join(", ")),
+                false => "class <> 'not_a_class'".to_string(),
+            };
+            let sql = format!(
+                "SELECT posterior_mean(dirichlet_posterior({text}, {p}) FILTER (WHERE {keep}), '{name}') \
+                 - (1 + COUNT(*) FILTER (WHERE class = '{name}')) / ({n} + COUNT(class) FILTER (WHERE {keep})), \
+                 posterior_mean(dirichlet_posterior({text}, {p}, w) FILTER (WHERE {keep}), '{name}') \
+                 - (1 + COALESCE(SUM(w) FILTER (WHERE class = '{name}'), 0)) / ({n} + SUM(w) FILTER (WHERE {keep})) \
+                 FROM cls GROUP BY g"
+            );
+            for b in query(&c, &sql).await {
+                for col in b.columns() {
+                    for d in col.as_primitive::<Float64Type>().iter() {
+                        assert!(d.unwrap().abs() < 1e-15, "{sql}: {d:?}");
+                    }
+                }
+            }
+        }
+        // Unfiltered, the unknown class is an error that names it.
+        let e = error(
+            &c,
+            &format!("SELECT dirichlet_posterior({text}, {prior}) FROM cls GROUP BY g"),
+        )
+        .await;
+        assert!(
+            e.contains("dirichlet_posterior") && e.contains("'not_a_class'"),
+            "{e}"
+        );
+    }
+}
+
+/// Readers over a join are computed on the join's input (once per level) by
+/// `posterity::read_before_join`; the answers, names and NULLs of padded rows
+/// must equal the engine's own plan without the rule.
+#[tokio::test]
+async fn readers_before_a_join_give_the_same_answers() {
+    let with = ctx_with(2, 7).await;
+    let without = ctx_with(2, 7).await;
+    assert!(without.remove_optimizer_rule(posterity::read_before_join::RULE_NAME));
+    let prior = "dirichlet_prior(['attended', 'no_show', 'late_cancel'], 0.5)";
+    for c in [&with, &without] {
+        // collie has no encoding: its rows are padded with NULL by outer joins.
+        query(c, &format!(
+            "CREATE TABLE enc AS SELECT breed, beta_posterior(no_show) AS b, nig_posterior(amount) AS n, \
+             dirichlet_posterior(outcome, {prior}) AS d FROM appts WHERE breed <> 'collie' GROUP BY breed"
+        )).await;
+    }
+    let queries = [
+        // A projection: readers of the encoding side; readers of a computed
+        // posterior or with a parameter from the row side stay above the join
+        // (the COALESCE reads the prior, not NULL, on the padded collie rows).
+        "SELECT a.t, a.breed, posterior_mean(e.b), posterior_var(e.n) AS v, posterior_quantile(e.b, 0.05), \
+         posterior_interval(e.n, 0.9), posterior_mean(e.d, 'no_show'), posterior_data_weight(e.b), \
+         posterior_prob_above(e.n, 60), posterior_mean(posterior_merge(e.b, beta_prior(0.5, 0.5))), \
+         posterior_mean(COALESCE(e.b, beta_prior(1, 3))), \
+         posterior_quantile(e.b, (a.t + 1) / 100.0), COALESCE(posterior_mean(e.b), -1) + a.t \
+         FROM appts a LEFT JOIN enc e ON a.breed = e.breed ORDER BY a.t",
+        "SELECT a.t, posterior_sd(e.n) FROM enc e RIGHT JOIN appts a ON a.breed = e.breed ORDER BY a.t",
+        "SELECT a.t, posterior_mean(e.b) * 2 FROM appts a JOIN enc e USING (breed) ORDER BY a.t",
+        "SELECT e.breed, a.t, posterior_mean(e.b) FROM (SELECT * FROM appts WHERE t < 10) a FULL JOIN enc e \
+         USING (breed) ORDER BY e.breed, a.t",
+        // Aggregates over the join: names kept for the outer query.
+        "SELECT a.breed, SUM(posterior_mean(e.b)) AS s, MAX(posterior_quantile(e.n, 0.9)) \
+         FROM appts a LEFT JOIN enc e USING (breed) GROUP BY a.breed ORDER BY a.breed",
+        "SELECT SUM(posterior_mean(e.b)) FROM appts a LEFT JOIN enc e USING (breed)",
+        // Two encodings of the same level, one from each side.
+        "SELECT posterior_mean(x.b) - posterior_mean(y.b) AS d FROM enc x JOIN enc y ON x.breed = y.breed \
+         ORDER BY d",
+    ];
+    for sql in queries {
+        let a = query(&with, sql).await;
+        let b = query(&without, sql).await;
+        let show = |batches: &[RecordBatch]| {
+            datafusion::arrow::util::pretty::pretty_format_batches(batches)
+                .unwrap()
+                .to_string()
+        };
+        assert_eq!(show(&a), show(&b), "{sql}");
+        assert_eq!(a[0].schema(), b[0].schema(), "{sql}");
+    }
+    // The readers of the first query run below the join in the plan.
+    let plan = with
+        .sql(queries[0])
+        .await
+        .unwrap()
+        .into_optimized_plan()
+        .unwrap()
+        .display_indent()
+        .to_string();
+    let join = plan.lines().position(|l| l.contains("Join")).unwrap();
+    let lines: Vec<&str> = plan.lines().collect();
+    let reader = lines
+        .iter()
+        .rposition(|l| l.contains("posterior_quantile(e.b, Float64(0.05))"))
+        .unwrap();
+    assert!(
+        reader > join,
+        "the reader should run below the join:\n{plan}"
+    );
+}
+
 #[tokio::test]
 async fn unseen_levels_fall_back_to_the_prior() {
     let c = ctx().await;
