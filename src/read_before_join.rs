@@ -75,6 +75,12 @@ impl OptimizerRule for ReadBeforeJoin {
                     let join = join.clone();
                     aggregate_over_join(a, join)
                 }
+                // The engine prunes columns with a projection between the two.
+                LogicalPlan::Projection(p) if matches!(p.input.as_ref(), LogicalPlan::Join(j) if moves_readers(j)) =>
+                {
+                    let p = p.clone();
+                    aggregate_over_projection(a, p)
+                }
                 _ => Ok(Transformed::no(LogicalPlan::Aggregate(a))),
             },
             other => Ok(Transformed::no(other)),
@@ -235,6 +241,87 @@ fn aggregate_over_join(a: Aggregate, join: Join) -> Result<Transformed<LogicalPl
         return Ok(Transformed::no(LogicalPlan::Aggregate(a)));
     }
     let input = Arc::new(moved.join(join)?);
+    renamed_aggregate(&a, input, group, aggr)
+}
+
+/// An aggregate over `Projection(columns) <- Join`: each reader call whose
+/// posterior the projection passes through is computed in the projection
+/// instead, which [`project_over_join`] then moves below the join.
+fn aggregate_over_projection(a: Aggregate, p: Projection) -> Result<Transformed<LogicalPlan>> {
+    let mut added: Vec<Expr> = Vec::new();
+    let mut rewrite = |exprs: &[Expr]| -> Result<Vec<Expr>> {
+        let mut take = |e: Expr| -> Result<Transformed<Expr>> {
+            let Some(call) = through_projection(&e, &p) else {
+                return Ok(Transformed::no(e));
+            };
+            let name = e.schema_name().to_string();
+            if !added.iter().any(|m| m.schema_name().to_string() == name) {
+                added.push(call.alias(name.clone()));
+            }
+            Ok(Transformed::new(
+                Expr::Column(Column::new_unqualified(name)),
+                true,
+                TreeNodeRecursion::Jump,
+            ))
+        };
+        exprs
+            .iter()
+            .map(|e| e.clone().transform_down(&mut take).map(|t| t.data))
+            .collect()
+    };
+    let group = rewrite(&a.group_expr)?;
+    let aggr = rewrite(&a.aggr_expr)?;
+    if added.is_empty() {
+        return Ok(Transformed::no(LogicalPlan::Aggregate(a)));
+    }
+    let LogicalPlan::Join(join) = p.input.as_ref() else {
+        return Ok(Transformed::no(LogicalPlan::Aggregate(a)));
+    };
+    let join = join.clone();
+    let mut exprs = p.expr.clone();
+    exprs.extend(added);
+    let projection = Projection::try_new(exprs, Arc::clone(&p.input))?;
+    let input = Arc::new(project_over_join(projection, join)?.data);
+    renamed_aggregate(&a, input, group, aggr)
+}
+
+/// For a reader call over a column that projection `p` passes through unchanged,
+/// the same call over the projection's input column.
+fn through_projection(e: &Expr, p: &Projection) -> Option<Expr> {
+    if !is_reader(e) {
+        return None;
+    }
+    let Expr::ScalarFunction(f) = e else {
+        return None;
+    };
+    let (Expr::Column(column), rest) = f.args.split_first()? else {
+        return None;
+    };
+    if rest.iter().any(|a| !matches!(a, Expr::Literal(..))) {
+        return None;
+    }
+    let i = p.schema.index_of_column(column).ok()?;
+    let source = match &p.expr[i] {
+        Expr::Column(c) => c.clone(),
+        Expr::Alias(alias) => match alias.expr.as_ref() {
+            Expr::Column(c) => c.clone(),
+            _ => return None,
+        },
+        _ => return None,
+    };
+    let mut f = f.clone();
+    f.args[0] = Expr::Column(source);
+    Some(Expr::ScalarFunction(f))
+}
+
+/// `a` with `group` and `aggr` over `input`, under a projection that gives every
+/// output column its old name.
+fn renamed_aggregate(
+    a: &Aggregate,
+    input: Arc<LogicalPlan>,
+    group: Vec<Expr>,
+    aggr: Vec<Expr>,
+) -> Result<Transformed<LogicalPlan>> {
     let aggregate = LogicalPlan::Aggregate(Aggregate::try_new(input, group, aggr)?);
     let renamed: Vec<Expr> = aggregate
         .schema()
