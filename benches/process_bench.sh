@@ -1,7 +1,8 @@
 #!/usr/bin/env bash
 # Whole processes, as a user runs them: the release shell against the engine's own
 # aggregates and against a polars script with hand formulas, each reading the same
-# Parquet file from disk, start-up included. Median of RUNS (default 5) per task.
+# Parquet file (from the page cache: one untimed run first), start-up included.
+# Median of RUNS (default 5) per task.
 #
 #   benches/process_bench.sh [ROWS] [LEVELS]      (default 10000000 30000)
 #
@@ -39,9 +40,13 @@ print(df.join(enc, on="key", how="left").select(pl.col("mean").sum()).item())
 polars_startup='import polars'
 
 median() { sort -n | awk '{a[NR]=$1} END {print a[int((NR+1)/2)]}'; }
-time_of() { # command... -> median wall seconds of $runs runs
+time_of() { # command... -> median wall seconds of $runs runs, after one untimed run
+  "$@" >/dev/null
   for _ in $(seq "$runs"); do
-    /usr/bin/time -f "%e" "$@" 2>&1 >/dev/null | tail -1
+    start=$(date +%s.%N)
+    "$@" >/dev/null
+    end=$(date +%s.%N)
+    awk -v a="$start" -v b="$end" 'BEGIN {printf "%.3f\n", b - a}'
   done | median
 }
 
