@@ -28,6 +28,7 @@ def variants(keys):
         "every key posterior": every_key_posterior,
         "readers mean,sd": ["--readers", "mean,sd"],
         "indicators 0": ["--indicators", "0"],
+        "indicators 0 + evidence full": ["--indicators", "0", "--score-evidence", "full"],
     }
 
 
