@@ -14,7 +14,9 @@
 //! left, right or full join, with constants for its other arguments. Rows that an
 //! outer join pads with NULL read NULL either way, because every reader of a NULL
 //! posterior is NULL. Output names are kept: moved calls are aliased back to what
-//! the user wrote.
+//! the user wrote. The price is one reader per row of that side, matched or not;
+//! the join reads that side whole anyway, and it is usually the smaller one (a
+//! level table), so no size estimate is needed.
 
 use std::sync::Arc;
 
