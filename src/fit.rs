@@ -1013,7 +1013,6 @@ fn decode_prior<K: FitKernel>(prior: &ScalarValue) -> Result<K> {
 }
 
 impl<K: FitKernel> FitAggregate<K> {
-    /// The kernel for one call: the prior argument must be a planning-time constant.
     /// The kernel for a call: a bound instance's own prior, else the call's.
     fn kernel_for(&self, args: &AccumulatorArgs) -> Result<K> {
         match &self.prior {
@@ -1022,6 +1021,7 @@ impl<K: FitKernel> FitAggregate<K> {
         }
     }
 
+    /// The kernel for one call: the prior argument must be a planning-time constant.
     fn kernel(args: &AccumulatorArgs) -> Result<K> {
         let Some(expr) = args.exprs.get(K::PRIOR_ARG) else {
             return K::new(None);

@@ -98,15 +98,43 @@ fn moves_readers(join: &Join) -> bool {
     )
 }
 
-/// `true` for a posterity reader (posterior_mean, posterior_quantile, ...).
-fn is_reader(e: &Expr) -> bool {
+/// The posterior column a movable reader call reads: a posterity reader
+/// (posterior_mean, posterior_quantile, ...) whose posterior is a column and whose
+/// other arguments are constants. A computed posterior stays where it is:
+/// `COALESCE(e.p, prior)` is not NULL on the rows an outer join pads, so its reader
+/// is not NULL there either.
+fn movable_posterior(e: &Expr) -> Option<&Column> {
     let Expr::ScalarFunction(f) = e else {
-        return false;
+        return None;
     };
     let inner: &dyn ScalarUDFImpl = f.func.inner().as_ref();
-    inner
+    if !inner
         .downcast_ref::<ScalarFunction>()
         .is_some_and(ScalarFunction::is_reader)
+    {
+        return None;
+    }
+    let (Expr::Column(column), rest) = f.args.split_first()? else {
+        return None;
+    };
+    let constants = rest.iter().all(|a| matches!(a, Expr::Literal(..)));
+    constants.then_some(column)
+}
+
+/// Replace, inside `e`, each call that `claim` takes by a column named like the
+/// call (the name it has in the plan); `claim` records where the call goes.
+fn replace_calls(e: Expr, mut claim: impl FnMut(&Expr) -> bool) -> Result<Transformed<Expr>> {
+    e.transform_down(|e| {
+        if !claim(&e) {
+            return Ok(Transformed::no(e));
+        }
+        let name = e.schema_name().to_string();
+        Ok(Transformed::new(
+            Expr::Column(Column::new_unqualified(name)),
+            true,
+            TreeNodeRecursion::Jump,
+        ))
+    })
 }
 
 /// The reader calls to compute on each side of a join, and their column names.
@@ -120,12 +148,9 @@ impl Moved {
     /// Replace, inside `e`, each reader call that reads one side only by a
     /// column of that side's new projection.
     fn take(&mut self, e: Expr, join: &Join) -> Result<Transformed<Expr>> {
-        e.transform_down(|e| {
-            if !is_reader(&e) {
-                return Ok(Transformed::no(e));
-            }
-            let Some(side) = one_side(&e, join) else {
-                return Ok(Transformed::no(e));
+        replace_calls(e, |e| {
+            let Some(side) = one_side(e, join) else {
+                return false;
             };
             let name = e.schema_name().to_string();
             let (exprs, schema) = match side {
@@ -134,16 +159,12 @@ impl Moved {
             };
             // A side that already has a column of that name keeps the call here.
             if schema.fields().iter().any(|f| f.name() == &name) {
-                return Ok(Transformed::no(e));
+                return false;
             }
             if !exprs.iter().any(|m| m.schema_name().to_string() == name) {
-                exprs.push(e);
+                exprs.push(e.clone());
             }
-            Ok(Transformed::new(
-                Expr::Column(Column::new_unqualified(name)),
-                true,
-                TreeNodeRecursion::Jump,
-            ))
+            true
         })
     }
 
@@ -188,21 +209,9 @@ enum Side {
     Right,
 }
 
-/// The side of `join` a reader call reads, when it reads a posterior column of
-/// one side and takes constants for the rest. A computed posterior stays above
-/// the join: `COALESCE(e.p, prior)` is not NULL on the rows a join pads, so its
-/// reader is not NULL there either.
+/// The one side of `join` whose posterior column a movable reader call reads.
 fn one_side(e: &Expr, join: &Join) -> Option<Side> {
-    let Expr::ScalarFunction(f) = e else {
-        return None;
-    };
-    let (posterior, rest) = f.args.split_first()?;
-    let Expr::Column(column) = posterior else {
-        return None;
-    };
-    if rest.iter().any(|a| !matches!(a, Expr::Literal(..))) {
-        return None;
-    }
+    let column = movable_posterior(e)?;
     let within = |schema: &DFSchema| schema.has_column(column);
     match (within(join.left.schema()), within(join.right.schema())) {
         (true, false) => Some(Side::Left),
@@ -252,23 +261,19 @@ fn aggregate_over_join(a: Aggregate, join: Join) -> Result<Transformed<LogicalPl
 fn aggregate_over_projection(a: Aggregate, p: Projection) -> Result<Transformed<LogicalPlan>> {
     let mut added: Vec<Expr> = Vec::new();
     let mut rewrite = |exprs: &[Expr]| -> Result<Vec<Expr>> {
-        let mut take = |e: Expr| -> Result<Transformed<Expr>> {
-            let Some(call) = through_projection(&e, &p) else {
-                return Ok(Transformed::no(e));
+        let mut claim = |e: &Expr| {
+            let Some(call) = through_projection(e, &p) else {
+                return false;
             };
             let name = e.schema_name().to_string();
             if !added.iter().any(|m| m.schema_name().to_string() == name) {
-                added.push(call.alias(name.clone()));
+                added.push(call.alias(name));
             }
-            Ok(Transformed::new(
-                Expr::Column(Column::new_unqualified(name)),
-                true,
-                TreeNodeRecursion::Jump,
-            ))
+            true
         };
         exprs
             .iter()
-            .map(|e| e.clone().transform_down(&mut take).map(|t| t.data))
+            .map(|e| replace_calls(e.clone(), &mut claim).map(|t| t.data))
             .collect()
     };
     let group = rewrite(&a.group_expr)?;
@@ -287,21 +292,10 @@ fn aggregate_over_projection(a: Aggregate, p: Projection) -> Result<Transformed<
     renamed_aggregate(&a, input, group, aggr)
 }
 
-/// For a reader call over a column that projection `p` passes through unchanged,
-/// the same call over the projection's input column.
+/// For a movable reader call over a column that projection `p` passes through
+/// unchanged, the same call over the projection's input column.
 fn through_projection(e: &Expr, p: &Projection) -> Option<Expr> {
-    if !is_reader(e) {
-        return None;
-    }
-    let Expr::ScalarFunction(f) = e else {
-        return None;
-    };
-    let (Expr::Column(column), rest) = f.args.split_first()? else {
-        return None;
-    };
-    if rest.iter().any(|a| !matches!(a, Expr::Literal(..))) {
-        return None;
-    }
+    let column = movable_posterior(e)?;
     let i = p.schema.index_of_column(column).ok()?;
     let source = match &p.expr[i] {
         Expr::Column(c) => c.clone(),
@@ -311,7 +305,9 @@ fn through_projection(e: &Expr, p: &Projection) -> Option<Expr> {
         },
         _ => return None,
     };
-    let mut f = f.clone();
+    let Expr::ScalarFunction(mut f) = e.clone() else {
+        return None;
+    };
     f.args[0] = Expr::Column(source);
     Some(Expr::ScalarFunction(f))
 }
