@@ -12,10 +12,9 @@ import tempfile
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from evaluate import MISSING, TASKS, fit_predict, losses, metric, posterity_encodings  # noqa: E402
+from evaluate import TASKS, held_out_score, posterity_encodings, split  # noqa: E402
 
 SEEDS = [0, 1]
 
@@ -44,11 +43,7 @@ def main():
         for task, (loader, kind) in TASKS.items():
             if wanted and not any(task.startswith(w) for w in wanted):
                 continue
-            frame, keys, numeric, y, is_train = loader()
-            for k in keys:
-                frame[k] = frame[k].astype("string").fillna(MISSING).astype(str)
-            tr, te = frame[is_train.values], frame[~is_train.values]
-            ytr, yte = y[is_train.values], y[~is_train.values].values
+            keys, numeric, tr, te, ytr, yte = split(loader)
             for name, extra in variants(keys).items():
                 if only and name not in only:
                     continue
@@ -59,10 +54,7 @@ def main():
                     readers, extra = extra[i + 1], extra[:i] + extra[i + 2:]
                 for seed in SEEDS:
                     ftr, fte = posterity_encodings(tr, te, ytr, keys, seed, readers, Path(d), extra)
-                    xtr = pd.concat([tr[numeric], ftr], axis=1).to_numpy(dtype=float)
-                    xte = pd.concat([te[numeric], fte], axis=1).to_numpy(dtype=float)
-                    pred = fit_predict(kind, xtr, ytr.values, xte, seed)
-                    scores.append(metric(kind, losses(kind, yte, pred)))
+                    scores.append(held_out_score(kind, numeric, tr, te, ftr, fte, ytr, yte, seed))
                 print(f"{task.split(' ')[0]:<22} {name:<28} {np.mean(scores):.4f}", flush=True)
 
 

@@ -184,12 +184,31 @@ def metric(kind, row_losses):
     return row_losses.mean() if kind == "binary" else np.sqrt(row_losses.mean())
 
 
-def evaluate(task, loader, kind, work):
+def split(loader):
+    """A task's rows split in time, keys as text: (keys, numeric, tr, te, ytr, yte)."""
     frame, keys, numeric, y, is_train = loader()
     for k in keys:
         frame[k] = frame[k].astype("string").fillna(MISSING).astype(str)
     tr, te = frame[is_train.values], frame[~is_train.values]
     ytr, yte = y[is_train.values], y[~is_train.values].values
+    return keys, numeric, tr, te, ytr, yte
+
+
+def task_named(prefix):
+    """The task whose name starts with `prefix`: (name, loader, kind)."""
+    name = next(t for t in TASKS if t.startswith(prefix))
+    return (name, *TASKS[name])
+
+
+def held_out_score(kind, numeric, tr, te, ftr, fte, ytr, yte, seed):
+    """The metric on the held-out rows of the learner fed the numeric columns and features."""
+    xtr = pd.concat([tr[numeric], ftr], axis=1).to_numpy(dtype=float)
+    xte = pd.concat([te[numeric], fte], axis=1).to_numpy(dtype=float)
+    return metric(kind, losses(kind, yte, fit_predict(kind, xtr, ytr.values, xte, seed)))
+
+
+def evaluate(task, loader, kind, work):
+    keys, numeric, tr, te, ytr, yte = split(loader)
     results = {e: [] for e in ENCODINGS}
     row_losses = {e: [] for e in ENCODINGS}
     for seed in SEEDS:

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from evaluate import MISSING, TASKS, fit_predict, losses, metric, posterity_bin  # noqa: E402
+from evaluate import held_out_score, posterity_bin, split, task_named  # noqa: E402
 
 # (task prefix, time of a row, half-lives in that time's units)
 PROBES = [
@@ -43,25 +43,17 @@ def encodings(tr, te, ytr, keys, t, seed, work, extra):
 def main():
     with tempfile.TemporaryDirectory() as d:
         for prefix, time_of, half_lives in PROBES:
-            task = next(t for t in TASKS if t.startswith(prefix))
-            loader, kind = TASKS[task]
-            frame, keys, numeric, y, is_train = loader()
-            for k in keys:
-                frame[k] = frame[k].astype("string").fillna(MISSING).astype(str)
-            t = time_of(frame)
-            tr, te = frame[is_train.values], frame[~is_train.values]
-            ytr, yte = y[is_train.values], y[~is_train.values].values
+            _, loader, kind = task_named(prefix)
+            keys, numeric, tr, te, ytr, yte = split(loader)
+            t = time_of(tr)
             variants = {"defaults": []}
             for h in half_lives:
                 variants[f"half-life {h:g}"] = ["--half-life", str(h), "--time-column", "t"]
             for name, extra in variants.items():
                 scores = []
                 for seed in [0, 1]:
-                    ftr, fte = encodings(tr, te, ytr, keys, t[is_train.values], seed, Path(d), extra)
-                    xtr = pd.concat([tr[numeric], ftr], axis=1).to_numpy(dtype=float)
-                    xte = pd.concat([te[numeric], fte], axis=1).to_numpy(dtype=float)
-                    pred = fit_predict(kind, xtr, ytr.values, xte, seed)
-                    scores.append(metric(kind, losses(kind, yte, pred)))
+                    ftr, fte = encodings(tr, te, ytr, keys, t, seed, Path(d), extra)
+                    scores.append(held_out_score(kind, numeric, tr, te, ftr, fte, ytr, yte, seed))
                 print(f"{prefix:<16} {name:<18} {np.mean(scores):.4f}", flush=True)
 
 
