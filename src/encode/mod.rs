@@ -32,13 +32,15 @@
 //! ```
 
 mod options;
+mod recency;
 mod resolve;
 mod run;
 mod sql;
 mod update;
 
 pub use options::{
-    EncodeOptions, Method, PriorChoice, Reader, ScoreEvidence, TimeTies, Treatment, LOO_REFUSED,
+    EncodeOptions, HalfLife, Method, PriorChoice, Reader, ScoreEvidence, TimeTies, Treatment,
+    LOO_REFUSED,
 };
 pub use resolve::{feature_columns, resolve, EncodePlan, KeyPlan, OutputColumn};
 pub use run::{

@@ -42,6 +42,31 @@ impl Method {
     }
 }
 
+/// Recency weighting of out-of-fold fits (`--half-life`).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum HalfLife {
+    /// A row this many time units older than the newest training row counts half.
+    Units(f64),
+    /// Chosen per key from the training rows: the latest fifth of them scored by
+    /// fits of the earlier rows under each candidate half-life (`recency.rs`).
+    Fitted,
+}
+
+impl HalfLife {
+    /// `fitted`, or a number of time units.
+    pub fn parse(text: &str) -> Result<HalfLife> {
+        match text.trim() {
+            "fitted" => Ok(HalfLife::Fitted),
+            t => match t.parse::<f64>() {
+                Ok(h) => Ok(HalfLife::Units(h)),
+                Err(_) => usage(format!(
+                    "--half-life '{t}' is not a number of time units or 'fitted'"
+                )),
+            },
+        }
+    }
+}
+
 /// How as-of encodings treat rows that share a time.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
 pub enum TimeTies {
@@ -347,8 +372,9 @@ pub struct EncodeOptions {
     /// Key text through `normalize_key` (NFKC, case, white space) before encoding.
     pub normalize_keys: bool,
     /// Recency weighting: a row `h` time units older than the newest training row
-    /// counts 2^(-age/h) (out-of-fold encodings; needs a numeric time column).
-    pub half_life: Option<f64>,
+    /// (for as-of encodings: than the row being encoded) counts 2^(-age/h); needs a
+    /// numeric time column; `Fitted` chooses `h` per key from the training rows.
+    pub half_life: Option<HalfLife>,
     pub time_ties: TimeTies,
     /// Exposure column of a Gamma target.
     pub exposure: Option<String>,
@@ -410,20 +436,25 @@ impl EncodeOptions {
 
     /// The method after defaults, checked against the other options.
     pub fn method(&self) -> Result<Method> {
-        if let Some(h) = self.half_life {
-            if !(h.is_finite() && h > 0.0) {
-                return usage(format!(
-                    "--half-life {h} is out of range; allowed: a finite number > 0 (in the time \
-                     column's units)"
-                ));
+        if let Some(half_life) = self.half_life {
+            if let HalfLife::Units(h) = half_life {
+                if !(h.is_finite() && h > 0.0) {
+                    return usage(format!(
+                        "--half-life {h} is out of range; allowed: a finite number > 0 (in the \
+                         time column's units) or 'fitted'"
+                    ));
+                }
             }
-            return match (self.method, &self.time_column) {
-                (_, None) => usage("--half-life needs --time-column (the age of each row)"),
-                (Some(Method::Time), _) => usage(
-                    "--half-life weights out-of-fold encodings by age; as-of encodings \
-                     (--method time) already see only the past: use --method kfold",
+            // Out-of-fold unless as-of is asked for (a half-life once meant out-of-fold
+            // encodings only; as-of encodings take a given one).
+            return match (self.method, &self.time_column, half_life) {
+                (_, None, _) => usage("--half-life needs --time-column (the age of each row)"),
+                (Some(Method::Time), _, HalfLife::Fitted) => usage(
+                    "--half-life fitted chooses a half-life for out-of-fold encodings (--method \
+                     kfold); for as-of encodings (--method time) give a number of time units",
                 ),
-                _ => Ok(Method::Kfold),
+                (Some(m), _, _) => Ok(m),
+                (None, _, _) => Ok(Method::Kfold),
             };
         }
         match (self.method, &self.time_column) {

@@ -6,7 +6,9 @@ use datafusion::arrow::compute::cast;
 use datafusion::arrow::datatypes::{DataType, Float64Type, Int64Type};
 use datafusion::prelude::SessionContext;
 
-use super::options::{EncodeOptions, Method, PriorChoice, Reader, ScoreEvidence, Treatment};
+use super::options::{
+    EncodeOptions, HalfLife, Method, PriorChoice, Reader, ScoreEvidence, Treatment,
+};
 use super::{quote, sanitize, text, usage, EncodeError, Result};
 use crate::layout::Kind;
 
@@ -27,6 +29,11 @@ pub struct KeyPlan {
     pub indicators: usize,
     /// ...that have at least this many rows.
     pub indicator_min_rows: f64,
+    /// Recency weighting of its fits: a row this many time units older than the
+    /// newest training row counts half.
+    pub half_life: Option<f64>,
+    /// How the half-life was chosen, in the user's words (empty without one asked).
+    pub recency: String,
 }
 
 impl KeyPlan {
@@ -40,6 +47,8 @@ impl KeyPlan {
             why: String::new(),
             indicators: options.indicators,
             indicator_min_rows: options.indicator_min_rows,
+            half_life: None,
+            recency: String::new(),
         }
     }
 
@@ -98,8 +107,10 @@ pub struct EncodePlan {
     pub train_columns: Vec<String>,
     /// The scoring table's columns, in order.
     pub score_columns: Vec<String>,
-    /// With a half-life: the newest time in the training rows (ages count from it).
+    /// With a half-life: the newest time in the training rows (ages count from it)...
     pub newest_time: Option<f64>,
+    /// ...and the oldest (as-of encodings scale their running sums from it).
+    pub oldest_time: Option<f64>,
     /// The factor on each level's data in the posteriors that score rows (1: all of it).
     pub score_scale: f64,
 }
@@ -612,7 +623,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         .await
         .map_err(|e| EncodeError::Usage(format!("--prior: {}", e.strip_backtrace())))?;
 
-    let newest_time = match (&options.half_life, &options.time_column) {
+    let time_range = match (&options.half_life, &options.time_column) {
         (Some(_), Some(time)) => {
             let numeric = train
                 .iter()
@@ -624,16 +635,35 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
             }
             let b = one_row(
                 ctx,
-                &format!("SELECT CAST(MAX({}) AS DOUBLE) FROM {from}", quote(time)),
+                &format!(
+                    "SELECT CAST(MIN({0}) AS DOUBLE), CAST(MAX({0}) AS DOUBLE) FROM {from}",
+                    quote(time)
+                ),
             )
             .await?;
-            let c = b.column(0).as_primitive::<Float64Type>();
-            if c.is_null(0) {
+            let (oldest, newest) = (
+                b.column(0).as_primitive::<Float64Type>(),
+                b.column(1).as_primitive::<Float64Type>(),
+            );
+            if newest.is_null(0) {
                 return usage(format!("--time-column '{time}' has no values"));
             }
-            Some(c.value(0))
+            let (oldest, newest) = (oldest.value(0), newest.value(0));
+            if !(oldest.is_finite() && newest.is_finite()) {
+                return usage(format!(
+                    "--time-column '{time}' has a non-finite value; allowed: finite numbers"
+                ));
+            }
+            if let (Method::Time, Some(HalfLife::Units(h))) = (method, options.half_life) {
+                check_as_of_half_life(h, newest - oldest)?;
+            }
+            Some((oldest, newest))
         }
         _ => None,
+    };
+    let (oldest_time, newest_time) = match time_range {
+        Some((oldest, newest)) => (Some(oldest), Some(newest)),
+        None => (None, None),
     };
     let score_scale = match (method, options.score_evidence) {
         (Method::Kfold, ScoreEvidence::Matched) => {
@@ -641,8 +671,9 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         }
         _ => 1.0,
     };
-    let plan = EncodePlan {
+    let mut plan = EncodePlan {
         newest_time,
+        oldest_time,
         score_scale,
         options: options.clone(),
         family,
@@ -655,7 +686,52 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         score_columns,
     };
     check_output_names(&plan)?;
+    choose_half_lives(ctx, &mut plan).await?;
     Ok(plan)
+}
+
+/// The most half-lives as-of encodings span: their running sums weigh the newest
+/// rows 2^(period / half-life) times the oldest, which must stay a finite number.
+const MAX_AS_OF_HALF_LIVES: f64 = 1000.0;
+
+fn check_as_of_half_life(h: f64, period: f64) -> Result<()> {
+    if period / h > MAX_AS_OF_HALF_LIVES {
+        return usage(format!(
+            "--half-life {h} is out of range for as-of encodings over a training period of {} \
+             time units; allowed: at least {} (1/{MAX_AS_OF_HALF_LIVES} of the period), or \
+             --method kfold",
+            crate::render::short(period),
+            crate::render::short(period / MAX_AS_OF_HALF_LIVES)
+        ));
+    }
+    Ok(())
+}
+
+/// Each posterior key's half-life: the one given, or fitted per key.
+async fn choose_half_lives(ctx: &SessionContext, plan: &mut EncodePlan) -> Result<()> {
+    let cut = match plan.options.half_life {
+        None => return Ok(()),
+        Some(HalfLife::Units(h)) => {
+            for key in &mut plan.keys {
+                key.half_life = Some(h);
+            }
+            return Ok(());
+        }
+        Some(HalfLife::Fitted) => {
+            // The trial folds rows by their number, as encode's training rows are.
+            crate::numbered::register(ctx, &plan.options.train, super::sql::TRAIN).await?;
+            super::recency::cut(ctx, plan).await?
+        }
+    };
+    for i in 0..plan.keys.len() {
+        if plan.keys[i].treatment != Treatment::Posterior {
+            continue;
+        }
+        let (h, why) = super::recency::fit_half_life(ctx, plan, &plan.keys[i], cut).await?;
+        plan.keys[i].half_life = h;
+        plan.keys[i].recency = why;
+    }
+    Ok(())
 }
 
 /// Output columns must not collide with each other or with the input columns.

@@ -50,6 +50,9 @@ pub struct ColumnSummary {
     /// What the key became in the training and scored tables, and why.
     pub treatment: Treatment,
     pub why: String,
+    /// The recency weighting of its fits (`--half-life`), and how it was chosen.
+    pub half_life: Option<f64>,
+    pub recency: String,
     pub warnings: Vec<String>,
 }
 
@@ -350,6 +353,8 @@ pub(super) async fn finish(
             merged_levels,
             treatment: key.treatment,
             why: key.why.clone(),
+            half_life: key.half_life,
+            recency: key.recency.clone(),
             warnings,
         });
         columns.insert(
@@ -421,6 +426,7 @@ pub fn summary_json(summary: &[ColumnSummary]) -> Value {
                     "at_bound": s.at_bound, "levels": s.levels, "rows": s.rows,
                     "indicators": s.indicators, "merged_levels": s.merged_levels,
                     "treatment": s.treatment.name(), "why": s.why,
+                    "half_life": s.half_life, "recency": s.recency,
                     "unseen_share": s.unseen_share, "warnings": s.warnings,
                 })
             })
@@ -454,6 +460,9 @@ pub fn summary_table(summary: &[ColumnSummary]) -> String {
     for s in summary {
         if !s.why.is_empty() {
             out.push_str(&format!("{} as {}: {}\n", s.key, s.treatment.name(), s.why));
+        }
+        if !s.recency.is_empty() {
+            out.push_str(&format!("{}: {}\n", s.key, s.recency));
         }
         if s.merged_levels > 0 {
             out.push_str(&format!(

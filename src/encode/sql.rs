@@ -63,26 +63,55 @@ fn output(name: impl Into<String>, query: String) -> Statement {
 impl EncodePlan {
     /// The fit of the target over table alias `t` for `key` (its own prior when it
     /// has one, else the base prior; re-priored later when the prior is fitted).
+    /// With the key's half-life, each row weighs 2^(-age / half-life), its age counted
+    /// from the newest training row (a row with no time weighs nothing).
     fn fit(&self, key: &KeyPlan) -> String {
-        let y = format!("t.{}", quote(&self.options.target));
-        let prior = key.prior.as_ref().unwrap_or(&self.base_prior);
-        // With a half-life, each row weighs 2^(-age / half-life), its age counted from
-        // the newest training row (a row with no time weighs nothing).
-        let weight = match (
-            self.newest_time,
-            self.options.half_life,
-            &self.options.time_column,
-        ) {
+        let weight = match (self.newest_time, key.half_life, &self.options.time_column) {
             (Some(newest), Some(h), Some(time)) => Some(format!(
                 "decay_weight({newest} - CAST(t.{} AS DOUBLE), {h})",
                 quote(time)
             )),
             _ => None,
         };
-        let w = weight
-            .as_ref()
-            .map(|w| format!(", {w}"))
-            .unwrap_or_default();
+        self.fit_with_weight(key, weight.as_deref())
+    }
+
+    /// As-of encodings with a half-life: a row at time `t_j` seen from time `t`
+    /// counts 2^(-(t - t_j)/h) = 2^(-(t - t0)/h) * 2^((t_j - t0)/h), t0 the oldest
+    /// training time, so a running (window) sum of fits weighted by the second factor
+    /// (growing with time, at most 2^1000: `resolve` checks the period) is scaled by
+    /// the first (at most 1) at each row's time. Returns the fit with the growing
+    /// weights, and how to scale a pooled posterior `p` read at time `time`; `None`
+    /// without a half-life.
+    pub(super) fn as_of_decay(
+        &self,
+        key: &KeyPlan,
+    ) -> Option<(String, impl Fn(&str, &str) -> String)> {
+        let (h, oldest, time) = (
+            key.half_life?,
+            self.oldest_time?,
+            self.options.time_column.as_ref()?,
+        );
+        let growing = format!(
+            "power(2.0, (CAST(t.{} AS DOUBLE) - {oldest}) / {h})",
+            quote(time)
+        );
+        Some((
+            self.fit_with_weight(key, Some(&growing)),
+            move |p: &str, time: &str| {
+                format!(
+                    "posterior_scale({p}, power(2.0, -(CAST({time} AS DOUBLE) - {oldest}) / {h}))"
+                )
+            },
+        ))
+    }
+
+    /// The fit of the target over table alias `t` for `key`, each row weighted by
+    /// the SQL `weight` when given.
+    pub(super) fn fit_with_weight(&self, key: &KeyPlan, weight: Option<&str>) -> String {
+        let y = format!("t.{}", quote(&self.options.target));
+        let prior = key.prior.as_ref().unwrap_or(&self.base_prior);
+        let w = weight.map(|w| format!(", {w}")).unwrap_or_default();
         match self.family {
             Kind::Beta => format!("beta_posterior({y}, {prior}{w})"),
             Kind::Nig => format!("nig_posterior({y}, {prior}{w})"),
@@ -91,7 +120,7 @@ impl EncodePlan {
                     Some(x) => format!("t.{}", quote(x)),
                     None => "1.0".into(),
                 };
-                match &weight {
+                match weight {
                     // Weighted Poisson rows: events and exposure both scaled.
                     Some(w) => format!("gamma_posterior({y} * {w}, {exposure} * {w}, {prior})"),
                     None => format!("gamma_posterior({y}, {exposure}, {prior})"),
@@ -414,11 +443,16 @@ impl EncodePlan {
             }
             (Method::Time, TimeTies::Strict) => {
                 let time = quote(o.time_column.as_deref().unwrap_or_default());
+                let pooled = "posterior_pool(p) OVER (PARTITION BY level ORDER BY __time ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)";
+                let (fit, pooled) = match self.as_of_decay(key) {
+                    Some((fit, scale)) => (fit, scale(pooled, "__time")),
+                    None => (fit.to_string(), pooled.to_string()),
+                };
                 (
                     "as-of",
                     format!(
                         "SELECT level, __time, {} FROM (SELECT level, __time, COALESCE({}, q.prior) AS p FROM \
-                         (SELECT level, __time, posterior_pool(p) OVER (PARTITION BY level ORDER BY __time ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING) AS p \
+                         (SELECT level, __time, {pooled} AS p \
                          FROM (SELECT __k{i} AS level, t.{time} AS __time, {fit} AS p FROM __keyed t WHERE __k{i} IS NOT NULL AND t.{time} IS NOT NULL GROUP BY __k{i}, t.{time})) \
                          CROSS JOIN {prior} q)",
                         self.with_readers("p", key, "p"),
@@ -429,9 +463,13 @@ impl EncodePlan {
             }
             (Method::Time, TimeTies::FileOrder) => {
                 let time = quote(o.time_column.as_deref().unwrap_or_default());
-                let window = format!(
-                    "{fit} OVER (PARTITION BY __k{i} ORDER BY t.{time}, t.__row ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)"
+                let over = format!(
+                    "OVER (PARTITION BY __k{i} ORDER BY t.{time}, t.__row ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)"
                 );
+                let window = match self.as_of_decay(key) {
+                    Some((fit, scale)) => scale(&format!("{fit} {over}"), &format!("t.{time}")),
+                    None => format!("{fit} {over}"),
+                };
                 (
                     "as-of in file order",
                     format!(

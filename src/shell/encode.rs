@@ -89,9 +89,10 @@ pub struct EncodeArgs {
     #[arg(long)]
     pub time_column: Option<String>,
     /// Recency weighting for out-of-fold encodings: a row this many time units older than
-    /// the newest counts half (needs a numeric --time-column).
-    #[arg(long, value_name = "UNITS")]
-    pub half_life: Option<f64>,
+    /// the newest counts half (needs a numeric --time-column); `fitted` chooses it per key
+    /// from the training rows (the latest fifth scored by fits of the rest).
+    #[arg(long, value_name = "UNITS|fitted")]
+    pub half_life: Option<String>,
     /// Normalise key text first (Unicode compatibility form, case, white space), so
     /// "Golden Retriever" and " golden  retriever" are one level.
     #[arg(long)]
@@ -209,7 +210,11 @@ fn options(args: &EncodeArgs) -> Result<EncodeOptions, Failure> {
     o.folds = args.folds;
     o.seed = args.seed;
     o.time_column = args.time_column.as_ref().map(|t| t.trim().to_string());
-    o.half_life = args.half_life;
+    o.half_life = args
+        .half_life
+        .as_deref()
+        .map(encode::HalfLife::parse)
+        .transpose()?;
     o.normalize_keys = args.normalize_keys;
     o.time_ties = match args.time_ties {
         TimeTies::Strict => encode::TimeTies::Strict,

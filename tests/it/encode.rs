@@ -670,6 +670,7 @@ fn snapshot_plan() -> posterity::encode::EncodePlan {
         ],
         score_columns: vec!["a\"b".into(), "naïve café".into(), "{y}".into()],
         newest_time: None,
+        oldest_time: None,
     }
 }
 
@@ -1178,6 +1179,94 @@ async fn half_life_weights_rows_by_age() {
     assert_eq!(o.status.code(), Some(2));
 }
 
+// As-of encodings with a half-life: a row at day t reads its level's rows of
+// earlier days, each weighted 2^(-(t - day)/H); equal to that sum computed
+// independently with power() in SQL. A half-life too short for the running sums
+// over the period is refused, as is fitting one for as-of encodings.
+#[tokio::test]
+async fn as_of_half_life_weights_earlier_rows_by_their_age() {
+    let dir = temp_dir("as-of-half-life");
+    let out = dir.join("out");
+    encode(&[
+        "--train",
+        &sample(),
+        "--target",
+        "no_show",
+        "--columns",
+        "breed",
+        "--time-column",
+        "day",
+        "--method",
+        "time",
+        "--half-life",
+        "60",
+        "--prior",
+        "2,18",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    let ctx = SessionContext::new();
+    ctx.register_csv("a", &sample(), Default::default())
+        .await
+        .unwrap();
+    ctx.register_parquet(
+        "enc",
+        out.join("train_encoded.parquet").to_str().unwrap(),
+        ParquetReadOptions::default(),
+    )
+    .await
+    .unwrap();
+    let sql = "WITH g AS (SELECT DISTINCT breed, day FROM a WHERE breed IS NOT NULL),
+        hand AS (SELECT g.breed, g.day,
+            (2.0 + COALESCE(SUM(power(0.5, (g.day - a.day) / 60.0) * a.no_show), 0))
+              / (20.0 + COALESCE(SUM(power(0.5, (g.day - a.day) / 60.0)), 0)) AS m,
+            (2.0 + COALESCE(SUM(a.no_show), 0)) / (20.0 + COUNT(a.no_show)) AS unweighted
+            FROM g LEFT JOIN a ON a.breed = g.breed AND a.day < g.day GROUP BY g.breed, g.day)
+        SELECT MAX(ABS(e.breed_mean - h.m)), COUNT(*), MAX(ABS(e.breed_mean - h.unweighted))
+        FROM enc e JOIN hand h ON e.breed = h.breed AND e.day = h.day";
+    let b = ctx.sql(sql).await.unwrap().collect().await.unwrap();
+    let worst = b[0].column(0).as_primitive::<Float64Type>().value(0);
+    let rows = b[0].column(1).as_primitive::<Int64Type>().value(0);
+    let unweighted = b[0].column(2).as_primitive::<Float64Type>().value(0);
+    assert!(rows > 1000, "{rows} rows compared");
+    assert!(
+        worst < 1e-12,
+        "as-of weighted encodings differ from the hand computation by {worst}"
+    );
+    assert!(unweighted > 1e-3, "the weights must change the encodings");
+    for (half_life, expected) in [
+        (
+            "0.0001",
+            "out of range for as-of encodings over a training period",
+        ),
+        (
+            "fitted",
+            "--half-life fitted chooses a half-life for out-of-fold encodings",
+        ),
+    ] {
+        let o = encode_output(&[
+            "encode",
+            "--train",
+            &sample(),
+            "--target",
+            "no_show",
+            "--columns",
+            "breed",
+            "--time-column",
+            "day",
+            "--method",
+            "time",
+            "--half-life",
+            half_life,
+            "--out",
+            dir.join("bad").to_str().unwrap(),
+        ]);
+        let stderr = String::from_utf8_lossy(&o.stderr);
+        assert_eq!(o.status.code(), Some(2), "{stderr}");
+        assert!(stderr.contains(expected), "{stderr}");
+    }
+}
+
 // Messy key text: with --normalize-keys, spellings that differ in case, white space
 // or Unicode compatibility form (full-width letters, non-breaking spaces) are one
 // level, the merge is reported, and the bundle scores raw spellings the same way.
@@ -1601,4 +1690,130 @@ async fn a_work_directory_gives_the_same_outputs() {
             "{file}"
         );
     }
+}
+
+/// Training rows over 240 days for the fitted half-life: key `shifting` (40 levels)
+/// whose rates swap at day 120, key `steady` (30 levels) whose rates never move,
+/// and targets of every family that depend on both: `y` (0/1), `visits` (counts),
+/// `minutes` (values) and `outcome` (classes).
+fn drifting_csv(dir: &Path) -> String {
+    let path = dir.join("drifting.csv");
+    let mut text = String::from("day,shifting,steady,y,visits,minutes,outcome\n");
+    for i in 0..12_000u64 {
+        let day = i % 240;
+        let shifting = mix64(i) % 40;
+        let steady = mix64(i ^ 0x5eed) % 30;
+        let early = day < 120;
+        let rate_shifting = if shifting.is_multiple_of(2) == early {
+            0.15
+        } else {
+            0.85
+        };
+        let rate_steady = 0.15 + 0.35 * (steady % 3) as f64;
+        let rate = 0.5 * (rate_shifting + rate_steady);
+        let u = uniform(7, &[i as f64]);
+        let y = u64::from(u < rate);
+        let visits = (3.0 * rate * uniform(8, &[i as f64]) * 2.0).floor() as u64;
+        let minutes = 30.0 * rate + 10.0 * (uniform(9, &[i as f64]) - 0.5);
+        let outcome = ["attended", "cancelled", "no_show"][(u * 3.0 * rate).min(2.0) as usize];
+        text.push_str(&format!(
+            "{day},s{shifting},t{steady},{y},{visits},{minutes},{outcome}\n"
+        ));
+    }
+    std::fs::write(&path, text).unwrap();
+    path.to_str().unwrap().to_string()
+}
+
+// --half-life fitted: per key, the latest fifth of the training rows scored by fits
+// of the earlier ones. A key whose levels swap rates mid-way gets a short half-life;
+// a key whose rates never move gets none (recency would only throw data away). Every
+// family's trial runs and its encodings are finite; the choice is reported.
+#[tokio::test]
+async fn fitted_half_life_follows_drift_per_key() {
+    use posterity::encode::{self, EncodeOptions, HalfLife};
+    let dir = temp_dir("fitted-half-life");
+    let ctx = SessionContext::new();
+    posterity::register(&ctx);
+    ctx.register_csv("rows", &drifting_csv(&dir), Default::default())
+        .await
+        .unwrap();
+    let mut options = EncodeOptions::new("rows", "y", &["shifting", "steady"]);
+    options.time_column = Some("day".into());
+    options.half_life = Some(HalfLife::Fitted);
+    let plan = encode::resolve(&ctx, &options).await.unwrap();
+    let (shifting, steady) = (&plan.keys[0], &plan.keys[1]);
+    // Judged through the earlier rows' out-of-fold encodings (most of which predate
+    // the swap, so the shortest half-lives relate poorly to their own outcomes), the
+    // choice is some half-life shorter than the training period.
+    let h = shifting.half_life.expect(&shifting.recency);
+    assert!(
+        h < 239.0,
+        "half-life {h} for rates that swapped 120 days ago"
+    );
+    assert!(
+        shifting.recency.starts_with("half-life"),
+        "{}",
+        shifting.recency
+    );
+    assert_eq!(steady.half_life, None, "{}", steady.recency);
+    assert!(
+        steady.recency.starts_with("no half-life"),
+        "{}",
+        steady.recency
+    );
+    let output = encode::run(&ctx, &plan).await.unwrap();
+    assert_eq!(output.summary[0].half_life, Some(h));
+    assert!(encode::summary_table(&output.summary).contains("shifting: half-life"));
+
+    for (target, family) in [
+        ("visits", "gamma"),
+        ("minutes", "nig"),
+        ("outcome", "dirichlet"),
+    ] {
+        let mut options = EncodeOptions::new("rows", target, &["shifting", "steady"]);
+        options.time_column = Some("day".into());
+        options.half_life = Some(HalfLife::Fitted);
+        let plan = encode::resolve(&ctx, &options).await.unwrap();
+        assert_eq!(plan.family.short_name(), family);
+        for key in &plan.keys {
+            assert!(
+                !key.recency.is_empty(),
+                "{target}: no reason for {}",
+                key.name
+            );
+        }
+        assert!(
+            plan.keys[0].half_life.is_some(),
+            "{target}: {}",
+            plan.keys[0].recency
+        );
+        let output = encode::run(&ctx, &plan).await.unwrap();
+        let batches = output.train_encoded.unwrap().collect().await.unwrap();
+        let mut checked = 0;
+        for b in &batches {
+            for (field, column) in b.schema().fields().iter().zip(b.columns()) {
+                if field.name().starts_with("shifting_") || field.name().starts_with("steady_") {
+                    let values = cast(column, &DataType::Float64).unwrap();
+                    let values = values.as_primitive::<Float64Type>();
+                    assert_eq!(values.null_count(), 0, "{target}: {}", field.name());
+                    assert!(values.values().iter().all(|v| v.is_finite()));
+                    checked += values.len();
+                }
+            }
+        }
+        assert!(checked >= 12_000, "{target}: {checked} values checked");
+    }
+
+    // What cannot be fitted says why.
+    assert!(HalfLife::parse("soon")
+        .unwrap_err()
+        .to_string()
+        .contains("--half-life 'soon' is not a number of time units or 'fitted'"));
+    let mut options = EncodeOptions::new("rows", "y", &["shifting"]);
+    options.half_life = Some(HalfLife::Fitted);
+    let e = encode::resolve(&ctx, &options).await.unwrap_err();
+    assert!(
+        e.to_string().contains("--half-life needs --time-column"),
+        "{e}"
+    );
 }
