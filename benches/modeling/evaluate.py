@@ -173,8 +173,13 @@ def posterity_encodings(tr, te, ytr, keys, seed, readers, work, extra=(), time=N
 
 
 # posterity: encode's defaults; posterity_sd: the defaults plus the sd reader;
-# posterity_recency: the defaults given the row's time with a fitted half-life.
-ENCODINGS = ["posterity", "posterity_sd", "posterity_recency", "onehot20", "frequency", "ordinal", "oof_smoothed",
+# posterity_time: the defaults given the row's time (as-of encodings);
+# posterity_time_fitted: the same with a half-life fitted per key.
+TIMED = {
+    "posterity_time": ["--time-column", "t"],
+    "posterity_time_fitted": ["--time-column", "t", "--method", "time", "--half-life", "fitted"],
+}
+ENCODINGS = ["posterity", "posterity_sd", *TIMED, "onehot20", "frequency", "ordinal", "oof_smoothed",
              "in_sample"]
 # `--encodings a,b` runs a subset (the hand-written ones are deterministic: their numbers repeat).
 if "--encodings" in sys.argv:
@@ -238,10 +243,9 @@ def evaluate(task, loader, kind, work):
     row_losses = {e: [] for e in ENCODINGS}
     for seed in SEEDS:
         for e in ENCODINGS:
-            if e == "posterity_recency":
+            if e in TIMED:
                 ftr, fte = posterity_encodings(
-                    tr, te, ytr, keys, seed, None, work,
-                    ["--time-column", "t", "--half-life", "fitted"], time_of(task, tr))
+                    tr, te, ytr, keys, seed, None, work, TIMED[e], time_of(task, tr))
             elif e.startswith("posterity"):
                 readers = "mean,sd" if e == "posterity_sd" else None
                 ftr, fte = posterity_encodings(tr, te, ytr, keys, seed, readers, work)

@@ -39,9 +39,8 @@ def main():
             variants = {"defaults": [], "as-of": ["--time-column", "t"]}
             for h in half_lives:
                 variants[h] = ["--half-life", h, "--time-column", "t"]
-                if h != "fitted":
-                    variants[f"as-of {h}"] = ["--half-life", h, "--time-column", "t",
-                                              "--method", "time"]
+                variants[f"as-of {h}"] = ["--half-life", h, "--time-column", "t",
+                                          "--method", "time"]
             for variant, extra in variants.items():
                 if only and variant not in only:
                     continue

@@ -156,6 +156,17 @@ def test_encode_equals_the_shell(tmp_path):
     assert enc.report is None
 
 
+def test_fitted_half_life_is_reported_per_key():
+    enc = posterity.encode(SAMPLE, target="no_show", columns=["breed", "vet"], time_column="day",
+                           half_life="fitted")
+    for s in enc.summary:
+        assert s["recency"].startswith(("half-life", "no half-life")), s
+        assert (s["half_life"] is None) == s["recency"].startswith("no half-life"), s
+    numbers = posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
+                               half_life=30)
+    assert numbers.summary[0]["half_life"] == 30
+
+
 def test_report_equals_the_shell(tmp_path):
     shell_encode(tmp_path / "shell", extra=["--report"])
     enc = posterity.encode(SAMPLE, target="no_show", score=SAMPLE, report=True, **OPTIONS)
@@ -232,6 +243,9 @@ def test_bad_input_is_a_python_error(ctx):
          ["method time needs time_column"]),
         (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], colour="red"),
          ["unknown option 'colour'"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
+                                  half_life="soon"),
+         ["half_life 'soon' is not a number of time units or 'fitted'"]),
         (lambda: posterity.encode(pa.table({"k": ["a", "b"], "y": [0.5, float("nan")]}), target="y",
                                   columns=["k"]), ["nig_posterior", "NaN"]),
         (lambda: posterity.Bundle.load("/no/such/bundle.json"), ["Bundle.load", "cannot read"]),

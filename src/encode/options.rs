@@ -447,14 +447,10 @@ impl EncodeOptions {
             }
             // Out-of-fold unless as-of is asked for (a half-life once meant out-of-fold
             // encodings only; as-of encodings take a given one).
-            return match (self.method, &self.time_column, half_life) {
-                (_, None, _) => usage("--half-life needs --time-column (the age of each row)"),
-                (Some(Method::Time), _, HalfLife::Fitted) => usage(
-                    "--half-life fitted chooses a half-life for out-of-fold encodings (--method \
-                     kfold); for as-of encodings (--method time) give a number of time units",
-                ),
-                (Some(m), _, _) => Ok(m),
-                (None, _, _) => Ok(Method::Kfold),
+            return match (self.method, &self.time_column) {
+                (_, None) => usage("--half-life needs --time-column (the age of each row)"),
+                (Some(m), _) => Ok(m),
+                (None, _) => Ok(Method::Kfold),
             };
         }
         match (self.method, &self.time_column) {

@@ -2,23 +2,22 @@
 //!
 //! Recency weights help when a level's rate drifts and hurt when it does not (they
 //! throw data away), and how fast it drifts differs per key. So each key is tried
-//! on its own training rows the way its encodings are used: the latest fifth of the
-//! rows (by time) is scored with the posterior mean of fits of the earlier rows,
-//! each row weighted 2^(-age/h) with its age counted from where the late rows begin,
-//! for half-lives h from 1/64 to 4 times the training period, and without weights.
-//! A half-life is kept only when its loss beats no weighting by more than one
-//! standard error of the paired difference over the scored rows (the more
-//! conservative choice wins near-ties); otherwise the key gets none.
+//! on its own training rows the way its encodings are used (see `Trial`): the
+//! latest fifth of the rows (by time) is scored with fits of the earlier rows,
+//! each row weighted 2^(-age/h), for half-lives h from 1/64 to 4 times the
+//! training period, and without weights. A half-life is kept only when its loss
+//! beats no weighting by more than one standard error of the paired difference
+//! over the scored rows; otherwise the key gets none (no weighting is the
+//! conservative choice: it keeps all the data).
 //!
-//! Losses, per scored row: log-loss for 0/1 outcomes, squared error for values and
-//! for counts, minus the log-probability of the class for classes; the prediction
-//! is the level's posterior mean relative to its prior's, put on the scored rows'
-//! overall rate (see `loss`). Unseen levels read the prior.
+//! Cost: two queries per candidate over the training rows (the first pass of each
+//! is one fit), so a fitted half-life takes about twenty times an encode without one.
 
 use datafusion::arrow::array::{Array, AsArray};
 use datafusion::arrow::datatypes::{Float64Type, Int64Type};
 use datafusion::prelude::SessionContext;
 
+use super::options::Method;
 use super::resolve::{EncodePlan, KeyPlan};
 use super::sql::TRAIN;
 use super::{quote, text, EncodeError, Result};
@@ -142,28 +141,34 @@ pub(super) async fn fit_half_life(
     let half_lives: Vec<Option<f64>> = std::iter::once(None)
         .chain(FRACTIONS.iter().map(|f| Some(f * cut.span)))
         .collect();
-    let trial = Trial::new(plan, key, cut.at, &half_lives);
-
-    // The slope a learner would read from each candidate's early rows (none when
-    // every departure is equal: the encoding adds nothing).
-    let fitted_slopes = one_row(ctx, &trial.slopes_sql()).await?;
-    let parts = trial.components.len();
-    let slopes: Vec<Vec<f64>> = (0..half_lives.len())
-        .map(|i| {
-            (0..parts)
-                .map(|c| number(&fitted_slopes, i * parts + c).unwrap_or(0.0))
-                .collect()
-        })
-        .collect();
-    let b = one_row(ctx, &trial.losses_sql(&slopes)).await?;
-    let rows = b.column(0).as_primitive::<Int64Type>().value(0);
-    let Some(base) = number(&b, 1) else {
-        return Ok((None, "no half-life: no later training rows to score".into()));
+    let design = match (plan.method, plan.oldest_time) {
+        (Method::Time, Some(oldest)) => Design::AsOf { oldest },
+        _ => Design::OutOfFold,
     };
-    // The best candidate: (half-life, mean difference to no weighting, its standard error).
+    let trial = Trial::new(plan, key, design, cut.at, &half_lives);
+
+    // The slopes a learner would read from each candidate's early rows (none when
+    // every departure is equal: the encoding adds nothing). One query per candidate
+    // and per pair keeps the memory of a trial that of one fit.
+    let mut slopes = Vec::new();
+    for i in 0..half_lives.len() {
+        let b = one_row(ctx, &trial.slopes_sql(i)).await?;
+        slopes.push(
+            (0..trial.components.len())
+                .map(|c| number(&b, c).unwrap_or(0.0))
+                .collect::<Vec<_>>(),
+        );
+    }
+    // Candidate 0 is no recency weighting; the best other one: (half-life, mean
+    // difference to no weighting, its standard error).
+    let mut rows = 0;
+    let mut base = None;
     let mut best: Option<(f64, f64, f64)> = None;
     for (i, h) in half_lives.iter().enumerate().skip(1) {
-        let (Some(h), Some(d), Some(sd)) = (h, number(&b, 2 * i), number(&b, 2 * i + 1)) else {
+        let b = one_row(ctx, &trial.losses_sql((0, &slopes[0]), (i, &slopes[i]))).await?;
+        rows = b.column(0).as_primitive::<Int64Type>().value(0);
+        base = number(&b, 1);
+        let (Some(h), Some(d), Some(sd)) = (h, number(&b, 2), number(&b, 3)) else {
             continue;
         };
         let se = sd / (rows as f64).sqrt();
@@ -171,11 +176,18 @@ pub(super) async fn fit_half_life(
             best = Some((*h, d, se));
         }
     }
+    let Some(base) = base else {
+        return Ok((None, "no half-life: no later training rows to score".into()));
+    };
     let scored = format!(
         "the latest fifth of training rows ({rows} rows from {} = {}) scored by fits of the \
-         earlier ones, read through a line fitted on those rows' out-of-fold encodings",
+         earlier ones, read through a line fitted on those rows' {} encodings",
         plan.options.time_column.as_deref().unwrap_or_default(),
-        short(cut.at)
+        short(cut.at),
+        match design {
+            Design::OutOfFold => "out-of-fold",
+            Design::AsOf { .. } => "as-of",
+        }
     );
     Ok(match best {
         Some((h, d, se)) => (
@@ -220,12 +232,21 @@ async fn one_row(ctx: &SessionContext, sql: &str) -> Result<datafusion::arrow::a
         .ok_or_else(|| EncodeError::Query("--half-life fitted: no result".into()))
 }
 
-/// The queries that try every candidate half-life on one key.
+/// How the early rows read their posteriors: as encode's training rows would.
+#[derive(Debug, Clone, Copy)]
+enum Design {
+    /// From the other folds of the early rows.
+    OutOfFold,
+    /// From the early rows of strictly earlier times, ages counted from the row's
+    /// own time (running sums weighted from the oldest time, then scaled).
+    AsOf { oldest: f64 },
+}
+
+/// The queries that try candidate half-lives on one key.
 ///
-/// Early rows (before the cut) are split into the plan's folds; each early row
-/// reads its level's posterior from the other folds (as encode's training rows
-/// do), each late row the posterior of all early rows (as scored rows do), every
-/// fit weighted by the candidate's decay from the cut.
+/// Early rows (before the cut) read their level's posterior as encode's training
+/// rows do (out-of-fold or as-of); late rows read the posterior of all early rows,
+/// aged from the cut, as scored rows read the training rows' posterior.
 ///
 /// A learner reads an encoding through what it learned on training rows, so each
 /// candidate is scored that way: a line through the early rows' outcomes against
@@ -233,20 +254,31 @@ async fn one_row(ctx: &SessionContext, sql: &str) -> Result<datafusion::arrow::a
 /// late rows' overall rate (a rate that moves for every level at once says nothing
 /// about the key), its squared error over the late rows. A half-life that tracks
 /// the latest rows but leaves the early rows' encodings unrelated to their own
-/// outcomes earns a small slope and gains nothing.
+/// outcomes, or that tracks the early rows' recent past but not the late rows'
+/// distance from it, earns a small slope and gains nothing.
 struct Trial {
-    /// The CTEs: `early` and `late` rows with `__level`, `__fold`, `__y`, `__x`; per
-    /// candidate `f{i}` (level and fold fits), `a{i}` (level fits), `q{i}` (prior).
-    with: Vec<String>,
+    /// The CTEs every query needs: `early` and `late` rows with `__level`,
+    /// `__fold`, `__time`, `__y`, `__x`.
+    rows: Vec<String>,
+    /// Per candidate `i`, its CTEs: `f{i}` (fits), `a{i}` (a level's early fit,
+    /// aged from the cut), `q{i}` (prior) and as-of `s{i}` (a level's posterior
+    /// before each time).
+    candidates: Vec<Vec<String>>,
     /// Per outcome component: its value over a row and, for classes, the class.
     components: Vec<(String, Option<String>)>,
-    candidates: usize,
+    design: Design,
     family: Kind,
     fitted: bool,
 }
 
 impl Trial {
-    fn new(plan: &EncodePlan, key: &KeyPlan, cut: f64, half_lives: &[Option<f64>]) -> Self {
+    fn new(
+        plan: &EncodePlan,
+        key: &KeyPlan,
+        design: Design,
+        cut: f64,
+        half_lives: &[Option<f64>],
+    ) -> Self {
         let time = plan.options.time_column.as_deref().unwrap_or_default();
         // Rows are `t`, as in `EncodePlan::fit_with_weight`.
         let t = format!("CAST(t.{} AS DOUBLE)", quote(time));
@@ -263,36 +295,70 @@ impl Trial {
         };
         let rows = |when: &str| {
             format!(
-                "SELECT t.*, {} AS __level, fold_of(t.__row, {}, {}) AS __fold, {outcome} AS __y, \
-                 {x} AS __x FROM {TRAIN} t WHERE {t} {when} {cut} AND {y} IS NOT NULL",
+                "SELECT t.*, {} AS __level, fold_of(t.__row, {}, {}) AS __fold, {t} AS __time, \
+                 {outcome} AS __y, {x} AS __x FROM {TRAIN} t WHERE {t} {when} {cut} AND {y} IS NOT NULL",
                 key.sql(plan.options.normalize_keys),
                 plan.options.folds,
                 plan.options.seed,
             )
         };
-        let mut with = vec![
+        let rows = vec![
             format!("early AS ({})", rows("<")),
             format!("late AS ({})", rows(">=")),
         ];
-        for (i, h) in half_lives.iter().enumerate() {
-            let weight = h.map(|h| format!("decay_weight({cut} - {t}, {h})"));
-            with.push(format!(
-                "f{i} AS (SELECT t.__level AS level, t.__fold AS fold, {} AS p FROM early t \
-                 WHERE t.__level IS NOT NULL GROUP BY 1, 2)",
-                plan.fit_with_weight(key, weight.as_deref())
-            ));
-            with.push(format!(
-                "a{i} AS (SELECT level, posterior_pool(p) AS p FROM f{i} GROUP BY level)"
-            ));
-            with.push(if plan.fitted {
-                format!("q{i} AS (SELECT fit_prior(p) AS prior FROM a{i})")
-            } else {
-                format!(
-                    "q{i} AS (SELECT {} AS prior)",
-                    key.prior.as_ref().unwrap_or(&plan.base_prior)
-                )
-            });
-        }
+        let prior = |i: usize| match plan.fitted {
+            true => format!("q{i} AS (SELECT fit_prior(p) AS prior FROM a{i})"),
+            false => format!(
+                "q{i} AS (SELECT {} AS prior)",
+                key.prior.as_ref().unwrap_or(&plan.base_prior)
+            ),
+        };
+        let candidates = half_lives
+            .iter()
+            .enumerate()
+            .map(|(i, h)| match design {
+                Design::OutOfFold => {
+                    let weight = h.map(|h| format!("decay_weight({cut} - {t}, {h})"));
+                    vec![
+                        format!(
+                            "f{i} AS (SELECT t.__level AS level, t.__fold AS fold, {} AS p FROM early t \
+                             WHERE t.__level IS NOT NULL GROUP BY 1, 2)",
+                            plan.fit_with_weight(key, weight.as_deref())
+                        ),
+                        format!("a{i} AS (SELECT level, posterior_pool(p) AS p FROM f{i} GROUP BY level)"),
+                        prior(i),
+                    ]
+                }
+                Design::AsOf { oldest } => {
+                    // Weights growing from the oldest time (`EncodePlan::as_of_decay`): at
+                    // most 2^64 here, the shortest candidate being 1/64 of the period.
+                    let weight = h.map(|h| format!("power(2.0, ({t} - {oldest}) / {h})"));
+                    let aged = |p: &str, at: &str| match h {
+                        Some(h) => format!("posterior_scale({p}, power(2.0, -({at} - {oldest}) / {h}))"),
+                        None => p.to_string(),
+                    };
+                    vec![
+                        format!(
+                            "f{i} AS (SELECT t.__level AS level, t.__time AS time, {} AS p FROM early t \
+                             WHERE t.__level IS NOT NULL GROUP BY 1, 2)",
+                            plan.fit_with_weight(key, weight.as_deref())
+                        ),
+                        format!(
+                            "s{i} AS (SELECT level, time, {} AS p FROM f{i})",
+                            aged(
+                                "posterior_pool(p) OVER (PARTITION BY level ORDER BY time ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)",
+                                "time"
+                            )
+                        ),
+                        format!(
+                            "a{i} AS (SELECT level, {} AS p FROM f{i} GROUP BY level)",
+                            aged("posterior_pool(p)", &cut.to_string())
+                        ),
+                        prior(i),
+                    ]
+                }
+            })
+            .collect();
         let components = match plan.family {
             Kind::Dirichlet => plan
                 .classes
@@ -310,12 +376,23 @@ impl Trial {
             _ => vec![("__y".to_string(), None)],
         };
         Trial {
-            with,
+            rows,
+            candidates,
             components,
-            candidates: half_lives.len(),
+            design,
             family: plan.family,
             fitted: plan.fitted,
         }
+    }
+
+    /// The CTEs of the rows and of candidates `chosen`.
+    fn with(&self, chosen: &[usize]) -> String {
+        self.rows
+            .iter()
+            .chain(chosen.iter().flat_map(|&i| self.candidates[i].iter()))
+            .cloned()
+            .collect::<Vec<_>>()
+            .join(", ")
     }
 
     /// Component `c`'s departure from the prior under candidate `i`, of posterior
@@ -332,9 +409,9 @@ impl Trial {
         format!("({} - {})", mean(&p), mean(&format!("q{i}.prior")))
     }
 
-    /// Per row of `rows` (`early` or `late`): each component's outcome
-    /// `o{c}` and, per candidate, its departure `d{i}_{c}`; plus `__y`, `__x`.
-    fn per_row(&self, rows: &str) -> String {
+    /// Per row of `rows` (`early` or `late`): each component's outcome `o{c}` and,
+    /// per chosen candidate, its departure `d{i}_{c}`; plus `__y`, `__x`.
+    fn per_row(&self, rows: &str, chosen: &[usize]) -> String {
         let mut joins = Vec::new();
         let mut columns = vec!["r.__y".to_string(), "r.__x".to_string()];
         for (c, (outcome, _)) in self.components.iter().enumerate() {
@@ -343,17 +420,26 @@ impl Trial {
                 outcome.replace("__y", "r.__y").replace("__x", "r.__x")
             ));
         }
-        for i in 0..self.candidates {
-            let p = if rows == "early" {
-                joins.push(format!(
-                    "LEFT JOIN f{i} ON f{i}.level = r.__level AND f{i}.fold = r.__fold \
-                     LEFT JOIN a{i} ON a{i}.level = r.__level"
-                ));
-                // The other folds: the level's fit less this row's fold's.
-                format!("posterior_subtract(a{i}.p, f{i}.p)")
-            } else {
-                joins.push(format!("LEFT JOIN a{i} ON a{i}.level = r.__level"));
-                format!("a{i}.p")
+        for &i in chosen {
+            let p = match (rows, self.design) {
+                ("early", Design::OutOfFold) => {
+                    joins.push(format!(
+                        "LEFT JOIN f{i} ON f{i}.level = r.__level AND f{i}.fold = r.__fold \
+                         LEFT JOIN a{i} ON a{i}.level = r.__level"
+                    ));
+                    // The other folds: the level's fit less this row's fold's.
+                    format!("posterior_subtract(a{i}.p, f{i}.p)")
+                }
+                ("early", Design::AsOf { .. }) => {
+                    joins.push(format!(
+                        "LEFT JOIN s{i} ON s{i}.level = r.__level AND s{i}.time = r.__time"
+                    ));
+                    format!("s{i}.p")
+                }
+                _ => {
+                    joins.push(format!("LEFT JOIN a{i} ON a{i}.level = r.__level"));
+                    format!("a{i}.p")
+                }
             };
             joins.push(format!("CROSS JOIN q{i}"));
             for c in 0..self.components.len() {
@@ -367,44 +453,38 @@ impl Trial {
         )
     }
 
-    /// Per candidate and component (candidate-major): the slope of the outcome on the
-    /// departure over the early rows.
-    fn slopes_sql(&self) -> String {
-        let slopes = (0..self.candidates)
-            .flat_map(|i| {
-                (0..self.components.len()).map(move |c| format!("REGR_SLOPE(o{c}, d{i}_{c})"))
-            })
+    /// Per component: the slope of the outcome on candidate `i`'s departure over
+    /// the early rows.
+    fn slopes_sql(&self, i: usize) -> String {
+        let slopes = (0..self.components.len())
+            .map(|c| format!("REGR_SLOPE(o{c}, d{i}_{c})"))
             .collect::<Vec<_>>();
         format!(
             "WITH {} SELECT {} FROM ({})",
-            self.with.join(", "),
+            self.with(&[i]),
             slopes.join(", "),
-            self.per_row("early")
+            self.per_row("early", &[i])
         )
     }
 
-    /// Row count, candidate 0's mean loss, then each other candidate's mean and
-    /// standard deviation of its loss less candidate 0's, over the late rows;
-    /// `slopes[i][c]` from `slopes_sql`.
-    fn losses_sql(&self, slopes: &[Vec<f64>]) -> String {
-        let losses = slopes
-            .iter()
-            .enumerate()
-            .map(|(i, slopes)| {
-                let terms = slopes
-                    .iter()
-                    .enumerate()
-                    .map(|(c, slope)| {
-                        let pred = format!("(g.rate{c} + {slope} * d{i}_{c})");
-                        match self.family {
-                            Kind::Gamma => format!("power(__y - {pred} * __x, 2)"),
-                            _ => format!("power(o{c} - {pred}, 2)"),
-                        }
-                    })
-                    .collect::<Vec<_>>();
-                format!("{} AS l{i}", terms.join(" + "))
-            })
-            .collect::<Vec<_>>();
+    /// Over the late rows, candidate `a` against candidate `b` (each with its
+    /// slopes per component): the row count, `a`'s mean loss, and the mean and
+    /// standard deviation of `b`'s loss less `a`'s.
+    fn losses_sql(&self, (a, a_slopes): (usize, &[f64]), (b, b_slopes): (usize, &[f64])) -> String {
+        let loss = |i: usize, slopes: &[f64]| {
+            let terms = slopes
+                .iter()
+                .enumerate()
+                .map(|(c, slope)| {
+                    let pred = format!("(g.rate{c} + {slope} * d{i}_{c})");
+                    match self.family {
+                        Kind::Gamma => format!("power(__y - {pred} * __x, 2)"),
+                        _ => format!("power(o{c} - {pred}, 2)"),
+                    }
+                })
+                .collect::<Vec<_>>();
+            format!("{} AS l{i}", terms.join(" + "))
+        };
         let rates = self
             .components
             .iter()
@@ -414,18 +494,15 @@ impl Trial {
                 _ => format!("AVG({outcome}) AS rate{c}"),
             })
             .collect::<Vec<_>>();
-        let mut summaries = vec!["COUNT(*)".to_string(), "AVG(l0)".to_string()];
-        for i in 1..self.candidates {
-            summaries.push(format!("AVG(l{i} - l0)"));
-            summaries.push(format!("STDDEV_SAMP(l{i} - l0)"));
-        }
         format!(
-            "WITH {}, g AS (SELECT {} FROM late) SELECT {} FROM (SELECT {} FROM ({}) CROSS JOIN g)",
-            self.with.join(", "),
+            "WITH {}, g AS (SELECT {} FROM late) \
+             SELECT COUNT(*), AVG(l{a}), AVG(l{b} - l{a}), STDDEV_SAMP(l{b} - l{a}) \
+             FROM (SELECT {}, {} FROM ({}) CROSS JOIN g)",
+            self.with(&[a, b]),
             rates.join(", "),
-            summaries.join(", "),
-            losses.join(", "),
-            self.per_row("late")
+            loss(a, a_slopes),
+            loss(b, b_slopes),
+            self.per_row("late", &[a, b])
         )
     }
 }

@@ -1182,7 +1182,7 @@ async fn half_life_weights_rows_by_age() {
 // As-of encodings with a half-life: a row at day t reads its level's rows of
 // earlier days, each weighted 2^(-(t - day)/H); equal to that sum computed
 // independently with power() in SQL. A half-life too short for the running sums
-// over the period is refused, as is fitting one for as-of encodings.
+// over the period is refused.
 #[tokio::test]
 async fn as_of_half_life_weights_earlier_rows_by_their_age() {
     let dir = temp_dir("as-of-half-life");
@@ -1240,8 +1240,12 @@ async fn as_of_half_life_weights_earlier_rows_by_their_age() {
             "out of range for as-of encodings over a training period",
         ),
         (
-            "fitted",
-            "--half-life fitted chooses a half-life for out-of-fold encodings",
+            "0",
+            "--half-life 0 is out of range; allowed: a finite number > 0",
+        ),
+        (
+            "soon",
+            "--half-life 'soon' is not a number of time units or 'fitted'",
         ),
     ] {
         let o = encode_output(&[
@@ -1764,6 +1768,18 @@ async fn fitted_half_life_follows_drift_per_key() {
     let output = encode::run(&ctx, &plan).await.unwrap();
     assert_eq!(output.summary[0].half_life, Some(h));
     assert!(encode::summary_table(&output.summary).contains("shifting: half-life"));
+
+    // As-of encodings: the earlier rows read before their own times in the trial.
+    options.method = Some(encode::Method::Time);
+    let plan = encode::resolve(&ctx, &options).await.unwrap();
+    let shifting = &plan.keys[0];
+    assert!(shifting.half_life.is_some(), "{}", shifting.recency);
+    assert!(
+        shifting.recency.contains("as-of encodings"),
+        "{}",
+        shifting.recency
+    );
+    encode::run(&ctx, &plan).await.unwrap();
 
     for (target, family) in [
         ("visits", "gamma"),
