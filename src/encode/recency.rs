@@ -67,20 +67,12 @@ pub(super) async fn cut(ctx: &SessionContext, plan: &EncodePlan) -> Result<Optio
         format!("CAST({} AS DOUBLE)", quote(time)),
         quote(&plan.options.target),
     );
-    let batches = ctx
-        .sql(&format!(
-            "SELECT MIN({t}) FROM {from} WHERE {y} IS NOT NULL AND {t} IS NOT NULL"
-        ))
-        .await?
-        .collect()
-        .await?;
-    let oldest = batches
-        .iter()
-        .find(|b| b.num_rows() > 0)
-        .map(|b| b.column(0).as_primitive::<Float64Type>())
-        .filter(|c| !c.is_null(0))
-        .map(|c| c.value(0));
-    let Some(oldest) = oldest else {
+    let oldest = one_row(
+        ctx,
+        &format!("SELECT MIN({t}) FROM {from} WHERE {y} IS NOT NULL AND {t} IS NOT NULL"),
+    )
+    .await?;
+    let Some(oldest) = number(&oldest, 0) else {
         return Ok(None);
     };
     let span = newest - oldest;
