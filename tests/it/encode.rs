@@ -1833,3 +1833,36 @@ async fn fitted_half_life_follows_drift_per_key() {
         "{e}"
     );
 }
+
+// A fitted half-life where there is nothing to fit: one time only gets none and
+// says why; a NaN time is refused by name before anything runs.
+#[tokio::test]
+async fn fitted_half_life_without_a_spread_of_times() {
+    use posterity::encode::{self, EncodeOptions, HalfLife};
+    let ctx = SessionContext::new();
+    posterity::register(&ctx);
+    for sql in [
+        "CREATE TABLE one_day AS SELECT * FROM (VALUES ('a', 1, 5.0), ('a', 0, 5.0), ('b', 1, 5.0), ('b', 1, NULL)) t(k, y, day)",
+        "CREATE TABLE bad_day AS SELECT * FROM (VALUES ('a', 1, 5.0), ('b', 0, 'NaN'::double)) t(k, y, day)",
+    ] {
+        ctx.sql(sql).await.unwrap().collect().await.unwrap();
+    }
+    let mut options = EncodeOptions::new("one_day", "y", &["k"]);
+    options.time_column = Some("day".into());
+    options.half_life = Some(HalfLife::Fitted);
+    let plan = encode::resolve(&ctx, &options).await.unwrap();
+    assert_eq!(plan.keys[0].half_life, None);
+    assert!(
+        plan.keys[0].recency.contains("times do not spread"),
+        "{}",
+        plan.keys[0].recency
+    );
+    encode::run(&ctx, &plan).await.unwrap();
+    options.train = "bad_day".into();
+    let e = encode::resolve(&ctx, &options).await.unwrap_err();
+    assert!(
+        e.to_string()
+            .contains("--time-column 'day' has a non-finite value"),
+        "{e}"
+    );
+}
