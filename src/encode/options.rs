@@ -42,10 +42,11 @@ impl Method {
     }
 }
 
-/// Recency weighting of out-of-fold fits (`--half-life`).
+/// Recency weighting of the fits (`--half-life`).
 #[derive(Debug, Clone, Copy, PartialEq)]
 pub enum HalfLife {
-    /// A row this many time units older than the newest training row counts half.
+    /// A row this many time units older than the newest training row (as-of: than
+    /// the row being encoded) counts half.
     Units(f64),
     /// Chosen per key from the training rows: the latest fifth of them scored by
     /// fits of the earlier rows under each candidate half-life (`recency.rs`).

@@ -30,7 +30,7 @@ pub struct KeyPlan {
     /// ...that have at least this many rows.
     pub indicator_min_rows: f64,
     /// Recency weighting of its fits: a row this many time units older than the
-    /// newest training row counts half.
+    /// newest training row (as-of: than the row encoded) counts half.
     pub half_life: Option<f64>,
     /// How the half-life was chosen, in the user's words (empty without one asked).
     pub recency: String,
@@ -661,10 +661,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         }
         _ => None,
     };
-    let (oldest_time, newest_time) = match time_range {
-        Some((oldest, newest)) => (Some(oldest), Some(newest)),
-        None => (None, None),
-    };
+    let (oldest_time, newest_time) = time_range.unzip();
     let score_scale = match (method, options.score_evidence) {
         (Method::Kfold, ScoreEvidence::Matched) => {
             (options.folds - 1) as f64 / options.folds as f64
