@@ -1,8 +1,9 @@
-"""Bundesliga (49 teams, most with hundreds of rows): as-of encodings with the treatments
-encode offers for a key of few large levels; seeds 0 and 1, evaluate.py's protocol.
+"""Keys of few large levels (Bundesliga's 49 teams; flights' 16 carriers and 3 airports):
+as-of encodings with the treatments encode offers for them; seeds 0 and 1, evaluate.py's
+protocol.
 
     POSTERITY_BIN=target/release/posterity target/modeling-venv/bin/python \\
-        benches/modeling/treatment_probe.py
+        benches/modeling/treatment_probe.py [bundesliga flights_late flights_delay]
 """
 import sys
 import tempfile
@@ -14,27 +15,38 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from evaluate import (  # noqa: E402
     held_out_score, posterity_encodings, split, task_named, time_of)
 
+AS_OF = ["--time-column", "t"]
 VARIANTS = {
-    "as-of (defaults given the time)": ["--time-column", "t"],
-    "as-of, no indicators": ["--time-column", "t", "--indicators", "0"],
-    "as-of, an indicator for every team": ["--time-column", "t", "--indicators", "49",
-                                           "--indicator-min-rows", "0"],
-    "teams as levels only": ["--time-column", "t", "--treatment", "HomeTeam=levels",
-                             "--treatment", "AwayTeam=levels"],
+    "bundesliga": {
+        "as-of (defaults given the time)": AS_OF,
+        "as-of, no indicators": AS_OF + ["--indicators", "0"],
+        "as-of, an indicator for every team": AS_OF + ["--indicators", "49",
+                                                       "--indicator-min-rows", "0"],
+        "teams as levels only": AS_OF + ["--treatment", "HomeTeam=levels",
+                                         "--treatment", "AwayTeam=levels"],
+    },
+    "flights_late": {
+        "as-of (defaults given the time)": AS_OF,
+        "carrier, origin as levels only": AS_OF + ["--treatment", "carrier=levels",
+                                                   "--treatment", "origin=levels"],
+    },
 }
+VARIANTS["flights_delay"] = VARIANTS["flights_late"]
 
 
 def main():
-    name, loader, kind = task_named("bundesliga")
-    keys, numeric, tr, te, ytr, yte = split(loader)
-    t = time_of(name, tr)
-    with tempfile.TemporaryDirectory() as d:
-        for variant, extra in VARIANTS.items():
-            scores = []
-            for seed in [0, 1]:
-                ftr, fte = posterity_encodings(tr, te, ytr, keys, seed, None, Path(d), extra, t)
-                scores.append(held_out_score(kind, numeric, tr, te, ftr, fte, ytr, yte, seed))
-            print(f"{variant:<36} {np.mean(scores):.4f}", flush=True)
+    tasks = sys.argv[1:] or list(VARIANTS)
+    for prefix in tasks:
+        name, loader, kind = task_named(prefix)
+        keys, numeric, tr, te, ytr, yte = split(loader)
+        t = time_of(name, tr)
+        with tempfile.TemporaryDirectory() as d:
+            for variant, extra in VARIANTS[prefix].items():
+                scores = []
+                for seed in [0, 1]:
+                    ftr, fte = posterity_encodings(tr, te, ytr, keys, seed, None, Path(d), extra, t)
+                    scores.append(held_out_score(kind, numeric, tr, te, ftr, fte, ytr, yte, seed))
+                print(f"{prefix:<14} {variant:<36} {np.mean(scores):.4f}", flush=True)
 
 
 if __name__ == "__main__":
