@@ -85,12 +85,14 @@ pub struct EncodeArgs {
     /// Number of folds for kfold.
     #[arg(long, default_value_t = 5)]
     pub folds: u32,
-    /// Column giving the time order for --method time.
+    /// Column giving the time order for --method time (the default with it) and the ages
+    /// for --half-life.
     #[arg(long)]
     pub time_column: Option<String>,
-    /// Recency weighting for out-of-fold encodings: a row this many time units older than
-    /// the newest counts half (needs a numeric --time-column); `fitted` chooses it per key
-    /// from the training rows (the latest fifth scored by fits of the rest).
+    /// Recency weighting: a row this many time units older than the newest training row
+    /// (as-of encodings: than the row encoded) counts half (needs a numeric --time-column);
+    /// `fitted` chooses it per key from the training rows (the latest fifth scored by fits
+    /// of the rest).
     #[arg(long, value_name = "UNITS|fitted")]
     pub half_life: Option<String>,
     /// Normalise key text first (Unicode compatibility form, case, white space), so
