@@ -20,7 +20,7 @@ use datafusion::prelude::SessionContext;
 
 use super::options::Method;
 use super::resolve::{EncodePlan, KeyPlan};
-use super::sql::TRAIN;
+use super::sql::{AsOfDecay, TRAIN};
 use super::{quote, text, EncodeError, Result};
 use crate::layout::Kind;
 use crate::render::short;
@@ -59,7 +59,12 @@ pub(super) struct Cut {
 /// begins; `None` when the times do not spread (one time, or all rows in the last
 /// bin).
 pub(super) async fn cut(ctx: &SessionContext, plan: &EncodePlan) -> Result<Option<Cut>> {
-    let (Some(time), Some(newest)) = (&plan.options.time_column, plan.newest_time) else {
+    // The training times' range, as `resolve` found it.
+    let (Some(time), Some(oldest), Some(newest)) = (
+        &plan.options.time_column,
+        plan.oldest_time,
+        plan.newest_time,
+    ) else {
         return Ok(None);
     };
     let from =
@@ -68,14 +73,6 @@ pub(super) async fn cut(ctx: &SessionContext, plan: &EncodePlan) -> Result<Optio
         format!("CAST({} AS DOUBLE)", quote(time)),
         quote(&plan.options.target),
     );
-    let oldest = one_row(
-        ctx,
-        &format!("SELECT MIN({t}) FROM {from} WHERE {y} IS NOT NULL AND {t} IS NOT NULL"),
-    )
-    .await?;
-    let Some(oldest) = number(&oldest, 0) else {
-        return Ok(None);
-    };
     let span = newest - oldest;
     if !(span.is_finite() && span > 0.0) {
         return Ok(None);
@@ -323,11 +320,11 @@ impl Trial {
                     ]
                 }
                 Design::AsOf { oldest } => {
-                    // Weights growing from the oldest time (`EncodePlan::as_of_decay`): at
-                    // most 2^64 here, the shortest candidate being 1/64 of the period.
-                    let weight = h.map(|h| format!("power(2.0, ({t} - {oldest}) / {h})"));
-                    let aged = |p: &str, at: &str| match h {
-                        Some(h) => format!("posterior_scale({p}, power(2.0, -({at} - {oldest}) / {h}))"),
+                    // At most 2^64 here: the shortest candidate is 1/64 of the period.
+                    let decay = h.map(|half_life| AsOfDecay { oldest, half_life });
+                    let weight = decay.map(|d| d.growing_weight("t.__time"));
+                    let aged = |p: &str, at: &str| match decay {
+                        Some(d) => d.aged(p, at),
                         None => p.to_string(),
                     };
                     vec![

@@ -60,6 +60,32 @@ fn output(name: impl Into<String>, query: String) -> Statement {
     }
 }
 
+/// Recency weights for as-of encodings: a row at time `t_j` seen from time `t`
+/// counts 2^(-(t - t_j)/h) = 2^(-(t - t0)/h) * 2^((t_j - t0)/h), t0 the oldest
+/// training time, so a running (window) sum of fits weighted by the second factor
+/// (growing with time, at most 2^1000: `resolve` checks the period) is aged by the
+/// first (at most 1) at each row's time.
+#[derive(Debug, Clone, Copy)]
+pub(super) struct AsOfDecay {
+    /// t0.
+    pub oldest: f64,
+    pub half_life: f64,
+}
+
+impl AsOfDecay {
+    /// The growing weight of a row at time `time` (SQL).
+    pub fn growing_weight(&self, time: &str) -> String {
+        let (oldest, h) = (self.oldest, self.half_life);
+        format!("power(2.0, (CAST({time} AS DOUBLE) - {oldest}) / {h})")
+    }
+
+    /// Posterior `p`, a sum of growing-weighted fits, as seen from time `at` (SQL).
+    pub fn aged(&self, p: &str, at: &str) -> String {
+        let (oldest, h) = (self.oldest, self.half_life);
+        format!("posterior_scale({p}, power(2.0, -(CAST({at} AS DOUBLE) - {oldest}) / {h}))")
+    }
+}
+
 impl EncodePlan {
     /// The fit of the target over table alias `t` for `key` (its own prior when it
     /// has one, else the base prior; re-priored later when the prior is fitted).
@@ -76,33 +102,18 @@ impl EncodePlan {
         self.fit_with_weight(key, weight.as_deref())
     }
 
-    /// As-of encodings with a half-life: a row at time `t_j` seen from time `t`
-    /// counts 2^(-(t - t_j)/h) = 2^(-(t - t0)/h) * 2^((t_j - t0)/h), t0 the oldest
-    /// training time, so a running (window) sum of fits weighted by the second factor
-    /// (growing with time, at most 2^1000: `resolve` checks the period) is scaled by
-    /// the first (at most 1) at each row's time. Returns the fit with the growing
-    /// weights, and how to scale a pooled posterior `p` read at time `time`; `None`
+    /// As-of encodings with the key's half-life (see `AsOfDecay`): the fit with
+    /// the growing weights, and the decay that ages a pooled posterior; `None`
     /// without a half-life.
-    pub(super) fn as_of_decay(
-        &self,
-        key: &KeyPlan,
-    ) -> Option<(String, impl Fn(&str, &str) -> String)> {
-        let (h, oldest, time) = (
-            key.half_life?,
-            self.oldest_time?,
-            self.options.time_column.as_ref()?,
-        );
-        let growing = format!(
-            "power(2.0, (CAST(t.{} AS DOUBLE) - {oldest}) / {h})",
-            quote(time)
-        );
+    pub(super) fn as_of_decay(&self, key: &KeyPlan) -> Option<(String, AsOfDecay)> {
+        let decay = AsOfDecay {
+            oldest: self.oldest_time?,
+            half_life: key.half_life?,
+        };
+        let time = format!("t.{}", quote(self.options.time_column.as_ref()?));
         Some((
-            self.fit_with_weight(key, Some(&growing)),
-            move |p: &str, time: &str| {
-                format!(
-                    "posterior_scale({p}, power(2.0, -(CAST({time} AS DOUBLE) - {oldest}) / {h}))"
-                )
-            },
+            self.fit_with_weight(key, Some(&decay.growing_weight(&time))),
+            decay,
         ))
     }
 
@@ -445,7 +456,7 @@ impl EncodePlan {
                 let time = quote(o.time_column.as_deref().unwrap_or_default());
                 let pooled = "posterior_pool(p) OVER (PARTITION BY level ORDER BY __time ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)";
                 let (fit, pooled) = match self.as_of_decay(key) {
-                    Some((fit, scale)) => (fit, scale(pooled, "__time")),
+                    Some((fit, decay)) => (fit, decay.aged(pooled, "__time")),
                     None => (fit.to_string(), pooled.to_string()),
                 };
                 (
@@ -467,7 +478,9 @@ impl EncodePlan {
                     "OVER (PARTITION BY __k{i} ORDER BY t.{time}, t.__row ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)"
                 );
                 let window = match self.as_of_decay(key) {
-                    Some((fit, scale)) => scale(&format!("{fit} {over}"), &format!("t.{time}")),
+                    Some((fit, decay)) => {
+                        decay.aged(&format!("{fit} {over}"), &format!("t.{time}"))
+                    }
                     None => format!("{fit} {over}"),
                 };
                 (
