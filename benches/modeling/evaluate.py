@@ -237,6 +237,15 @@ def held_out_score(kind, numeric, tr, te, ftr, fte, ytr, yte, seed):
     return metric(kind, losses(kind, yte, fit_predict(kind, xtr, ytr.values, xte, seed)))
 
 
+def posterity_mean_score(kind, keys, numeric, tr, te, ytr, yte, work, extra, time, seeds=(0, 1)):
+    """The metric of encode's outputs with options `extra`, averaged over `seeds` (the probes)."""
+    scores = []
+    for seed in seeds:
+        ftr, fte = posterity_encodings(tr, te, ytr, keys, seed, None, work, extra, time)
+        scores.append(held_out_score(kind, numeric, tr, te, ftr, fte, ytr, yte, seed))
+    return float(np.mean(scores))
+
+
 def evaluate(task, loader, kind, work):
     keys, numeric, tr, te, ytr, yte = split(loader)
     results = {e: [] for e in ENCODINGS}

@@ -9,11 +9,9 @@ import sys
 import tempfile
 from pathlib import Path
 
-import numpy as np
-
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 from evaluate import (  # noqa: E402
-    held_out_score, posterity_encodings, split, task_named, time_of)
+    posterity_mean_score, split, task_named, time_of)
 
 # (task prefix, half-lives in the units of the task's time: days or seasons)
 PROBES = [
@@ -44,11 +42,8 @@ def main():
             for variant, extra in variants.items():
                 if only and variant not in only:
                     continue
-                scores = []
-                for seed in [0, 1]:
-                    ftr, fte = posterity_encodings(tr, te, ytr, keys, seed, None, Path(d), extra, t)
-                    scores.append(held_out_score(kind, numeric, tr, te, ftr, fte, ytr, yte, seed))
-                print(f"{prefix:<16} {variant:<14} {np.mean(scores):.4f}", flush=True)
+                score = posterity_mean_score(kind, keys, numeric, tr, te, ytr, yte, Path(d), extra, t)
+                print(f"{prefix:<16} {variant:<14} {score:.4f}", flush=True)
 
 
 if __name__ == "__main__":

@@ -1105,16 +1105,18 @@ async fn outputs_are_finite_for_every_family_and_prior() {
     assert!(checked > 100);
 }
 
-// Recency weighting: with --half-life H each row counts 2^(-age/H), its age counted
-// from the newest training row; the serving encodings equal the weighted counts
-// computed independently with power() in SQL.
-#[tokio::test]
-async fn half_life_weights_rows_by_age() {
-    let dir = temp_dir("half-life");
-    let out = dir.join("out");
-    encode(&[
+/// The sample's `breed` encoded for `no_show` with `--time-column day --half-life 60
+/// --prior 2,18` and `extra` into `out`; a session with the sample as `a` and the
+/// output file `enc_file` as `enc`.
+async fn sample_encoded_with_half_life_60(
+    out: &Path,
+    extra: &[&str],
+    enc_file: &str,
+) -> SessionContext {
+    let sample = sample();
+    let mut args = vec![
         "--train",
-        &sample(),
+        &sample,
         "--target",
         "no_show",
         "--columns",
@@ -1125,22 +1127,35 @@ async fn half_life_weights_rows_by_age() {
         "60",
         "--prior",
         "2,18",
-        "--readers",
-        "mean",
         "--out",
         out.to_str().unwrap(),
-    ]);
+    ];
+    args.extend_from_slice(extra);
+    encode(&args);
     let ctx = SessionContext::new();
-    ctx.register_csv("a", &sample(), Default::default())
+    ctx.register_csv("a", &sample, Default::default())
         .await
         .unwrap();
     ctx.register_parquet(
         "enc",
-        out.join("encodings/breed.parquet").to_str().unwrap(),
+        out.join(enc_file).to_str().unwrap(),
         ParquetReadOptions::default(),
     )
     .await
     .unwrap();
+    ctx
+}
+
+// Recency weighting: with --half-life H each row counts 2^(-age/H), its age counted
+// from the newest training row; the serving encodings equal the weighted counts
+// computed independently with power() in SQL.
+#[tokio::test]
+async fn half_life_weights_rows_by_age() {
+    let dir = temp_dir("half-life");
+    let out = dir.join("out");
+    let ctx =
+        sample_encoded_with_half_life_60(&out, &["--readers", "mean"], "encodings/breed.parquet")
+            .await;
     // The encoding table's readers score rows: each level's data scaled by 4/5, as
     // five-fold out-of-fold training rows see it.
     let sql = "WITH w AS (SELECT breed, no_show, power(0.5, ((SELECT MAX(day) FROM a) - day) / 60.0) AS w FROM a),
@@ -1187,35 +1202,9 @@ async fn half_life_weights_rows_by_age() {
 async fn as_of_half_life_weights_earlier_rows_by_their_age() {
     let dir = temp_dir("as-of-half-life");
     let out = dir.join("out");
-    encode(&[
-        "--train",
-        &sample(),
-        "--target",
-        "no_show",
-        "--columns",
-        "breed",
-        "--time-column",
-        "day",
-        "--method",
-        "time",
-        "--half-life",
-        "60",
-        "--prior",
-        "2,18",
-        "--out",
-        out.to_str().unwrap(),
-    ]);
-    let ctx = SessionContext::new();
-    ctx.register_csv("a", &sample(), Default::default())
-        .await
-        .unwrap();
-    ctx.register_parquet(
-        "enc",
-        out.join("train_encoded.parquet").to_str().unwrap(),
-        ParquetReadOptions::default(),
-    )
-    .await
-    .unwrap();
+    let ctx =
+        sample_encoded_with_half_life_60(&out, &["--method", "time"], "train_encoded.parquet")
+            .await;
     let sql = "WITH g AS (SELECT DISTINCT breed, day FROM a WHERE breed IS NOT NULL),
         hand AS (SELECT g.breed, g.day,
             (2.0 + COALESCE(SUM(power(0.5, (g.day - a.day) / 60.0) * a.no_show), 0))
