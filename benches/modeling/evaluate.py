@@ -149,15 +149,20 @@ def hand_encodings(name, tr, te, ytr, keys, seed):
     return out_tr, out_te
 
 
-def posterity_encodings(tr, te, ytr, keys, seed, readers, work, extra=(), time=None):
+def posterity_encodings(tr, te, ytr, keys, seed, readers, work, extra=(), time=None,
+                        score_time=None):
     """encode's outputs for the task; readers None means encode's default readers; with
-    `time` (a row's time) the training file has it as column `t`."""
+    `time` (a row's time) the training file has it as column `t`, and with `score_time`
+    the scored file."""
     train = tr[keys].copy()
     train["y"] = ytr.values
     if time is not None:
         train["t"] = time.values
     train.to_parquet(work / "train.parquet", index=False)
-    te[keys].to_parquet(work / "test.parquet", index=False)
+    test = te[keys].copy()
+    if score_time is not None:
+        test["t"] = score_time.values
+    test.to_parquet(work / "test.parquet", index=False)
     out = work / f"out-{seed}-{readers}"
     subprocess.run(
         [posterity_bin(), "-q", "encode", "--train", str(work / "train.parquet"), "--target", "y",
@@ -167,7 +172,8 @@ def posterity_encodings(tr, te, ytr, keys, seed, readers, work, extra=(), time=N
         check=True, stdout=subprocess.DEVNULL)
     enc_tr = pd.read_parquet(out / "train_encoded.parquet").drop(
         columns=keys + ["y"] + (["t"] if time is not None else []))
-    enc_te = pd.read_parquet(out / "scored.parquet").drop(columns=keys)
+    enc_te = pd.read_parquet(out / "scored.parquet").drop(
+        columns=keys + (["t"] if score_time is not None else []))
     enc_tr.index, enc_te.index = tr.index, te.index
     return enc_tr, enc_te
 
@@ -175,9 +181,12 @@ def posterity_encodings(tr, te, ytr, keys, seed, readers, work, extra=(), time=N
 # posterity: encode's defaults; posterity_sd: the defaults plus the sd reader;
 # posterity_time: the defaults given the row's time (as-of encodings);
 # posterity_time_fitted: the same with a half-life fitted per key.
+# posterity_time_matched: as-of, each key reading data as old as the scored rows' data
+# (`--horizon matched`; the scored file has the time too).
 TIMED = {
     "posterity_time": ["--time-column", "t"],
     "posterity_time_fitted": ["--time-column", "t", "--method", "time", "--half-life", "fitted"],
+    "posterity_time_matched": ["--time-column", "t", "--horizon", "matched"],
 }
 ENCODINGS = ["posterity", "posterity_sd", *TIMED, "onehot20", "frequency", "ordinal", "oof_smoothed",
              "in_sample"]
@@ -237,11 +246,13 @@ def held_out_score(kind, numeric, tr, te, ftr, fte, ytr, yte, seed):
     return metric(kind, losses(kind, yte, fit_predict(kind, xtr, ytr.values, xte, seed)))
 
 
-def posterity_mean_score(kind, keys, numeric, tr, te, ytr, yte, work, extra, time, seeds=(0, 1)):
+def posterity_mean_score(kind, keys, numeric, tr, te, ytr, yte, work, extra, time, seeds=(0, 1),
+                         score_time=None):
     """The metric of encode's outputs with options `extra`, averaged over `seeds` (the probes)."""
     scores = []
     for seed in seeds:
-        ftr, fte = posterity_encodings(tr, te, ytr, keys, seed, None, work, extra, time)
+        ftr, fte = posterity_encodings(tr, te, ytr, keys, seed, None, work, extra, time,
+                                       score_time)
         scores.append(held_out_score(kind, numeric, tr, te, ftr, fte, ytr, yte, seed))
     return float(np.mean(scores))
 
@@ -254,7 +265,8 @@ def evaluate(task, loader, kind, work):
         for e in ENCODINGS:
             if e in TIMED:
                 ftr, fte = posterity_encodings(
-                    tr, te, ytr, keys, seed, None, work, TIMED[e], time_of(task, tr))
+                    tr, te, ytr, keys, seed, None, work, TIMED[e], time_of(task, tr),
+                    time_of(task, te))
             elif e.startswith("posterity"):
                 readers = "mean,sd" if e == "posterity_sd" else None
                 ftr, fte = posterity_encodings(tr, te, ytr, keys, seed, readers, work)

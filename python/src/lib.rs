@@ -21,8 +21,8 @@ use posterity::datafusion::datasource::MemTable;
 use posterity::datafusion::logical_expr::{AggregateUDF, ScalarUDF};
 use posterity::datafusion::prelude::{DataFrame, SessionContext};
 use posterity::encode::{
-    self, EncodeOptions, EncodeOutput, HalfLife, Method, PriorChoice, Reader, ScoreEvidence,
-    TimeTies, Treatment,
+    self, EncodeOptions, EncodeOutput, HalfLife, Horizon, Method, PriorChoice, Reader,
+    ScoreEvidence, TimeTies, Treatment,
 };
 use posterity::files::CsvOptions;
 use posterity::layout::Kind;
@@ -409,6 +409,15 @@ fn parse_options(options: &Bound<'_, pyo3::types::PyDict>, o: &mut EncodeOptions
                         HalfLife::parse(&text().map_err(|_| wrong("a number > 0 or 'fitted'"))?)
                             .map_err(in_python_words)?
                     }
+                })
+            }
+            "horizon" => {
+                o.horizon = Some(match value.extract::<f64>() {
+                    Ok(h) => Horizon::Units(h),
+                    Err(_) => Horizon::parse(
+                        &text().map_err(|_| wrong("a number > 0, 'matched' or 'none'"))?,
+                    )
+                    .map_err(in_python_words)?,
                 })
             }
             "normalize_keys" => {

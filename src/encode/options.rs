@@ -53,6 +53,34 @@ pub enum HalfLife {
     Fitted,
 }
 
+/// How far back as-of training rows read (`--horizon`).
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub enum Horizon {
+    /// Every strictly earlier time.
+    None,
+    /// Only rows at least this many time units older than the row encoded.
+    Units(f64),
+    /// As old as the scored rows' data will be: the scored rows' median time past
+    /// the newest training row (needs the scoring table with the time column).
+    Matched,
+}
+
+impl Horizon {
+    /// `none`, `matched`, or a number of time units.
+    pub fn parse(text: &str) -> Result<Horizon> {
+        match text.trim() {
+            "none" => Ok(Horizon::None),
+            "matched" => Ok(Horizon::Matched),
+            t => match t.parse::<f64>() {
+                Ok(h) => Ok(Horizon::Units(h)),
+                Err(_) => usage(format!(
+                    "--horizon '{t}' is not a number of time units, 'matched' or 'none'"
+                )),
+            },
+        }
+    }
+}
+
 impl HalfLife {
     /// `fitted`, or a number of time units.
     pub fn parse(text: &str) -> Result<HalfLife> {
@@ -376,6 +404,9 @@ pub struct EncodeOptions {
     /// (for as-of encodings: than the row being encoded) counts 2^(-age/h); needs a
     /// numeric time column; `Fitted` chooses `h` per key from the training rows.
     pub half_life: Option<HalfLife>,
+    /// How far back as-of training rows read (see `Horizon`); `None`: every
+    /// strictly earlier time.
+    pub horizon: Option<Horizon>,
     pub time_ties: TimeTies,
     /// Exposure column of a Gamma target.
     pub exposure: Option<String>,
@@ -421,6 +452,7 @@ impl EncodeOptions {
             time_column: None,
             normalize_keys: false,
             half_life: None,
+            horizon: None,
             time_ties: TimeTies::Strict,
             exposure: None,
             readers: vec![Reader::Mean],
@@ -453,6 +485,29 @@ impl EncodeOptions {
                 (Some(m), _) => Ok(m),
                 (None, _) => Ok(Method::Kfold),
             };
+        }
+        if let Some(horizon) = self.horizon {
+            if let Horizon::Units(h) = horizon {
+                if !(h.is_finite() && h > 0.0) {
+                    return usage(format!(
+                        "--horizon {h} is out of range; allowed: a finite number > 0 (in the \
+                         time column's units), 'matched' or 'none'"
+                    ));
+                }
+            }
+            if horizon != Horizon::None {
+                match (self.method, &self.time_column) {
+                    (_, None) => {
+                        return usage("--horizon needs --time-column (as-of encodings)")
+                    }
+                    (Some(Method::Kfold), _) => {
+                        return usage(
+                            "--horizon applies to as-of encodings (--method time), not to --method kfold",
+                        )
+                    }
+                    _ => {}
+                }
+            }
         }
         match (self.method, &self.time_column) {
             (Some(Method::Time), None) => usage("--method time needs --time-column"),

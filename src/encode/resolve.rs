@@ -7,7 +7,7 @@ use datafusion::arrow::datatypes::{DataType, Float64Type, Int64Type};
 use datafusion::prelude::SessionContext;
 
 use super::options::{
-    EncodeOptions, HalfLife, Method, PriorChoice, Reader, ScoreEvidence, Treatment,
+    EncodeOptions, HalfLife, Horizon, Method, PriorChoice, Reader, ScoreEvidence, Treatment,
 };
 use super::{quote, sanitize, text, usage, EncodeError, Result};
 use crate::layout::Kind;
@@ -34,6 +34,10 @@ pub struct KeyPlan {
     pub half_life: Option<f64>,
     /// How the half-life was chosen, in the user's words (empty without one asked).
     pub recency: String,
+    /// As-of training rows read only rows at least this many time units older.
+    pub horizon: Option<f64>,
+    /// How the horizon was chosen, in the user's words (empty without one asked).
+    pub horizon_why: String,
 }
 
 impl KeyPlan {
@@ -49,6 +53,8 @@ impl KeyPlan {
             indicator_min_rows: options.indicator_min_rows,
             half_life: None,
             recency: String::new(),
+            horizon: None,
+            horizon_why: String::new(),
         }
     }
 
@@ -623,14 +629,20 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         .await
         .map_err(|e| EncodeError::Usage(format!("--prior: {}", e.strip_backtrace())))?;
 
-    let time_range = match (&options.half_life, &options.time_column) {
-        (Some(_), Some(time)) => {
+    // Half-lives and horizons count time units.
+    let timed = match (&options.half_life, &options.horizon) {
+        (Some(_), _) => Some("--half-life"),
+        (None, Some(Horizon::Units(_) | Horizon::Matched)) => Some("--horizon"),
+        _ => None,
+    };
+    let time_range = match (timed, &options.time_column) {
+        (Some(flag), Some(time)) => {
             let numeric = train
                 .iter()
                 .any(|(n, d)| n == time && (d.is_numeric() || d == &DataType::Null));
             if !numeric {
                 return usage(format!(
-                    "--half-life needs a numeric --time-column (days, hours, ...); '{time}' is not"
+                    "{flag} needs a numeric --time-column (days, hours, ...); '{time}' is not"
                 ));
             }
             let b = one_row(
@@ -683,8 +695,100 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         score_columns,
     };
     check_output_names(&plan)?;
-    choose_half_lives(ctx, &mut plan).await?;
+    choose_reading(ctx, &mut plan).await?;
     Ok(plan)
+}
+
+/// Each posterior key's horizon, then its half-life: the ones given, or (half-life)
+/// fitted per key by a trial on the training rows that reads them as the horizon
+/// says (`recency.rs`).
+async fn choose_reading(ctx: &SessionContext, plan: &mut EncodePlan) -> Result<()> {
+    let matched = match plan.options.horizon {
+        Some(Horizon::Matched) => Some(scoring_horizon(ctx, plan).await?),
+        _ => None,
+    };
+    let cut = match plan.options.half_life == Some(HalfLife::Fitted) {
+        true => {
+            // The trial folds rows by their number, as encode's training rows are.
+            crate::numbered::register(ctx, &plan.options.train, super::sql::TRAIN).await?;
+            super::recency::cut(ctx, plan).await?
+        }
+        false => None,
+    };
+    for i in 0..plan.keys.len() {
+        if let Some(HalfLife::Units(h)) = plan.options.half_life {
+            plan.keys[i].half_life = Some(h);
+        }
+        // Keys given as levels or codes read no history.
+        if plan.keys[i].treatment != Treatment::Posterior {
+            continue;
+        }
+        let (horizon, why) = match (plan.options.horizon, matched) {
+            (Some(Horizon::Units(h)), _) => (Some(h), "chosen (--horizon)".to_string()),
+            (_, Some(Some(h))) => (
+                Some(h),
+                format!(
+                    "horizon {}: the scored rows' median time past the newest training row \
+                     (--horizon matched)",
+                    crate::render::short(h)
+                ),
+            ),
+            (_, Some(None)) => (
+                None,
+                "no horizon: no scored row is later than the newest training row".to_string(),
+            ),
+            _ => (None, String::new()),
+        };
+        plan.keys[i].horizon = horizon;
+        plan.keys[i].horizon_why = why;
+        if plan.options.half_life == Some(HalfLife::Fitted) {
+            let (h, why) = super::recency::fit_half_life(ctx, plan, &plan.keys[i], cut).await?;
+            plan.keys[i].half_life = h;
+            plan.keys[i].recency = why;
+        }
+    }
+    Ok(())
+}
+
+/// `--horizon matched`: the scored rows' median time past the newest training
+/// row (rows within the training period count 0); `None` when that is 0. Every
+/// posterior key gets it: a trial per key like the half-life's was measured to
+/// keep it where the learner lost by it and drop it where the learner gained
+/// most (MODELING.md).
+async fn scoring_horizon(ctx: &SessionContext, plan: &EncodePlan) -> Result<Option<f64>> {
+    let (Some(score), Some(time), Some(newest)) = (
+        &plan.options.score,
+        &plan.options.time_column,
+        plan.newest_time,
+    ) else {
+        return usage(
+            "--horizon matched needs --score: the scored rows' times set how old the data \
+             they read is",
+        );
+    };
+    let columns = columns_of(ctx, score).await?;
+    if !columns
+        .iter()
+        .any(|(n, d)| n == time && (d.is_numeric() || d == &DataType::Null))
+    {
+        return usage(format!(
+            "--horizon matched needs the numeric --time-column '{time}' in the scoring table \
+             (the scored rows' times); give a number of time units instead"
+        ));
+    }
+    let b = one_row(
+        ctx,
+        &format!(
+            "SELECT CAST(median(GREATEST(CAST({} AS DOUBLE) - {newest}, 0.0)) AS DOUBLE) FROM {}",
+            quote(time),
+            datafusion::common::TableReference::from(score.as_str()).to_quoted_string()
+        ),
+    )
+    .await?;
+    let median = b.column(0).as_primitive::<Float64Type>();
+    Ok((!median.is_null(0))
+        .then(|| median.value(0))
+        .filter(|h| h.is_finite() && *h > 0.0))
 }
 
 /// The most half-lives as-of encodings span: their running sums weigh the newest
@@ -700,33 +804,6 @@ fn check_as_of_half_life(h: f64, period: f64) -> Result<()> {
             crate::render::short(period),
             crate::render::short(period / MAX_AS_OF_HALF_LIVES)
         ));
-    }
-    Ok(())
-}
-
-/// Each posterior key's half-life: the one given, or fitted per key.
-async fn choose_half_lives(ctx: &SessionContext, plan: &mut EncodePlan) -> Result<()> {
-    let cut = match plan.options.half_life {
-        None => return Ok(()),
-        Some(HalfLife::Units(h)) => {
-            for key in &mut plan.keys {
-                key.half_life = Some(h);
-            }
-            return Ok(());
-        }
-        Some(HalfLife::Fitted) => {
-            // The trial folds rows by their number, as encode's training rows are.
-            crate::numbered::register(ctx, &plan.options.train, super::sql::TRAIN).await?;
-            super::recency::cut(ctx, plan).await?
-        }
-    };
-    for i in 0..plan.keys.len() {
-        if plan.keys[i].treatment != Treatment::Posterior {
-            continue;
-        }
-        let (h, why) = super::recency::fit_half_life(ctx, plan, &plan.keys[i], cut).await?;
-        plan.keys[i].half_life = h;
-        plan.keys[i].recency = why;
     }
     Ok(())
 }

@@ -53,6 +53,9 @@ pub struct ColumnSummary {
     /// The recency weighting of its fits (`--half-life`), and how it was chosen.
     pub half_life: Option<f64>,
     pub recency: String,
+    /// How far back as-of training rows read (`--horizon`), and how it was chosen.
+    pub horizon: Option<f64>,
+    pub horizon_why: String,
     pub warnings: Vec<String>,
 }
 
@@ -355,6 +358,8 @@ pub(super) async fn finish(
             why: key.why.clone(),
             half_life: key.half_life,
             recency: key.recency.clone(),
+            horizon: key.horizon,
+            horizon_why: key.horizon_why.clone(),
             warnings,
         });
         columns.insert(
@@ -427,6 +432,7 @@ pub fn summary_json(summary: &[ColumnSummary]) -> Value {
                     "indicators": s.indicators, "merged_levels": s.merged_levels,
                     "treatment": s.treatment.name(), "why": s.why,
                     "half_life": s.half_life, "recency": s.recency,
+                    "horizon": s.horizon, "horizon_reason": s.horizon_why,
                     "unseen_share": s.unseen_share, "warnings": s.warnings,
                 })
             })
@@ -461,8 +467,10 @@ pub fn summary_table(summary: &[ColumnSummary]) -> String {
         if !s.why.is_empty() {
             out.push_str(&format!("{} as {}: {}\n", s.key, s.treatment.name(), s.why));
         }
-        if !s.recency.is_empty() {
-            out.push_str(&format!("{}: {}\n", s.key, s.recency));
+        for reason in [&s.horizon_why, &s.recency] {
+            if !reason.is_empty() {
+                out.push_str(&format!("{}: {reason}\n", s.key));
+            }
         }
         if s.merged_levels > 0 {
             out.push_str(&format!(

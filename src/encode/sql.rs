@@ -86,6 +86,20 @@ impl AsOfDecay {
     }
 }
 
+/// The window of as-of encodings over rows grouped per (level, time), ordered by
+/// `time`: every earlier time, or with a horizon every time at least that much
+/// older (a horizon is > 0, so rows never read their own time).
+pub(super) fn as_of_window(level: &str, time: &str, horizon: Option<f64>) -> String {
+    match horizon {
+        Some(h) => format!(
+            "OVER (PARTITION BY {level} ORDER BY CAST({time} AS DOUBLE) RANGE BETWEEN UNBOUNDED PRECEDING AND {h:?} PRECEDING)"
+        ),
+        None => format!(
+            "OVER (PARTITION BY {level} ORDER BY {time} ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)"
+        ),
+    }
+}
+
 impl EncodePlan {
     /// The fit of the target over table alias `t` for `key` (its own prior when it
     /// has one, else the base prior; re-priored later when the prior is fitted).
@@ -434,7 +448,12 @@ impl EncodePlan {
         let k = &key.name;
         let (prior, enc) = (format!("__prior{i}"), format!("__enc{i}"));
         let mut stages = Vec::new();
-        let (name, query, on) = match (self.method, o.time_ties) {
+        // With a horizon rows of one time never read each other: ties do not arise.
+        let ties = match key.horizon {
+            Some(_) => TimeTies::Strict,
+            None => o.time_ties,
+        };
+        let (name, query, on) = match (self.method, ties) {
             (Method::Kfold, _) => {
                 stages.push(stage(
                     format!("fold fits {k}"),
@@ -454,10 +473,13 @@ impl EncodePlan {
             }
             (Method::Time, TimeTies::Strict) => {
                 let time = quote(o.time_column.as_deref().unwrap_or_default());
-                let pooled = "posterior_pool(p) OVER (PARTITION BY level ORDER BY __time ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)";
+                let pooled = format!(
+                    "posterior_pool(p) {}",
+                    as_of_window("level", "__time", key.horizon)
+                );
                 let (fit, pooled) = match self.as_of_decay(key) {
-                    Some((fit, decay)) => (fit, decay.aged(pooled, "__time")),
-                    None => (fit.to_string(), pooled.to_string()),
+                    Some((fit, decay)) => (fit, decay.aged(&pooled, "__time")),
+                    None => (fit.to_string(), pooled),
                 };
                 (
                     "as-of",

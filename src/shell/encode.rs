@@ -95,6 +95,12 @@ pub struct EncodeArgs {
     /// of the rest).
     #[arg(long, value_name = "UNITS|fitted")]
     pub half_life: Option<String>,
+    /// As-of encodings: training rows read only their level's rows at least this many
+    /// time units older, as scored rows that far past the training period do (needs a
+    /// numeric --time-column); `matched`: the --score rows' median time past the
+    /// training rows; `none` (the default): every earlier time.
+    #[arg(long, value_name = "UNITS|matched|none")]
+    pub horizon: Option<String>,
     /// Normalise key text first (Unicode compatibility form, case, white space), so
     /// "Golden Retriever" and " golden  retriever" are one level.
     #[arg(long)]
@@ -216,6 +222,11 @@ fn options(args: &EncodeArgs) -> Result<EncodeOptions, Failure> {
         .half_life
         .as_deref()
         .map(encode::HalfLife::parse)
+        .transpose()?;
+    o.horizon = args
+        .horizon
+        .as_deref()
+        .map(encode::Horizon::parse)
         .transpose()?;
     o.normalize_keys = args.normalize_keys;
     o.time_ties = match args.time_ties {
@@ -341,6 +352,7 @@ async fn update(shell: &Shell, args: &EncodeArgs, previous: &PathBuf) -> Result<
         (args.time_column.is_some(), "--time-column"),
         (args.draws.is_some(), "--draws"),
         (args.half_life.is_some(), "--half-life (use --decay)"),
+        (args.horizon.is_some(), "--horizon"),
         (args.prior != "fitted", "--prior"),
     ];
     if let Some((_, flag)) = ignored.iter().find(|(given, _)| *given) {
