@@ -62,7 +62,8 @@ def main():
                                 test.y.values)
     print(json.dumps({"method": "noise control, 2 columns", "in_sample_gain": noise_in,
                       "held_out_gain": noise_out}))
-    # Recency weights only reweight the rows a training row may see; measured too.
+    # Recency weights and horizons only reweight or drop rows a training row may see;
+    # measured too.
     methods = {
         "kfold": ["--method", "kfold"],
         "time": ["--time-column", "t"],
@@ -71,6 +72,7 @@ def main():
         "time, half-life 20": ["--time-column", "t", "--method", "time", "--half-life", "20"],
         "time, half-life fitted": ["--time-column", "t", "--method", "time", "--half-life",
                                    "fitted"],
+        "time, horizon 20": ["--time-column", "t", "--horizon", "20"],
         "loo": ["--method", "loo"],
     }
     for method, extra in methods.items():

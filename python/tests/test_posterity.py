@@ -167,6 +167,19 @@ def test_fitted_half_life_is_reported_per_key():
     assert numbers.summary[0]["half_life"] == 30
 
 
+def test_horizon_is_reported_per_key():
+    enc = posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
+                           horizon=30)
+    assert enc.summary[0]["horizon"] == 30
+    assert enc.summary[0]["horizon_reason"] == "chosen (--horizon)"
+    later = pa.table({"breed": ["breed_001"] * 3, "day": [370, 380, 400]})
+    matched = posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
+                               horizon="matched", score=later)
+    # Days past the newest training day (364): 6, 16, 36; their median.
+    assert matched.summary[0]["horizon"] == 16
+    assert matched.summary[0]["horizon_reason"].startswith("horizon 16"), matched.summary
+
+
 def test_report_equals_the_shell(tmp_path):
     shell_encode(tmp_path / "shell", extra=["--report"])
     enc = posterity.encode(SAMPLE, target="no_show", score=SAMPLE, report=True, **OPTIONS)
@@ -246,6 +259,11 @@ def test_bad_input_is_a_python_error(ctx):
         (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
                                   half_life="soon"),
          ["half_life 'soon' is not a number of time units or 'fitted'"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
+                                  horizon="soon"),
+         ["horizon 'soon' is not a number of time units, 'matched' or 'none'"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
+                                  horizon=-1), ["horizon -1 is out of range"]),
         (lambda: posterity.encode(pa.table({"k": ["a", "b"], "y": [0.5, float("nan")]}), target="y",
                                   columns=["k"]), ["nig_posterior", "NaN"]),
         (lambda: posterity.Bundle.load("/no/such/bundle.json"), ["Bundle.load", "cannot read"]),

@@ -1260,6 +1260,185 @@ async fn as_of_half_life_weights_earlier_rows_by_their_age() {
     }
 }
 
+// --horizon H: an as-of training row reads only its level's rows at least H time
+// units older (as a scored row H past the training period does); with a half-life
+// too, those rows weighted by their age. Every row against the counts computed
+// independently in SQL; `matched` takes the scored rows' median time past the
+// newest training row; bad horizons are refused by name with the allowed range.
+#[tokio::test]
+async fn as_of_horizon_reads_only_rows_that_old() {
+    let dir = temp_dir("as-of-horizon");
+    let sample = sample();
+    // Scored rows 1..30 days past the newest training day (364): median 15.5.
+    let later = dir.join("later.csv");
+    let mut text = String::from("day,breed\n");
+    for d in 1..=30 {
+        text.push_str(&format!("{},breed_00{}\n", 364 + d, d % 10));
+    }
+    std::fs::write(&later, text).unwrap();
+    let later = later.to_str().unwrap();
+    let run = |name: &str, extra: &[&str]| {
+        let out = dir.join(name);
+        let mut args = vec![
+            "--train",
+            &sample,
+            "--target",
+            "no_show",
+            "--columns",
+            "breed",
+            "--time-column",
+            "day",
+            "--prior",
+            "2,18",
+            "--out",
+            out.to_str().unwrap(),
+        ];
+        args.extend_from_slice(extra);
+        encode(&args);
+        out
+    };
+    let cases = [
+        (run("h30", &["--horizon", "30"]), 30.0, None),
+        (
+            run(
+                "h30-hl60",
+                &["--horizon", "30", "--method", "time", "--half-life", "60"],
+            ),
+            30.0,
+            Some(60.0),
+        ),
+        (
+            run("matched", &["--horizon", "matched", "--score", later]),
+            15.5,
+            None,
+        ),
+    ];
+    for (out, horizon, half_life) in cases {
+        let summary: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(out.join("summary.json")).unwrap())
+                .unwrap();
+        assert_eq!(summary[0]["horizon"], horizon, "{summary}");
+        let ctx = SessionContext::new();
+        ctx.register_csv("a", &sample, Default::default())
+            .await
+            .unwrap();
+        ctx.register_parquet(
+            "enc",
+            out.join("train_encoded.parquet").to_str().unwrap(),
+            ParquetReadOptions::default(),
+        )
+        .await
+        .unwrap();
+        let weight = match half_life {
+            Some(h) => format!("power(0.5, (g.day - a.day) / {h:?})"),
+            None => "1.0".to_string(),
+        };
+        let sql = format!(
+            "WITH g AS (SELECT DISTINCT breed, day FROM a WHERE breed IS NOT NULL),
+            hand AS (SELECT g.breed, g.day,
+                (2.0 + COALESCE(SUM({weight} * a.no_show), 0))
+                  / (20.0 + COALESCE(SUM(CASE WHEN a.no_show IS NOT NULL THEN {weight} END), 0)) AS m
+                FROM g LEFT JOIN a ON a.breed = g.breed AND a.day <= g.day - {horizon:?}
+                GROUP BY g.breed, g.day),
+            every_earlier AS (SELECT g.breed, g.day,
+                (2.0 + COALESCE(SUM(a.no_show), 0)) / (20.0 + COUNT(a.no_show)) AS m
+                FROM g LEFT JOIN a ON a.breed = g.breed AND a.day < g.day GROUP BY g.breed, g.day)
+            SELECT MAX(ABS(e.breed_mean - h.m)), COUNT(*), MAX(ABS(e.breed_mean - x.m))
+            FROM enc e JOIN hand h ON e.breed = h.breed AND e.day = h.day
+              JOIN every_earlier x ON e.breed = x.breed AND e.day = x.day"
+        );
+        let b = ctx.sql(&sql).await.unwrap().collect().await.unwrap();
+        let worst = b[0].column(0).as_primitive::<Float64Type>().value(0);
+        let rows = b[0].column(1).as_primitive::<Int64Type>().value(0);
+        let every_earlier = b[0].column(2).as_primitive::<Float64Type>().value(0);
+        assert!(rows > 1000, "{rows} rows compared");
+        assert!(
+            worst < 1e-12,
+            "{out:?}: differs from the hand computation by {worst}"
+        );
+        assert!(
+            every_earlier > 1e-3,
+            "{out:?}: the horizon must change the encodings"
+        );
+    }
+    let bad = dir.join("bad");
+    let bad = bad.to_str().unwrap();
+    let inside = dir.join("inside.csv");
+    std::fs::write(&inside, "day,breed\n10,breed_001\n364,breed_002\n").unwrap();
+    let no_time = dir.join("no_time.csv");
+    std::fs::write(&no_time, "breed\nbreed_001\n").unwrap();
+    let out = run(
+        "inside",
+        &["--horizon", "matched", "--score", inside.to_str().unwrap()],
+    );
+    let summary = std::fs::read_to_string(out.join("summary.json")).unwrap();
+    assert!(
+        summary.contains("no horizon: no scored row is later than the newest training row"),
+        "{summary}"
+    );
+    for (extra, expected) in [
+        (
+            &["--horizon", "0"][..],
+            "--horizon 0 is out of range; allowed: a finite number > 0",
+        ),
+        (
+            &["--horizon", "nan"],
+            "--horizon NaN is out of range; allowed: a finite number > 0",
+        ),
+        (
+            &["--horizon", "soon"],
+            "--horizon 'soon' is not a number of time units, 'matched' or 'none'",
+        ),
+        (
+            &["--horizon", "30", "--method", "kfold"],
+            "--horizon applies to as-of encodings (--method time), not to --method kfold",
+        ),
+        (&["--horizon", "matched"], "--horizon matched needs --score"),
+        (
+            &["--horizon", "matched", "--score", no_time.to_str().unwrap()],
+            "--horizon matched needs the numeric --time-column 'day' in the scoring table",
+        ),
+        (
+            &["--horizon", "30", "--time-column", "booked_on"],
+            "--horizon needs a numeric --time-column (days, hours, ...); 'booked_on' is not",
+        ),
+    ] {
+        let mut args = vec![
+            "encode",
+            "--train",
+            &sample,
+            "--target",
+            "no_show",
+            "--columns",
+            "breed",
+            "--out",
+            bad,
+        ];
+        if !extra.contains(&"--time-column") {
+            args.extend(["--time-column", "day"]);
+        }
+        args.extend_from_slice(extra);
+        let o = encode_output(&args);
+        let stderr = String::from_utf8_lossy(&o.stderr);
+        assert_eq!(o.status.code(), Some(2), "{extra:?}: {stderr}");
+        assert!(stderr.contains(expected), "{extra:?}: {stderr}");
+    }
+    let o = encode_output(&[
+        "encode",
+        "--train",
+        &sample,
+        "--target",
+        "no_show",
+        "--columns",
+        "breed",
+        "--horizon",
+        "30",
+        "--out",
+        bad,
+    ]);
+    assert!(String::from_utf8_lossy(&o.stderr).contains("--horizon needs --time-column"));
+}
+
 // Messy key text: with --normalize-keys, spellings that differ in case, white space
 // or Unicode compatibility form (full-width letters, non-breaking spaces) are one
 // level, the merge is reported, and the bundle scores raw spellings the same way.

@@ -79,6 +79,7 @@ fn no_encode_method_leaks_to_a_tree_learner() {
         "kfold, half-life fitted",
         "time, half-life 20",
         "time, half-life fitted",
+        "time, horizon 20",
     ] {
         let r = find(method);
         let (inside, outside) = (
