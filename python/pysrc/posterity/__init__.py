@@ -226,7 +226,8 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     pandas or a polars DataFrame. The options are the shell's ``encode`` flags with
     underscores: ``interactions=[["breed", "clinic"]]``, ``family``, ``prior`` ("fitted",
     "jeffreys", "uniform" or numbers), ``method`` ("kfold" or "time"), ``folds``, ``seed``,
-    ``time_column``, ``half_life`` (time units, or "fitted": chosen per key), ``normalize_keys``, ``time_ties``, ``exposure``,
+    ``time_column``, ``half_life`` (time units, or "fitted": chosen per key), ``horizon`` (time
+    units, "matched": from ``score``'s times, or "none"), ``normalize_keys``, ``time_ties``, ``exposure``,
     ``readers=["mean", "sd"]`` (default ``["mean"]``), ``draws``, ``indicators``, ``indicator_min_rows``,
     ``treatment={"clinic": "levels"}``, ``score_evidence`` ("matched" or "full"),
     ``report=True`` (the HTML report: ``Encoded.report``, ``report.html``). The same
