@@ -305,6 +305,19 @@ pub(super) async fn finish(
                 key.name
             ));
         }
+        if let (Some(h), Some(oldest), Some(newest)) =
+            (key.horizon, plan.oldest_time, plan.newest_time)
+        {
+            if h >= newest - oldest {
+                warnings.push(format!(
+                    "the horizon of {} ({}) is at least the training period ({}): every training \
+                     row reads the prior",
+                    key.name,
+                    crate::render::short(h),
+                    crate::render::short(newest - oldest)
+                ));
+            }
+        }
         if plan.fitted
             && key.treatment == Treatment::Posterior
             && (levels.len() as u64) < FEW_LEVELS

@@ -1376,6 +1376,14 @@ async fn as_of_horizon_reads_only_rows_that_old() {
         summary.contains("no horizon: no scored row is later than the newest training row"),
         "{summary}"
     );
+    let out = run("longer", &["--horizon", "400"]);
+    let summary = std::fs::read_to_string(out.join("summary.json")).unwrap();
+    assert!(
+        summary.contains(
+            "the horizon of breed (400) is at least the training period (364): every training row reads the prior"
+        ),
+        "{summary}"
+    );
     for (extra, expected) in [
         (
             &["--horizon", "0"][..],
