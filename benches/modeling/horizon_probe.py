@@ -14,8 +14,8 @@ from evaluate import (  # noqa: E402
     posterity_mean_score, split, task_named, time_of)
 
 AS_OF = ["--time-column", "t"]
-FIXED = {"flights_late": ["15", "30"], "flights_delay": ["3", "7", "15", "30", "61"], "baseball": ["3", "7"],
-         "bundesliga": ["3", "5", "9"]}
+FIXED = {"flights_late": ["15", "30"], "flights_delay": ["3", "7", "15", "30", "61"],
+         "baseball": ["3", "7"], "bundesliga": ["3", "5", "9"]}
 
 
 def variants(prefix):
