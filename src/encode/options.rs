@@ -469,6 +469,7 @@ impl EncodeOptions {
 
     /// The method after defaults, checked against the other options.
     pub fn method(&self) -> Result<Method> {
+        let horizon = self.check_horizon()?;
         if let Some(half_life) = self.half_life {
             if let HalfLife::Units(h) = half_life {
                 if !(h.is_finite() && h > 0.0) {
@@ -483,31 +484,10 @@ impl EncodeOptions {
             return match (self.method, &self.time_column) {
                 (_, None) => usage("--half-life needs --time-column (the age of each row)"),
                 (Some(m), _) => Ok(m),
+                // A horizon is for as-of encodings.
+                (None, _) if horizon => Ok(Method::Time),
                 (None, _) => Ok(Method::Kfold),
             };
-        }
-        if let Some(horizon) = self.horizon {
-            if let Horizon::Units(h) = horizon {
-                if !(h.is_finite() && h > 0.0) {
-                    return usage(format!(
-                        "--horizon {h} is out of range; allowed: a finite number > 0 (in the \
-                         time column's units), 'matched' or 'none'"
-                    ));
-                }
-            }
-            if horizon != Horizon::None {
-                match (self.method, &self.time_column) {
-                    (_, None) => {
-                        return usage("--horizon needs --time-column (as-of encodings)")
-                    }
-                    (Some(Method::Kfold), _) => {
-                        return usage(
-                            "--horizon applies to as-of encodings (--method time), not to --method kfold",
-                        )
-                    }
-                    _ => {}
-                }
-            }
         }
         match (self.method, &self.time_column) {
             (Some(Method::Time), None) => usage("--method time needs --time-column"),
@@ -519,6 +499,31 @@ impl EncodeOptions {
             (Some(m), _) => Ok(m),
             (None, Some(_)) => Ok(Method::Time),
             (None, None) => Ok(Method::Kfold),
+        }
+    }
+
+    /// Whether a horizon is asked for (as-of encodings only), checked.
+    fn check_horizon(&self) -> Result<bool> {
+        let Some(horizon) = self.horizon else {
+            return Ok(false);
+        };
+        if let Horizon::Units(h) = horizon {
+            if !(h.is_finite() && h > 0.0) {
+                return usage(format!(
+                    "--horizon {h} is out of range; allowed: a finite number > 0 (in the \
+                     time column's units), 'matched' or 'none'"
+                ));
+            }
+        }
+        if horizon == Horizon::None {
+            return Ok(false);
+        }
+        match (self.method, &self.time_column) {
+            (_, None) => usage("--horizon needs --time-column (as-of encodings)"),
+            (Some(Method::Kfold), _) => {
+                usage("--horizon applies to as-of encodings (--method time), not to --method kfold")
+            }
+            _ => Ok(true),
         }
     }
 }

@@ -375,61 +375,73 @@ fn a_killed_executor_leaves_no_partial_output() {
 }
 
 /// `encode` on the cluster with a work directory writes what one process writes:
-/// the same bundle and the same training rows (in any order on a cluster).
+/// the same bundle and the same training rows (in any order on a cluster), for
+/// k-fold encodings and for as-of encodings with a horizon (window frames).
 #[test]
 fn encode_on_the_cluster_gives_the_single_process_outputs() {
     let cluster = Cluster::start("encode", 2, false, 120);
     let dir = std::env::temp_dir().join(format!("posterity-cluster-enc-{}", std::process::id()));
     std::fs::remove_dir_all(&dir).ok();
     let data = data_dir().display().to_string();
-    let encode = |out: &str| -> Vec<String> {
-        let mut words: Vec<String> = [
-            "encode",
-            "--train",
-            &data,
-            "--target",
-            "y",
-            "--columns",
-            "k,class",
-            "--readers",
-            "mean,sd",
-            "--out",
-        ]
-        .iter()
-        .map(|w| w.to_string())
-        .collect();
-        words.push(dir.join(out).display().to_string());
-        words
-    };
-    let o = local(&words(&encode("local")));
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    let mut on_cluster = encode("cluster");
-    on_cluster.push("--work-dir".into());
-    on_cluster.push(dir.join("work").display().to_string());
-    let o = cluster.shell(&words(&on_cluster));
-    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
-    let bundle = |out: &str| std::fs::read_to_string(dir.join(out).join("bundle.json")).unwrap();
-    assert!(bundle("local") == bundle("cluster"), "the bundles differ");
-    let rows = |out: &str| {
-        let table = format!(
-            "e={}",
-            dir.join(out).join("train_encoded.parquet").display()
+    for (name, extra) in [
+        ("kfold", &[][..]),
+        ("as-of", &["--time-column", "day", "--horizon", "5"][..]),
+    ] {
+        let encode = |out: &str| -> Vec<String> {
+            let mut words: Vec<String> = [
+                "encode",
+                "--train",
+                &data,
+                "--target",
+                "y",
+                "--columns",
+                "k,class",
+                "--readers",
+                "mean,sd",
+            ]
+            .iter()
+            .chain(extra)
+            .map(|w| w.to_string())
+            .collect();
+            words.push("--out".into());
+            words.push(dir.join(name).join(out).display().to_string());
+            words
+        };
+        let o = local(&words(&encode("local")));
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        let mut on_cluster = encode("cluster");
+        on_cluster.push("--work-dir".into());
+        on_cluster.push(dir.join(name).join("work").display().to_string());
+        let o = cluster.shell(&words(&on_cluster));
+        assert!(
+            o.status.success(),
+            "{name}: {}",
+            String::from_utf8_lossy(&o.stderr)
         );
-        json(
-            &local(&[
-                "-t",
-                &table,
-                "--format",
-                "json",
-                "-c",
-                "SELECT * FROM e ORDER BY k, day, y, events, exposure, amount, class",
-            ]),
-            out,
-        )
-    };
-    let (here, there) = (rows("local"), rows("cluster"));
-    assert_eq!(here.len(), 20_000);
-    same(&here, &there, "train_encoded");
+        let out = |side: &str| dir.join(name).join(side);
+        let bundle = |side: &str| std::fs::read_to_string(out(side).join("bundle.json")).unwrap();
+        assert!(
+            bundle("local") == bundle("cluster"),
+            "{name}: the bundles differ"
+        );
+        let rows = |side: &str| {
+            let table = format!("e={}", out(side).join("train_encoded.parquet").display());
+            json(
+                &local(&[
+                    "-t",
+                    &table,
+                    "--format",
+                    "json",
+                    "-c",
+                    "SELECT * FROM e ORDER BY k, day, y, events, exposure, amount, class",
+                ]),
+                side,
+            )
+        };
+        let (here, there) = (rows("local"), rows("cluster"));
+        assert_eq!(here.len(), 20_000);
+        same(&here, &there, name);
+    }
     std::fs::remove_dir_all(&dir).ok();
 }
 

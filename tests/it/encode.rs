@@ -1302,7 +1302,8 @@ async fn as_of_horizon_reads_only_rows_that_old() {
         (
             run(
                 "h30-hl60",
-                &["--horizon", "30", "--method", "time", "--half-life", "60"],
+                // A horizon makes the encodings as-of without --method time.
+                &["--horizon", "30", "--half-life", "60"],
             ),
             30.0,
             Some(60.0),
@@ -1387,6 +1388,10 @@ async fn as_of_horizon_reads_only_rows_that_old() {
     for (extra, expected) in [
         (
             &["--horizon", "0"][..],
+            "--horizon 0 is out of range; allowed: a finite number > 0",
+        ),
+        (
+            &["--half-life", "30", "--horizon", "0"],
             "--horizon 0 is out of range; allowed: a finite number > 0",
         ),
         (
