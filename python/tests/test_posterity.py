@@ -171,7 +171,7 @@ def test_horizon_is_reported_per_key():
     enc = posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
                            horizon=30)
     assert enc.summary[0]["horizon"] == 30
-    assert enc.summary[0]["horizon_reason"] == "chosen (--horizon)"
+    assert enc.summary[0]["horizon_reason"] == "horizon 30 (--horizon)"
     later = pa.table({"breed": ["breed_001"] * 3, "day": [370, 380, 400]})
     matched = posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
                                horizon="matched", score=later)

@@ -724,7 +724,10 @@ async fn choose_reading(ctx: &SessionContext, plan: &mut EncodePlan) -> Result<(
             continue;
         }
         let (horizon, why) = match (plan.options.horizon, matched) {
-            (Some(Horizon::Units(h)), _) => (Some(h), "chosen (--horizon)".to_string()),
+            (Some(Horizon::Units(h)), _) => (
+                Some(h),
+                format!("horizon {} (--horizon)", crate::render::short(h)),
+            ),
             (_, Some(Some(h))) => (
                 Some(h),
                 format!(
