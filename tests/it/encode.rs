@@ -188,18 +188,7 @@ async fn values_match_count_and_sum() {
         "--out",
         out.to_str().unwrap(),
     ]);
-    let ctx = SessionContext::new();
-    posterity::register(&ctx);
-    ctx.register_csv("a", &train, Default::default())
-        .await
-        .unwrap();
-    ctx.register_parquet(
-        "enc",
-        out.join("train_encoded.parquet").to_str().unwrap(),
-        ParquetReadOptions::default(),
-    )
-    .await
-    .unwrap();
+    let ctx = rows_and_encodings(&train, &out.join("train_encoded.parquet")).await;
     // Row numbers in file order: appointment_id is 0..n in the sample, so __row = appointment_id.
     let sql = "WITH f AS (SELECT *, fold_of(appointment_id, 5, 3) AS fold FROM a),
         tot AS (SELECT breed, SUM(no_show) AS s, COUNT(*) AS n FROM f GROUP BY breed),
@@ -1105,6 +1094,24 @@ async fn outputs_are_finite_for_every_family_and_prior() {
     assert!(checked > 100);
 }
 
+/// A session with posterity, the training rows `csv` as `a` and the encoded
+/// Parquet file `encoded` as `enc`: what the hand computations join.
+async fn rows_and_encodings(csv: &str, encoded: &Path) -> SessionContext {
+    let ctx = SessionContext::new();
+    posterity::register(&ctx);
+    ctx.register_csv("a", csv, Default::default())
+        .await
+        .unwrap();
+    ctx.register_parquet(
+        "enc",
+        encoded.to_str().unwrap(),
+        ParquetReadOptions::default(),
+    )
+    .await
+    .unwrap();
+    ctx
+}
+
 /// The sample's `breed` encoded for `no_show` with `--time-column day --half-life 60
 /// --prior 2,18` and `extra` into `out`; a session with the sample as `a` and the
 /// output file `enc_file` as `enc`.
@@ -1132,18 +1139,7 @@ async fn sample_encoded_with_half_life_60(
     ];
     args.extend_from_slice(extra);
     encode(&args);
-    let ctx = SessionContext::new();
-    ctx.register_csv("a", &sample, Default::default())
-        .await
-        .unwrap();
-    ctx.register_parquet(
-        "enc",
-        out.join(enc_file).to_str().unwrap(),
-        ParquetReadOptions::default(),
-    )
-    .await
-    .unwrap();
-    ctx
+    rows_and_encodings(&sample, &out.join(enc_file)).await
 }
 
 // Recency weighting: with --half-life H each row counts 2^(-age/H), its age counted
@@ -1319,17 +1315,7 @@ async fn as_of_horizon_reads_only_rows_that_old() {
             serde_json::from_str(&std::fs::read_to_string(out.join("summary.json")).unwrap())
                 .unwrap();
         assert_eq!(summary[0]["horizon"], horizon, "{summary}");
-        let ctx = SessionContext::new();
-        ctx.register_csv("a", &sample, Default::default())
-            .await
-            .unwrap();
-        ctx.register_parquet(
-            "enc",
-            out.join("train_encoded.parquet").to_str().unwrap(),
-            ParquetReadOptions::default(),
-        )
-        .await
-        .unwrap();
+        let ctx = rows_and_encodings(&sample, &out.join("train_encoded.parquet")).await;
         let weight = match half_life {
             Some(h) => format!("power(0.5, (g.day - a.day) / {h:?})"),
             None => "1.0".to_string(),
