@@ -472,12 +472,7 @@ impl EncodeOptions {
         let horizon = self.check_horizon()?;
         if let Some(half_life) = self.half_life {
             if let HalfLife::Units(h) = half_life {
-                if !(h.is_finite() && h > 0.0) {
-                    return usage(format!(
-                        "--half-life {h} is out of range; allowed: a finite number > 0 (in the \
-                         time column's units) or 'fitted'"
-                    ));
-                }
+                check_time_units("--half-life", h, " or 'fitted'")?;
             }
             // Out-of-fold unless as-of is asked for (a half-life once meant out-of-fold
             // encodings only; as-of encodings take a given one).
@@ -508,12 +503,7 @@ impl EncodeOptions {
             return Ok(false);
         };
         if let Horizon::Units(h) = horizon {
-            if !(h.is_finite() && h > 0.0) {
-                return usage(format!(
-                    "--horizon {h} is out of range; allowed: a finite number > 0 (in the \
-                     time column's units), 'matched' or 'none'"
-                ));
-            }
+            check_time_units("--horizon", h, ", 'matched' or 'none'")?;
         }
         if horizon == Horizon::None {
             return Ok(false);
@@ -526,6 +516,18 @@ impl EncodeOptions {
             _ => Ok(true),
         }
     }
+}
+
+/// A span of `flag` in the time column's units must be a finite number > 0;
+/// `others` ends the message with the words it also takes.
+fn check_time_units(flag: &str, h: f64, others: &str) -> Result<()> {
+    if h.is_finite() && h > 0.0 {
+        return Ok(());
+    }
+    usage(format!(
+        "{flag} {h} is out of range; allowed: a finite number > 0 (in the time column's \
+         units){others}"
+    ))
 }
 
 #[cfg(test)]
