@@ -24,7 +24,8 @@
 //! as written; `length_prefixed` (interactions) is each column's text prefixed
 //! by its length in Unicode characters and `:`, joined by `|` — `9:breed_017|9:clinic_03`
 //! — which no two different rows can share ([`interaction_key`]). Version 1
-//! bundles (no `key`; interactions joined by a bare `|`) are still read.
+//! bundles (no `key`; interactions joined by a bare `|`) are still read. A column
+//! may list its own `readers` (version 4), which replace the bundle's for it.
 
 use std::collections::{BTreeMap, HashMap};
 
@@ -38,7 +39,9 @@ use crate::family::{
 use crate::layout::AnyPosterior;
 
 pub const FORMAT: &str = "posterity-bundle";
-pub const VERSION: u64 = 3;
+/// The newest version this build reads. It writes version 4 only when a column has
+/// readers of its own (older readers would score it with the bundle's), else 3.
+pub const VERSION: u64 = 4;
 
 /// Messy key text made comparable: Unicode compatibility form (NFKC: full-width
 /// letters, ligatures, non-breaking spaces), lower case, surrounding space removed
@@ -184,6 +187,8 @@ pub struct ColumnEncoding {
     pub score_scale: f64,
     /// What the key became in the training and scored tables.
     pub treatment: Treatment,
+    /// This key's readers when they differ from the bundle's (`Bundle::readers_of`).
+    pub readers: Option<Vec<String>>,
 }
 
 impl ColumnEncoding {
@@ -256,6 +261,11 @@ pub struct Bundle {
 }
 
 impl Bundle {
+    /// The readers that score `column`: its own, or the bundle's.
+    pub fn readers_of<'a>(&'a self, column: &'a ColumnEncoding) -> &'a [String] {
+        column.readers.as_deref().unwrap_or(&self.readers)
+    }
+
     /// Serialise (sorted keys, so the same encodings give the same bytes).
     pub fn to_json(&self) -> String {
         let mut columns = Map::new();
@@ -279,11 +289,14 @@ impl Bundle {
             if c.score_scale != 1.0 {
                 column["score_scale"] = json!(c.score_scale);
             }
+            if let Some(readers) = &c.readers {
+                column["readers"] = json!(readers);
+            }
             columns.insert(name.clone(), column);
         }
         let v = json!({
             "format": FORMAT,
-            "version": VERSION,
+            "version": if self.columns.values().any(|c| c.readers.is_some()) { VERSION } else { 3 },
             "target": self.target,
             "family": self.family,
             "readers": self.readers,
@@ -365,6 +378,7 @@ impl Bundle {
                     prior,
                     levels,
                     indicators: texts_of(c.get("indicators")),
+                    readers: c.get("readers").map(|r| texts_of(Some(r))),
                     treatment: match c.get("treatment").and_then(Value::as_str) {
                         None => Treatment::Posterior,
                         Some(t) => Treatment::parse(t).map_err(|_| {

@@ -25,11 +25,6 @@ fn usage<T>(message: String) -> Result<T> {
 /// bundle's (name) order. Unseen levels and rows with a NULL key column read the
 /// prior (indicators 0, code -1). Posterior draws are not part of a bundle.
 pub fn score(bundle: &Bundle, batch: &RecordBatch) -> Result<RecordBatch> {
-    let readers = bundle
-        .readers
-        .iter()
-        .map(|r| Reader::parse(r))
-        .collect::<Result<Vec<_>>>()?;
     let mut fields: Vec<Field> = batch
         .schema()
         .fields()
@@ -40,6 +35,11 @@ pub fn score(bundle: &Bundle, batch: &RecordBatch) -> Result<RecordBatch> {
     for (name, encoding) in &bundle.columns {
         let texts = key_texts(name, encoding, batch)?;
         let levels = levels_of(encoding, &texts, batch.num_rows());
+        let readers = bundle
+            .readers_of(encoding)
+            .iter()
+            .map(|r| Reader::parse(r))
+            .collect::<Result<Vec<_>>>()?;
         for (column_name, array) in features(name, encoding, &readers, &levels)? {
             if fields.iter().any(|f| f.name() == &column_name) {
                 return usage(format!(

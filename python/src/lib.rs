@@ -431,12 +431,14 @@ fn parse_options(options: &Bound<'_, pyo3::types::PyDict>, o: &mut EncodeOptions
             }
             "exposure" => o.exposure = Some(text().map_err(|_| wrong("a column name"))?),
             "readers" => {
-                o.readers = texts()
-                    .map_err(|_| wrong("a list such as ['mean', 'sd', 'q05']"))?
-                    .iter()
-                    .map(|r| Reader::parse(r))
-                    .collect::<Result<_, _>>()
-                    .map_err(error)?
+                o.readers = Some(
+                    texts()
+                        .map_err(|_| wrong("a list such as ['mean', 'sd', 'q05']"))?
+                        .iter()
+                        .map(|r| Reader::parse(r))
+                        .collect::<Result<_, _>>()
+                        .map_err(error)?,
+                )
             }
             "draws" => {
                 o.draws = Some(

@@ -180,6 +180,32 @@ def test_horizon_is_reported_per_key():
     assert matched.summary[0]["horizon_reason"].startswith("horizon 16"), matched.summary
 
 
+def test_default_readers_follow_each_keys_spread():
+    # Levels of `volatile` have standard deviations from 0.01 to 1.3 (a fixed cycle of
+    # offsets, no random numbers); levels of `calm` all share one spread.
+    offsets = [-1.0, -0.5, 0.0, 0.5, 1.0, 0.25, -0.25, 0.75]
+    rows = {"volatile": [], "calm": [], "y": []}
+    for i in range(4000):
+        v, c = i % 40, (i // 40) % 40
+        rows["volatile"].append(f"v{v}")
+        rows["calm"].append(f"c{c}")
+        rows["y"].append(10.0 + v / 10 + 0.02 * 100 ** (v / 39) * offsets[(i // 7) % 8]
+                         + 0.3 * offsets[(i // 3) % 8])
+    table = pa.table(rows)
+    enc = posterity.encode(table, target="y", columns=["volatile", "calm"], score=table)
+    by_key = {s["key"]: s for s in enc.summary}
+    assert by_key["volatile"]["readers"] == ["mean", "sd"], by_key["volatile"]
+    assert by_key["calm"]["readers"] == ["mean"], by_key["calm"]
+    assert by_key["volatile"]["prior"]["alpha0"] <= 2 < by_key["calm"]["prior"]["alpha0"]
+    assert "volatile_sd" in enc.scored.column_names and "calm_sd" not in enc.scored.column_names
+    served = posterity.Bundle.from_json(enc.bundle.to_json()).score(table.select(["volatile", "calm"]))
+    # The bundle path computes the same formula outside the engine (1e-12, as in the shell's test).
+    assert served.column("volatile_sd").to_pylist() == pytest.approx(
+        enc.scored.column("volatile_sd").to_pylist(), rel=1e-12)
+    given = posterity.encode(table, target="y", columns=["volatile", "calm"], readers=["mean"])
+    assert "volatile_sd" not in given.train_encoded.column_names
+
+
 def test_report_equals_the_shell(tmp_path):
     shell_encode(tmp_path / "shell", extra=["--report"])
     enc = posterity.encode(SAMPLE, target="no_show", score=SAMPLE, report=True, **OPTIONS)

@@ -410,7 +410,9 @@ pub struct EncodeOptions {
     pub time_ties: TimeTies,
     /// Exposure column of a Gamma target.
     pub exposure: Option<String>,
-    pub readers: Vec<Reader>,
+    /// The readers of every posterior key; `None`: the mean, and also the `sd` of a
+    /// continuous key whose levels' variances differ widely (see `volatile`).
+    pub readers: Option<Vec<Reader>>,
     /// Add a seeded posterior draw per row and key.
     pub draws: Option<u64>,
     /// Indicator columns `<key>_top1..` for up to this many of the largest levels
@@ -455,7 +457,7 @@ impl EncodeOptions {
             horizon: None,
             time_ties: TimeTies::Strict,
             exposure: None,
-            readers: vec![Reader::Mean],
+            readers: None,
             draws: None,
             indicators: 20,
             indicator_min_rows: 100.0,

@@ -38,6 +38,10 @@ pub struct KeyPlan {
     pub horizon: Option<f64>,
     /// How the horizon was chosen, in the user's words (empty without one asked).
     pub horizon_why: String,
+    /// Its reader columns (`--readers`, or the default for its spread).
+    pub readers: Vec<Reader>,
+    /// Why a default reader set was chosen, in the user's words (empty when given).
+    pub readers_why: String,
 }
 
 impl KeyPlan {
@@ -55,6 +59,11 @@ impl KeyPlan {
             recency: String::new(),
             horizon: None,
             horizon_why: String::new(),
+            readers: options
+                .readers
+                .clone()
+                .unwrap_or_else(|| vec![Reader::Mean]),
+            readers_why: String::new(),
         }
     }
 
@@ -141,20 +150,21 @@ impl EncodePlan {
             &key.name,
             key.treatment,
             key.indicators,
-            &self.options.readers,
+            &key.readers,
             &self.classes,
             self.options.draws.is_some(),
         )
     }
 
     /// The reader columns of `key` only: (name, reader, class).
-    pub(super) fn reader_columns(&self, key: &KeyPlan) -> Vec<(String, &Reader, Option<String>)> {
+    pub(super) fn reader_columns<'a>(
+        &self,
+        key: &'a KeyPlan,
+    ) -> Vec<(String, &'a Reader, Option<String>)> {
         self.output_columns(key)
             .into_iter()
             .filter_map(|(name, column)| match column {
-                OutputColumn::Reader { index, class } => {
-                    Some((name, &self.options.readers[index], class))
-                }
+                OutputColumn::Reader { index, class } => Some((name, &key.readers[index], class)),
                 _ => None,
             })
             .collect()
@@ -459,7 +469,10 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
             options.indicators
         ));
     }
-    if options.readers.is_empty() && options.draws.is_none() && options.indicators == 0 {
+    if options.readers.as_ref().is_some_and(Vec::is_empty)
+        && options.draws.is_none()
+        && options.indicators == 0
+    {
         return usage(
             "--readers: name at least one reader (mean, sd, var, data_weight, qNN, above:T)",
         );
@@ -694,9 +707,79 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         train_columns: train.into_iter().map(|(n, _)| n).collect(),
         score_columns,
     };
-    check_output_names(&plan)?;
     choose_reading(ctx, &mut plan).await?;
+    choose_readers(ctx, &mut plan).await?;
+    check_output_names(&plan)?;
     Ok(plan)
+}
+
+/// The spread reader joins the default mean where a continuous key's levels differ
+/// widely in spread: its prior's inverse-gamma shape alpha0 is at most 2, so the
+/// levels' variances have no finite variance. A level's `sd` then says how volatile
+/// it is, not only how much data it has. Measured on nine tasks (MODELING.md:
+/// "Which keys get the sd reader"); keys below that line were the ones the learner
+/// gained from `sd` on, keys above it lost.
+const VOLATILE_SHAPE: f64 = 2.0;
+
+async fn choose_readers(ctx: &SessionContext, plan: &mut EncodePlan) -> Result<()> {
+    if plan.options.readers.is_some() || plan.family != Kind::Nig {
+        return Ok(());
+    }
+    for i in 0..plan.keys.len() {
+        if plan.keys[i].treatment != Treatment::Posterior {
+            continue;
+        }
+        let Some(alpha0) = prior_shape(ctx, plan, &plan.keys[i]).await? else {
+            continue;
+        };
+        let shape = crate::render::short(alpha0);
+        let key = &mut plan.keys[i];
+        key.readers_why = if alpha0 <= VOLATILE_SHAPE {
+            key.readers.push(Reader::Sd);
+            format!(
+                "mean and sd: the levels differ widely in spread (prior shape alpha0 = {shape} \
+                 <= {VOLATILE_SHAPE}), so a level's sd says how volatile it is"
+            )
+        } else {
+            format!(
+                "mean: the levels are alike in spread (prior shape alpha0 = {shape} > \
+                 {VOLATILE_SHAPE})"
+            )
+        };
+    }
+    Ok(())
+}
+
+/// The Normal-Inverse-Gamma shape alpha0 of `key`'s prior: the given one, or the
+/// one `fit_prior` will fit from the same per-level fits encode makes. `None`
+/// when it cannot be fitted (the encode statements then report why).
+async fn prior_shape(
+    ctx: &SessionContext,
+    plan: &EncodePlan,
+    key: &KeyPlan,
+) -> Result<Option<f64>> {
+    let prior = key.prior.as_ref().unwrap_or(&plan.base_prior);
+    let sql = if plan.fitted {
+        let level = key.sql(plan.options.normalize_keys);
+        format!(
+            "SELECT fit_prior(p) FROM (SELECT {level} AS level, {} AS p FROM {} t \
+             WHERE {level} IS NOT NULL GROUP BY {level})",
+            plan.fit(key),
+            datafusion::common::TableReference::from(plan.options.train.as_str())
+                .to_quoted_string()
+        )
+    } else {
+        format!("SELECT {prior}")
+    };
+    let Ok(batch) = one_row(ctx, &sql).await else {
+        return Ok(None);
+    };
+    let column = crate::layout::PosteriorColumn::new("encode", batch.column(0))
+        .map_err(|e| EncodeError::Query(e.to_string()))?;
+    Ok(match column.get(0) {
+        Ok(Some(crate::layout::AnyPosterior::Nig(p))) => Some(p.prior.alpha0),
+        _ => None,
+    })
 }
 
 /// Each posterior key's horizon, then its half-life: the ones given, or (half-life)

@@ -17,7 +17,7 @@ use datafusion::parquet::arrow::ArrowWriter;
 use datafusion::prelude::SessionContext;
 use serde_json::{json, Value};
 
-use super::options::Treatment;
+use super::options::{Reader, Treatment};
 use super::resolve::EncodePlan;
 use super::sql::{SCORE, TRAIN};
 use super::{EncodeError, Result};
@@ -56,6 +56,9 @@ pub struct ColumnSummary {
     /// How far back as-of training rows read (`--horizon`), and how it was chosen.
     pub horizon: Option<f64>,
     pub horizon_why: String,
+    /// Its reader columns, and why (empty when `--readers` chose them).
+    pub readers: Vec<String>,
+    pub readers_why: String,
     pub warnings: Vec<String>,
 }
 
@@ -236,6 +239,12 @@ pub(super) async fn finish(
     mut outputs: BTreeMap<String, DataFrame>,
 ) -> Result<EncodeOutput> {
     let mut columns = BTreeMap::new();
+    // The bundle's readers; a key with others (the default's sd) records its own.
+    let base_readers = plan
+        .options
+        .readers
+        .clone()
+        .unwrap_or_else(|| vec![Reader::Mean]);
     let mut summary = Vec::new();
     let mut unseen = serde_json::Map::new();
     for (i, key) in plan.keys.iter().enumerate() {
@@ -373,6 +382,11 @@ pub(super) async fn finish(
             recency: key.recency.clone(),
             horizon: key.horizon,
             horizon_why: key.horizon_why.clone(),
+            readers: match key.treatment {
+                Treatment::Posterior => key.readers.iter().map(|r| r.spec()).collect(),
+                _ => Vec::new(),
+            },
+            readers_why: key.readers_why.clone(),
             warnings,
         });
         columns.insert(
@@ -385,13 +399,15 @@ pub(super) async fn finish(
                 indicators,
                 score_scale: plan.score_scale,
                 treatment: key.treatment,
+                readers: (key.readers != base_readers)
+                    .then(|| key.readers.iter().map(|r| r.spec()).collect()),
             },
         );
     }
     let bundle = Bundle {
         target: plan.options.target.clone(),
         family: plan.family.short_name().to_string(),
-        readers: plan.options.readers.iter().map(|r| r.spec()).collect(),
+        readers: base_readers.iter().map(|r| r.spec()).collect(),
         columns,
     };
     let take = |outputs: &mut BTreeMap<String, DataFrame>, name: &str| {
@@ -446,6 +462,7 @@ pub fn summary_json(summary: &[ColumnSummary]) -> Value {
                     "treatment": s.treatment.name(), "why": s.why,
                     "half_life": s.half_life, "recency": s.recency,
                     "horizon": s.horizon, "horizon_reason": s.horizon_why,
+                    "readers": s.readers, "readers_reason": s.readers_why,
                     "unseen_share": s.unseen_share, "warnings": s.warnings,
                 })
             })
@@ -480,7 +497,7 @@ pub fn summary_table(summary: &[ColumnSummary]) -> String {
         if !s.why.is_empty() {
             out.push_str(&format!("{} as {}: {}\n", s.key, s.treatment.name(), s.why));
         }
-        for reason in [&s.horizon_why, &s.recency] {
+        for reason in [&s.readers_why, &s.horizon_why, &s.recency] {
             if !reason.is_empty() {
                 out.push_str(&format!("{}: {reason}\n", s.key));
             }

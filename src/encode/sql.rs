@@ -105,7 +105,7 @@ impl EncodePlan {
     /// has one, else the base prior; re-priored later when the prior is fitted).
     /// With the key's half-life, each row weighs 2^(-age / half-life), its age counted
     /// from the newest training row (a row with no time weighs nothing).
-    fn fit(&self, key: &KeyPlan) -> String {
+    pub(super) fn fit(&self, key: &KeyPlan) -> String {
         let weight = match (self.newest_time, key.half_life, &self.options.time_column) {
             (Some(newest), Some(h), Some(time)) => Some(format!(
                 "decay_weight({newest} - CAST(t.{} AS DOUBLE), {h})",

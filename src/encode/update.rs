@@ -104,6 +104,11 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
         }
         let mut key = KeyPlan::posterior(name.clone(), column.key_columns.clone(), &encode_options);
         key.prior = Some(prior_sql(&column.prior));
+        key.readers = previous
+            .readers_of(column)
+            .iter()
+            .map(|r| Reader::parse(r))
+            .collect::<Result<_>>()?;
         // The previous run's treatment carries over; given as levels, every stored
         // level keeps its indicator.
         key.treatment = column.treatment;
@@ -145,7 +150,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
             ),
     )?;
     let score_columns = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
-    encode_options.readers = readers;
+    encode_options.readers = Some(readers);
     encode_options.normalize_keys = stored.iter().any(|c| c.normalized);
     encode_options.exposure = options.exposure.clone();
     encode_options.score = options.score.clone();

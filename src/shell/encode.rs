@@ -111,9 +111,9 @@ pub struct EncodeArgs {
     /// Exposure column for the gamma family (events per unit of exposure).
     #[arg(long)]
     pub exposure: Option<String>,
-    /// Readers: mean (default), sd, var, data_weight (evidence), qNN (quantile at NN percent), above:T (P(theta > T)).
-    #[arg(long, value_delimiter = ',', default_value = "mean")]
-    pub readers: Vec<String>,
+    /// Readers: mean, sd, var, data_weight (evidence), qNN (quantile at NN percent), above:T (P(theta > T)). Default: mean, and sd for a continuous key whose levels differ widely in spread.
+    #[arg(long, value_delimiter = ',')]
+    pub readers: Option<Vec<String>>,
     /// Add a seeded posterior draw per row and column (stochastic training encodings).
     #[arg(long, value_name = "SEED")]
     pub draws: Option<u64>,
@@ -236,9 +236,9 @@ fn options(args: &EncodeArgs) -> Result<EncodeOptions, Failure> {
     o.exposure = args.exposure.as_ref().map(|t| t.trim().to_string());
     o.readers = args
         .readers
-        .iter()
-        .map(|r| Reader::parse(r))
-        .collect::<Result<_, _>>()?;
+        .as_ref()
+        .map(|readers| readers.iter().map(|r| Reader::parse(r)).collect())
+        .transpose()?;
     o.draws = args.draws;
     o.indicators = args.indicators;
     o.indicator_min_rows = args.indicator_min_rows;

@@ -615,7 +615,7 @@ fn snapshot_plan() -> posterity::encode::EncodePlan {
     use posterity::encode::{EncodeOptions, EncodePlan, KeyPlan, Method, Reader, Treatment};
     use posterity::layout::Kind;
     let mut options = EncodeOptions::new("train", "{class}", &[]);
-    options.readers = vec![Reader::Mean, Reader::Quantile(0.05)];
+    options.readers = Some(vec![Reader::Mean, Reader::Quantile(0.05)]);
     options.score = Some("score".into());
     let key = |name: &str, columns: &[&str], treatment: Treatment, indicators: usize| {
         let mut key = KeyPlan::posterior(
@@ -2032,4 +2032,162 @@ async fn fitted_half_life_without_a_spread_of_times() {
             .contains("--time-column 'day' has a non-finite value"),
         "{e}"
     );
+}
+
+/// Rows of a continuous target under two keys of 40 levels each: `volatile`, whose
+/// levels' standard deviations run from e^-3 to e^3, and `calm`, whose levels all
+/// have standard deviation 1 (normal draws by Box and Muller's transform).
+fn spread_csv(dir: &Path, name: &str, rows: usize, seed: u64) -> String {
+    let mut s = String::from("volatile,calm,y\n");
+    let mut state = seed;
+    let mut draw = || {
+        state = mix64(state);
+        uniform(state, &[])
+    };
+    for _ in 0..rows {
+        let (v, c) = ((draw() * 40.0) as u64, (draw() * 40.0) as u64);
+        let normal = (-2.0 * (1.0 - draw()).ln()).sqrt() * (std::f64::consts::TAU * draw()).cos();
+        let sd = (-3.0 + 6.0 * v as f64 / 39.0).exp();
+        let y = 10.0 + v as f64 / 10.0 + c as f64 / 20.0 + sd * normal;
+        s.push_str(&format!("v{v},c{c},{y}\n"));
+    }
+    let path = dir.join(name);
+    std::fs::write(&path, s).unwrap();
+    path.display().to_string()
+}
+
+// The default readers follow each continuous key's spread: a key whose levels differ
+// widely in spread (its prior's shape alpha0 <= 2) also gets `sd`, one whose levels
+// are alike does not; the decision agrees with the prior the summary reports, the
+// bundle records the key's readers (scoring with it and refreshing it keep them),
+// and `--readers` given by the user is kept as given.
+#[tokio::test]
+async fn sd_reader_follows_the_levels_spread() {
+    let dir = temp_dir("spread");
+    let train = spread_csv(&dir, "train.csv", 4000, 11);
+    let out = dir.join("out");
+    encode(&[
+        "--train",
+        &train,
+        "--target",
+        "y",
+        "--columns",
+        "volatile,calm",
+        "--score",
+        &train,
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    let summary: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("summary.json")).unwrap()).unwrap();
+    for (i, key, volatile) in [(0, "volatile", true), (1, "calm", false)] {
+        let s = &summary[i];
+        assert_eq!(s["key"], key);
+        let alpha0 = s["prior"]["alpha0"].as_f64().unwrap();
+        assert_eq!(alpha0 <= 2.0, volatile, "{key}: alpha0 {alpha0}");
+        let readers: Vec<&str> = s["readers"]
+            .as_array()
+            .unwrap()
+            .iter()
+            .map(|r| r.as_str().unwrap())
+            .collect();
+        let want: &[&str] = if volatile { &["mean", "sd"] } else { &["mean"] };
+        assert_eq!(readers, want, "{key}");
+        let reason = s["readers_reason"].as_str().unwrap();
+        assert!(reason.contains("alpha0 = "), "{key}: {reason}");
+        let sd = format!("{key}_sd");
+        let columns = texts_of_header(&out.join("train_encoded.parquet")).await;
+        assert_eq!(columns.contains(&sd), volatile, "{key}: {columns:?}");
+    }
+    // Scoring with the bundle alone gives the scored file's sd column.
+    let bundle =
+        Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+    assert_eq!(bundle.readers, ["mean"]);
+    assert_eq!(
+        bundle.columns["volatile"].readers.as_deref(),
+        Some(&["mean".to_string(), "sd".to_string()][..])
+    );
+    assert_eq!(bundle.columns["calm"].readers, None);
+    let ctx = SessionContext::new();
+    let scored = ctx
+        .read_parquet(
+            out.join("scored.parquet").to_str().unwrap(),
+            ParquetReadOptions::default(),
+        )
+        .await
+        .unwrap()
+        .collect()
+        .await
+        .unwrap();
+    let scored = datafusion::arrow::compute::concat_batches(&scored[0].schema(), &scored).unwrap();
+    let input = scored.project(&[0, 1, 2]).unwrap();
+    let served = posterity::serve::score(&bundle, &input).unwrap();
+    assert_eq!(
+        served.schema().fields().len(),
+        scored.schema().fields().len()
+    );
+    let (want, got) = (
+        scored
+            .column_by_name("volatile_sd")
+            .unwrap()
+            .as_primitive::<Float64Type>(),
+        served
+            .column_by_name("volatile_sd")
+            .unwrap()
+            .as_primitive::<Float64Type>(),
+    );
+    for i in 0..want.len() {
+        let (a, b) = (want.value(i), got.value(i));
+        assert!(
+            a.is_finite() && (a - b).abs() <= 1e-12 * a.abs(),
+            "row {i}: {a} vs {b}"
+        );
+    }
+    // A refresh keeps each key's readers.
+    let refreshed = dir.join("refreshed");
+    let more = spread_csv(&dir, "more.csv", 500, 12);
+    encode(&[
+        "--update",
+        out.to_str().unwrap(),
+        "--train",
+        &more,
+        "--out",
+        refreshed.to_str().unwrap(),
+    ]);
+    let columns = texts_of_header(&refreshed.join("encodings/volatile.parquet")).await;
+    assert!(columns.contains(&"volatile_sd".to_string()), "{columns:?}");
+    let columns = texts_of_header(&refreshed.join("encodings/calm.parquet")).await;
+    assert!(!columns.contains(&"calm_sd".to_string()), "{columns:?}");
+    // Readers given are kept as given.
+    let given = dir.join("given");
+    encode(&[
+        "--train",
+        &train,
+        "--target",
+        "y",
+        "--columns",
+        "volatile,calm",
+        "--readers",
+        "mean",
+        "--out",
+        given.to_str().unwrap(),
+    ]);
+    let columns = texts_of_header(&given.join("train_encoded.parquet")).await;
+    assert!(!columns.contains(&"volatile_sd".to_string()), "{columns:?}");
+    let summary = std::fs::read_to_string(given.join("summary.json")).unwrap();
+    assert!(summary.contains("\"readers_reason\": \"\""), "{summary}");
+}
+
+/// The column names of a Parquet file.
+async fn texts_of_header(path: &Path) -> Vec<String> {
+    let ctx = SessionContext::new();
+    let df = ctx
+        .read_parquet(path.to_str().unwrap(), ParquetReadOptions::default())
+        .await
+        .unwrap();
+    df.schema()
+        .fields()
+        .iter()
+        .map(|f| f.name().clone())
+        .collect()
 }

@@ -228,7 +228,8 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     "jeffreys", "uniform" or numbers), ``method`` ("kfold" or "time"), ``folds``, ``seed``,
     ``time_column``, ``half_life`` (time units, or "fitted": chosen per key), ``horizon`` (time
     units, "matched": from ``score``'s times, or "none"), ``normalize_keys``, ``time_ties``, ``exposure``,
-    ``readers=["mean", "sd"]`` (default ``["mean"]``), ``draws``, ``indicators``, ``indicator_min_rows``,
+    ``readers=["mean", "sd"]`` (default ``["mean"]``, plus ``"sd"`` for a continuous key whose
+    levels differ widely in spread; the summary's ``readers_reason`` says which), ``draws``, ``indicators``, ``indicator_min_rows``,
     ``treatment={"clinic": "levels"}``, ``score_evidence`` ("matched" or "full"),
     ``report=True`` (the HTML report: ``Encoded.report``, ``report.html``). The same
     inputs give the shell's numbers. With ``out``, the outputs are also written there.
