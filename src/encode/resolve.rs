@@ -716,9 +716,9 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
 /// The spread reader joins the default mean where a continuous key's levels differ
 /// widely in spread: its prior's inverse-gamma shape alpha0 is at most 2, so the
 /// levels' variances have no finite variance. A level's `sd` then says how volatile
-/// it is, not only how much data it has. Measured on nine tasks (MODELING.md:
-/// "Which keys get the sd reader"); keys below that line were the ones the learner
-/// gained from `sd` on, keys above it lost.
+/// it is, not only how much data it has. Measured on eleven tasks (MODELING.md:
+/// "Which keys get the sd reader"): with k-fold encodings the learner gained from
+/// `sd` on every key below that line and lost on every key above it.
 const VOLATILE_SHAPE: f64 = 2.0;
 
 async fn choose_readers(ctx: &SessionContext, plan: &mut EncodePlan) -> Result<()> {
