@@ -179,6 +179,24 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
         example: "SELECT fit_prior_report(p) FROM breed_encodings;",
     },
     FunctionDoc {
+        name: "fit_strength",
+        section: COMBINE,
+        description: "Aggregate: the strength (pseudo-observations) of child levels' priors \
+            centred on their parents, fitted by maximum marginal likelihood: the s that makes \
+            the sum over rows of the log marginal likelihood of posterior_under(p, parent, own, s) \
+            largest, searched from 0.001 to 1e6 (a result at 1e6: the children show no spread \
+            around their parents). Rows with a NULL p or parent are skipped; no such row gives \
+            NULL. The result does not depend on row order or partitioning.",
+        syntax: "fit_strength(p, parent, own)",
+        arguments: &[
+            P,
+            ("parent", "The parent level's posterior, same family."),
+            ("own", "p's level's evidence inside the parent (NULL: none)."),
+        ],
+        example: "SELECT fit_strength(c.p, d.p, c.p) AS strength FROM postcodes c JOIN districts d \
+            USING (district);",
+    },
+    FunctionDoc {
         name: "posterior_mean",
         section: READ,
         description: "Posterior mean of the success probability (Beta), rate (Gamma), level mean \
@@ -303,6 +321,26 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
         syntax: "posterior_with_prior(p, prior)",
         arguments: &[P, ("prior", "A prior or posterior of the same family.")],
         example: "SELECT posterior_with_prior(p, (SELECT fit_prior(p) FROM enc)) FROM enc;",
+    },
+    FunctionDoc {
+        name: "posterior_under",
+        section: TRANSFORM,
+        description: "A child level's posterior under its parent level's (postcode under \
+            district): p's evidence under a prior with the mean of parent less the evidence of \
+            own (the child's rows inside the parent, so no row counts twice) and strength \
+            pseudo-observations (kappa0 for Normal-Inverse-Gamma, whose variance belief stays \
+            p's prior's). A NULL parent leaves p unchanged; a NULL own removes nothing; own \
+            holding more evidence than parent is an error.",
+        syntax: "posterior_under(p, parent, own, strength)",
+        arguments: &[
+            P,
+            ("parent", "The parent level's posterior, same family (NULL: p as it is)."),
+            ("own", "p's level's evidence inside the parent, any prior (NULL: none)."),
+            ("strength", "Pseudo-observations of the child's prior, a finite number > 0 \
+                (fitted by fit_strength)."),
+        ],
+        example: "SELECT c.postcode, posterior_under(c.p, d.p, c.p, s.strength) FROM postcodes c \
+            JOIN districts d USING (district) CROSS JOIN fitted s;",
     },
     FunctionDoc {
         name: "fold_of",

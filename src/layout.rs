@@ -232,6 +232,78 @@ impl AnyPosterior {
         })
     }
 
+    /// This posterior's data under its parent level's: a prior with the mean of
+    /// `parent` less the data of `own` (this level's rows inside the parent, so no row
+    /// counts twice) and `strength` pseudo-observations (for the Normal-Inverse-Gamma,
+    /// `kappa0`; the variance belief stays this posterior's prior's).
+    pub fn under(
+        &self,
+        parent: &AnyPosterior,
+        own: Option<&AnyPosterior>,
+        strength: f64,
+    ) -> Result<AnyPosterior, FamilyError> {
+        let strength = crate::family::positive("strength", strength)?;
+        let mismatch = |a: &AnyPosterior, b: &AnyPosterior| FamilyError::PriorMismatch {
+            left: a.kind().name().into(),
+            right: b.kind().name().into(),
+        };
+        let kind = self.kind();
+        if parent.kind() != kind {
+            return Err(mismatch(self, parent));
+        }
+        if let Some(o) = own.filter(|o| o.kind() != kind) {
+            return Err(mismatch(self, o));
+        }
+        Ok(match (self, parent, own) {
+            (AnyPosterior::Beta(p), AnyPosterior::Beta(q), own) => {
+                let center = match own {
+                    Some(AnyPosterior::Beta(o)) => q.subtract(&o.with_prior(q.prior))?,
+                    _ => *q,
+                };
+                let (a, b) = center.params();
+                let m = a / (a + b);
+                AnyPosterior::Beta(
+                    p.with_prior(BetaPrior::new(strength * m, strength * (1.0 - m))?),
+                )
+            }
+            (AnyPosterior::Gamma(p), AnyPosterior::Gamma(q), own) => {
+                let center = match own {
+                    Some(AnyPosterior::Gamma(o)) => q.subtract(&o.with_prior(q.prior))?,
+                    _ => *q,
+                };
+                let (shape, rate) = center.params();
+                AnyPosterior::Gamma(
+                    p.with_prior(GammaPrior::new(strength * shape / rate, strength)?),
+                )
+            }
+            (AnyPosterior::Nig(p), AnyPosterior::Nig(q), own) => {
+                let center = match own {
+                    Some(AnyPosterior::Nig(o)) => q.subtract(&o.with_prior(q.prior))?,
+                    _ => *q,
+                };
+                let mu = center.params().mu;
+                let NigPrior { alpha0, beta0, .. } = p.prior;
+                AnyPosterior::Nig(p.with_prior(NigPrior::new(mu, strength, alpha0, beta0)?))
+            }
+            (AnyPosterior::Dirichlet(p), AnyPosterior::Dirichlet(q), own) => {
+                let center = match own {
+                    Some(AnyPosterior::Dirichlet(o)) => {
+                        q.subtract(&o.with_prior(q.prior.clone())?)?
+                    }
+                    _ => q.clone(),
+                };
+                let alpha = center.params();
+                let total: f64 = alpha.iter().sum();
+                let prior = DirichletPrior::new(
+                    center.prior.classes.clone(),
+                    alpha.iter().map(|a| strength * a / total).collect(),
+                )?;
+                AnyPosterior::Dirichlet(p.with_prior(prior)?)
+            }
+            (a, b, _) => return Err(mismatch(a, b)),
+        })
+    }
+
     /// Fold the evidence into the prior: the posterior as a prior with zero evidence.
     pub fn as_prior(&self) -> Result<AnyPosterior, FamilyError> {
         Ok(match self {

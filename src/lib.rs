@@ -77,6 +77,7 @@ fn aggregate_list(foreign: bool) -> Vec<AggregateUDF> {
         AggregateUDF::new_from_impl(pool::PosteriorPool::default()),
         AggregateUDF::new_from_impl(prior_fit::FitPrior::new(false)),
         AggregateUDF::new_from_impl(prior_fit::FitPrior::new(true)),
+        AggregateUDF::new_from_impl(prior_fit::FitStrength::default()),
     ]
 }
 

@@ -1,5 +1,7 @@
 //! `fit_prior(p)` and `fit_prior_report(p)`: empirical-Bayes priors fitted from
-//! one posterior per level (see `family::empirical` for the estimators).
+//! one posterior per level (see `family::empirical` for the estimators);
+//! `fit_strength(p, parent, own)`: the strength of child levels' priors centred on
+//! their parents' posteriors.
 
 use std::sync::Arc;
 
@@ -277,6 +279,168 @@ impl Accumulator for FitPriorAccumulator {
         for i in 0..lists.len() {
             if lists.is_valid(i) {
                 self.add(&lists.value(i))?;
+            }
+        }
+        Ok(())
+    }
+}
+
+/// `fit_strength(p, parent, own)`: the strength of child levels' priors centred on
+/// their parents (`AnyPosterior::under`), by maximum marginal likelihood.
+#[derive(Debug, PartialEq, Eq, Hash)]
+pub struct FitStrength {
+    signature: Signature,
+}
+
+impl Default for FitStrength {
+    fn default() -> Self {
+        FitStrength {
+            signature: Signature::user_defined(Volatility::Immutable),
+        }
+    }
+}
+
+const FIT_STRENGTH: &str = "fit_strength";
+
+impl AggregateUDFImpl for FitStrength {
+    fn name(&self) -> &str {
+        FIT_STRENGTH
+    }
+
+    fn signature(&self) -> &Signature {
+        &self.signature
+    }
+
+    fn coerce_types(&self, t: &[DataType]) -> Result<Vec<DataType>> {
+        if t.len() != 3 {
+            return plan_err!(
+                "{FIT_STRENGTH}: takes 3 arguments, got {}; usage: {FIT_STRENGTH}(p, parent, own)",
+                t.len()
+            );
+        }
+        let kind = Kind::expect(FIT_STRENGTH, "p", &t[0])?;
+        for (argument, ty) in [("parent", &t[1]), ("own", &t[2])] {
+            if ty != &DataType::Null && Kind::expect(FIT_STRENGTH, argument, ty)? != kind {
+                return plan_err!(
+                    "{FIT_STRENGTH}: argument {argument} is not a {} posterior like p",
+                    kind.name()
+                );
+            }
+        }
+        Ok(vec![kind.data_type(); 3])
+    }
+
+    fn return_type(&self, _: &[DataType]) -> Result<DataType> {
+        Ok(DataType::Float64)
+    }
+
+    fn accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {
+        let kind = Kind::expect(FIT_STRENGTH, "p", args.expr_fields[0].data_type())?;
+        Ok(Box::new(FitStrengthAccumulator {
+            kind,
+            levels: Vec::new(),
+        }))
+    }
+
+    fn state_fields(&self, args: StateFieldsArgs) -> Result<Vec<FieldRef>> {
+        let kind = Kind::expect(FIT_STRENGTH, "p", args.input_fields[0].data_type())?;
+        Ok(["p", "parent", "own"]
+            .iter()
+            .map(|part| {
+                Arc::new(Field::new(
+                    format!("{}[{part}]", args.name),
+                    DataType::List(Arc::new(Field::new_list_field(kind.data_type(), true))),
+                    true,
+                ))
+            })
+            .collect())
+    }
+
+    fn documentation(&self) -> Option<&Documentation> {
+        crate::docs::get(FIT_STRENGTH)
+    }
+}
+
+/// A child level: its posterior, its parent's, and its own evidence in the parent.
+type Child = (AnyPosterior, AnyPosterior, Option<AnyPosterior>);
+
+#[derive(Debug)]
+struct FitStrengthAccumulator {
+    kind: Kind,
+    levels: Vec<Child>,
+}
+
+impl FitStrengthAccumulator {
+    fn add(&mut self, columns: &[ArrayRef]) -> Result<()> {
+        let [p, parent, own] = [0, 1, 2].map(|i| PosteriorColumn::new(FIT_STRENGTH, &columns[i]));
+        let (p, parent, own) = (p?, parent?, own?);
+        let get = |c: &PosteriorColumn, i| c.get(i).map_err(|e| family_error(FIT_STRENGTH, e));
+        for i in 0..p.len() {
+            if let (Some(child), Some(up)) = (get(&p, i)?, get(&parent, i)?) {
+                self.levels.push((child, up, get(&own, i)?));
+            }
+        }
+        Ok(())
+    }
+
+    /// The sum of the children's log marginal likelihoods with strength `s`.
+    fn log_likelihood(&self, s: f64) -> std::result::Result<f64, FamilyError> {
+        self.levels
+            .iter()
+            .map(|(p, parent, own)| p.under(parent, own.as_ref(), s).map(|q| lml(&q)))
+            .sum()
+    }
+}
+
+impl Accumulator for FitStrengthAccumulator {
+    fn update_batch(&mut self, values: &[ArrayRef]) -> Result<()> {
+        self.add(values)
+    }
+
+    fn evaluate(&mut self) -> Result<ScalarValue> {
+        if self.levels.is_empty() {
+            return Ok(ScalarValue::Float64(None));
+        }
+        // Sorted, so the sum (and the fit) does not depend on row order.
+        self.levels.sort_by_cached_key(|(p, parent, own)| {
+            (sort_key(p), sort_key(parent), own.as_ref().map(sort_key))
+        });
+        let (s, _) = crate::family::empirical::fit_log_scale(|s| self.log_likelihood(s))
+            .map_err(|e| family_error(FIT_STRENGTH, e))?;
+        Ok(ScalarValue::Float64(Some(s)))
+    }
+
+    fn size(&self) -> usize {
+        std::mem::size_of_val(self) + self.levels.capacity() * std::mem::size_of::<Child>()
+    }
+
+    fn state(&mut self) -> Result<Vec<ScalarValue>> {
+        let parts: [Vec<Option<AnyPosterior>>; 3] = [
+            self.levels.iter().map(|l| Some(l.0.clone())).collect(),
+            self.levels.iter().map(|l| Some(l.1.clone())).collect(),
+            self.levels.iter().map(|l| l.2.clone()).collect(),
+        ];
+        let field = Arc::new(Field::new_list_field(self.kind.data_type(), true));
+        parts
+            .iter()
+            .map(|rows| {
+                let list = ListArray::try_new(
+                    field.clone(),
+                    OffsetBuffer::from_lengths([rows.len()]),
+                    build(self.kind, rows)?,
+                    None,
+                )?;
+                Ok(ScalarValue::List(Arc::new(list)))
+            })
+            .collect()
+    }
+
+    fn merge_batch(&mut self, states: &[ArrayRef]) -> Result<()> {
+        let lists: Vec<_> = states.iter().map(|s| s.as_list::<i32>()).collect();
+        for i in 0..lists[0].len() {
+            if lists[0].is_valid(i) {
+                let parts: Vec<ArrayRef> = lists.iter().map(|l| l.value(i)).collect();
+                self.add(&parts)?;
             }
         }
         Ok(())

@@ -57,6 +57,7 @@ pub enum Op {
     Without,
     Scale,
     WithPrior,
+    Under,
     FoldOf,
     DecayWeight,
     NormalizeKey,
@@ -125,6 +126,7 @@ pub fn all() -> Vec<ScalarUDF> {
         ScalarFunction::udf("posterior_without", Op::Without),
         ScalarFunction::udf("posterior_scale", Op::Scale),
         ScalarFunction::udf("posterior_with_prior", Op::WithPrior),
+        ScalarFunction::udf("posterior_under", Op::Under),
         ScalarFunction::udf("fold_of", Op::FoldOf),
         ScalarFunction::udf("decay_weight", Op::DecayWeight),
         ScalarFunction::udf("normalize_key", Op::NormalizeKey),
@@ -335,6 +337,27 @@ impl ScalarUDFImpl for ScalarFunction {
                 self.posterior("p", &t[0])?;
                 Ok(vec![t[0].clone(), self.number("factor", &t[1])?])
             }
+            Op::Under => {
+                self.count(n, 4, 4)?;
+                let kind = self.posterior("p", &t[0])?;
+                // A NULL parent or own part is a posterior of p's family that is absent.
+                for (argument, ty) in [("parent", &t[1]), ("own", &t[2])] {
+                    if ty != &DataType::Null && self.posterior(argument, ty)? != kind {
+                        return plan_err!(
+                            "{}: argument {argument} is a {} posterior; p is a {} one",
+                            self.name,
+                            self.posterior(argument, ty)?.name(),
+                            kind.name()
+                        );
+                    }
+                }
+                Ok(vec![
+                    t[0].clone(),
+                    t[0].clone(),
+                    t[0].clone(),
+                    self.number("strength", &t[3])?,
+                ])
+            }
             Op::FoldOf => {
                 self.count(n, 1, 3)?;
                 // Text keys are hashed in place; other types through their text form.
@@ -375,7 +398,7 @@ impl ScalarUDFImpl for ScalarFunction {
             Op::Read(_) | Op::DecayWeight => DataType::Float64,
             Op::FoldOf => DataType::Int64,
             Op::NormalizeKey => DataType::Utf8,
-            Op::Combine(_) | Op::Without | Op::Scale | Op::WithPrior => {
+            Op::Combine(_) | Op::Without | Op::Scale | Op::WithPrior | Op::Under => {
                 self.posterior("p", &t[0])?.data_type()
             }
         })
@@ -397,6 +420,7 @@ impl ScalarUDFImpl for ScalarFunction {
             Op::Combine(_) | Op::Without | Op::Scale | Op::WithPrior => {
                 self.transform(&arrays, rows)?
             }
+            Op::Under => self.under(&arrays, rows)?,
             Op::FoldOf => self.fold_of(&arrays, rows)?,
             Op::DecayWeight => self.decay_weight(&arrays, rows)?,
             Op::NormalizeKey => {
@@ -634,6 +658,30 @@ impl ScalarFunction {
                 allowed: "a number strictly between 0 and 1",
             }))
         }
+    }
+
+    /// `posterior_under(p, parent, own, strength)`: see `AnyPosterior::under`. A NULL
+    /// parent leaves p as it is; a NULL own part removes nothing.
+    fn under(&self, args: &[ArrayRef], rows: usize) -> Result<ArrayRef> {
+        let p = PosteriorColumn::new(self.name, &args[0])?;
+        let parent = PosteriorColumn::new(self.name, &args[1])?;
+        let own = PosteriorColumn::new(self.name, &args[2])?;
+        let strength = floats(&args[3])?;
+        let mut out = Vec::with_capacity(rows);
+        for i in 0..rows {
+            let get = |c: &PosteriorColumn| c.get(i).map_err(|e| self.err(e));
+            let (Some(p), Some(s)) = (get(&p)?, at(&strength, i, |f, i| f.value(i))) else {
+                out.push(None);
+                continue;
+            };
+            out.push(Some(match get(&parent)? {
+                Some(parent) => p
+                    .under(&parent, get(&own)?.as_ref(), s)
+                    .map_err(|e| self.err(e))?,
+                None => p,
+            }));
+        }
+        build(p.kind(), &out)
     }
 
     fn transform(&self, args: &[ArrayRef], rows: usize) -> Result<ArrayRef> {

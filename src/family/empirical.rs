@@ -442,3 +442,44 @@ pub fn fit_nig(levels: &[NigStats]) -> Result<(NigPrior, FitReport)> {
                      between-level variance by DerSimonian-Laird moments";
     Ok((prior, report))
 }
+
+/// The strength s in [MIN_PARAMETER, MAX_STRENGTH] that maximises `log_likelihood(s)`,
+/// searched on log s: the best of a grid of 91 points (ten per factor of ten), then a
+/// golden-section search between its neighbours. The grid keeps a likelihood with
+/// more than one bump from trapping the search in a poor one. Returns s and whether it
+/// lies at the upper end (the levels show no spread around their centres).
+pub fn fit_log_scale(log_likelihood: impl Fn(f64) -> Result<f64>) -> Result<(f64, bool)> {
+    let (lo, hi) = (MIN_PARAMETER.ln(), MAX_STRENGTH.ln());
+    let steps = 90;
+    let grid = |k: usize| lo + (hi - lo) * k as f64 / steps as f64;
+    let mut best = (0, f64::NEG_INFINITY);
+    for k in 0..=steps {
+        let v = log_likelihood(grid(k).exp())?;
+        if v > best.1 {
+            best = (k, v);
+        }
+    }
+    let (mut a, mut b) = (
+        grid(best.0.saturating_sub(1)),
+        grid((best.0 + 1).min(steps)),
+    );
+    let ratio = (5f64.sqrt() - 1.0) / 2.0;
+    let (mut c, mut d) = (b - ratio * (b - a), a + ratio * (b - a));
+    let (mut fc, mut fd) = (log_likelihood(c.exp())?, log_likelihood(d.exp())?);
+    for _ in 0..60 {
+        if fc >= fd {
+            (b, d, fd) = (d, c, fc);
+            c = b - ratio * (b - a);
+            fc = log_likelihood(c.exp())?;
+        } else {
+            (a, c, fc) = (c, d, fd);
+            d = a + ratio * (b - a);
+            fd = log_likelihood(d.exp())?;
+        }
+    }
+    let (x, fx) = if fc >= fd { (c, fc) } else { (d, fd) };
+    // The grid's best point stands when the search found nothing better (a flat top).
+    let x = if fx >= best.1 { x } else { grid(best.0) };
+    let s = x.exp().clamp(MIN_PARAMETER, MAX_STRENGTH);
+    Ok((s, s >= MAX_STRENGTH * 0.999))
+}

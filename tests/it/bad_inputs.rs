@@ -89,6 +89,11 @@ fn cases() -> Vec<(String, Vec<&'static str>)> {
         ("SELECT posterior_with_prior(beta_prior(1, 1), gamma_prior(1, 1))".into(), vec!["posterior_with_prior", "cannot combine"]),
         ("SELECT posterior_pool(p) FROM (VALUES (beta_prior(1, 1)), (beta_prior(2, 1))) t(p)".into(), vec!["posterior_pool", "beta_prior(1, 1)", "beta_prior(2, 1)"]),
         ("SELECT posterior_merge(beta_prior(1, 1))".into(), vec!["posterior_merge", "takes 2 to 2 arguments"]),
+        ("SELECT posterior_under(beta_prior(1, 1), beta_prior(2, 3), NULL, 0)".into(), vec!["posterior_under", "strength = 0", "> 0"]),
+        ("SELECT posterior_under(beta_prior(1, 1), beta_prior(2, 3), NULL, -1)".into(), vec!["posterior_under", "strength = -1"]),
+        ("SELECT posterior_under(beta_prior(1, 1), gamma_prior(2, 3), NULL, 5)".into(), vec!["posterior_under", "parent", "Beta"]),
+        ("SELECT posterior_under(beta_prior(1, 1), beta_prior(2, 3), beta_posterior_counts(3, 10), 5)".into(), vec!["posterior_under", "cannot remove more evidence"]),
+        ("SELECT fit_strength(beta_prior(1, 1), nig_prior(0, 1, 2, 1), NULL)".into(), vec!["fit_strength", "parent"]),
         // Helpers and prior fits.
         ("SELECT fold_of('x', 0)".into(), vec!["fold_of", "k = 0", ">= 2"]),
         ("SELECT fold_of('x', 1)".into(), vec!["fold_of", "k = 1"]),

@@ -267,3 +267,61 @@ async fn fit_prior_from_sql() {
     // our Bernoulli-sequence convention leaves out, so only the sign is comparable.
     assert!(report["log_marginal_likelihood"].as_f64().unwrap() < 0.0);
 }
+
+/// `fit_strength` over the children of tests/reference/strength_levels.csv (each
+/// child's posterior under a flat prior, its parent's from the parent's rows), for
+/// binary outcomes and for counts with exposure, with `partitions` target partitions.
+async fn fitted_strengths(partitions: usize) -> (f64, f64) {
+    use datafusion::arrow::array::AsArray;
+    use datafusion::arrow::datatypes::Float64Type;
+    let ctx = datafusion::prelude::SessionContext::new_with_config(
+        datafusion::prelude::SessionConfig::new().with_target_partitions(partitions),
+    );
+    posterity::register(&ctx);
+    let path = concat!(
+        env!("CARGO_MANIFEST_DIR"),
+        "/tests/reference/strength_levels.csv"
+    );
+    ctx.register_csv("lv", path, Default::default())
+        .await
+        .unwrap();
+    let sql = "WITH kids AS (SELECT child, parent, \
+               beta_posterior_counts(successes, trials, beta_prior(1, 1)) AS b, \
+               gamma_posterior(events, exposure, gamma_prior(1, 1)) AS g FROM lv GROUP BY child, parent), \
+               parents AS (SELECT parent, beta_posterior_counts(successes, trials, beta_prior(1, 1)) AS b, \
+               gamma_posterior(events, exposure, gamma_prior(1, 1)) AS g FROM lv GROUP BY parent) \
+               SELECT fit_strength(k.b, p.b, k.b), fit_strength(k.g, p.g, k.g) FROM kids k JOIN parents p USING (parent)";
+    let batches = ctx.sql(sql).await.unwrap().collect().await.unwrap();
+    let value = |c: usize| batches[0].column(c).as_primitive::<Float64Type>().value(0);
+    (value(0), value(1))
+}
+
+// Reference: scipy.stats.betabinom / nbinom + scipy.optimize on a committed data set
+// (tests/reference/generate_strength.py; its output in strength_fit.csv). The data
+// were drawn with strength 25, so the fits must also lie near it; and rows in any
+// partitioning give the same bits.
+#[tokio::test]
+async fn fit_strength_matches_scipy() {
+    let reference: std::collections::HashMap<&str, f64> =
+        include_str!("../reference/strength_fit.csv")
+            .lines()
+            .skip(2)
+            .map(|l| {
+                let (family, s) = l.split_once(',').unwrap();
+                (family, s.parse().unwrap())
+            })
+            .collect();
+    let (beta, gamma) = fitted_strengths(1).await;
+    for (family, got) in [("beta", beta), ("gamma", gamma)] {
+        let want = reference[family];
+        assert!(
+            ((got - want) / want).abs() < 1e-6,
+            "{family}: {got} vs scipy {want}"
+        );
+        assert!(
+            (15.0..40.0).contains(&got),
+            "{family}: {got} far from the true 25"
+        );
+    }
+    assert_eq!(fitted_strengths(4).await, (beta, gamma));
+}

@@ -143,7 +143,13 @@ fn interactions_classes_hierarchy_and_fitted_prior() {
         .sum();
     assert!((sum - 1.0).abs() < 1e-12, "class means sum to one");
     let (_, rows) = run_recipe("08_hierarchy");
-    // An area with one booking sits close to its district (50 pseudo-observations of it).
+    // Each layer's fitted strength is a number of pseudo-observations in the search's
+    // range; the demo's districts do not differ from their regions (pooled completely,
+    // near the top of the range), its areas do (a few dozen).
+    let area_strength = value(&rows, "area_strength");
+    assert!((1.0..1000.0).contains(&area_strength), "{area_strength}");
+    assert!(value(&rows, "district_strength") > 1e5);
+    // An area with one booking sits close to its district (dozens of pseudo-observations of it).
     let area = value(&rows, "area");
     let district = value(&rows, "district");
     assert!((area - district).abs() < 0.02, "{area} vs {district}");

@@ -822,3 +822,101 @@ async fn readers_at_the_edges_of_their_domains() {
         );
     }
 }
+
+// posterior_under, worked by hand: a child with 3 of 10 under a parent whose
+// posterior is Beta(2 + 30, 18 + 70); without the child's own 3 of 10 the parent
+// says 29 / 110, so with strength 20 the child's prior is Beta(20 * 29/110,
+// 20 * 81/110) and its posterior mean (20 * 29/110 + 3) / (20 + 10) = 0.2757575...
+// NULL parent: the child as it is; NULL own: nothing removed; NULL p or strength:
+// NULL. Every family keeps its data and takes the centre's mean.
+#[tokio::test]
+async fn posterior_under_centres_a_child_on_its_parent() {
+    let ctx = ctx().await;
+    let child = "beta_posterior_counts(3, 10, beta_prior(0.5, 0.5))";
+    let parent = "beta_posterior_counts(30, 100, beta_prior(2, 18))";
+    let own = "beta_posterior_counts(3, 10, beta_prior(1, 1))";
+    let mean = |parent: &str, own: &str, s: &str| {
+        format!("SELECT posterior_mean(posterior_under({child}, {parent}, {own}, {s}))")
+    };
+    close(
+        one(&ctx, &mean(parent, own, "20")).await,
+        (20.0 * 29.0 / 110.0 + 3.0) / 30.0,
+        1e-14,
+    );
+    // Nothing removed: centre 32 / 120.
+    close(
+        one(&ctx, &mean(parent, "NULL", "20")).await,
+        (20.0 * 32.0 / 120.0 + 3.0) / 30.0,
+        1e-14,
+    );
+    // Data weight is the child's alone; the prior's weight is the strength.
+    close(
+        one(
+            &ctx,
+            &format!("SELECT posterior_data_weight(posterior_under({child}, {parent}, {own}, 20))"),
+        )
+        .await,
+        10.0,
+        0.0,
+    );
+    // No parent: the child under its own prior Beta(0.5, 0.5).
+    close(one(&ctx, &mean("NULL", own, "20")).await, 3.5 / 11.0, 1e-14);
+    assert_eq!(
+        floats(&ctx, &format!("SELECT posterior_mean(posterior_under(CASE WHEN false THEN {child} END, {parent}, NULL, 20))")).await,
+        vec![None]
+    );
+    assert_eq!(
+        floats(&ctx, &mean(parent, own, "CAST(NULL AS DOUBLE)")).await,
+        vec![None]
+    );
+    // Gamma: parent Gamma(1 + 40, 1 + 20) without the child's 4 events in 2 units
+    // says 37 / 19; strength 5 (exposure units): Gamma(5 * 37/19 + 4, 5 + 2).
+    close(
+        one(&ctx, "SELECT posterior_mean(posterior_under(gamma_posterior(4, 2.0, gamma_prior(1, 1)), \
+            gamma_posterior(40, 20.0, gamma_prior(1, 1)), gamma_posterior(4, 2.0, gamma_prior(1, 1)), 5))").await,
+        (5.0 * 37.0 / 19.0 + 4.0) / 7.0,
+        1e-14,
+    );
+    // NIG: the centre's mean, kappa0 = strength, and the child's variance belief.
+    let nig = "SELECT posterior_mean(posterior_under(p, q, NULL, 4)) FROM \
+        (SELECT nig_posterior(amount, nig_prior(0, 0.001, 2, 1)) FILTER (WHERE breed = 'beagle') AS p, \
+                nig_posterior(amount, nig_prior(0, 0.001, 2, 1)) AS q FROM appts)";
+    let (sum, n) = (40.0 * 50.0 + 1.5 * 780.0 + 30.0 * 10.0, 40.0);
+    let beagle: f64 = (0..40).step_by(4).map(|i| 50.0 + 1.5 * i as f64).sum();
+    let centre = sum / (n + 0.001);
+    close(
+        one(&ctx, nig).await,
+        (4.0 * centre + beagle) / (4.0 + 10.0),
+        1e-12,
+    );
+}
+
+// Bad arguments name the function, the argument and the allowed range.
+#[tokio::test]
+async fn posterior_under_and_fit_strength_refuse_bad_arguments() {
+    let ctx = ctx().await;
+    let b = "beta_posterior_counts(3, 10, beta_prior(1, 1))";
+    let g = "gamma_posterior(4, 2.0, gamma_prior(1, 1))";
+    for (sql, fragments) in [
+        (format!("SELECT posterior_under({b}, {b}, NULL, 0)"), vec!["posterior_under", "strength", "> 0"]),
+        (format!("SELECT posterior_under({b}, {b}, NULL, 'nan'::double)"), vec!["posterior_under", "strength"]),
+        (format!("SELECT posterior_under({b}, {g}, NULL, 5)"), vec!["posterior_under", "parent", "Beta"]),
+        (format!("SELECT posterior_under({b}, {b}, NULL)"), vec!["posterior_under", "4"]),
+        (
+            format!("SELECT posterior_under({b}, {b}, beta_posterior_counts(30, 100, beta_prior(1, 1)), 5)"),
+            vec!["posterior_under", "cannot remove more evidence"],
+        ),
+        ("SELECT fit_strength(beta_prior(1, 1), gamma_prior(1, 1), NULL)".into(), vec!["fit_strength", "parent"]),
+        ("SELECT fit_strength(beta_prior(1, 1), beta_prior(1, 1))".into(), vec!["fit_strength", "3 arguments"]),
+    ] {
+        let e = error(&ctx, &sql).await;
+        for f in fragments {
+            assert!(e.contains(f), "{sql}: {e}");
+        }
+    }
+    // No child with a parent: NULL, not a number.
+    assert_eq!(
+        floats(&ctx, "SELECT fit_strength(p, CASE WHEN false THEN p END, NULL) FROM (SELECT beta_prior(1, 1) AS p)").await,
+        vec![None]
+    );
+}
