@@ -189,6 +189,9 @@ pub struct ColumnEncoding {
     pub treatment: Treatment,
     /// This key's readers when they differ from the bundle's (`Bundle::readers_of`).
     pub readers: Option<Vec<String>>,
+    /// Under `--hierarchy`: the parent key and the layer's strength. An unseen level
+    /// (or NULL key) is scored with `prior` centred on the row's parent posterior.
+    pub parent: Option<(String, f64)>,
 }
 
 impl ColumnEncoding {
@@ -292,11 +295,14 @@ impl Bundle {
             if let Some(readers) = &c.readers {
                 column["readers"] = json!(readers);
             }
+            if let Some((parent, strength)) = &c.parent {
+                column["parent"] = json!({"key": parent, "strength": strength});
+            }
             columns.insert(name.clone(), column);
         }
         let v = json!({
             "format": FORMAT,
-            "version": if self.columns.values().any(|c| c.readers.is_some()) { VERSION } else { 3 },
+            "version": if self.columns.values().any(|c| c.readers.is_some() || c.parent.is_some()) { VERSION } else { 3 },
             "target": self.target,
             "family": self.family,
             "readers": self.readers,
@@ -379,6 +385,25 @@ impl Bundle {
                     levels,
                     indicators: texts_of(c.get("indicators")),
                     readers: c.get("readers").map(|r| texts_of(Some(r))),
+                    parent: match c.get("parent") {
+                        None => None,
+                        Some(p) => Some((
+                            p.get("key")
+                                .and_then(Value::as_str)
+                                .map(str::to_string)
+                                .ok_or_else(|| {
+                                    bad(format!("column '{name}': parent has no key"))
+                                })?,
+                            p.get("strength")
+                                .and_then(Value::as_f64)
+                                .filter(|s| s.is_finite() && *s > 0.0)
+                                .ok_or_else(|| {
+                                    bad(format!(
+                                        "column '{name}': parent strength is not a number > 0"
+                                    ))
+                                })?,
+                        )),
+                    },
                     treatment: match c.get("treatment").and_then(Value::as_str) {
                         None => Treatment::Posterior,
                         Some(t) => Treatment::parse(t).map_err(|_| {
@@ -399,6 +424,26 @@ impl Bundle {
                     },
                 },
             );
+        }
+        // Every parent is a column of the bundle, and no column is its own ancestor.
+        for name in columns.keys() {
+            let mut at = name;
+            for _ in 0..=columns.len() {
+                match &columns[at].parent {
+                    None => break,
+                    Some((parent, _)) if columns.contains_key(parent) => at = parent,
+                    Some((parent, _)) => {
+                        return Err(bad(format!(
+                            "column '{at}': parent '{parent}' is not a column of the bundle"
+                        )))
+                    }
+                }
+            }
+            if columns[at].parent.is_some() {
+                return Err(bad(format!(
+                    "column '{name}' is its own ancestor (parents form a cycle)"
+                )));
+            }
         }
         Ok(Bundle {
             target: text_of("target"),

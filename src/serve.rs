@@ -3,6 +3,7 @@
 //! from the rows' key columns. For services and for Python's `Bundle.score`.
 
 use std::borrow::Cow;
+use std::collections::BTreeMap;
 use std::sync::Arc;
 
 use datafusion::arrow::array::{
@@ -13,6 +14,7 @@ use datafusion::arrow::datatypes::{DataType, Field, Schema};
 
 use crate::bundle::{Bundle, ColumnEncoding};
 use crate::encode::{feature_columns, EncodeError, OutputColumn, Reader};
+use crate::family::FamilyError;
 use crate::layout::AnyPosterior;
 
 type Result<T> = std::result::Result<T, EncodeError>;
@@ -32,15 +34,30 @@ pub fn score(bundle: &Bundle, batch: &RecordBatch) -> Result<RecordBatch> {
         .map(|f| f.as_ref().clone())
         .collect();
     let mut columns: Vec<ArrayRef> = batch.columns().to_vec();
+    let texts = bundle
+        .columns
+        .iter()
+        .map(|(name, encoding)| Ok((name.as_str(), key_texts(name, encoding, batch)?)))
+        .collect::<Result<BTreeMap<_, _>>>()?;
+    let levels_by_key: BTreeMap<&str, Vec<Option<Cow<'_, str>>>> = bundle
+        .columns
+        .iter()
+        .map(|(name, encoding)| {
+            (
+                name.as_str(),
+                levels_of(encoding, &texts[name.as_str()], batch.num_rows()),
+            )
+        })
+        .collect();
     for (name, encoding) in &bundle.columns {
-        let texts = key_texts(name, encoding, batch)?;
-        let levels = levels_of(encoding, &texts, batch.num_rows());
+        let levels = &levels_by_key[name.as_str()];
+        let unseen = |row: usize| unseen_posterior(bundle, &levels_by_key, name, row);
         let readers = bundle
             .readers_of(encoding)
             .iter()
             .map(|r| Reader::parse(r))
             .collect::<Result<Vec<_>>>()?;
-        for (column_name, array) in features(name, encoding, &readers, &levels)? {
+        for (column_name, array) in features(name, encoding, &readers, levels, &unseen)? {
             if fields.iter().any(|f| f.name() == &column_name) {
                 return usage(format!(
                     "score: the input already has a column '{column_name}', which scoring \
@@ -114,12 +131,38 @@ fn levels_of<'a>(
         .collect()
 }
 
-/// The feature columns of one key for rows at `levels`.
+/// The posterior that scores row `row` of key `name` at a level the bundle does not
+/// hold (or a NULL key): the prior, or under `--hierarchy` the prior centred on the
+/// row's parent posterior (itself read this way), as the scored table does.
+fn unseen_posterior(
+    bundle: &Bundle,
+    levels: &BTreeMap<&str, Vec<Option<Cow<'_, str>>>>,
+    name: &str,
+    row: usize,
+) -> Result<AnyPosterior> {
+    let encoding = &bundle.columns[name];
+    let at = |e: FamilyError| EncodeError::Query(format!("score: key '{name}': {e}"));
+    let Some((parent, strength)) = &encoding.parent else {
+        return encoding.scoring(None).map_err(at);
+    };
+    let level = levels[parent.as_str()][row].as_deref();
+    let up = match level.filter(|l| bundle.columns[parent.as_str()].levels.contains_key(*l)) {
+        Some(l) => bundle.columns[parent.as_str()]
+            .scoring(Some(l))
+            .map_err(at)?,
+        None => unseen_posterior(bundle, levels, parent, row)?,
+    };
+    encoding.prior.under(&up, None, *strength).map_err(at)
+}
+
+/// The feature columns of one key for rows at `levels`; `unseen(row)` is the
+/// posterior of a row whose level the bundle does not hold, under `--hierarchy`.
 fn features(
     name: &str,
     encoding: &ColumnEncoding,
     readers: &[Reader],
     levels: &[Option<Cow<'_, str>>],
+    unseen: &dyn Fn(usize) -> Result<AnyPosterior>,
 ) -> Result<Vec<(String, ArrayRef)>> {
     let classes = match &encoding.prior {
         AnyPosterior::Dirichlet(d) => d.prior.classes.clone(),
@@ -144,8 +187,16 @@ fn features(
         })
         .collect();
     let mut values: Vec<Vec<f64>> = vec![Vec::with_capacity(levels.len()); reader_outputs.len()];
-    for level in levels {
+    for (r, level) in levels.iter().enumerate() {
         let level = level.as_deref();
+        if encoding.parent.is_some() && !level.is_some_and(|l| encoding.levels.contains_key(l)) {
+            // Its posterior depends on the row's parent: read per row.
+            let p = unseen(r)?;
+            for (column, (index, class)) in values.iter_mut().zip(&reader_outputs) {
+                column.push(readers[*index].value(&p, *class)?);
+            }
+            continue;
+        }
         let row = match cache.entry(level) {
             datafusion::common::hash_map::Entry::Occupied(row) => row.into_mut(),
             datafusion::common::hash_map::Entry::Vacant(slot) => {

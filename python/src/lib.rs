@@ -460,6 +460,19 @@ fn parse_options(options: &Bound<'_, pyo3::types::PyDict>, o: &mut EncodeOptions
                     .map(|(k, t)| Ok((k, Treatment::parse(&t).map_err(error)?)))
                     .collect::<PyResult<_>>()?
             }
+            "hierarchy" => {
+                let chains: Vec<String> = match value.extract::<String>() {
+                    Ok(one) => vec![one],
+                    Err(_) => value
+                        .extract()
+                        .map_err(|_| wrong("'child>parent' or a list of such chains"))?,
+                };
+                o.hierarchy = chains
+                    .iter()
+                    .map(|c| posterity::encode::parse_hierarchy(c))
+                    .collect::<Result<_, _>>()
+                    .map_err(error)?
+            }
             "score_evidence" => {
                 o.score_evidence =
                     ScoreEvidence::parse(&text().map_err(|_| wrong("'matched' or 'full'"))?)

@@ -39,8 +39,8 @@ mod sql;
 mod update;
 
 pub use options::{
-    EncodeOptions, HalfLife, Horizon, Method, PriorChoice, Reader, ScoreEvidence, TimeTies,
-    Treatment, LOO_REFUSED,
+    parse_hierarchy, EncodeOptions, HalfLife, Horizon, Method, PriorChoice, Reader, ScoreEvidence,
+    TimeTies, Treatment, LOO_REFUSED,
 };
 pub use resolve::{feature_columns, resolve, EncodePlan, KeyPlan, OutputColumn};
 pub use run::{

@@ -42,6 +42,8 @@ pub struct KeyPlan {
     pub readers: Vec<Reader>,
     /// Why a default reader set was chosen, in the user's words (empty when given).
     pub readers_why: String,
+    /// The key whose levels' posteriors centre this key's level priors (`--hierarchy`).
+    pub parent: Option<usize>,
 }
 
 impl KeyPlan {
@@ -64,6 +66,7 @@ impl KeyPlan {
                 .clone()
                 .unwrap_or_else(|| vec![Reader::Mean]),
             readers_why: String::new(),
+            parent: None,
         }
     }
 
@@ -265,6 +268,75 @@ fn keys_of(options: &EncodeOptions) -> Result<Vec<KeyPlan>> {
         return usage("--columns: name at least one column to encode");
     }
     Ok(keys)
+}
+
+/// `--hierarchy`: each child key's parent, checked (one-column posterior keys, one
+/// parent each, no cycle, k-fold encodings).
+fn link_hierarchy(options: &EncodeOptions, method: Method, keys: &mut [KeyPlan]) -> Result<()> {
+    if options.hierarchy.is_empty() {
+        return Ok(());
+    }
+    if options.readers.as_ref().is_some_and(Vec::is_empty) && options.draws.is_none() {
+        return usage("--hierarchy: name at least one reader (a parent's posteriors are read)");
+    }
+    if method != Method::Kfold {
+        return usage(
+            "--hierarchy works with k-fold encodings (--method kfold); as-of encodings \
+             (--method time, the default with --time-column) do not take it yet",
+        );
+    }
+    let find = |keys: &[KeyPlan], column: &str| -> Result<usize> {
+        let Some(i) = keys
+            .iter()
+            .position(|k| k.columns.len() == 1 && k.columns[0] == column)
+        else {
+            return usage(format!(
+                "--hierarchy: '{column}' is not one of --columns (a hierarchy links \
+                 one-column keys)"
+            ));
+        };
+        if keys[i].treatment != Treatment::Posterior {
+            return usage(format!(
+                "--hierarchy: '{column}' is given as {}; keys in a hierarchy are posterior \
+                 encodings (drop its --treatment)",
+                keys[i].treatment.name()
+            ));
+        }
+        Ok(i)
+    };
+    for chain in &options.hierarchy {
+        for pair in chain.windows(2) {
+            let (child, parent) = (find(keys, &pair[0])?, find(keys, &pair[1])?);
+            if child == parent {
+                return usage(format!(
+                    "--hierarchy: '{}' cannot be its own parent",
+                    pair[0]
+                ));
+            }
+            match keys[child].parent {
+                Some(p) if p != parent => {
+                    return usage(format!(
+                        "--hierarchy: '{}' is given two parents, '{}' and '{}'",
+                        pair[0], keys[p].columns[0], pair[1]
+                    ))
+                }
+                _ => keys[child].parent = Some(parent),
+            }
+        }
+    }
+    for start in 0..keys.len() {
+        let (mut at, mut steps) = (start, 0);
+        while let Some(p) = keys[at].parent {
+            (at, steps) = (p, steps + 1);
+            if steps > keys.len() {
+                return usage(format!(
+                    "--hierarchy: '{}' is its own ancestor (the chains make a cycle)",
+                    keys[start].columns[0]
+                ));
+            }
+        }
+    }
+    Ok(())
 }
 
 /// Indicator columns one key may have (each is a column of the training table).
@@ -501,6 +573,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
             ),
     )?;
     choose_treatments(ctx, options, &mut keys).await?;
+    link_hierarchy(options, method, &mut keys)?;
     let score_columns = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
 
     let t = quote(target);

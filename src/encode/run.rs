@@ -6,7 +6,7 @@ use std::path::{Path, PathBuf};
 
 use datafusion::arrow::array::{new_null_array, Array, AsArray, RecordBatch};
 use datafusion::arrow::compute::cast;
-use datafusion::arrow::datatypes::{DataType, Field, Int64Type, Schema};
+use datafusion::arrow::datatypes::{DataType, Field, Float64Type, Int64Type, Schema};
 use std::sync::Arc;
 
 use datafusion::dataframe::{DataFrame, DataFrameWriteOptions};
@@ -59,6 +59,10 @@ pub struct ColumnSummary {
     /// Its reader columns, and why (empty when `--readers` chose them).
     pub readers: Vec<String>,
     pub readers_why: String,
+    /// Under `--hierarchy`: the parent key, and the layer's fitted strength
+    /// (pseudo-observations; `None` when no level has a parent level).
+    pub parent: Option<String>,
+    pub parent_strength: Option<f64>,
     pub warnings: Vec<String>,
 }
 
@@ -266,6 +270,26 @@ pub(super) async fn finish(
                 .then(|| serde_json::from_str(c.value(0)).ok())
                 .flatten()
         };
+        // Under --hierarchy: the layer's fitted strength (NULL: no level has a parent).
+        let under = match key.parent {
+            Some(j) => {
+                let batches = ctx
+                    .sql(&format!(
+                        "SELECT CAST(strength AS DOUBLE) FROM __strength{i}"
+                    ))
+                    .await?
+                    .collect()
+                    .await?;
+                let strength = batches
+                    .iter()
+                    .find(|b| b.num_rows() > 0)
+                    .map(|b| b.column(0).as_primitive::<Float64Type>())
+                    .filter(|c| c.is_valid(0))
+                    .map(|c| c.value(0));
+                Some((plan.keys[j].name.clone(), strength))
+            }
+            None => None,
+        };
         let mut levels = BTreeMap::new();
         let mut rows = 0.0;
         for batch in ctx
@@ -387,6 +411,8 @@ pub(super) async fn finish(
                 _ => Vec::new(),
             },
             readers_why: key.readers_why.clone(),
+            parent: under.as_ref().map(|(parent, _)| parent.clone()),
+            parent_strength: under.as_ref().and_then(|(_, s)| *s),
             warnings,
         });
         columns.insert(
@@ -401,6 +427,7 @@ pub(super) async fn finish(
                 treatment: key.treatment,
                 readers: (key.readers != base_readers)
                     .then(|| key.readers.iter().map(|r| r.spec()).collect()),
+                parent: under.and_then(|(parent, s)| s.map(|s| (parent, s))),
             },
         );
     }
@@ -463,6 +490,7 @@ pub fn summary_json(summary: &[ColumnSummary]) -> Value {
                     "half_life": s.half_life, "recency": s.recency,
                     "horizon": s.horizon, "horizon_reason": s.horizon_why,
                     "readers": s.readers, "readers_reason": s.readers_why,
+                    "parent": s.parent, "parent_strength": s.parent_strength,
                     "unseen_share": s.unseen_share, "warnings": s.warnings,
                 })
             })
@@ -496,6 +524,17 @@ pub fn summary_table(summary: &[ColumnSummary]) -> String {
     for s in summary {
         if !s.why.is_empty() {
             out.push_str(&format!("{} as {}: {}\n", s.key, s.treatment.name(), s.why));
+        }
+        if let Some(parent) = &s.parent {
+            out.push_str(&format!(
+                "{}: each level's prior is centred on its {parent} level's posterior (without its \
+                 own rows), {}\n",
+                s.key,
+                match s.parent_strength {
+                    Some(v) => format!("{} pseudo-observations (fitted)", crate::render::short(v)),
+                    None => "but no level has a parent: the key's own prior".to_string(),
+                }
+            ));
         }
         for reason in [&s.readers_why, &s.horizon_why, &s.recency] {
             if !reason.is_empty() {

@@ -17,6 +17,14 @@ pub(crate) const TRAIN: &str = "__encode_train_rows";
 /// The numbered scoring rows.
 pub(crate) const SCORE: &str = "__encode_score_rows";
 
+/// Which rows a select list is for: training rows read their key's out-of-fold or
+/// as-of posteriors (`x{i}`), scored rows the encoding tables (`e{i}`).
+#[derive(Debug, Clone, Copy, PartialEq)]
+enum Side {
+    Train,
+    Score,
+}
+
 /// One statement: what it is for, its SQL, and for a result the output it makes.
 #[derive(Debug, Clone, PartialEq)]
 pub struct Statement {
@@ -241,11 +249,16 @@ impl EncodePlan {
         key: &KeyPlan,
         (source, fallback): (&str, &str),
         posterior: &str,
+        side: Side,
     ) -> Vec<String> {
         self.output_columns(key)
             .into_iter()
             .map(|(name, column)| {
                 let value = match column {
+                    OutputColumn::Reader { index, class } if key.parent.is_some() => {
+                        let reader = key.readers[index].sql(&self.unseen(i, side), class.as_deref());
+                        format!("COALESCE({source}.{}, {reader})", quote(&name))
+                    }
                     OutputColumn::Reader { .. } => {
                         let q = quote(&name);
                         format!("COALESCE({source}.{q}, {})", self.prior_reader(i, &q, fallback))
@@ -258,7 +271,7 @@ impl EncodePlan {
                         let class = class.map(|c| format!(", {}", text(&c))).unwrap_or_default();
                         format!(
                             "posterior_draw(COALESCE({posterior}, {}){class}, fold_of(t.__row, 9223372036854775807, {}))",
-                            self.prior_reader(i, "prior", fallback),
+                            self.unseen(i, side),
                             self.options.draws.unwrap_or_default()
                         )
                     }
@@ -266,6 +279,45 @@ impl EncodePlan {
                 format!("{value} AS {}", quote(&name))
             })
             .collect()
+    }
+
+    /// The posterior a row reads for key `i` when its level is unseen or NULL: the
+    /// key's prior, or under `--hierarchy` that prior centred on the row's parent
+    /// level (itself read this way), with the layer's fitted strength.
+    fn unseen(&self, i: usize, side: Side) -> String {
+        let prior = self.prior_reader(i, "prior", &format!("__priorread{i}"));
+        match self.keys[i].parent {
+            None => prior,
+            Some(j) => format!(
+                "COALESCE(posterior_under({prior}, {}, NULL, {}), {prior})",
+                self.row_posterior(j, side),
+                self.prior_reader(i, "strength", &format!("__priorread{i}"))
+            ),
+        }
+    }
+
+    /// The posterior a row reads for key `j`: its level's (out-of-fold for training
+    /// rows, scaled as scoring reads it for scored rows), else `unseen`.
+    fn row_posterior(&self, j: usize, side: Side) -> String {
+        let own = match side {
+            Side::Train => format!("x{j}.p"),
+            Side::Score => self.scoring_posterior(&format!("e{j}.p")),
+        };
+        format!("COALESCE({own}, {})", self.unseen(j, side))
+    }
+
+    /// Keys in an order where every parent comes before its children.
+    fn parents_first(&self) -> Vec<usize> {
+        let depth = |mut i: usize| {
+            let mut d = 0;
+            while let Some(p) = self.keys[i].parent {
+                (i, d) = (p, d + 1);
+            }
+            d
+        };
+        let mut order: Vec<usize> = (0..self.keys.len()).collect();
+        order.sort_by_key(|&i| depth(i));
+        order
     }
 
     /// `key AS __k0, ...` over table alias `t`.
@@ -309,32 +361,55 @@ impl EncodePlan {
         if key.indicators > 0 {
             encoding_columns.push("ranked.rank AS top_rank".to_string());
         }
-        let mut out = vec![
-            stage(
-                format!("prior {k}"),
-                &prior,
-                if self.fitted {
-                    format!("SELECT fit_prior(p) AS prior, fit_prior_report(p) AS report FROM {fits}")
-                } else {
-                    format!(
-                        "SELECT {} AS prior, CAST(NULL AS VARCHAR) AS report",
-                        key.prior.as_ref().unwrap_or(&self.base_prior)
-                    )
-                },
+        let mut out = vec![stage(
+            format!("prior {k}"),
+            &prior,
+            if self.fitted {
+                format!("SELECT fit_prior(p) AS prior, fit_prior_report(p) AS report FROM {fits}")
+            } else {
+                format!(
+                    "SELECT {} AS prior, CAST(NULL AS VARCHAR) AS report",
+                    key.prior.as_ref().unwrap_or(&self.base_prior)
+                )
+            },
+        )];
+        let repriored = self.repriored("f.p");
+        let (level_posterior, prior_readers) = match key.parent {
+            None => (
+                format!("SELECT f.level, {repriored} AS p FROM {fits} f CROSS JOIN {prior} q"),
+                format!(
+                    "SELECT {} FROM {prior}",
+                    self.with_readers("prior", key, "prior")
+                ),
             ),
+            Some(j) => {
+                out.extend(self.hierarchy_stages(i, key, j));
+                (
+                    format!(
+                        "SELECT f.level, COALESCE(posterior_under({repriored}, pe.p, m.p, st.strength), {repriored}) AS p \
+                         FROM {fits} f CROSS JOIN {prior} q CROSS JOIN __strength{i} st \
+                         LEFT JOIN __pair{i} m ON m.level = f.level LEFT JOIN __enc{j} pe ON pe.level = m.parent"
+                    ),
+                    format!(
+                        "SELECT {} FROM {prior} CROSS JOIN __strength{i} st",
+                        self.with_readers("prior, st.strength AS strength", key, "prior")
+                    ),
+                )
+            }
+        };
+        out.extend([
             stage(
                 format!("encodings {k}"),
                 &enc,
                 format!(
-                    "SELECT {} FROM (SELECT f.level, {} AS p FROM {fits} f CROSS JOIN {prior} q)",
+                    "SELECT {} FROM ({level_posterior})",
                     self.with_readers("level, p", key, &self.scoring_posterior("p")),
-                    self.repriored("f.p")
                 ),
             ),
             stage(
                 format!("prior readers {k}"),
                 &format!("__priorread{i}"),
-                format!("SELECT {} FROM {prior}", self.with_readers("prior", key, "prior")),
+                prior_readers,
             ),
             stage(
                 format!("largest levels {k}"),
@@ -345,7 +420,7 @@ impl EncodePlan {
                     key.indicator_min_rows, key.indicators
                 ),
             ),
-        ];
+        ]);
         if key.treatment == Treatment::Codes {
             encoding_columns.push("c.code".to_string());
             out.push(stage(
@@ -366,6 +441,35 @@ impl EncodePlan {
                 ),
         ));
         out
+    }
+
+    /// Under `--hierarchy`, key `i`'s stages beside its parent `j`: each level's main
+    /// parent and its own data there (`__pair{i}`, the parent most of its rows have),
+    /// and the layer's strength fitted over all levels (`__strength{i}`).
+    fn hierarchy_stages(&self, i: usize, key: &KeyPlan, j: usize) -> Vec<Statement> {
+        let k = &key.name;
+        let fit = self.fit(key);
+        vec![
+            stage(
+                format!("parents {k}"),
+                &format!("__pair{i}"),
+                format!(
+                    "SELECT level, parent, p FROM (SELECT level, parent, p, row_number() OVER \
+                     (PARTITION BY level ORDER BY posterior_data_weight(p) DESC, parent) AS r FROM \
+                     (SELECT __k{i} AS level, __k{j} AS parent, {fit} AS p FROM __keyed t \
+                     WHERE __k{i} IS NOT NULL AND __k{j} IS NOT NULL GROUP BY __k{i}, __k{j})) WHERE r = 1"
+                ),
+            ),
+            stage(
+                format!("strength {k}"),
+                &format!("__strength{i}"),
+                format!(
+                    "SELECT fit_strength({}, pe.p, m.p) AS strength FROM __fit{i} f CROSS JOIN __prior{i} q \
+                     JOIN __pair{i} m ON m.level = f.level JOIN __enc{j} pe ON pe.level = m.parent",
+                    self.repriored("f.p")
+                ),
+            ),
+        ]
     }
 
     /// The statements of a refresh: stored posteriors (registered as `__stored{i}`,
@@ -395,13 +499,11 @@ impl EncodePlan {
     pub fn statements(&self) -> Vec<Statement> {
         let o = &self.options;
         let mut out = vec![self.keys_stage()];
-        let mut joins = Vec::new();
-        let mut selects: Vec<String> = self
-            .train_columns
-            .iter()
-            .map(|c| format!("t.{}", quote(c)))
-            .collect();
-        for (i, key) in self.keys.iter().enumerate() {
+        // Stages run parents first (`--hierarchy`); the columns keep the keys' order.
+        let mut joins = vec![String::new(); self.keys.len()];
+        let mut key_selects = vec![Vec::new(); self.keys.len()];
+        for i in self.parents_first() {
+            let key = &self.keys[i];
             let k = &key.name;
             let fit = self.fit(key);
             out.push(stage(
@@ -415,17 +517,24 @@ impl EncodePlan {
             if self.needs_training_posteriors(key) {
                 let (stages, on) = self.training_posteriors(i, key, &fit);
                 out.extend(stages);
-                joins.push(format!("LEFT JOIN __train{i} x{i} ON {on}"));
+                joins[i] = format!("LEFT JOIN __train{i} x{i} ON {on} ");
             }
-            joins.push(self.level_joins(i, key));
-            selects.extend(self.final_columns(
+            joins[i].push_str(&self.level_joins(i, key));
+            key_selects[i] = self.final_columns(
                 i,
                 key,
                 (&format!("x{i}"), &format!("__priorread{i}")),
                 &format!("x{i}.p"),
-            ));
+                Side::Train,
+            );
             out.extend_from_slice(encodings);
         }
+        let selects: Vec<String> = self
+            .train_columns
+            .iter()
+            .map(|c| format!("t.{}", quote(c)))
+            .chain(key_selects.into_iter().flatten())
+            .collect();
         out.push(output(
             "train_encoded",
             format!(
@@ -453,8 +562,12 @@ impl EncodePlan {
             Some(_) => TimeTies::Strict,
             None => o.time_ties,
         };
-        let (name, query, on) = match (self.method, ties) {
-            (Method::Kfold, _) => {
+        // Under a parent (k-fold only: `resolve` refuses as-of encodings with one).
+        let (name, query, on) = match (self.method, ties, key.parent) {
+            (Method::Kfold, _, Some(j)) => {
+                self.out_of_fold_under_parent(i, key, j, fit, &mut stages)
+            }
+            (Method::Kfold, _, None) => {
                 stages.push(stage(
                     format!("fold fits {k}"),
                     &format!("__foldfit{i}"),
@@ -471,7 +584,7 @@ impl EncodePlan {
                     format!("x{i}.level = t.__k{i} AND x{i}.__fold = t.__fold"),
                 )
             }
-            (Method::Time, TimeTies::Strict) => {
+            (Method::Time, TimeTies::Strict, _) => {
                 let time = quote(o.time_column.as_deref().unwrap_or_default());
                 let pooled = format!(
                     "posterior_pool(p) {}",
@@ -494,7 +607,7 @@ impl EncodePlan {
                     format!("x{i}.level = t.__k{i} AND x{i}.__time = t.{time}"),
                 )
             }
-            (Method::Time, TimeTies::FileOrder) => {
+            (Method::Time, TimeTies::FileOrder, _) => {
                 let time = quote(o.time_column.as_deref().unwrap_or_default());
                 let over = format!(
                     "OVER (PARTITION BY __k{i} ORDER BY t.{time}, t.__row ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)"
@@ -518,6 +631,51 @@ impl EncodePlan {
         };
         stages.push(stage(format!("{name} {k}"), &format!("__train{i}"), query));
         (stages, on)
+    }
+
+    /// K-fold training posteriors of key `i` under its parent `j` (`--hierarchy`):
+    /// out of fold all the way up — the level's other folds under a prior centred on
+    /// its parent's out-of-fold posterior less the level's own rows there, so no row
+    /// of the fold reaches its encoding. Returns the stage name, query and join.
+    fn out_of_fold_under_parent(
+        &self,
+        i: usize,
+        key: &KeyPlan,
+        j: usize,
+        fit: &str,
+        stages: &mut Vec<Statement>,
+    ) -> (&'static str, String, String) {
+        let k = &key.name;
+        let prior = format!("__prior{i}");
+        stages.push(stage(
+                format!("fold fits {k}"),
+                &format!("__foldfit{i}"),
+                format!("SELECT __k{i} AS level, __fold, {fit} AS p FROM __keyed t WHERE __k{i} IS NOT NULL GROUP BY __k{i}, __fold"),
+            ));
+        stages.push(stage(
+                format!("fold fits within parents {k}"),
+                &format!("__pairfold{i}"),
+                format!(
+                    "SELECT __k{i} AS level, __k{j} AS parent, __fold, {fit} AS p FROM __keyed t \
+                     WHERE __k{i} IS NOT NULL AND __k{j} IS NOT NULL GROUP BY __k{i}, __k{j}, __fold"
+                ),
+            ));
+        let data = self.repriored("posterior_subtract(f.p, g.p)");
+        (
+                "out-of-fold",
+                format!(
+                    "SELECT level, __fold, {} FROM (SELECT g.level, g.__fold, \
+                     COALESCE(posterior_under({data}, COALESCE(tp.p, pe.p), \
+                     CASE WHEN mf.p IS NULL THEN m.p ELSE posterior_subtract(m.p, mf.p) END, st.strength), {data}) AS p \
+                     FROM __foldfit{i} g JOIN __fit{i} f ON f.level = g.level CROSS JOIN {prior} q CROSS JOIN __strength{i} st \
+                     LEFT JOIN __pair{i} m ON m.level = g.level \
+                     LEFT JOIN __train{j} tp ON tp.level = m.parent AND tp.__fold = g.__fold \
+                     LEFT JOIN __enc{j} pe ON pe.level = m.parent \
+                     LEFT JOIN __pairfold{i} mf ON mf.level = g.level AND mf.parent = m.parent AND mf.__fold = g.__fold)",
+                    self.with_readers("p", key, "p"),
+                ),
+                format!("x{i}.level = t.__k{i} AND x{i}.__fold = t.__fold"),
+            )
     }
 
     /// Scoring with the encodings' readers (see `scoring_posterior`); unseen levels
@@ -544,6 +702,7 @@ impl EncodePlan {
                 key,
                 (&format!("e{i}"), &format!("__priorread{i}")),
                 &self.scoring_posterior(&format!("e{i}.p")),
+                Side::Score,
             ));
             out.push(output(
                 format!("unseen/{}", key.name),

@@ -96,6 +96,12 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     let mut keys = Vec::new();
     let mut stored = Vec::new();
     for (name, column) in &previous.columns {
+        if column.parent.is_some() {
+            return usage(format!(
+                "--update: key '{name}' was encoded under a parent (--hierarchy), which a \
+                 refresh does not redo yet; encode the rows again"
+            ));
+        }
         if column.key_columns.is_empty() {
             return usage(format!(
                 "--update: the bundle does not say which columns make key '{name}' (a version 1 \

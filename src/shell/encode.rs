@@ -129,6 +129,10 @@ pub struct EncodeArgs {
     /// posterior; the summary says how their levels are sized.
     #[arg(long, value_delimiter = ',', value_name = "KEY=AS")]
     pub treatment: Vec<String>,
+    /// Key columns nested finest first, e.g. postcode>district>region (repeatable): each
+    /// level's prior is centred on its parent's posterior, with a fitted strength per layer.
+    #[arg(long, value_name = "CHILD>PARENT")]
+    pub hierarchy: Vec<String>,
     /// Seed of the fold assignment.
     #[arg(long, default_value_t = 0)]
     pub seed: u64,
@@ -252,6 +256,11 @@ fn options(args: &EncodeArgs) -> Result<EncodeOptions, Failure> {
             ))),
         })
         .collect::<Result<_, Failure>>()?;
+    o.hierarchy = args
+        .hierarchy
+        .iter()
+        .map(|chain| encode::parse_hierarchy(chain))
+        .collect::<Result<_, _>>()?;
     o.score = args.score.as_ref().map(|_| SCORE_TABLE.to_string());
     o.score_evidence = match args.score_evidence {
         ScoreEvidenceChoice::Matched => encode::ScoreEvidence::Matched,

@@ -2191,3 +2191,310 @@ async fn texts_of_header(path: &Path) -> Vec<String> {
         .map(|f| f.name().clone())
         .collect()
 }
+
+/// The demo sample with `district` and `region` made from the postcode area's first
+/// four and three characters (a nested hierarchy); and a scoring file of the sample
+/// plus rows at unseen
+/// areas: in a known district, in an unseen district of a known region, in nothing
+/// known, and with no area.
+fn nested_sample(dir: &Path, name: &str) -> (String, String) {
+    let text = std::fs::read_to_string(sample()).unwrap();
+    let mut lines = text.lines();
+    let mut out = format!("{},district,region\n", lines.next().unwrap());
+    for line in lines {
+        let area = line.split(',').nth(6).unwrap();
+        out.push_str(&format!("{line},{},{}\n", &area[..4], &area[..3]));
+    }
+    let train = dir.join(format!("{name}.csv"));
+    std::fs::write(&train, &out).unwrap();
+    let mut score = out.clone();
+    for (area, district, region) in [
+        ("PA1299x", "PA12", "PA1"),
+        ("PA9999x", "PA99", "PA1"),
+        ("QQ0000", "QQ00", "QQ0"),
+        ("", "PA12", "PA1"),
+    ] {
+        score.push_str(&format!(
+            "9,2025-12-31,365,clinic_00,phone,breed_017,{area},vet_01,attended,0,1.0,{district},{region}\n"
+        ));
+    }
+    let scored = dir.join(format!("{name}-score.csv"));
+    std::fs::write(&scored, score).unwrap();
+    (train.display().to_string(), scored.display().to_string())
+}
+
+// `--hierarchy area>district>region`: each area's prior is centred on its
+// district's posterior without the area's own rows (checked level by level from the
+// bundle: prior a0 = s m, b0 = s (1 - m)), the layer's strength is where the
+// marginal likelihood peaks, training rows are out of fold all the way up (every
+// row against the counts outside its fold, by hand), unseen areas
+// read their district (or region) as scored rows and as the bundle scores them.
+#[tokio::test]
+async fn hierarchy_centres_levels_on_their_parents() {
+    use posterity::layout::AnyPosterior;
+    let dir = temp_dir("hierarchy");
+    let (train, score) = nested_sample(&dir, "train");
+    let run = |train: &str, out: &Path| {
+        encode(&[
+            "--train",
+            train,
+            "--target",
+            "no_show",
+            "--columns",
+            "postcode_area,district,region",
+            "--hierarchy",
+            "postcode_area>district>region",
+            "--score",
+            &score,
+            "--out",
+            out.to_str().unwrap(),
+        ])
+    };
+    let out = dir.join("out");
+    run(&train, &out);
+    let bundle =
+        Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+    let (parent, s) = bundle.columns["postcode_area"].parent.clone().unwrap();
+    assert_eq!(parent, "district");
+    assert_eq!(
+        bundle.columns["district"].parent.as_ref().unwrap().0,
+        "region"
+    );
+    assert_eq!(bundle.columns["region"].parent, None);
+    let beta = |p: &AnyPosterior| match p {
+        AnyPosterior::Beta(b) => *b,
+        other => panic!("{other:?}"),
+    };
+    // Each area's prior, from its district's posterior less the area's rows.
+    let areas = &bundle.columns["postcode_area"].levels;
+    let districts = &bundle.columns["district"].levels;
+    let log_likelihood = |strength: f64| {
+        let mut total = 0.0;
+        for (area, p) in areas {
+            let (a, d) = (beta(p), beta(&districts[&area[..4]]));
+            let (da, db) = d.params();
+            let m = (da - a.successes) / (da + db - a.trials);
+            if strength == s {
+                assert!(
+                    (a.prior.a0 - s * m).abs() < 1e-9 * s,
+                    "{area}: a0 {} vs {}",
+                    a.prior.a0,
+                    s * m
+                );
+                assert!((a.prior.b0 - s * (1.0 - m)).abs() < 1e-9 * s, "{area}: b0");
+            }
+            let (pa, pb) = (strength * m, strength * (1.0 - m));
+            total +=
+                posterity::family::special::ln_beta(pa + a.successes, pb + a.trials - a.successes)
+                    - posterity::family::special::ln_beta(pa, pb);
+        }
+        total
+    };
+    let at = log_likelihood(s);
+    assert!(
+        at > log_likelihood(0.8 * s) && at > log_likelihood(1.25 * s),
+        "strength {s} is not the peak"
+    );
+    // Out of fold all the way up, by hand from the counts: a row of fold f reads its
+    // region's rows outside f under the region's prior, its district's rows outside f
+    // under a prior centred on that (less the district's own rows outside f), and its
+    // area's likewise under its district's.
+    let ctx = SessionContext::new();
+    posterity::register(&ctx);
+    let folds: Vec<usize> = {
+        let b = ctx
+            .sql("SELECT fold_of(value, 5, 0) FROM range(3000) ORDER BY value")
+            .await
+            .unwrap()
+            .collect()
+            .await
+            .unwrap();
+        b.iter()
+            .flat_map(|b| b.column(0).as_primitive::<Int64Type>().values().to_vec())
+            .map(|f| f as usize)
+            .collect()
+    };
+    let text = std::fs::read_to_string(&train).unwrap();
+    let rows: Vec<(String, usize)> = text
+        .lines()
+        .skip(1)
+        .map(|l| {
+            let f: Vec<&str> = l.split(',').collect();
+            (f[6].to_string(), f[9].parse().unwrap())
+        })
+        .collect();
+    // Successes and trials of the rows whose key starts with `level`, outside fold f.
+    let outside = |level: &str, f: usize| {
+        let (mut s, mut n) = (0.0, 0.0);
+        for (row, (area, y)) in rows.iter().enumerate() {
+            if folds[row] != f && area.starts_with(level) {
+                (s, n) = (s + *y as f64, n + 1.0);
+            }
+        }
+        (s, n)
+    };
+    let strength = |key: &str| bundle.columns[key].parent.as_ref().unwrap().1;
+    let region_prior = beta(&bundle.columns["region"].prior).prior;
+    let (s_district, s_area) = (strength("district"), strength("postcode_area"));
+    let (area_means, district_means) = (
+        column(&out.join("train_encoded.parquet"), "postcode_area_mean").await,
+        column(&out.join("train_encoded.parquet"), "district_mean").await,
+    );
+    let ids = column(&out.join("train_encoded.parquet"), "appointment_id").await;
+    let mut cache = HashMap::new();
+    for (row, (area, _)) in rows.iter().enumerate() {
+        assert_eq!(ids[row], row as f64, "rows in file order, numbered from 0");
+        let f = folds[row];
+        let (district_mean, area_mean) = *cache.entry((area.clone(), f)).or_insert_with(|| {
+            let (sg, ng) = outside(&area[..3], f);
+            let (ga, gb) = (region_prior.a0 + sg, region_prior.b0 + ng - sg);
+            let (sd, nd) = outside(&area[..4], f);
+            let m = (ga - sd) / (ga + gb - nd);
+            let (da, db) = (s_district * m + sd, s_district * (1.0 - m) + nd - sd);
+            let (sl, nl) = outside(area, f);
+            let m = (da - sl) / (da + db - nl);
+            (da / (da + db), (s_area * m + sl) / (s_area + nl))
+        });
+        assert!(
+            (area_means[row] - area_mean).abs() < 1e-12,
+            "row {row}: area {} vs {area_mean}",
+            area_means[row]
+        );
+        assert!(
+            (district_means[row] - district_mean).abs() < 1e-12,
+            "row {row}: district"
+        );
+    }
+    // Unseen areas read their district, an unseen district its region, nothing known
+    // the region's prior; a NULL area its district; the bundle scores them alike.
+    let scored = dir.join("out/scored.parquet");
+    let (area, district, region) = (
+        column(&scored, "postcode_area_mean").await,
+        column(&scored, "district_mean").await,
+        column(&scored, "region_mean").await,
+    );
+    for (row, parent) in [
+        (3000, &district),
+        (3001, &region),
+        (3002, &region),
+        (3003, &district),
+    ] {
+        assert!(
+            (area[row] - parent[row]).abs() < 1e-12,
+            "row {row}: {} vs {}",
+            area[row],
+            parent[row]
+        );
+    }
+    assert!((district[3001] - region[3001]).abs() < 1e-12);
+    let rows = ctx
+        .read_parquet(scored.to_str().unwrap(), ParquetReadOptions::default())
+        .await
+        .unwrap()
+        .collect()
+        .await
+        .unwrap();
+    let rows = datafusion::arrow::compute::concat_batches(&rows[0].schema(), &rows).unwrap();
+    let keys: Vec<usize> = ["postcode_area", "district", "region"]
+        .iter()
+        .map(|c| rows.schema().index_of(c).unwrap())
+        .collect();
+    let served = posterity::serve::score(&bundle, &rows.project(&keys).unwrap()).unwrap();
+    for name in ["postcode_area_mean", "district_mean", "region_mean"] {
+        let (want, got) = (
+            rows.column_by_name(name)
+                .unwrap()
+                .as_primitive::<Float64Type>(),
+            served
+                .column_by_name(name)
+                .unwrap()
+                .as_primitive::<Float64Type>(),
+        );
+        for i in 0..want.len() {
+            assert!(
+                (want.value(i) - got.value(i)).abs() <= 1e-12 * want.value(i).abs(),
+                "{name} row {i}"
+            );
+        }
+    }
+    // Bad hierarchies are refused by name, before anything is written.
+    let base = [
+        "encode",
+        "--train",
+        &train,
+        "--target",
+        "no_show",
+        "--columns",
+        "postcode_area,district,region",
+    ];
+    for (extra, fragments) in [
+        (
+            vec!["--hierarchy", "postcode_area"],
+            vec!["--hierarchy 'postcode_area'", "CHILD>PARENT"],
+        ),
+        (
+            vec!["--hierarchy", "postcode_area>clinic"],
+            vec!["'clinic' is not one of --columns"],
+        ),
+        (
+            vec!["--hierarchy", "district>district"],
+            vec!["cannot be its own parent"],
+        ),
+        (
+            vec![
+                "--hierarchy",
+                "district>region",
+                "--hierarchy",
+                "region>district",
+            ],
+            vec!["own ancestor"],
+        ),
+        (
+            vec![
+                "--hierarchy",
+                "postcode_area>district",
+                "--hierarchy",
+                "postcode_area>region",
+            ],
+            vec!["two parents", "'district'", "'region'"],
+        ),
+        (
+            vec![
+                "--hierarchy",
+                "district>region",
+                "--treatment",
+                "region=levels",
+            ],
+            vec!["'region' is given as levels"],
+        ),
+        (
+            vec!["--hierarchy", "district>region", "--time-column", "day"],
+            vec!["k-fold", "--method time"],
+        ),
+    ] {
+        let bad = dir.join("bad");
+        let mut args: Vec<&str> = base.to_vec();
+        args.extend(extra.iter().copied());
+        args.extend(["--out", bad.to_str().unwrap()]);
+        let o = encode_output(&args);
+        let stderr = String::from_utf8_lossy(&o.stderr);
+        assert!(!o.status.success() && !bad.exists(), "{extra:?}: {stderr}");
+        for f in fragments {
+            assert!(stderr.contains(f), "{extra:?}: {stderr}");
+        }
+    }
+    // A refresh of a bundle with a hierarchy is refused (it would keep stale centres).
+    let o = encode_output(&[
+        "encode",
+        "--update",
+        out.to_str().unwrap(),
+        "--train",
+        &train,
+        "--out",
+        dir.join("refreshed").to_str().unwrap(),
+    ]);
+    assert!(
+        !o.status.success() && String::from_utf8_lossy(&o.stderr).contains("--hierarchy"),
+        "{o:?}"
+    );
+}
