@@ -26,10 +26,13 @@ ROWS, LEVELS, RATE = 20_000, 2_000, 0.3
 
 def data(seed):
     rng = np.random.default_rng(seed)
-    key = np.array([f"k{i}" for i in rng.integers(0, LEVELS, ROWS)])
+    index = rng.integers(0, LEVELS, ROWS)
+    key = np.array([f"k{i}" for i in index])
+    # A parent of 20 keys each, for --hierarchy key>group.
+    group = np.array([f"g{i % 100}" for i in index])
     y = (rng.random(ROWS) < RATE).astype(int)
     t = np.sort(rng.integers(0, 200, ROWS))
-    return pd.DataFrame({"key": key, "t": t, "y": y})
+    return pd.DataFrame({"key": key, "group": group, "t": t, "y": y})
 
 
 def learner():
@@ -73,13 +76,17 @@ def main():
         "time, half-life fitted": ["--time-column", "t", "--method", "time", "--half-life",
                                    "fitted"],
         "time, horizon 20": ["--time-column", "t", "--horizon", "20"],
+        # The key's prior centred on its group's out-of-fold posterior (the group is
+        # encoded too, but only the key's columns are measured).
+        "kfold, hierarchy": ["--columns", "key,group", "--hierarchy", "key>group"],
         "loo": ["--method", "loo"],
     }
     for method, extra in methods.items():
         out = work / method
+        columns = [] if "--columns" in extra else ["--columns", "key"]
         run = subprocess.run(
             [binary, "-q", "encode", "--train", str(work / "train.parquet"), "--target", "y",
-             "--columns", "key", "--readers", "mean,sd", "--score", str(work / "test.parquet"),
+             *columns, "--readers", "mean,sd", "--score", str(work / "test.parquet"),
              "--out", str(out), "--replace", *extra],
             capture_output=True, text=True)
         if run.returncode != 0:

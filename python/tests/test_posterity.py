@@ -206,6 +206,31 @@ def test_default_readers_follow_each_keys_spread():
     assert "volatile_sd" not in given.train_encoded.column_names
 
 
+def test_hierarchy_equals_the_shell(tmp_path):
+    frame = pd.read_csv(SAMPLE, dtype={"postcode_area": "string"})
+    frame["district"] = frame.postcode_area.str[:4]
+    path = tmp_path / "nested.csv"
+    frame.to_csv(path, index=False)
+    subprocess.run(
+        [shell_binary(), "-q", "encode", "--train", str(path), "--target", "no_show",
+         "--columns", "postcode_area,district", "--hierarchy", "postcode_area>district",
+         "--score", str(path), "--out", str(tmp_path / "shell")],
+        check=True, capture_output=True)
+    enc = posterity.encode(str(path), target="no_show", columns=["postcode_area", "district"],
+                           hierarchy="postcode_area>district", score=str(path))
+    shell = pq.read_table(tmp_path / "shell/train_encoded.parquet")
+    assert enc.train_encoded.column("postcode_area_mean").to_pylist() == \
+        shell.column("postcode_area_mean").to_pylist()
+    by_key = {s["key"]: s for s in enc.summary}
+    assert by_key["postcode_area"]["parent"] == "district"
+    assert by_key["postcode_area"]["parent_strength"] > 0
+    with pytest.raises(posterity.Error, match="is not CHILD>PARENT"):
+        posterity.encode(str(path), target="no_show", columns=["postcode_area"],
+                         hierarchy="postcode_area")
+    with pytest.raises(posterity.Error, match="hierarchy"):
+        posterity.encode(str(path), target="no_show", columns=["postcode_area"], hierarchy=3)
+
+
 def test_report_equals_the_shell(tmp_path):
     shell_encode(tmp_path / "shell", extra=["--report"])
     enc = posterity.encode(SAMPLE, target="no_show", score=SAMPLE, report=True, **OPTIONS)

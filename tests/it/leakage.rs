@@ -80,6 +80,7 @@ fn no_encode_method_leaks_to_a_tree_learner() {
         "time, half-life 20",
         "time, half-life fitted",
         "time, horizon 20",
+        "kfold, hierarchy",
     ] {
         let r = find(method);
         let (inside, outside) = (

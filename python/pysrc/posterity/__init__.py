@@ -230,7 +230,8 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     units, "matched": from ``score``'s times, or "none"), ``normalize_keys``, ``time_ties``, ``exposure``,
     ``readers=["mean", "sd"]`` (default ``["mean"]``, plus ``"sd"`` for a continuous key whose
     levels differ widely in spread; the summary's ``readers_reason`` says which), ``draws``, ``indicators``, ``indicator_min_rows``,
-    ``treatment={"clinic": "levels"}``, ``score_evidence`` ("matched" or "full"),
+    ``treatment={"clinic": "levels"}``, ``hierarchy="postcode>district>region"`` (or a list of
+    such chains, finest first; k-fold encodings), ``score_evidence`` ("matched" or "full"),
     ``report=True`` (the HTML report: ``Encoded.report``, ``report.html``). The same
     inputs give the shell's numbers. With ``out``, the outputs are also written there.
     """
