@@ -376,7 +376,8 @@ fn a_killed_executor_leaves_no_partial_output() {
 
 /// `encode` on the cluster with a work directory writes what one process writes:
 /// the same bundle and the same training rows (in any order on a cluster), for
-/// k-fold encodings and for as-of encodings with a horizon (window frames).
+/// k-fold encodings, as-of encodings with a horizon (window frames) and k-fold
+/// encodings under a parent (`--hierarchy`).
 #[test]
 fn encode_on_the_cluster_gives_the_single_process_outputs() {
     let cluster = Cluster::start("encode", 2, false, 120);
@@ -386,6 +387,7 @@ fn encode_on_the_cluster_gives_the_single_process_outputs() {
     for (name, extra) in [
         ("kfold", &[][..]),
         ("as-of", &["--time-column", "day", "--horizon", "5"][..]),
+        ("kfold, hierarchy", &["--hierarchy", "k>class"][..]),
     ] {
         let encode = |out: &str| -> Vec<String> {
             let mut words: Vec<String> = [
