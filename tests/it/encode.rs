@@ -45,6 +45,24 @@ fn random_key_csv(dir: &Path, rows: usize, levels: u64) -> String {
     path.display().to_string()
 }
 
+/// The serving bundle an encode run wrote into `out`.
+fn bundle_in(out: &Path) -> Bundle {
+    Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap()
+}
+
+/// A Parquet file's rows as one batch.
+async fn rows_of(path: &Path) -> datafusion::arrow::array::RecordBatch {
+    let ctx = SessionContext::new();
+    let batches = ctx
+        .read_parquet(path.to_str().unwrap(), ParquetReadOptions::default())
+        .await
+        .unwrap()
+        .collect()
+        .await
+        .unwrap();
+    datafusion::arrow::compute::concat_batches(&batches[0].schema(), &batches).unwrap()
+}
+
 /// Column `name` of a Parquet file as f64, in file order.
 async fn column(path: &Path, name: &str) -> Vec<f64> {
     let ctx = SessionContext::new();
@@ -253,8 +271,7 @@ async fn bundle_matches_sql_and_outputs_are_deterministic() {
             "{file} differs"
         );
     }
-    let bundle =
-        Bundle::from_json(&std::fs::read_to_string(a.join("bundle.json")).unwrap()).unwrap();
+    let bundle = bundle_in(&a);
     let ctx = SessionContext::new();
     let df = ctx
         .read_parquet(
@@ -350,8 +367,7 @@ async fn keys_stay_as_written_and_interactions_do_not_collide() {
         "--out",
         out.to_str().unwrap(),
     ]);
-    let bundle =
-        Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+    let bundle = bundle_in(&out);
     let code = &bundle.columns["code"];
     let levels: Vec<&str> = code.levels.keys().map(String::as_str).collect();
     assert_eq!(levels, ["00123", "0042", "123"]);
@@ -727,8 +743,7 @@ async fn names_from_the_data_are_never_templates() {
         "--out",
         out.to_str().unwrap(),
     ]);
-    let bundle =
-        Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+    let bundle = bundle_in(&out);
     assert_eq!(bundle.columns.len(), 3);
     let pair = &bundle.columns["naïve_café_x__y_"];
     assert!(
@@ -839,12 +854,8 @@ async fn update_equals_a_full_refit() {
             "--out",
             refreshed.to_str().unwrap(),
         ]);
-        let stored =
-            Bundle::from_json(&std::fs::read_to_string(first.join("bundle.json")).unwrap())
-                .unwrap();
-        let refreshed_bundle =
-            Bundle::from_json(&std::fs::read_to_string(refreshed.join("bundle.json")).unwrap())
-                .unwrap();
+        let stored = bundle_in(&first);
+        let refreshed_bundle = bundle_in(&refreshed);
         for (key, columns) in [("breed", "breed"), ("breed_x_clinic", "breed")] {
             // The full refit under the stored prior of this key.
             let numbers = match &stored.columns[key].prior {
@@ -874,9 +885,7 @@ async fn update_equals_a_full_refit() {
             }
             args.extend(["--out".into(), full.display().to_string()]);
             encode(&args.iter().map(String::as_str).collect::<Vec<_>>());
-            let full_bundle =
-                Bundle::from_json(&std::fs::read_to_string(full.join("bundle.json")).unwrap())
-                    .unwrap();
+            let full_bundle = bundle_in(&full);
             assert_eq!(
                 refreshed_bundle.columns[key].levels, full_bundle.columns[key].levels,
                 "{prior} {key}"
@@ -1468,8 +1477,7 @@ async fn normalized_keys_merge_spellings() {
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     assert!(String::from_utf8_lossy(&o.stdout)
         .contains("breed: normalising the key text merged 3 spellings into other levels"));
-    let bundle =
-        Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+    let bundle = bundle_in(&out);
     let breed = &bundle.columns["breed"];
     assert_eq!(
         breed.levels.keys().collect::<Vec<_>>(),
@@ -1604,8 +1612,7 @@ async fn treatments_follow_the_data_and_the_user() {
         .unwrap();
     let codes: Vec<i64> = b[0].column(0).as_primitive::<Int64Type>().values().to_vec();
     let ones: Vec<i64> = b[0].column(1).as_primitive::<Int64Type>().values().to_vec();
-    let bundle =
-        Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+    let bundle = bundle_in(&out);
     let breed = &bundle.columns["breed"];
     assert_eq!(
         codes,
@@ -1696,8 +1703,7 @@ async fn scoring_with_the_bundle_equals_the_scored_file() {
             "--out",
             out.to_str().unwrap(),
         ]);
-        let bundle =
-            Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+        let bundle = bundle_in(&out);
         let ctx = SessionContext::new();
         let scored = ctx
             .read_parquet(
@@ -2065,19 +2071,21 @@ fn spread_csv(dir: &Path, name: &str, rows: usize, seed: u64) -> String {
 async fn sd_reader_follows_the_levels_spread() {
     let dir = temp_dir("spread");
     let train = spread_csv(&dir, "train.csv", 4000, 11);
+    let run = |extra: &[&str], out: &Path| {
+        let mut args = vec![
+            "--train",
+            &train,
+            "--target",
+            "y",
+            "--columns",
+            "volatile,calm",
+        ];
+        args.extend(extra);
+        args.extend(["--out", out.to_str().unwrap()]);
+        encode(&args);
+    };
     let out = dir.join("out");
-    encode(&[
-        "--train",
-        &train,
-        "--target",
-        "y",
-        "--columns",
-        "volatile,calm",
-        "--score",
-        &train,
-        "--out",
-        out.to_str().unwrap(),
-    ]);
+    run(&["--score", &train], &out);
     let summary: serde_json::Value =
         serde_json::from_str(&std::fs::read_to_string(out.join("summary.json")).unwrap()).unwrap();
     for (i, key, volatile) in [(0, "volatile", true), (1, "calm", false)] {
@@ -2100,26 +2108,14 @@ async fn sd_reader_follows_the_levels_spread() {
         assert_eq!(columns.contains(&sd), volatile, "{key}: {columns:?}");
     }
     // Scoring with the bundle alone gives the scored file's sd column.
-    let bundle =
-        Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+    let bundle = bundle_in(&out);
     assert_eq!(bundle.readers, ["mean"]);
     assert_eq!(
         bundle.columns["volatile"].readers.as_deref(),
         Some(&["mean".to_string(), "sd".to_string()][..])
     );
     assert_eq!(bundle.columns["calm"].readers, None);
-    let ctx = SessionContext::new();
-    let scored = ctx
-        .read_parquet(
-            out.join("scored.parquet").to_str().unwrap(),
-            ParquetReadOptions::default(),
-        )
-        .await
-        .unwrap()
-        .collect()
-        .await
-        .unwrap();
-    let scored = datafusion::arrow::compute::concat_batches(&scored[0].schema(), &scored).unwrap();
+    let scored = rows_of(&out.join("scored.parquet")).await;
     let input = scored.project(&[0, 1, 2]).unwrap();
     let served = posterity::serve::score(&bundle, &input).unwrap();
     assert_eq!(
@@ -2160,18 +2156,7 @@ async fn sd_reader_follows_the_levels_spread() {
     assert!(!columns.contains(&"calm_sd".to_string()), "{columns:?}");
     // Readers given are kept as given.
     let given = dir.join("given");
-    encode(&[
-        "--train",
-        &train,
-        "--target",
-        "y",
-        "--columns",
-        "volatile,calm",
-        "--readers",
-        "mean",
-        "--out",
-        given.to_str().unwrap(),
-    ]);
+    run(&["--readers", "mean"], &given);
     let columns = texts_of_header(&given.join("train_encoded.parquet")).await;
     assert!(!columns.contains(&"volatile_sd".to_string()), "{columns:?}");
     let summary = std::fs::read_to_string(given.join("summary.json")).unwrap();
@@ -2252,8 +2237,7 @@ async fn hierarchy_centres_levels_on_their_parents() {
     };
     let out = dir.join("out");
     run(&train, &out);
-    let bundle =
-        Bundle::from_json(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+    let bundle = bundle_in(&out);
     let (parent, s) = bundle.columns["postcode_area"].parent.clone().unwrap();
     assert_eq!(parent, "district");
     assert_eq!(
@@ -2387,14 +2371,7 @@ async fn hierarchy_centres_levels_on_their_parents() {
         );
     }
     assert!((district[3001] - region[3001]).abs() < 1e-12);
-    let rows = ctx
-        .read_parquet(scored.to_str().unwrap(), ParquetReadOptions::default())
-        .await
-        .unwrap()
-        .collect()
-        .await
-        .unwrap();
-    let rows = datafusion::arrow::compute::concat_batches(&rows[0].schema(), &rows).unwrap();
+    let rows = rows_of(&scored).await;
     let keys: Vec<usize> = ["postcode_area", "district", "region"]
         .iter()
         .map(|c| rows.schema().index_of(c).unwrap())
