@@ -518,7 +518,11 @@ pub(super) async fn scoring_columns(
     Ok(columns.into_iter().map(|(n, _)| n).collect())
 }
 
-async fn one_row(ctx: &SessionContext, sql: &str) -> Result<datafusion::arrow::array::RecordBatch> {
+/// The first batch with rows of a query that gives one row.
+pub(super) async fn one_row(
+    ctx: &SessionContext,
+    sql: &str,
+) -> Result<datafusion::arrow::array::RecordBatch> {
     let batches = ctx.sql(sql).await?.collect().await?;
     batches
         .into_iter()

@@ -273,19 +273,10 @@ pub(super) async fn finish(
         // Under --hierarchy: the layer's fitted strength (NULL: no level has a parent).
         let under = match key.parent {
             Some(j) => {
-                let batches = ctx
-                    .sql(&format!(
-                        "SELECT CAST(strength AS DOUBLE) FROM __strength{i}"
-                    ))
-                    .await?
-                    .collect()
-                    .await?;
-                let strength = batches
-                    .iter()
-                    .find(|b| b.num_rows() > 0)
-                    .map(|b| b.column(0).as_primitive::<Float64Type>())
-                    .filter(|c| c.is_valid(0))
-                    .map(|c| c.value(0));
+                let sql = format!("SELECT CAST(strength AS DOUBLE) FROM __strength{i}");
+                let batch = super::resolve::one_row(ctx, &sql).await?;
+                let strength = batch.column(0).as_primitive::<Float64Type>();
+                let strength = strength.is_valid(0).then(|| strength.value(0));
                 Some((plan.keys[j].name.clone(), strength))
             }
             None => None,
