@@ -140,16 +140,37 @@ fn unseen_posterior(
     name: &str,
     row: usize,
 ) -> Result<AnyPosterior> {
-    let encoding = &bundle.columns[name];
+    let missing = |key: &str| EncodeError::Usage(format!("score: the bundle has no key '{key}'"));
+    let encoding = bundle.columns.get(name).ok_or_else(|| missing(name))?;
     let at = |e: FamilyError| EncodeError::Query(format!("score: key '{name}': {e}"));
     let Some((parent, strength)) = &encoding.parent else {
         return encoding.scoring(None).map_err(at);
     };
-    let level = levels[parent.as_str()][row].as_deref();
-    let up = match level.filter(|l| bundle.columns[parent.as_str()].levels.contains_key(*l)) {
-        Some(l) => bundle.columns[parent.as_str()]
-            .scoring(Some(l))
-            .map_err(at)?,
+    // A bundle built by hand may have parents in a cycle; a read one cannot.
+    let mut ancestor = parent;
+    for _ in 0..bundle.columns.len() {
+        match bundle.columns.get(ancestor).and_then(|c| c.parent.as_ref()) {
+            Some((up, _)) => ancestor = up,
+            None => break,
+        }
+    }
+    if bundle
+        .columns
+        .get(ancestor)
+        .is_some_and(|c| c.parent.is_some())
+    {
+        return Err(EncodeError::Usage(format!(
+            "score: the parents of key '{name}' form a cycle"
+        )));
+    }
+    let (up_encoding, up_levels) = bundle
+        .columns
+        .get(parent)
+        .zip(levels.get(parent.as_str()))
+        .ok_or_else(|| missing(parent))?;
+    let level = up_levels.get(row).and_then(|l| l.as_deref());
+    let up = match level.filter(|l| up_encoding.levels.contains_key(*l)) {
+        Some(l) => up_encoding.scoring(Some(l)).map_err(at)?,
         None => unseen_posterior(bundle, levels, parent, row)?,
     };
     encoding.prior.under(&up, None, *strength).map_err(at)

@@ -2394,6 +2394,18 @@ async fn hierarchy_centres_levels_on_their_parents() {
             );
         }
     }
+    // Parents in a cycle: refused when a bundle is read, and by `score` when one is
+    // built by hand (an error, not an endless descent).
+    let mut cyclic = bundle.clone();
+    cyclic.columns.get_mut("region").unwrap().parent = Some(("postcode_area".into(), 5.0));
+    let e = Bundle::from_json(&cyclic.to_json())
+        .unwrap_err()
+        .to_string();
+    assert!(e.contains("own ancestor"), "{e}");
+    let e = posterity::serve::score(&cyclic, &rows.project(&keys).unwrap())
+        .unwrap_err()
+        .to_string();
+    assert!(e.contains("cycle"), "{e}");
     // Bad hierarchies are refused by name, before anything is written.
     let base = [
         "encode",
