@@ -1130,25 +1130,28 @@ async fn sample_encoded_with_half_life_60(
     enc_file: &str,
 ) -> SessionContext {
     let sample = sample();
-    let mut args = vec![
+    let mut args = breed_by_day(&sample);
+    args.extend(["--half-life", "60", "--out", out.to_str().unwrap()]);
+    args.extend_from_slice(extra);
+    encode(&args);
+    rows_and_encodings(&sample, &out.join(enc_file)).await
+}
+
+/// `encode`'s arguments for the sample's breeds by day, under the fixed prior 2,18
+/// (the recency and horizon hand computations).
+fn breed_by_day(sample: &str) -> Vec<&str> {
+    vec![
         "--train",
-        &sample,
+        sample,
         "--target",
         "no_show",
         "--columns",
         "breed",
         "--time-column",
         "day",
-        "--half-life",
-        "60",
         "--prior",
         "2,18",
-        "--out",
-        out.to_str().unwrap(),
-    ];
-    args.extend_from_slice(extra);
-    encode(&args);
-    rows_and_encodings(&sample, &out.join(enc_file)).await
+    ]
 }
 
 // Recency weighting: with --half-life H each row counts 2^(-age/H), its age counted
@@ -1284,20 +1287,8 @@ async fn as_of_horizon_reads_only_rows_that_old() {
     let later = later.to_str().unwrap();
     let run = |name: &str, extra: &[&str]| {
         let out = dir.join(name);
-        let mut args = vec![
-            "--train",
-            &sample,
-            "--target",
-            "no_show",
-            "--columns",
-            "breed",
-            "--time-column",
-            "day",
-            "--prior",
-            "2,18",
-            "--out",
-            out.to_str().unwrap(),
-        ];
+        let mut args = breed_by_day(&sample);
+        args.extend(["--out", out.to_str().unwrap()]);
         args.extend_from_slice(extra);
         encode(&args);
         out
