@@ -1137,6 +1137,15 @@ async fn sample_encoded_with_half_life_60(
     rows_and_encodings(&sample, &out.join(enc_file)).await
 }
 
+/// A hand computation's one-row answer: the largest difference from it, the rows
+/// compared, and the difference from a control the option must move away from.
+async fn hand_comparison(ctx: &SessionContext, sql: &str) -> (f64, i64, f64) {
+    let b = ctx.sql(sql).await.unwrap().collect().await.unwrap();
+    let float = |c: usize| b[0].column(c).as_primitive::<Float64Type>().value(0);
+    let rows = b[0].column(1).as_primitive::<Int64Type>().value(0);
+    (float(0), rows, float(2))
+}
+
 /// `encode`'s arguments for the sample's breeds by day, under the fixed prior 2,18
 /// (the recency and horizon hand computations).
 fn breed_by_day(sample: &str) -> Vec<&str> {
@@ -1171,10 +1180,7 @@ async fn half_life_weights_rows_by_age() {
         SELECT MAX(ABS(e.breed_mean - h.m)), COUNT(*), MAX(ABS(e.breed_mean - (2.0 + c.s) / (20.0 + c.n)))
         FROM enc e JOIN hand h USING (breed)
         JOIN (SELECT breed, SUM(no_show) AS s, COUNT(*) AS n FROM a GROUP BY breed) c USING (breed)";
-    let b = ctx.sql(sql).await.unwrap().collect().await.unwrap();
-    let worst = b[0].column(0).as_primitive::<Float64Type>().value(0);
-    let levels = b[0].column(1).as_primitive::<Int64Type>().value(0);
-    let unweighted = b[0].column(2).as_primitive::<Float64Type>().value(0);
+    let (worst, levels, unweighted) = hand_comparison(&ctx, sql).await;
     assert_eq!(levels, 273);
     assert!(
         worst < 1e-12,
@@ -1221,10 +1227,7 @@ async fn as_of_half_life_weights_earlier_rows_by_their_age() {
             FROM g LEFT JOIN a ON a.breed = g.breed AND a.day < g.day GROUP BY g.breed, g.day)
         SELECT MAX(ABS(e.breed_mean - h.m)), COUNT(*), MAX(ABS(e.breed_mean - h.unweighted))
         FROM enc e JOIN hand h ON e.breed = h.breed AND e.day = h.day";
-    let b = ctx.sql(sql).await.unwrap().collect().await.unwrap();
-    let worst = b[0].column(0).as_primitive::<Float64Type>().value(0);
-    let rows = b[0].column(1).as_primitive::<Int64Type>().value(0);
-    let unweighted = b[0].column(2).as_primitive::<Float64Type>().value(0);
+    let (worst, rows, unweighted) = hand_comparison(&ctx, sql).await;
     assert!(rows > 1000, "{rows} rows compared");
     assert!(
         worst < 1e-12,
@@ -1334,10 +1337,7 @@ async fn as_of_horizon_reads_only_rows_that_old() {
             FROM enc e JOIN hand h ON e.breed = h.breed AND e.day = h.day
               JOIN every_earlier x ON e.breed = x.breed AND e.day = x.day"
         );
-        let b = ctx.sql(&sql).await.unwrap().collect().await.unwrap();
-        let worst = b[0].column(0).as_primitive::<Float64Type>().value(0);
-        let rows = b[0].column(1).as_primitive::<Int64Type>().value(0);
-        let every_earlier = b[0].column(2).as_primitive::<Float64Type>().value(0);
+        let (worst, rows, every_earlier) = hand_comparison(&ctx, &sql).await;
         assert!(rows > 1000, "{rows} rows compared");
         assert!(
             worst < 1e-12,
