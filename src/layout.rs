@@ -20,6 +20,7 @@ use datafusion::arrow::compute::cast;
 use datafusion::arrow::datatypes::{DataType, Field, Fields};
 use datafusion::common::{exec_datafusion_err, plan_err, Result};
 
+use crate::family::compensated::Dd;
 use crate::family::{
     BetaPosterior, BetaPrior, Conjugate, DirichletPosterior, DirichletPrior, FamilyError,
     GammaPosterior, GammaPrior, Marginal, NigPosterior, NigPrior,
@@ -171,6 +172,41 @@ impl AnyPosterior {
             AnyPosterior::Gamma(p) => p.evidence(),
             AnyPosterior::Nig(p) => p.evidence(),
             AnyPosterior::Dirichlet(p) => p.evidence(),
+        }
+    }
+
+    /// The evidence as additive sums (see `Conjugate::evidence_sums`).
+    pub fn evidence_sums(&self) -> Vec<Dd> {
+        match self {
+            AnyPosterior::Beta(p) => p.evidence_sums(),
+            AnyPosterior::Gamma(p) => p.evidence_sums(),
+            AnyPosterior::Nig(p) => p.evidence_sums(),
+            AnyPosterior::Dirichlet(p) => p.evidence_sums(),
+        }
+    }
+
+    /// This posterior's prior with the evidence of `sums` (see
+    /// `Conjugate::with_evidence_sums`).
+    pub fn with_evidence_sums(&self, sums: &[Dd]) -> AnyPosterior {
+        match self {
+            AnyPosterior::Beta(p) => AnyPosterior::Beta(p.with_evidence_sums(sums)),
+            AnyPosterior::Gamma(p) => AnyPosterior::Gamma(p.with_evidence_sums(sums)),
+            AnyPosterior::Nig(p) => AnyPosterior::Nig(p.with_evidence_sums(sums)),
+            AnyPosterior::Dirichlet(p) => AnyPosterior::Dirichlet(p.with_evidence_sums(sums)),
+        }
+    }
+
+    /// An error naming both priors unless `other` has this posterior's prior.
+    pub fn same_prior(&self, other: &AnyPosterior) -> Result<(), FamilyError> {
+        match (self, other) {
+            (AnyPosterior::Beta(a), AnyPosterior::Beta(b)) => a.same_prior(b),
+            (AnyPosterior::Gamma(a), AnyPosterior::Gamma(b)) => a.same_prior(b),
+            (AnyPosterior::Nig(a), AnyPosterior::Nig(b)) => a.same_prior(b),
+            (AnyPosterior::Dirichlet(a), AnyPosterior::Dirichlet(b)) => a.same_prior(b),
+            (a, b) => Err(FamilyError::PriorMismatch {
+                left: a.kind().name().into(),
+                right: b.kind().name().into(),
+            }),
         }
     }
 

@@ -1,19 +1,23 @@
 //! `posterior_pool(p)`: the sum of evidence of posteriors sharing a prior. It
-//! works on any family, keeping one posterior per group; its partial state is a
-//! posterior column itself, so pools of pools merge exactly.
+//! works on any family. Each group keeps its prior (the first posterior seen) and
+//! the evidence as compensated sums (`Conjugate::evidence_sums`), which travel
+//! between partitions beside the rounded posterior, so the result does not depend
+//! on the order in which rows and partial states arrive (thread count,
+//! partitioning), like the fit aggregates'.
 
 use std::sync::Arc;
 
-use datafusion::arrow::array::{Array, ArrayRef, BooleanArray};
-use datafusion::arrow::datatypes::{DataType, Field, FieldRef};
-use datafusion::common::{Result, ScalarValue};
+use datafusion::arrow::array::{Array, ArrayRef, AsArray, BooleanArray, ListArray};
+use datafusion::arrow::datatypes::{DataType, Field, FieldRef, Float64Type};
+use datafusion::common::{exec_err, Result, ScalarValue};
 use datafusion::logical_expr::function::{AccumulatorArgs, StateFieldsArgs};
 use datafusion::logical_expr::{
     Accumulator, AggregateUDFImpl, Documentation, EmitTo, GroupsAccumulator, Signature, Volatility,
 };
 
+use crate::family::compensated::Dd;
 use crate::fit::family_error;
-use crate::layout::{build, AnyPosterior, Combine, Kind, PosteriorColumn};
+use crate::layout::{build, AnyPosterior, Kind, PosteriorColumn};
 
 const NAME: &str = "posterior_pool";
 
@@ -60,11 +64,18 @@ impl AggregateUDFImpl for PosteriorPool {
     }
 
     fn state_fields(&self, args: StateFieldsArgs) -> Result<Vec<FieldRef>> {
-        Ok(vec![Arc::new(Field::new(
-            format!("{}[pooled]", args.name),
-            args.return_type().clone(),
-            true,
-        ))])
+        Ok(vec![
+            Arc::new(Field::new(
+                format!("{}[pooled]", args.name),
+                args.return_type().clone(),
+                true,
+            )),
+            Arc::new(Field::new(
+                format!("{}[sums]", args.name),
+                DataType::List(Arc::new(Field::new_list_field(DataType::Float64, true))),
+                true,
+            )),
+        ])
     }
 
     fn groups_accumulator_supported(&self, _args: AccumulatorArgs) -> bool {
@@ -83,11 +94,50 @@ impl AggregateUDFImpl for PosteriorPool {
     }
 }
 
-/// One optional posterior per group.
+/// One group's pool: the prior (a posterior of the first row) and the evidence
+/// as `[hi, lo]` slot pairs of compensated sums.
+#[derive(Debug, Clone)]
+struct Pooled {
+    prior: AnyPosterior,
+    sums: Vec<f64>,
+}
+
+impl Pooled {
+    /// Add `sums` (a flat `[hi, lo]` list) of a posterior with `p`'s prior.
+    fn add(slot: &mut Option<Pooled>, p: &AnyPosterior, sums: &[Dd]) -> Result<()> {
+        let pooled = match slot {
+            Some(pooled) => {
+                pooled
+                    .prior
+                    .same_prior(p)
+                    .map_err(|e| family_error(NAME, e))?;
+                pooled
+            }
+            None => slot.insert(Pooled {
+                prior: p.clone(),
+                sums: vec![0.0; 2 * sums.len()],
+            }),
+        };
+        if pooled.sums.len() != 2 * sums.len() {
+            return exec_err!("{NAME}: posteriors with different numbers of classes");
+        }
+        for (slot, s) in pooled.sums.chunks_exact_mut(2).zip(sums) {
+            Dd::accumulate_dd(slot, *s);
+        }
+        Ok(())
+    }
+
+    fn posterior(&self) -> AnyPosterior {
+        let sums: Vec<Dd> = self.sums.chunks_exact(2).map(Dd::from_slot).collect();
+        self.prior.with_evidence_sums(&sums)
+    }
+}
+
+/// One optional pool per group.
 #[derive(Debug)]
 struct PoolGroups {
     kind: Kind,
-    pooled: Vec<Option<AnyPosterior>>,
+    pooled: Vec<Option<Pooled>>,
 }
 
 impl PoolGroups {
@@ -98,9 +148,12 @@ impl PoolGroups {
         })
     }
 
+    /// Add a column of posteriors, or with `sums`, of partial states (the pooled
+    /// posterior carries the prior, `sums` the compensated evidence).
     fn add(
         &mut self,
         values: &ArrayRef,
+        sums: Option<&ArrayRef>,
         groups: &[usize],
         filter: Option<&BooleanArray>,
         total: usize,
@@ -109,6 +162,7 @@ impl PoolGroups {
             self.pooled.resize(total, None);
         }
         let column = PosteriorColumn::new(NAME, values)?;
+        let sums = sums.map(|s| s.as_list::<i32>());
         for (i, &g) in groups.iter().enumerate() {
             if filter.is_some_and(|f| !f.is_valid(i) || !f.value(i)) {
                 continue;
@@ -116,19 +170,38 @@ impl PoolGroups {
             let Some(p) = column.get(i).map_err(|e| family_error(NAME, e))? else {
                 continue;
             };
-            self.pooled[g] = Some(match self.pooled[g].take() {
-                None => p,
-                Some(acc) => acc
-                    .combine(&p, Combine::Merge)
-                    .map_err(|e| family_error(NAME, e))?,
-            });
+            let evidence = match sums {
+                Some(list) if !list.is_null(i) => {
+                    let row = list.value(i);
+                    let slots = row.as_primitive::<Float64Type>().values();
+                    slots.chunks_exact(2).map(Dd::from_slot).collect()
+                }
+                _ => p.evidence_sums(),
+            };
+            Pooled::add(&mut self.pooled[g], &p, &evidence)?;
         }
         Ok(())
     }
 
-    fn emit(&mut self, emit_to: EmitTo) -> Result<ArrayRef> {
-        let rows = emit_to.take_needed(&mut self.pooled);
-        build(self.kind, &rows)
+    fn take(&mut self, emit_to: EmitTo) -> Vec<Option<Pooled>> {
+        emit_to.take_needed(&mut self.pooled)
+    }
+
+    fn posteriors(&self, rows: &[Option<Pooled>]) -> Result<ArrayRef> {
+        let posteriors: Vec<Option<AnyPosterior>> = rows
+            .iter()
+            .map(|r| r.as_ref().map(Pooled::posterior))
+            .collect();
+        build(self.kind, &posteriors)
+    }
+
+    /// The partial state of `rows`: pooled posteriors and their compensated sums.
+    fn state_of(&self, rows: &[Option<Pooled>]) -> Result<Vec<ArrayRef>> {
+        let sums = ListArray::from_iter_primitive::<Float64Type, _, _>(rows.iter().map(|r| {
+            r.as_ref()
+                .map(|p| p.sums.iter().map(|&v| Some(v)).collect::<Vec<_>>())
+        }));
+        Ok(vec![self.posteriors(rows)?, Arc::new(sums)])
     }
 }
 
@@ -140,19 +213,21 @@ impl GroupsAccumulator for PoolGroups {
         filter: Option<&BooleanArray>,
         total: usize,
     ) -> Result<()> {
-        self.add(&values[0], groups, filter, total)
+        self.add(&values[0], None, groups, filter, total)
     }
 
     fn evaluate(&mut self, emit_to: EmitTo) -> Result<ArrayRef> {
-        self.emit(emit_to)
+        let rows = self.take(emit_to);
+        self.posteriors(&rows)
     }
 
     fn state(&mut self, emit_to: EmitTo) -> Result<Vec<ArrayRef>> {
-        Ok(vec![self.emit(emit_to)?])
+        let rows = self.take(emit_to);
+        self.state_of(&rows)
     }
 
     fn merge_batch(&mut self, values: &[ArrayRef], groups: &[usize], total: usize) -> Result<()> {
-        self.add(&values[0], groups, None, total)
+        self.add(&values[0], values.get(1), groups, None, total)
     }
 
     fn convert_to_state(
@@ -165,30 +240,45 @@ impl GroupsAccumulator for PoolGroups {
             kind: self.kind,
             pooled: Vec::new(),
         };
-        fresh.add(&values[0], &(0..rows).collect::<Vec<_>>(), opt_filter, rows)?;
-        Ok(vec![fresh.emit(EmitTo::All)?])
+        fresh.add(
+            &values[0],
+            None,
+            &(0..rows).collect::<Vec<_>>(),
+            opt_filter,
+            rows,
+        )?;
+        self.state_of(&fresh.pooled)
     }
 
     fn size(&self) -> usize {
-        self.pooled.capacity() * std::mem::size_of::<Option<AnyPosterior>>()
+        self.pooled.capacity() * std::mem::size_of::<Option<Pooled>>()
+            + self
+                .pooled
+                .iter()
+                .flatten()
+                .map(|p| p.sums.capacity() * 8)
+                .sum::<usize>()
     }
 }
 
+/// One pool (a window frame, or a query without GROUP BY).
 #[derive(Debug)]
 struct PoolAccumulator(PoolGroups);
+
+impl PoolAccumulator {
+    fn one(&self) -> Vec<Option<Pooled>> {
+        vec![self.0.pooled.first().cloned().flatten()]
+    }
+}
 
 impl Accumulator for PoolAccumulator {
     fn update_batch(&mut self, values: &[ArrayRef]) -> Result<()> {
         let n = values[0].len();
-        self.0.add(&values[0], &vec![0; n], None, 1)
+        self.0.add(&values[0], None, &vec![0; n], None, 1)
     }
 
     fn evaluate(&mut self) -> Result<ScalarValue> {
-        if self.0.pooled.is_empty() {
-            self.0.pooled.push(None);
-        }
-        let rows = self.0.pooled.clone();
-        ScalarValue::try_from_array(&build(self.0.kind, &rows)?, 0)
+        ScalarValue::try_from_array(&self.0.posteriors(&self.one())?, 0)
     }
 
     fn size(&self) -> usize {
@@ -196,10 +286,15 @@ impl Accumulator for PoolAccumulator {
     }
 
     fn state(&mut self) -> Result<Vec<ScalarValue>> {
-        Ok(vec![self.evaluate()?])
+        self.0
+            .state_of(&self.one())?
+            .iter()
+            .map(|a| ScalarValue::try_from_array(a, 0))
+            .collect()
     }
 
     fn merge_batch(&mut self, states: &[ArrayRef]) -> Result<()> {
-        self.update_batch(states)
+        let n = states[0].len();
+        self.0.add(&states[0], states.get(1), &vec![0; n], None, 1)
     }
 }

@@ -1,5 +1,6 @@
 //! Beta prior, Bernoulli/binomial evidence: Beta(a0 + successes, b0 + trials - successes).
 
+use super::compensated::Dd;
 use super::special::ln_beta;
 use super::{positive, remaining, weight, Conjugate, FamilyError, Marginal, Result};
 
@@ -116,7 +117,7 @@ impl BetaPosterior {
         Marginal::Beta { a, b }
     }
 
-    fn same_prior(&self, other: &Self) -> Result<()> {
+    pub(crate) fn same_prior(&self, other: &Self) -> Result<()> {
         if self.prior == other.prior {
             Ok(())
         } else {
@@ -174,6 +175,19 @@ impl Conjugate for BetaPosterior {
 
     fn evidence(&self) -> f64 {
         self.trials
+    }
+
+    fn evidence_sums(&self) -> Vec<Dd> {
+        vec![Dd::new(self.successes), Dd::new(self.trials)]
+    }
+
+    fn with_evidence_sums(&self, sums: &[Dd]) -> Self {
+        let trials = sums[1].value().max(0.0);
+        BetaPosterior {
+            prior: self.prior,
+            successes: sums[0].value().clamp(0.0, trials),
+            trials,
+        }
     }
 
     /// ln B(a, b) - ln B(a0, b0): the probability of the observed 0/1 sequence.

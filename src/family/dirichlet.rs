@@ -1,6 +1,7 @@
 //! Dirichlet prior, categorical evidence. The marginal of class k is
 //! Beta(alpha_k, sum(alpha) - alpha_k).
 
+use super::compensated::Dd;
 use super::special::ln_gamma;
 use super::{positive, remaining, weight, Conjugate, FamilyError, Marginal, Result};
 
@@ -134,7 +135,7 @@ impl DirichletPosterior {
         }
     }
 
-    fn same_prior(&self, other: &Self) -> Result<()> {
+    pub(crate) fn same_prior(&self, other: &Self) -> Result<()> {
         if self.prior == other.prior {
             Ok(())
         } else {
@@ -185,6 +186,17 @@ impl Conjugate for DirichletPosterior {
 
     fn evidence(&self) -> f64 {
         self.counts.iter().sum()
+    }
+
+    fn evidence_sums(&self) -> Vec<Dd> {
+        self.counts.iter().map(|&c| Dd::new(c)).collect()
+    }
+
+    fn with_evidence_sums(&self, sums: &[Dd]) -> Self {
+        DirichletPosterior {
+            prior: self.prior.clone(),
+            counts: sums.iter().map(|s| s.value().max(0.0)).collect(),
+        }
     }
 
     /// Dirichlet-multinomial: lnΓ(A0) - lnΓ(A0 + N) + Σ [lnΓ(α_k + n_k) - lnΓ(α_k)].

@@ -1,5 +1,6 @@
 //! Gamma prior, Poisson evidence with exposure: Gamma(shape0 + events, rate0 + exposure).
 
+use super::compensated::Dd;
 use super::special::ln_gamma;
 use super::{positive, remaining, weight, Conjugate, FamilyError, Marginal, Result};
 
@@ -83,7 +84,7 @@ impl GammaPosterior {
         Marginal::Gamma { shape, rate }
     }
 
-    fn same_prior(&self, other: &Self) -> Result<()> {
+    pub(crate) fn same_prior(&self, other: &Self) -> Result<()> {
         if self.prior == other.prior {
             Ok(())
         } else {
@@ -126,6 +127,18 @@ impl Conjugate for GammaPosterior {
     /// Exposure: the amount of observation behind the rate.
     fn evidence(&self) -> f64 {
         self.exposure
+    }
+
+    fn evidence_sums(&self) -> Vec<Dd> {
+        vec![Dd::new(self.events), Dd::new(self.exposure)]
+    }
+
+    fn with_evidence_sums(&self, sums: &[Dd]) -> Self {
+        GammaPosterior {
+            prior: self.prior,
+            events: sums[0].value().max(0.0),
+            exposure: sums[1].value().max(0.0),
+        }
     }
 
     /// Negative-binomial marginal: lnΓ(α+Y) - lnΓ(α) + α ln β - (α+Y) ln(β+T),

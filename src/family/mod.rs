@@ -119,6 +119,13 @@ pub trait Conjugate: Sized + Clone {
     /// Log marginal likelihood of the data under the prior (up to terms that depend
     /// only on the data), used to fit priors.
     fn log_marginal_likelihood(&self) -> f64;
+    /// The evidence as sums that `merge` adds (counts and totals; for the
+    /// Normal-Inverse-Gamma, power sums centred on the prior mean), so that a pool
+    /// of many states can add them in compensated arithmetic, in any order.
+    fn evidence_sums(&self) -> Vec<compensated::Dd>;
+    /// A state with this one's prior and the evidence of `sums` (as
+    /// `evidence_sums` gives them, added up).
+    fn with_evidence_sums(&self, sums: &[compensated::Dd]) -> Self;
 }
 
 /// Require `value` finite and > 0.

@@ -219,7 +219,7 @@ impl NigPosterior {
         }
     }
 
-    fn same_prior(&self, other: &Self) -> Result<()> {
+    pub(crate) fn same_prior(&self, other: &Self) -> Result<()> {
         if self.prior == other.prior {
             Ok(())
         } else {
@@ -280,6 +280,25 @@ impl Conjugate for NigPosterior {
 
     fn evidence(&self) -> f64 {
         self.stats.n
+    }
+
+    /// Weight, weighted deviation and weighted squared deviation from the prior
+    /// mean (as `centred_terms` gives them per row).
+    fn evidence_sums(&self) -> Vec<Dd> {
+        let NigStats { n, mean, m2 } = self.stats;
+        if n == 0.0 {
+            return vec![Dd::ZERO; 3];
+        }
+        let d = Dd::new(mean) - Dd::new(self.prior.mu0);
+        let s1 = Dd::new(n) * d;
+        vec![Dd::new(n), s1, Dd::new(m2) + s1 * d]
+    }
+
+    fn with_evidence_sums(&self, sums: &[Dd]) -> Self {
+        NigPosterior {
+            prior: self.prior,
+            stats: stats_from_centred(sums[0], sums[1], sums[2], self.prior.mu0),
+        }
     }
 
     /// Murphy (2007) eq. 95: lnΓ(αn) - lnΓ(α0) + α0 ln β0 - αn ln βn + ½ ln(κ0/κn) - (n/2) ln 2π.

@@ -376,6 +376,60 @@ async fn pooled_days_equal_a_full_fit() {
     }
 }
 
+// A pool's value does not depend on the order its inputs arrive in (compensated
+// sums, like the fit aggregates; plain float sums differ in the last bits): the
+// same 40 one-row posteriors with uneven weights pooled in opposite window
+// orders, and grouped over 1 and 4 partitions in batches of 3, give the same bits
+// in every field of every family.
+#[tokio::test]
+async fn pool_gives_the_same_bits_in_any_order() {
+    let weight = "(0.37 + 0.113 * t)";
+    let families = [
+        (
+            format!("beta_posterior(no_show, beta_prior(0.5, 0.5), {weight})"),
+            vec!["['successes']", "['trials']"],
+        ),
+        (
+            format!("gamma_posterior(visits * {weight}, {weight} * 0.7)"),
+            vec!["['events']", "['exposure']"],
+        ),
+        (
+            format!("nig_posterior(amount * 1.0001, nig_prior(61.3, 0.01, 2, 3), {weight})"),
+            vec!["['n']", "['mean']", "['m2']"],
+        ),
+        (
+            format!("dirichlet_posterior(outcome, dirichlet_prior(['attended', 'no_show', 'late_cancel'], 0.5), {weight})"),
+            vec!["['counts'][1]", "['counts'][2]", "['counts'][3]"],
+        ),
+    ];
+    let (one_partition, four) = (ctx_with(1, 3).await, ctx_with(4, 3).await);
+    for (fit, fields) in families {
+        let rows = format!("SELECT t, {fit} AS p FROM appts GROUP BY t");
+        for field in fields {
+            let windowed = |order: &str| {
+                format!(
+                    "SELECT p{field} FROM (SELECT posterior_pool(p) OVER (ORDER BY t {order} ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW) AS p, \
+                     row_number() OVER (ORDER BY t {order}) AS r FROM ({rows})) WHERE r = 40"
+                )
+            };
+            let grouped = format!("SELECT posterior_pool(p){field} FROM ({rows})");
+            let up = one(&one_partition, &windowed("ASC")).await;
+            for (ctx, sql) in [
+                (&one_partition, windowed("DESC")),
+                (&one_partition, grouped.clone()),
+                (&four, grouped.clone()),
+            ] {
+                let got = one(ctx, &sql).await;
+                assert_eq!(
+                    got.to_bits(),
+                    up.to_bits(),
+                    "{fit} {field}: {got} vs {up} ({sql})"
+                );
+            }
+        }
+    }
+}
+
 // Out-of-fold = total minus the fold's own evidence = a fit on the other folds.
 #[tokio::test]
 async fn out_of_fold_by_subtraction() {
