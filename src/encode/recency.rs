@@ -345,7 +345,7 @@ impl Trial {
                             aged(
                                 &format!(
                                     "posterior_pool(p) {}",
-                                    as_of_window("level", "time", candidate.horizon)
+                                    as_of_window("level", "time", None, candidate.horizon)
                                 ),
                                 "time"
                             )

@@ -7,7 +7,8 @@ use datafusion::arrow::datatypes::{DataType, Float64Type, Int64Type};
 use datafusion::prelude::SessionContext;
 
 use super::options::{
-    EncodeOptions, HalfLife, Horizon, Method, PriorChoice, Reader, ScoreEvidence, Treatment,
+    EncodeOptions, HalfLife, Horizon, Method, PriorChoice, Reader, ScoreEvidence, TimeTies,
+    Treatment,
 };
 use super::{quote, sanitize, text, usage, EncodeError, Result};
 use crate::layout::Kind;
@@ -271,7 +272,7 @@ fn keys_of(options: &EncodeOptions) -> Result<Vec<KeyPlan>> {
 }
 
 /// `--hierarchy`: each child key's parent, checked (one-column posterior keys, one
-/// parent each, no cycle, k-fold encodings).
+/// parent each, no cycle; as-of encodings with strict ties).
 fn link_hierarchy(options: &EncodeOptions, method: Method, keys: &mut [KeyPlan]) -> Result<()> {
     if options.hierarchy.is_empty() {
         return Ok(());
@@ -279,10 +280,10 @@ fn link_hierarchy(options: &EncodeOptions, method: Method, keys: &mut [KeyPlan])
     if options.readers.as_ref().is_some_and(Vec::is_empty) && options.draws.is_none() {
         return usage("--hierarchy: name at least one reader (a parent's posteriors are read)");
     }
-    if method != Method::Kfold {
+    if method == Method::Time && options.time_ties == TimeTies::FileOrder {
         return usage(
-            "--hierarchy works with k-fold encodings (--method kfold); as-of encodings \
-             (--method time, the default with --time-column) do not take it yet",
+            "--hierarchy: as-of encodings read a parent at a time, so rows of one time \
+             must not read each other (drop --time-ties file-order)",
         );
     }
     let find = |keys: &[KeyPlan], column: &str| -> Result<usize> {

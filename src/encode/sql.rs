@@ -96,14 +96,22 @@ impl AsOfDecay {
 
 /// The window of as-of encodings over rows grouped per (level, time), ordered by
 /// `time`: every earlier time, or with a horizon every time at least that much
-/// older (a horizon is > 0, so rows never read their own time).
-pub(super) fn as_of_window(level: &str, time: &str, horizon: Option<f64>) -> String {
+/// older (a horizon is > 0, so rows never read their own time). With `first`, the
+/// rows of one time where it is 0 (rows that only read, with no data) come before
+/// the time's data, so they too read only earlier times.
+pub(super) fn as_of_window(
+    level: &str,
+    time: &str,
+    first: Option<&str>,
+    horizon: Option<f64>,
+) -> String {
+    let first = first.map(|f| format!(", {f}")).unwrap_or_default();
     match horizon {
         Some(h) => format!(
             "OVER (PARTITION BY {level} ORDER BY CAST({time} AS DOUBLE) RANGE BETWEEN UNBOUNDED PRECEDING AND {h:?} PRECEDING)"
         ),
         None => format!(
-            "OVER (PARTITION BY {level} ORDER BY {time} ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)"
+            "OVER (PARTITION BY {level} ORDER BY {time}{first} ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)"
         ),
     }
 }
@@ -383,7 +391,7 @@ impl EncodePlan {
                 ),
             ),
             Some(j) => {
-                out.extend(self.hierarchy_stages(i, key, j));
+                out.push(self.strength_stage(i, key, j));
                 (
                     format!(
                         "SELECT f.level, COALESCE(posterior_under({repriored}, pe.p, m.p, st.strength), {repriored}) AS p \
@@ -443,15 +451,31 @@ impl EncodePlan {
         out
     }
 
-    /// Under `--hierarchy`, key `i`'s stages beside its parent `j`: each level's main
-    /// parent and its own data there (`__pair{i}`, the parent most of its rows have),
-    /// and the layer's strength fitted over all levels (`__strength{i}`).
-    fn hierarchy_stages(&self, i: usize, key: &KeyPlan, j: usize) -> Vec<Statement> {
-        let k = &key.name;
-        let fit = self.fit(key);
-        vec![
-            stage(
-                format!("parents {k}"),
+    /// Under `--hierarchy`, the layer's strength of key `i` below its parent `j`,
+    /// fitted over all levels (`__strength{i}`).
+    fn strength_stage(&self, i: usize, key: &KeyPlan, j: usize) -> Statement {
+        stage(
+            format!("strength {}", key.name),
+            &format!("__strength{i}"),
+            format!(
+                "SELECT fit_strength({}, pe.p, m.p) AS strength FROM __fit{i} f CROSS JOIN __prior{i} q \
+                 JOIN __pair{i} m ON m.level = f.level JOIN __enc{j} pe ON pe.level = m.parent",
+                self.repriored("f.p")
+            ),
+        )
+    }
+
+    /// Under `--hierarchy`, before any key's stages: each child level's main parent
+    /// and its own data there (`__pair{i}`, the parent most of its rows have); for
+    /// as-of encodings also, children first, the (level, time) pairs at which each
+    /// parent is read beyond its own rows' (`__need{j}`, see `as_of_in_hierarchy`).
+    fn hierarchy_pairs(&self) -> Vec<Statement> {
+        let mut out = Vec::new();
+        for (i, key) in self.keys.iter().enumerate() {
+            let Some(j) = key.parent else { continue };
+            let fit = self.fit(key);
+            out.push(stage(
+                format!("parents {}", key.name),
                 &format!("__pair{i}"),
                 format!(
                     "SELECT level, parent, p FROM (SELECT level, parent, p, row_number() OVER \
@@ -459,17 +483,49 @@ impl EncodePlan {
                      (SELECT __k{i} AS level, __k{j} AS parent, {fit} AS p FROM __keyed t \
                      WHERE __k{i} IS NOT NULL AND __k{j} IS NOT NULL GROUP BY __k{i}, __k{j})) WHERE r = 1"
                 ),
-            ),
-            stage(
-                format!("strength {k}"),
-                &format!("__strength{i}"),
+            ));
+        }
+        if self.method != Method::Time {
+            return out;
+        }
+        let time = quote(self.options.time_column.as_deref().unwrap_or_default());
+        let has_children = |j: usize| self.keys.iter().any(|k| k.parent == Some(j));
+        // The (level, time) pairs key `i` is read at: its rows' and its children's.
+        let read_at = |i: usize| {
+            let own = format!(
+                "SELECT __k{i} AS level, t.{time} AS __time FROM __keyed t \
+                 WHERE __k{i} IS NOT NULL AND t.{time} IS NOT NULL"
+            );
+            if has_children(i) {
+                format!("{own} UNION SELECT level, __time FROM __need{i}")
+            } else {
+                own
+            }
+        };
+        for j in self.parents_first().into_iter().rev() {
+            if !has_children(j) {
+                continue;
+            }
+            let children: Vec<String> = (0..self.keys.len())
+                .filter(|&i| self.keys[i].parent == Some(j))
+                .map(|i| {
+                    format!(
+                        "SELECT m.parent AS level, g.__time FROM ({}) g JOIN __pair{i} m ON m.level = g.level",
+                        read_at(i)
+                    )
+                })
+                .collect();
+            out.push(stage(
+                format!("times read {}", self.keys[j].name),
+                &format!("__need{j}"),
                 format!(
-                    "SELECT fit_strength({}, pe.p, m.p) AS strength FROM __fit{i} f CROSS JOIN __prior{i} q \
-                     JOIN __pair{i} m ON m.level = f.level JOIN __enc{j} pe ON pe.level = m.parent",
-                    self.repriored("f.p")
+                    "SELECT level, __time FROM ({}) EXCEPT SELECT __k{j}, t.{time} FROM __keyed t \
+                     WHERE __k{j} IS NOT NULL AND t.{time} IS NOT NULL",
+                    children.join(" UNION ")
                 ),
-            ),
-        ]
+            ));
+        }
+        out
     }
 
     /// The statements of a refresh: stored posteriors (registered as `__stored{i}`,
@@ -499,6 +555,7 @@ impl EncodePlan {
     pub fn statements(&self) -> Vec<Statement> {
         let o = &self.options;
         let mut out = vec![self.keys_stage()];
+        out.extend(self.hierarchy_pairs());
         // Stages run parents first (`--hierarchy`); the columns keep the keys' order.
         let mut joins = vec![String::new(); self.keys.len()];
         let mut key_selects = vec![Vec::new(); self.keys.len()];
@@ -562,11 +619,13 @@ impl EncodePlan {
             Some(_) => TimeTies::Strict,
             None => o.time_ties,
         };
-        // Under a parent (k-fold only: `resolve` refuses as-of encodings with one).
+        // `resolve` refuses a hierarchy with as-of encodings in file order.
+        let in_hierarchy = key.parent.is_some() || self.keys.iter().any(|k| k.parent == Some(i));
         let (name, query, on) = match (self.method, ties, key.parent) {
             (Method::Kfold, _, Some(j)) => {
                 self.out_of_fold_under_parent(i, key, j, fit, &mut stages)
             }
+            (Method::Time, TimeTies::Strict, _) if in_hierarchy => self.as_of_in_hierarchy(i, key),
             (Method::Kfold, _, None) => {
                 stages.push(stage(
                     format!("fold fits {k}"),
@@ -588,7 +647,7 @@ impl EncodePlan {
                 let time = quote(o.time_column.as_deref().unwrap_or_default());
                 let pooled = format!(
                     "posterior_pool(p) {}",
-                    as_of_window("level", "__time", key.horizon)
+                    as_of_window("level", "__time", None, key.horizon)
                 );
                 let (fit, pooled) = match self.as_of_decay(key) {
                     Some((fit, decay)) => (fit, decay.aged(&pooled, "__time")),
@@ -676,6 +735,76 @@ impl EncodePlan {
                 ),
                 format!("x{i}.level = t.__k{i} AND x{i}.__fold = t.__fold"),
             )
+    }
+
+    /// As-of training posteriors of key `i` in a hierarchy, one per (level, time)
+    /// of its rows and of the times its children read it at (`__need{i}`): the
+    /// level's rows before that time and, under a parent `j`, a prior centred on the
+    /// parent's as-of posterior at that time (itself under its parent) less the
+    /// level's own rows there, counted with the parent's window and decay, so no
+    /// row reaches its own encoding through a parent. A level reads its main parent
+    /// (as scored rows do). Returns the stage name, query and join.
+    fn as_of_in_hierarchy(&self, i: usize, key: &KeyPlan) -> (&'static str, String, String) {
+        let time = quote(self.options.time_column.as_deref().unwrap_or_default());
+        let prior = format!("__prior{i}");
+        // A key's fit and the pooled window over the (level, time) grid, with the
+        // key's own decay and horizon.
+        let windowed = |k: &KeyPlan, column: &str| {
+            let pooled = format!(
+                "posterior_pool({column}) {}",
+                as_of_window("level", "__time", Some("__kind"), k.horizon)
+            );
+            match self.as_of_decay(k) {
+                Some((fit, decay)) => (fit, decay.aged(&pooled, "__time")),
+                None => (self.fit(k), pooled),
+            }
+        };
+        let (fit, pooled) = windowed(key, "p");
+        let (mut data, mut pooled, mut joins) = (
+            vec![format!("{fit} AS p")],
+            vec![format!("{pooled} AS d")],
+            String::new(),
+        );
+        let mut probe = "NULL AS p".to_string();
+        let base = format!("COALESCE({}, q.prior)", self.repriored("g.d"));
+        let mut p = base.clone();
+        if let Some(j) = key.parent {
+            let (parent_fit, parent_pooled) = windowed(&self.keys[j], "w");
+            data.push(format!(
+                "{parent_fit} FILTER (WHERE t.__k{j} = m.parent) AS w"
+            ));
+            pooled.push(format!("{parent_pooled} AS w"));
+            probe.push_str(", NULL AS w");
+            joins = format!(
+                " CROSS JOIN __strength{i} st LEFT JOIN __pair{i} m ON m.level = g.level \
+                 LEFT JOIN __train{j} x ON x.level = m.parent AND x.__time = g.__time"
+            );
+            p = format!("COALESCE(posterior_under({base}, x.p, g.w, st.strength), {base})");
+        }
+        let main_parent = match key.parent {
+            Some(_) => format!(" LEFT JOIN __pair{i} m ON m.level = t.__k{i}"),
+            None => String::new(),
+        };
+        let mut grid = format!(
+            "SELECT t.__k{i} AS level, t.{time} AS __time, 1 AS __kind, {} FROM __keyed t{main_parent} \
+             WHERE t.__k{i} IS NOT NULL AND t.{time} IS NOT NULL GROUP BY t.__k{i}, t.{time}",
+            data.join(", ")
+        );
+        if self.keys.iter().any(|k| k.parent == Some(i)) {
+            grid.push_str(&format!(
+                " UNION ALL SELECT level, __time, 0 AS __kind, {probe} FROM __need{i}"
+            ));
+        }
+        (
+            "as-of",
+            format!(
+                "SELECT level, __time, {} FROM (SELECT g.level, g.__time, {p} AS p FROM \
+                 (SELECT level, __time, {} FROM ({grid})) g CROSS JOIN {prior} q{joins})",
+                self.with_readers("p", key, "p"),
+                pooled.join(", ")
+            ),
+            format!("x{i}.level = t.__k{i} AND x{i}.__time = t.{time}"),
+        )
     }
 
     /// Scoring with the encodings' readers (see `scoring_posterior`); unseen levels

@@ -2199,6 +2199,157 @@ fn nested_sample(dir: &Path, name: &str) -> (String, String) {
     (train.display().to_string(), scored.display().to_string())
 }
 
+/// The nested sample (area > district > region) with every 50th row moved to
+/// district PA99, so that levels have parents other than their main one and a
+/// main parent often has no row at a child's time.
+fn crossed_sample(dir: &Path) -> (String, Vec<(String, String, String, f64, f64)>) {
+    let text = std::fs::read_to_string(sample()).unwrap();
+    let mut lines = text.lines();
+    let mut out = format!("{},district,region\n", lines.next().unwrap());
+    let mut rows = Vec::new();
+    for (i, line) in lines.enumerate() {
+        let f: Vec<&str> = line.split(',').collect();
+        let area = f[6].to_string();
+        let district = if i % 50 == 0 {
+            "PA99".into()
+        } else {
+            area[..4].to_string()
+        };
+        let region = area[..3].to_string();
+        out.push_str(&format!("{line},{district},{region}\n"));
+        let (day, y) = (f[2].parse().unwrap(), f[9].parse().unwrap());
+        rows.push((area, district, region, day, y));
+    }
+    let train = dir.join("crossed.csv");
+    std::fs::write(&train, out).unwrap();
+    (train.display().to_string(), rows)
+}
+
+// `--hierarchy` with as-of encodings: every training row against a hand computation
+// from the counts of the rows it may read (earlier days; with `--horizon 30`, days
+// at least 30 older): its region's rows under the region's prior; its district's
+// under a prior centred on the district's main region at that day less the
+// district's own rows there; its area's likewise under its main district. Every
+// 50th row sits in another district, so a main district is often read at a day it
+// has no row of its own.
+#[tokio::test]
+async fn as_of_hierarchy_reads_parents_as_of_each_row() {
+    use posterity::layout::AnyPosterior;
+    let dir = temp_dir("hierarchy-as-of");
+    let (train, rows) = crossed_sample(&dir);
+    // The parent most of a level's rows have (ties: the first name).
+    let main_parent = |child: &dyn Fn(usize) -> String, parent: &dyn Fn(usize) -> String| {
+        let mut counts: HashMap<(String, String), usize> = HashMap::new();
+        for r in 0..rows.len() {
+            *counts.entry((child(r), parent(r))).or_default() += 1;
+        }
+        let mut best: HashMap<String, (usize, String)> = HashMap::new();
+        for ((c, p), n) in counts {
+            let e = best.entry(c).or_insert((0, String::new()));
+            if n > e.0 || (n == e.0 && p < e.1) {
+                *e = (n, p);
+            }
+        }
+        best.into_iter()
+            .map(|(c, (_, p))| (c, p))
+            .collect::<HashMap<_, _>>()
+    };
+    let main_district = main_parent(&|r| rows[r].0.clone(), &|r| rows[r].1.clone());
+    let main_region = main_parent(&|r| rows[r].1.clone(), &|r| rows[r].2.clone());
+    for horizon in [None, Some(30.0)] {
+        let out = dir.join(format!("out-{horizon:?}"));
+        let mut args = vec![
+            "--train",
+            &train,
+            "--target",
+            "no_show",
+            "--columns",
+            "postcode_area,district,region",
+            "--hierarchy",
+            "postcode_area>district>region",
+            "--time-column",
+            "day",
+            "--out",
+            out.to_str().unwrap(),
+        ];
+        if horizon.is_some() {
+            args.extend(["--horizon", "30"]);
+        }
+        encode(&args);
+        let bundle = bundle_in(&out);
+        let prior = |key: &str| match &bundle.columns[key].prior {
+            AnyPosterior::Beta(b) => b.prior,
+            other => panic!("{other:?}"),
+        };
+        let strength = |key: &str| bundle.columns[key].parent.as_ref().unwrap().1;
+        let (region_prior, s_district, s_area) = (
+            prior("region"),
+            strength("district"),
+            strength("postcode_area"),
+        );
+        let readable = |row_day: f64, day: f64| match horizon {
+            None => row_day < day,
+            Some(h) => row_day <= day - h,
+        };
+        // Successes and trials of the readable rows at `day` that `keep` selects.
+        let counts = |day: f64, keep: &dyn Fn(&(String, String, String, f64, f64)) -> bool| {
+            rows.iter()
+                .filter(|r| readable(r.3, day) && keep(r))
+                .fold((0.0, 0.0), |(s, n), r| (s + r.4, n + 1.0))
+        };
+        let region = |g: &str, day: f64| {
+            let (s, n) = counts(day, &|r| r.2 == g);
+            (region_prior.a0 + s, region_prior.b0 + n - s)
+        };
+        let district = |d: &str, day: f64| {
+            let g = &main_region[d];
+            let (ga, gb) = region(g, day);
+            let (sw, nw) = counts(day, &|r| r.1 == d && r.2 == *g);
+            let m = (ga - sw) / (ga + gb - nw);
+            let (s, n) = counts(day, &|r| r.1 == d);
+            (s_district * m + s, s_district * (1.0 - m) + n - s)
+        };
+        let area = |a: &str, day: f64| {
+            let d = &main_district[a];
+            let (da, db) = district(d, day);
+            let (sw, nw) = counts(day, &|r| r.0 == a && r.1 == *d);
+            let m = (da - sw) / (da + db - nw);
+            let (s, n) = counts(day, &|r| r.0 == a);
+            (s_area * m + s) / (s_area + n)
+        };
+        let encoded = out.join("train_encoded.parquet");
+        let (area_means, district_means, region_means) = (
+            column(&encoded, "postcode_area_mean").await,
+            column(&encoded, "district_mean").await,
+            column(&encoded, "region_mean").await,
+        );
+        let mean = |(a, b): (f64, f64)| a / (a + b);
+        let mut cache = HashMap::new();
+        for (row, (a, d, g, day, _)) in rows.iter().enumerate() {
+            let want = *cache
+                .entry((a.clone(), d.clone(), *day as i64))
+                .or_insert_with(|| {
+                    (
+                        area(a, *day),
+                        mean(district(d, *day)),
+                        mean(region(g, *day)),
+                    )
+                });
+            let got = (area_means[row], district_means[row], region_means[row]);
+            for (what, got, want) in [
+                ("area", got.0, want.0),
+                ("district", got.1, want.1),
+                ("region", got.2, want.2),
+            ] {
+                assert!(
+                    (got - want).abs() < 1e-12,
+                    "{horizon:?} row {row} ({a} {d} day {day}): {what} {got} vs {want}"
+                );
+            }
+        }
+    }
+}
+
 // `--hierarchy area>district>region`: each area's prior is centred on its
 // district's posterior without the area's own rows (checked level by level from the
 // bundle: prior a0 = s m, b0 = s (1 - m)), the layer's strength is where the
@@ -2448,8 +2599,15 @@ async fn hierarchy_centres_levels_on_their_parents() {
             vec!["'region' is given as levels"],
         ),
         (
-            vec!["--hierarchy", "district>region", "--time-column", "day"],
-            vec!["k-fold", "--method time"],
+            vec![
+                "--hierarchy",
+                "district>region",
+                "--time-column",
+                "day",
+                "--time-ties",
+                "file-order",
+            ],
+            vec!["--hierarchy", "--time-ties file-order"],
         ),
     ] {
         let bad = dir.join("bad");
