@@ -2199,10 +2199,13 @@ fn nested_sample(dir: &Path, name: &str) -> (String, String) {
     (train.display().to_string(), scored.display().to_string())
 }
 
+/// One training row of `crossed_sample`: area, district, region, day, outcome.
+type CrossedRow = (String, String, String, f64, f64);
+
 /// The nested sample (area > district > region) with every 50th row moved to
 /// district PA99, so that levels have parents other than their main one and a
 /// main parent often has no row at a child's time.
-fn crossed_sample(dir: &Path) -> (String, Vec<(String, String, String, f64, f64)>) {
+fn crossed_sample(dir: &Path) -> (String, Vec<CrossedRow>) {
     let text = std::fs::read_to_string(sample()).unwrap();
     let mut lines = text.lines();
     let mut out = format!("{},district,region\n", lines.next().unwrap());
@@ -2292,7 +2295,7 @@ async fn as_of_hierarchy_reads_parents_as_of_each_row() {
             Some(h) => row_day <= day - h,
         };
         // Successes and trials of the readable rows at `day` that `keep` selects.
-        let counts = |day: f64, keep: &dyn Fn(&(String, String, String, f64, f64)) -> bool| {
+        let counts = |day: f64, keep: &dyn Fn(&CrossedRow) -> bool| {
             rows.iter()
                 .filter(|r| readable(r.3, day) && keep(r))
                 .fold((0.0, 0.0), |(s, n), r| (s + r.4, n + 1.0))
