@@ -79,6 +79,9 @@ def main():
         # The key's prior centred on its group's out-of-fold posterior (the group is
         # encoded too, but only the key's columns are measured).
         "kfold, hierarchy": ["--columns", "key,group", "--hierarchy", "key>group"],
+        # The same with as-of encodings: the group's posterior at the row's time.
+        "time, hierarchy": ["--columns", "key,group", "--hierarchy", "key>group",
+                            "--time-column", "t"],
         "loo": ["--method", "loo"],
     }
     for method, extra in methods.items():

@@ -81,6 +81,7 @@ fn no_encode_method_leaks_to_a_tree_learner() {
         "time, half-life fitted",
         "time, horizon 20",
         "kfold, hierarchy",
+        "time, hierarchy",
     ] {
         let r = find(method);
         let (inside, outside) = (
