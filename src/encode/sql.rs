@@ -116,6 +116,19 @@ pub(super) fn as_of_window(
     }
 }
 
+/// The columns every `encodings/<key>` file may have besides the key's readers.
+const ENCODINGS_COLUMNS: [&str; 3] = ["p", "top_rank", "code"];
+
+/// The name of the level column of key `key`'s encodings file: the key's own name,
+/// or `level` where that name is one of the file's other columns.
+pub fn encodings_level_column(key: &str) -> &str {
+    if ENCODINGS_COLUMNS.contains(&key) {
+        "level"
+    } else {
+        key
+    }
+}
+
 impl EncodePlan {
     /// The fit of the target over table alias `t` for `key` (its own prior when it
     /// has one, else the base prior; re-priored later when the prior is fitted).
@@ -360,7 +373,10 @@ impl EncodePlan {
             format!("__prior{i}"),
             format!("__enc{i}"),
         );
-        let mut encoding_columns = vec![format!("e.level AS {}", quote(k)), "e.p".to_string()];
+        let mut encoding_columns = vec![
+            format!("e.level AS {}", quote(encodings_level_column(k))),
+            "e.p".to_string(),
+        ];
         encoding_columns.extend(
             self.reader_columns(key)
                 .into_iter()

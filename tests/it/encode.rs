@@ -758,6 +758,64 @@ async fn names_from_the_data_are_never_templates() {
     assert_eq!(scored.len(), 60);
 }
 
+// A key named like one of the encodings file's own columns (`p`, `top_rank`,
+// `code`) encodes like any other; its file names the level column `level`.
+#[tokio::test]
+async fn keys_named_like_the_encodings_columns() {
+    let dir = temp_dir("fixed-names");
+    let train = dir.join("train.csv");
+    let mut csv = String::from("p,top_rank,code,y\n");
+    for i in 0..600 {
+        csv.push_str(&format!(
+            "a{},b{},c{},{}\n",
+            i % 7,
+            i % 5,
+            i % 3,
+            (i * 7 % 10 < 3) as i32
+        ));
+    }
+    std::fs::write(&train, csv).unwrap();
+    let out = dir.join("out");
+    encode(&[
+        "--train",
+        train.to_str().unwrap(),
+        "--target",
+        "y",
+        "--columns",
+        "p,top_rank,code",
+        "--treatment",
+        "code=codes",
+        "--indicator-min-rows",
+        "10",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    for (key, columns, levels) in [
+        ("p", vec!["level", "p", "p_mean", "top_rank"], 7),
+        (
+            "top_rank",
+            vec!["level", "p", "top_rank_mean", "top_rank"],
+            5,
+        ),
+        ("code", vec!["level", "p", "code"], 3),
+    ] {
+        let path = out.join(format!("encodings/{key}.parquet"));
+        let ctx = SessionContext::new();
+        let df = ctx
+            .read_parquet(path.to_str().unwrap(), ParquetReadOptions::default())
+            .await
+            .unwrap();
+        let names: Vec<String> = df
+            .schema()
+            .fields()
+            .iter()
+            .map(|f| f.name().clone())
+            .collect();
+        assert_eq!(names, columns, "{key}");
+        assert_eq!(df.count().await.unwrap(), levels, "{key}");
+    }
+}
+
 // The README's Rust program: the library runs encode on any session and gives the
 // shell's numbers.
 #[tokio::test]
