@@ -211,19 +211,22 @@ def test_hierarchy_equals_the_shell(tmp_path):
     frame["district"] = frame.postcode_area.str[:4]
     path = tmp_path / "nested.csv"
     frame.to_csv(path, index=False)
-    subprocess.run(
-        [shell_binary(), "-q", "encode", "--train", str(path), "--target", "no_show",
-         "--columns", "postcode_area,district", "--hierarchy", "postcode_area>district",
-         "--score", str(path), "--out", str(tmp_path / "shell")],
-        check=True, capture_output=True)
-    enc = posterity.encode(str(path), target="no_show", columns=["postcode_area", "district"],
-                           hierarchy="postcode_area>district", score=str(path))
-    shell = pq.read_table(tmp_path / "shell/train_encoded.parquet")
-    assert enc.train_encoded.column("postcode_area_mean").to_pylist() == \
-        shell.column("postcode_area_mean").to_pylist()
-    by_key = {s["key"]: s for s in enc.summary}
-    assert by_key["postcode_area"]["parent"] == "district"
-    assert by_key["postcode_area"]["parent_strength"] > 0
+    # k-fold encodings, then as-of encodings (the rows' days given).
+    for flags, options in [([], {}), (["--time-column", "day"], {"time_column": "day"})]:
+        out = tmp_path / f"shell{len(flags)}"
+        subprocess.run(
+            [shell_binary(), "-q", "encode", "--train", str(path), "--target", "no_show",
+             "--columns", "postcode_area,district", "--hierarchy", "postcode_area>district",
+             "--score", str(path), "--out", str(out), *flags],
+            check=True, capture_output=True)
+        enc = posterity.encode(str(path), target="no_show", columns=["postcode_area", "district"],
+                               hierarchy="postcode_area>district", score=str(path), **options)
+        shell = pq.read_table(out / "train_encoded.parquet")
+        assert enc.train_encoded.column("postcode_area_mean").to_pylist() == \
+            shell.column("postcode_area_mean").to_pylist()
+        by_key = {s["key"]: s for s in enc.summary}
+        assert by_key["postcode_area"]["parent"] == "district"
+        assert by_key["postcode_area"]["parent_strength"] > 0
     with pytest.raises(posterity.Error, match="is not CHILD>PARENT"):
         posterity.encode(str(path), target="no_show", columns=["postcode_area"],
                          hierarchy="postcode_area")
