@@ -416,6 +416,91 @@ async fn choose_treatments(
     Ok(())
 }
 
+/// Refuse a target (or exposure) of the wrong type, or values outside the family's
+/// domain, before any fit meets them, naming the option, how many rows and one such
+/// value: the fits would stop with their own, less helpful, error. NULLs are skipped
+/// rows, not errors. `table` is the table's name and its columns.
+pub(super) async fn check_target_values(
+    ctx: &SessionContext,
+    (table, columns): (&str, &[(String, DataType)]),
+    target: &str,
+    exposure: Option<&str>,
+    family: Kind,
+) -> Result<()> {
+    // A value v is finite when -inf < v < inf: NaN fails both comparisons in IEEE
+    // order and the second in Arrow's total order (where NaN sorts last).
+    let finite = |c: &str| {
+        format!("(CAST({c} AS DOUBLE) > CAST('-Infinity' AS DOUBLE) AND CAST({c} AS DOUBLE) < CAST('Infinity' AS DOUBLE))")
+    };
+    let t = quote(target);
+    let mut checks = match family {
+        Kind::Beta => vec![(
+            format!("--target '{target}'"),
+            format!("CAST({t} AS DOUBLE) IN (0, 1)"),
+            "0 or 1 (or false/true) for the beta family",
+            t.clone(),
+        )],
+        Kind::Gamma => vec![(
+            format!("--target '{target}'"),
+            format!("{} AND CAST({t} AS DOUBLE) >= 0", finite(&t)),
+            "finite counts >= 0 for the gamma family",
+            t.clone(),
+        )],
+        Kind::Nig => vec![(
+            format!("--target '{target}'"),
+            finite(&t),
+            "finite numbers for the nig family",
+            t.clone(),
+        )],
+        Kind::Dirichlet => Vec::new(),
+    };
+    if let (Some(x), Kind::Gamma) = (exposure, family) {
+        let q = quote(x);
+        checks.push((
+            format!("--exposure '{x}'"),
+            format!("{} AND CAST({q} AS DOUBLE) >= 0", finite(&q)),
+            "finite numbers >= 0",
+            q,
+        ));
+    }
+    let hint = " (text classes take the dirichlet family: drop --family)";
+    for (what, name, hint) in std::iter::once((format!("--target '{target}'"), target, hint))
+        .chain(exposure.map(|x| (format!("--exposure '{x}'"), x, "")))
+        .filter(|_| family != Kind::Dirichlet)
+    {
+        let numeric = columns.iter().any(|(n, d)| {
+            n == name && (d.is_numeric() || matches!(d, DataType::Boolean | DataType::Null))
+        });
+        if !numeric {
+            return usage(format!(
+                "{what} is not numeric; the {} family needs numbers{hint}",
+                family.short_name()
+            ));
+        }
+    }
+    let from = datafusion::common::TableReference::from(table).to_quoted_string();
+    for (what, ok, allowed, column) in checks {
+        let b = one_row(
+            ctx,
+            &format!(
+                "SELECT COUNT(*), MIN(CAST({column} AS VARCHAR)) FROM {from} \
+                 WHERE {column} IS NOT NULL AND NOT ({ok})"
+            ),
+        )
+        .await?;
+        let bad = b.column(0).as_primitive::<Int64Type>().value(0);
+        if bad > 0 {
+            let example = cast(b.column(1), &DataType::Utf8)?;
+            let example = example.as_string::<i32>().value(0).to_string();
+            return usage(format!(
+                "{what} has {bad} row(s) with a value outside the allowed range (for example \
+                 {example}); allowed: {allowed}. Fix or filter those rows (NULLs are skipped)"
+            ));
+        }
+    }
+    Ok(())
+}
+
 /// A key's number of levels, the rows of its smallest level, and the number of
 /// levels with fewer than `indicator_min_rows` rows.
 async fn level_sizes(
@@ -627,6 +712,14 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
             family.short_name()
         ));
     }
+    check_target_values(
+        ctx,
+        (&options.train, &train),
+        target,
+        options.exposure.as_deref(),
+        family,
+    )
+    .await?;
     let classes = if family == Kind::Dirichlet {
         let batches = ctx
             .sql(&format!(

@@ -12,7 +12,8 @@ use datafusion::prelude::SessionContext;
 
 use super::options::{EncodeOptions, Method, PriorChoice, Reader, TimeTies, Treatment};
 use super::resolve::{
-    check_output_names, columns_of, require_columns, scoring_columns, EncodePlan, KeyPlan,
+    check_output_names, check_target_values, columns_of, require_columns, scoring_columns,
+    EncodePlan, KeyPlan,
 };
 use super::run::{execute, finish, EncodeOutput};
 use super::sql::{SCORE, TRAIN};
@@ -155,6 +156,14 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
                     .map(|c| (c, "--exposure".to_string())),
             ),
     )?;
+    check_target_values(
+        ctx,
+        (&options.train, &train),
+        &previous.target,
+        options.exposure.as_deref(),
+        family,
+    )
+    .await?;
     let score_columns = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
     encode_options.readers = Some(readers);
     encode_options.normalize_keys = stored.iter().any(|c| c.normalized);

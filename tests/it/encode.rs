@@ -960,6 +960,118 @@ async fn update_equals_a_full_refit() {
     }
 }
 
+// A target (or exposure) outside its family's range is refused by option name,
+// with the number of rows and one such value, before anything is written; so is a
+// text target for a numeric family. A refresh checks its new rows alike.
+#[test]
+fn targets_outside_the_family_are_refused_by_name() {
+    let dir = temp_dir("bad-targets");
+    let train = dir.join("train.csv");
+    let mut csv = String::from("k,real,count,outcome,exposure,class\n");
+    for i in 0..40 {
+        let real = ["1.5", "NaN", "inf", "-inf", "", "2"][i % 6];
+        let count = ["0", "3", "-1", ""][i % 4];
+        let outcome = ["0", "1", "2", ""][i % 4];
+        let exposure = ["1", "0.5", "-2", ""][i % 4];
+        let class = ["a", "b"][i % 2];
+        csv.push_str(&format!(
+            "k{},{real},{count},{outcome},{exposure},{class}\n",
+            i % 5
+        ));
+    }
+    std::fs::write(&train, csv).unwrap();
+    let train = train.to_str().unwrap();
+    let out = dir.join("out");
+    for (args, fragments) in [
+        (
+            vec!["--target", "real"],
+            vec![
+                "--target 'real' has 21 row(s)",
+                "for example",
+                "finite numbers for the nig family",
+            ],
+        ),
+        (
+            vec!["--target", "count", "--family", "gamma"],
+            vec!["--target 'count' has 10 row(s)", "-1", "counts >= 0"],
+        ),
+        (
+            vec!["--target", "outcome", "--family", "beta"],
+            vec!["--target 'outcome' has 10 row(s)", "2", "0 or 1"],
+        ),
+        (
+            vec![
+                "--target",
+                "outcome",
+                "--family",
+                "gamma",
+                "--exposure",
+                "exposure",
+            ],
+            vec!["--exposure 'exposure' has 10 row(s)", "-2", ">= 0"],
+        ),
+        (
+            vec!["--target", "class", "--family", "nig"],
+            vec!["--target 'class' is not numeric", "dirichlet"],
+        ),
+        (
+            vec![
+                "--target",
+                "outcome",
+                "--family",
+                "gamma",
+                "--exposure",
+                "class",
+            ],
+            vec!["--exposure 'class' is not numeric"],
+        ),
+    ] {
+        let mut all = vec![
+            "encode",
+            "--train",
+            train,
+            "--columns",
+            "k",
+            "--out",
+            out.to_str().unwrap(),
+        ];
+        all.extend(args.iter().copied());
+        let o = encode_output(&all);
+        let stderr = String::from_utf8_lossy(&o.stderr);
+        assert_eq!(o.status.code(), Some(2), "{args:?}: {stderr}");
+        for f in fragments {
+            assert!(stderr.contains(f), "{args:?}: {stderr}");
+        }
+        assert!(!out.exists(), "{args:?}");
+    }
+    // A refresh of a continuous-target bundle with new rows holding NaN.
+    let good = dir.join("good.csv");
+    std::fs::write(&good, "k,real\nk1,1.5\nk2,2.5\nk1,3\n").unwrap();
+    encode(&[
+        "--train",
+        good.to_str().unwrap(),
+        "--target",
+        "real",
+        "--columns",
+        "k",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    let fresh = dir.join("fresh");
+    let o = encode_output(&[
+        "encode",
+        "--update",
+        out.to_str().unwrap(),
+        "--train",
+        train,
+        "--out",
+        fresh.to_str().unwrap(),
+    ]);
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    assert!(stderr.contains("--target 'real' has 21 row(s)"), "{stderr}");
+    assert!(!fresh.exists());
+}
+
 // Every input is checked before any output is written, and an output directory
 // ends up holding exactly one run's files.
 #[test]
