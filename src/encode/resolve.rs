@@ -813,6 +813,27 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         .await
         .map_err(|e| EncodeError::Usage(format!("--prior: {}", e.strip_backtrace())))?;
 
+    // As-of encodings order rows by time: NaN has no place in that order.
+    if let (Method::Time, Some(time)) = (method, &options.time_column) {
+        if train.iter().any(|(n, d)| n == time && d.is_floating()) {
+            let t = quote(time);
+            let b = one_row(
+                ctx,
+                &format!(
+                    "SELECT COUNT(*) FROM {from} WHERE {t} IS NOT NULL AND NOT \
+                     ({t} > CAST('-Infinity' AS DOUBLE) AND {t} < CAST('Infinity' AS DOUBLE))"
+                ),
+            )
+            .await?;
+            let bad = b.column(0).as_primitive::<Int64Type>().value(0);
+            if bad > 0 {
+                return usage(format!(
+                    "--time-column '{time}' has {bad} row(s) with NaN or an infinite time; \
+                     allowed: finite numbers (a row with a NULL time gets the prior)"
+                ));
+            }
+        }
+    }
     // Half-lives and horizons count time units.
     let timed = match (&options.half_life, &options.horizon) {
         (Some(_), _) => Some("--half-life"),

@@ -961,13 +961,14 @@ async fn update_equals_a_full_refit() {
 }
 
 // A target (or exposure) outside its family's range is refused by option name,
-// with the number of rows and one such value, before anything is written; so is a
-// text target for a numeric family. A refresh checks its new rows alike.
+// with the number of rows and one such value, before anything is written; so are a
+// text target for a numeric family and NaN times for as-of encodings. A refresh
+// checks its new rows alike.
 #[test]
 fn targets_outside_the_family_are_refused_by_name() {
     let dir = temp_dir("bad-targets");
     let train = dir.join("train.csv");
-    let mut csv = String::from("k,real,count,outcome,exposure,class\n");
+    let mut csv = String::from("k,real,count,outcome,exposure,class,day\n");
     for i in 0..40 {
         let real = ["1.5", "NaN", "inf", "-inf", "", "2"][i % 6];
         let count = ["0", "3", "-1", ""][i % 4];
