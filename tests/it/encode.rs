@@ -975,8 +975,9 @@ fn targets_outside_the_family_are_refused_by_name() {
         let outcome = ["0", "1", "2", ""][i % 4];
         let exposure = ["1", "0.5", "-2", ""][i % 4];
         let class = ["a", "b"][i % 2];
+        let day = ["1", "2", "NaN", ""][i % 4];
         csv.push_str(&format!(
-            "k{},{real},{count},{outcome},{exposure},{class}\n",
+            "k{},{real},{count},{outcome},{exposure},{class},{day}\n",
             i % 5
         ));
     }
@@ -1025,6 +1026,10 @@ fn targets_outside_the_family_are_refused_by_name() {
                 "class",
             ],
             vec!["--exposure 'class' is not numeric"],
+        ),
+        (
+            vec!["--target", "class", "--time-column", "day"],
+            vec!["--time-column 'day' has 10 row(s) with NaN"],
         ),
     ] {
         let mut all = vec![
