@@ -388,6 +388,10 @@ fn encode_on_the_cluster_gives_the_single_process_outputs() {
         ("kfold", &[][..]),
         ("as-of", &["--time-column", "day", "--horizon", "5"][..]),
         ("kfold, hierarchy", &["--hierarchy", "k>class"][..]),
+        (
+            "as-of, hierarchy",
+            &["--time-column", "day", "--hierarchy", "k>class"][..],
+        ),
     ] {
         let encode = |out: &str| -> Vec<String> {
             let mut words: Vec<String> = [
