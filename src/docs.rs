@@ -153,7 +153,7 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
         description: "Sums the evidence of posteriors that share a prior (per-day or per-partition \
             encodings into one). NULL inputs are skipped; different priors are an error naming both. \
             The evidence is summed in compensated arithmetic, so the result does not depend on \
-            the order rows arrive in. A group or window frame with no non-NULL input yields NULL (there is no prior to give).",
+            the order rows arrive in; sliding window frames remove what leaves them. A group or window frame with no non-NULL input yields NULL (there is no prior to give).",
         syntax: "posterior_pool(p)",
         arguments: &[P],
         example: "SELECT breed, posterior_pool(p) AS p FROM daily_encodings GROUP BY breed;",

@@ -94,17 +94,20 @@ impl AggregateUDFImpl for PosteriorPool {
     }
 }
 
-/// One group's pool: the prior (a posterior of the first row) and the evidence
-/// as `[hi, lo]` slot pairs of compensated sums.
+/// One group's pool: the prior (a posterior of the first row), the evidence as
+/// `[hi, lo]` slot pairs of compensated sums, and how many inputs it holds (a
+/// sliding window frame that retracts them all is empty again).
 #[derive(Debug, Clone)]
 struct Pooled {
     prior: AnyPosterior,
     sums: Vec<f64>,
+    inputs: u64,
 }
 
 impl Pooled {
-    /// Add `sums` (a flat `[hi, lo]` list) of a posterior with `p`'s prior.
-    fn add(slot: &mut Option<Pooled>, p: &AnyPosterior, sums: &[Dd]) -> Result<()> {
+    /// Add (or with `retract`, remove) the evidence `sums` of a posterior with
+    /// `p`'s prior; a pool left with no inputs is emptied.
+    fn add(slot: &mut Option<Pooled>, p: &AnyPosterior, sums: &[Dd], retract: bool) -> Result<()> {
         let pooled = match slot {
             Some(pooled) => {
                 pooled
@@ -113,16 +116,28 @@ impl Pooled {
                     .map_err(|e| family_error(NAME, e))?;
                 pooled
             }
+            None if retract => {
+                return exec_err!("{NAME}: a window frame removed an input it never had")
+            }
             None => slot.insert(Pooled {
                 prior: p.clone(),
                 sums: vec![0.0; 2 * sums.len()],
+                inputs: 0,
             }),
         };
         if pooled.sums.len() != 2 * sums.len() {
             return exec_err!("{NAME}: posteriors with different numbers of classes");
         }
         for (slot, s) in pooled.sums.chunks_exact_mut(2).zip(sums) {
-            Dd::accumulate_dd(slot, *s);
+            Dd::accumulate_dd(slot, if retract { -*s } else { *s });
+        }
+        if !retract {
+            pooled.inputs += 1;
+        } else {
+            pooled.inputs -= 1;
+            if pooled.inputs == 0 {
+                *slot = None;
+            }
         }
         Ok(())
     }
@@ -149,14 +164,15 @@ impl PoolGroups {
     }
 
     /// Add a column of posteriors, or with `sums`, of partial states (the pooled
-    /// posterior carries the prior, `sums` the compensated evidence).
+    /// posterior carries the prior, `sums` the compensated evidence); with
+    /// `retract`, remove them (a sliding window frame).
     fn add(
         &mut self,
-        values: &ArrayRef,
-        sums: Option<&ArrayRef>,
+        (values, sums): (&ArrayRef, Option<&ArrayRef>),
         groups: &[usize],
         filter: Option<&BooleanArray>,
         total: usize,
+        retract: bool,
     ) -> Result<()> {
         if self.pooled.len() < total {
             self.pooled.resize(total, None);
@@ -178,7 +194,7 @@ impl PoolGroups {
                 }
                 _ => p.evidence_sums(),
             };
-            Pooled::add(&mut self.pooled[g], &p, &evidence)?;
+            Pooled::add(&mut self.pooled[g], &p, &evidence, retract)?;
         }
         Ok(())
     }
@@ -213,7 +229,7 @@ impl GroupsAccumulator for PoolGroups {
         filter: Option<&BooleanArray>,
         total: usize,
     ) -> Result<()> {
-        self.add(&values[0], None, groups, filter, total)
+        self.add((&values[0], None), groups, filter, total, false)
     }
 
     fn evaluate(&mut self, emit_to: EmitTo) -> Result<ArrayRef> {
@@ -227,7 +243,7 @@ impl GroupsAccumulator for PoolGroups {
     }
 
     fn merge_batch(&mut self, values: &[ArrayRef], groups: &[usize], total: usize) -> Result<()> {
-        self.add(&values[0], values.get(1), groups, None, total)
+        self.add((&values[0], values.get(1)), groups, None, total, false)
     }
 
     fn convert_to_state(
@@ -240,13 +256,8 @@ impl GroupsAccumulator for PoolGroups {
             kind: self.kind,
             pooled: Vec::new(),
         };
-        fresh.add(
-            &values[0],
-            None,
-            &(0..rows).collect::<Vec<_>>(),
-            opt_filter,
-            rows,
-        )?;
+        let groups: Vec<usize> = (0..rows).collect();
+        fresh.add((&values[0], None), &groups, opt_filter, rows, false)?;
         self.state_of(&fresh.pooled)
     }
 
@@ -274,7 +285,16 @@ impl PoolAccumulator {
 impl Accumulator for PoolAccumulator {
     fn update_batch(&mut self, values: &[ArrayRef]) -> Result<()> {
         let n = values[0].len();
-        self.0.add(&values[0], None, &vec![0; n], None, 1)
+        self.0.add((&values[0], None), &vec![0; n], None, 1, false)
+    }
+
+    fn retract_batch(&mut self, values: &[ArrayRef]) -> Result<()> {
+        let n = values[0].len();
+        self.0.add((&values[0], None), &vec![0; n], None, 1, true)
+    }
+
+    fn supports_retract_batch(&self) -> bool {
+        true
     }
 
     fn evaluate(&mut self) -> Result<ScalarValue> {
@@ -295,6 +315,7 @@ impl Accumulator for PoolAccumulator {
 
     fn merge_batch(&mut self, states: &[ArrayRef]) -> Result<()> {
         let n = states[0].len();
-        self.0.add(&states[0], states.get(1), &vec![0; n], None, 1)
+        self.0
+            .add((&states[0], states.get(1)), &vec![0; n], None, 1, false)
     }
 }

@@ -430,6 +430,50 @@ async fn pool_gives_the_same_bits_in_any_order() {
     }
 }
 
+// posterior_pool over sliding window frames (it retracts what leaves a frame):
+// days' posteriors pooled over the two days before each day equal a fit of those
+// days' rows, for every family; a frame with no rows (days 4-6 are left out, so
+// day 7 reads nothing after day 6 read day 3) is NULL, as the docs say.
+#[tokio::test]
+async fn pool_slides_over_window_frames() {
+    let c = ctx().await;
+    let fits = [
+        ("beta_posterior(no_show, beta_prior(1, 2))", ""),
+        ("gamma_posterior(visits, 1.5, gamma_prior(2, 1))", ""),
+        ("nig_posterior(amount, nig_prior(70, 0.5, 2, 40))", ""),
+        (
+            "dirichlet_posterior(outcome, dirichlet_prior(['attended', 'no_show', 'late_cancel'], 0.5))",
+            ", 'no_show'",
+        ),
+    ];
+    let days = "(SELECT *, t / 4 AS d FROM appts WHERE t / 4 NOT IN (4, 5, 6))";
+    for (fit, class) in fits {
+        let pooled = format!(
+            "SELECT posterior_mean(posterior_pool(p) OVER (ORDER BY d RANGE BETWEEN 2 PRECEDING AND 1 PRECEDING){class}) \
+             FROM (SELECT d, {fit} AS p FROM {days} GROUP BY d) ORDER BY d"
+        );
+        let direct = format!(
+            "SELECT posterior_mean({}{class}) FROM (SELECT DISTINCT d FROM {days}) k \
+             LEFT JOIN {days} a ON a.d BETWEEN k.d - 2 AND k.d - 1 GROUP BY k.d ORDER BY k.d",
+            fit.replace("(no_show", "(a.no_show")
+                .replace("(visits", "(a.visits")
+                .replace("(amount", "(a.amount")
+                .replace("(outcome", "(a.outcome")
+        );
+        let (got, want) = (floats(&c, &pooled).await, floats(&c, &direct).await);
+        assert_eq!(got.len(), 7, "{fit}");
+        for (i, (g, w)) in got.iter().zip(&want).enumerate() {
+            // Days 0 and 7 read no rows: NULL from the pool (the direct fit of no
+            // rows is the prior).
+            if i == 0 || i == 4 {
+                assert_eq!(*g, None, "{fit}: day {i}");
+                continue;
+            }
+            close(g.unwrap(), w.unwrap(), 1e-12);
+        }
+    }
+}
+
 // Out-of-fold = total minus the fold's own evidence = a fit on the other folds.
 #[tokio::test]
 async fn out_of_fold_by_subtraction() {
