@@ -192,6 +192,10 @@ pub struct ColumnEncoding {
     /// Under `--hierarchy`: the parent key and the layer's strength. An unseen level
     /// (or NULL key) is scored with `prior` centred on the row's parent posterior.
     pub parent: Option<(String, f64)>,
+    /// Under `--hierarchy`: each level's parent level (the one most of its rows
+    /// have) and, for a level with rows elsewhere too, its data outside that parent
+    /// — what a refresh (`--update`) needs to recentre the level exactly.
+    pub parent_levels: BTreeMap<String, (String, Option<AnyPosterior>)>,
 }
 
 impl ColumnEncoding {
@@ -296,7 +300,22 @@ impl Bundle {
                 column["readers"] = json!(readers);
             }
             if let Some((parent, strength)) = &c.parent {
-                column["parent"] = json!({"key": parent, "strength": strength});
+                let levels: Map<String, Value> = c
+                    .parent_levels
+                    .iter()
+                    .map(|(level, (parent, _))| (level.clone(), json!(parent)))
+                    .collect();
+                let outside: Map<String, Value> = c
+                    .parent_levels
+                    .iter()
+                    .filter_map(|(level, (_, out))| {
+                        out.as_ref().map(|p| (level.clone(), posterior_json(p)))
+                    })
+                    .collect();
+                column["parent"] = json!({"key": parent, "strength": strength, "levels": levels});
+                if !outside.is_empty() {
+                    column["parent"]["outside"] = Value::Object(outside);
+                }
             }
             columns.insert(name.clone(), column);
         }
@@ -404,6 +423,7 @@ impl Bundle {
                                 })?,
                         )),
                     },
+                    parent_levels: parent_levels(name, c.get("parent"))?,
                     treatment: match c.get("treatment").and_then(Value::as_str) {
                         None => Treatment::Posterior,
                         Some(t) => Treatment::parse(t).map_err(|_| {
@@ -452,4 +472,40 @@ impl Bundle {
             columns,
         })
     }
+}
+
+/// A child column's parent levels and data outside them (`"parent": {"levels":
+/// {level: parent level}, "outside": {level: posterior}}`); empty when absent.
+fn parent_levels(
+    name: &str,
+    parent: Option<&Value>,
+) -> Result<BTreeMap<String, (String, Option<AnyPosterior>)>, FamilyError> {
+    let mut out = BTreeMap::new();
+    let Some(parent) = parent else {
+        return Ok(out);
+    };
+    if let Some(levels) = parent.get("levels") {
+        let levels = levels
+            .as_object()
+            .ok_or_else(|| bad(format!("column '{name}': parent levels are not an object")))?;
+        for (level, p) in levels {
+            let p = p.as_str().ok_or_else(|| {
+                bad(format!(
+                    "column '{name}': the parent of level '{level}' is not text"
+                ))
+            })?;
+            out.insert(level.clone(), (p.to_string(), None));
+        }
+    }
+    if let Some(outside) = parent.get("outside").and_then(Value::as_object) {
+        for (level, p) in outside {
+            let entry = out.get_mut(level).ok_or_else(|| {
+                bad(format!(
+                    "column '{name}': level '{level}' has data outside a parent it does not list"
+                ))
+            })?;
+            entry.1 = Some(posterior_from_json(p)?);
+        }
+    }
+    Ok(out)
 }

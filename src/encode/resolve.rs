@@ -45,6 +45,9 @@ pub struct KeyPlan {
     pub readers_why: String,
     /// The key whose levels' posteriors centre this key's level priors (`--hierarchy`).
     pub parent: Option<usize>,
+    /// Under a parent: the layer's strength when given (a refresh keeps the stored
+    /// one); `None` fits it.
+    pub strength: Option<f64>,
 }
 
 impl KeyPlan {
@@ -68,6 +71,7 @@ impl KeyPlan {
                 .unwrap_or_else(|| vec![Reader::Mean]),
             readers_why: String::new(),
             parent: None,
+            strength: None,
         }
     }
 

@@ -281,6 +281,10 @@ pub(super) async fn finish(
             }
             None => None,
         };
+        let parent_levels = match key.parent {
+            Some(_) => parent_levels(ctx, i).await?,
+            None => BTreeMap::new(),
+        };
         let mut levels = BTreeMap::new();
         let mut rows = 0.0;
         for batch in ctx
@@ -419,6 +423,7 @@ pub(super) async fn finish(
                 readers: (key.readers != base_readers)
                     .then(|| key.readers.iter().map(|r| r.spec()).collect()),
                 parent: under.and_then(|(parent, s)| s.map(|s| (parent, s))),
+                parent_levels,
             },
         );
     }
@@ -455,6 +460,35 @@ pub(super) async fn finish(
         summary,
         report,
     })
+}
+
+/// Under `--hierarchy`, child key `i`'s levels' parent levels and, where a level
+/// has rows outside its parent, those rows' data (its whole data less its data
+/// inside the parent; rounding residue below 1e-9 of the whole is none).
+async fn parent_levels(
+    ctx: &SessionContext,
+    i: usize,
+) -> Result<BTreeMap<String, (String, Option<AnyPosterior>)>> {
+    let mut out = BTreeMap::new();
+    let sql = format!(
+        "SELECT m.level, m.parent, CASE WHEN posterior_data_weight(posterior_subtract(f.p, m.p)) \
+         > 1e-9 * posterior_data_weight(f.p) THEN posterior_subtract(f.p, m.p) END AS outside \
+         FROM __pair{i} m JOIN __fit{i} f ON f.level = m.level ORDER BY m.level"
+    );
+    for batch in ctx.sql(&sql).await?.collect().await? {
+        let (levels, parents) = (
+            cast(batch.column(0), &DataType::Utf8)?,
+            cast(batch.column(1), &DataType::Utf8)?,
+        );
+        let (levels, parents) = (levels.as_string::<i32>(), parents.as_string::<i32>());
+        for r in 0..batch.num_rows() {
+            out.insert(
+                levels.value(r).to_string(),
+                (parents.value(r).to_string(), posterior_at(&batch, 2, r)?),
+            );
+        }
+    }
+    Ok(out)
 }
 
 /// A prior's weight in pseudo-observations.

@@ -467,17 +467,20 @@ impl EncodePlan {
         out
     }
 
-    /// Under `--hierarchy`, the layer's strength of key `i` below its parent `j`,
-    /// fitted over all levels (`__strength{i}`).
+    /// Under `--hierarchy`, the layer's strength of key `i` below its parent `j`
+    /// (`__strength{i}`): given, or fitted over all levels.
     fn strength_stage(&self, i: usize, key: &KeyPlan, j: usize) -> Statement {
         stage(
             format!("strength {}", key.name),
             &format!("__strength{i}"),
-            format!(
-                "SELECT fit_strength({}, pe.p, m.p) AS strength FROM __fit{i} f CROSS JOIN __prior{i} q \
-                 JOIN __pair{i} m ON m.level = f.level JOIN __enc{j} pe ON pe.level = m.parent",
-                self.repriored("f.p")
-            ),
+            match key.strength {
+                Some(s) => format!("SELECT CAST({s:?} AS DOUBLE) AS strength"),
+                None => format!(
+                    "SELECT fit_strength({}, pe.p, m.p) AS strength FROM __fit{i} f CROSS JOIN __prior{i} q \
+                     JOIN __pair{i} m ON m.level = f.level JOIN __enc{j} pe ON pe.level = m.parent",
+                    self.repriored("f.p")
+                ),
+            },
         )
     }
 
@@ -548,23 +551,82 @@ impl EncodePlan {
     /// already decayed) pooled with fits of the new rows under the stored priors.
     pub(crate) fn update_statements(&self) -> Vec<Statement> {
         let mut out = vec![self.keys_stage()];
-        for (i, key) in self.keys.iter().enumerate() {
+        for i in self.parents_first() {
+            let key = &self.keys[i];
+            // A child's stored posteriors are centred on its parent: pooled as data
+            // under the key's prior, then centred anew.
+            let stored = match (key.parent, &key.prior) {
+                (Some(_), Some(prior)) => format!("posterior_with_prior(p, {prior})"),
+                _ => "p".to_string(),
+            };
             out.push(stage(
                 format!("pool {}", key.name),
                 &format!("__fit{i}"),
                 format!(
-                    "SELECT level, posterior_pool(p) AS p FROM (SELECT level, p FROM __stored{i} \
+                    "SELECT level, posterior_pool(p) AS p FROM (SELECT level, {stored} AS p FROM __stored{i} \
                      UNION ALL SELECT __k{i} AS level, {} AS p FROM __keyed t WHERE __k{i} IS NOT NULL GROUP BY __k{i}) \
                      GROUP BY level",
                     self.fit(key)
                 ),
             ));
+            if let Some(j) = key.parent {
+                out.extend(self.refreshed_parents(i, key, j, &stored));
+            }
             out.extend(self.serving_statements(i, key));
         }
         if self.options.score.is_some() {
             out.extend(self.scoring_statements());
         }
         out
+    }
+
+    /// A refresh's `__pair{i}` for child key `i` under `j`: each level keeps its
+    /// stored parent (`__storedparent{i}`: level, parent, data outside it), a new
+    /// level takes the parent most of its new rows have; its data inside the parent
+    /// is its pooled data less what lies outside (stored, plus new rows under another
+    /// parent or none).
+    fn refreshed_parents(&self, i: usize, key: &KeyPlan, j: usize, stored: &str) -> Vec<Statement> {
+        let k = &key.name;
+        let fit = self.fit(key);
+        vec![
+            stage(
+                format!("parents of new levels {k}"),
+                &format!("__newparent{i}"),
+                format!(
+                    "SELECT level, parent FROM (SELECT level, parent, row_number() OVER \
+                     (PARTITION BY level ORDER BY posterior_data_weight(p) DESC, parent) AS r FROM \
+                     (SELECT __k{i} AS level, __k{j} AS parent, {fit} AS p FROM __keyed t \
+                     WHERE __k{i} IS NOT NULL AND __k{j} IS NOT NULL GROUP BY __k{i}, __k{j})) WHERE r = 1"
+                ),
+            ),
+            stage(
+                format!("parents {k}"),
+                &format!("__assigned{i}"),
+                format!(
+                    "SELECT f.level, COALESCE(s.parent, n.parent) AS parent FROM __fit{i} f \
+                     LEFT JOIN __storedparent{i} s ON s.level = f.level LEFT JOIN __newparent{i} n ON n.level = f.level \
+                     WHERE COALESCE(s.parent, n.parent) IS NOT NULL"
+                ),
+            ),
+            stage(
+                format!("data outside parents {k}"),
+                &format!("__outside{i}"),
+                format!(
+                    "SELECT level, posterior_pool(p) AS p FROM (SELECT level, {stored} AS p FROM __storedparent{i} \
+                     WHERE p IS NOT NULL UNION ALL SELECT t.__k{i} AS level, {fit} AS p FROM __keyed t \
+                     JOIN __assigned{i} a ON a.level = t.__k{i} WHERE t.__k{j} IS NULL OR t.__k{j} <> a.parent \
+                     GROUP BY t.__k{i}) GROUP BY level"
+                ),
+            ),
+            stage(
+                format!("data inside parents {k}"),
+                &format!("__pair{i}"),
+                format!(
+                    "SELECT a.level, a.parent, COALESCE(posterior_subtract(f.p, o.p), f.p) AS p \
+                     FROM __assigned{i} a JOIN __fit{i} f ON f.level = a.level LEFT JOIN __outside{i} o ON o.level = a.level"
+                ),
+            ),
+        ]
     }
 
     /// Every statement, in order.

@@ -97,10 +97,10 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     let mut keys = Vec::new();
     let mut stored = Vec::new();
     for (name, column) in &previous.columns {
-        if column.parent.is_some() {
+        if column.parent.is_some() && column.parent_levels.is_empty() && !column.levels.is_empty() {
             return usage(format!(
-                "--update: key '{name}' was encoded under a parent (--hierarchy), which a \
-                 refresh does not redo yet; encode the rows again"
+                "--update: key '{name}' was encoded under a parent (--hierarchy) by an earlier \
+                 version, whose bundle does not record each level's parent; encode the rows again"
             ));
         }
         if column.key_columns.is_empty() {
@@ -130,6 +130,13 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
         }
         keys.push(key);
         stored.push(column);
+    }
+    // Under a hierarchy each child keeps its parent key and the layer's strength.
+    for (i, column) in stored.iter().enumerate() {
+        if let Some((parent, strength)) = &column.parent {
+            keys[i].parent = previous.columns.keys().position(|k| k == parent);
+            keys[i].strength = Some(*strength);
+        }
     }
     let first_prior = &stored
         .first()
@@ -217,6 +224,11 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
             Arc::new(MemTable::try_new(schema, vec![vec![batch]])?),
         )?;
     }
+    for (i, column) in stored.iter().enumerate() {
+        if column.parent.is_some() {
+            register_parents(ctx, i, column, options.decay)?;
+        }
+    }
     crate::numbered::register(ctx, &options.train, TRAIN).await?;
     if let Some(score) = &options.score {
         crate::numbered::register(ctx, score, SCORE).await?;
@@ -229,4 +241,47 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     )
     .await?;
     finish(ctx, &plan, outputs).await
+}
+
+/// Register `__storedparent{i}`: child column `i`'s levels, their parent levels and
+/// their data outside them (NULL when none), decayed like the stored posteriors.
+fn register_parents(
+    ctx: &SessionContext,
+    i: usize,
+    column: &crate::bundle::ColumnEncoding,
+    decay: Option<f64>,
+) -> Result<()> {
+    let (mut levels, mut parents, mut outside) = (Vec::new(), Vec::new(), Vec::new());
+    for (level, (parent, out)) in &column.parent_levels {
+        levels.push(level.as_str());
+        parents.push(parent.as_str());
+        outside.push(match (out, decay) {
+            (Some(p), Some(d)) => Some(
+                p.scale(d)
+                    .map_err(|e| EncodeError::Usage(format!("--decay: {e}")))?,
+            ),
+            (out, _) => out.clone(),
+        });
+    }
+    let p = build(column.prior.kind(), &outside)?;
+    let schema = Arc::new(Schema::new(vec![
+        Field::new("level", DataType::Utf8, false),
+        Field::new("parent", DataType::Utf8, false),
+        Field::new("p", p.data_type().clone(), true),
+    ]));
+    let batch = RecordBatch::try_new(
+        schema.clone(),
+        vec![
+            Arc::new(StringArray::from(levels)) as ArrayRef,
+            Arc::new(StringArray::from(parents)) as ArrayRef,
+            p,
+        ],
+    )?;
+    let name = format!("__storedparent{i}");
+    ctx.deregister_table(&name)?;
+    ctx.register_table(
+        &name,
+        Arc::new(MemTable::try_new(schema, vec![vec![batch]])?),
+    )?;
+    Ok(())
 }

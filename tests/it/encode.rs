@@ -2800,18 +2800,169 @@ async fn hierarchy_centres_levels_on_their_parents() {
             assert!(stderr.contains(f), "{extra:?}: {stderr}");
         }
     }
-    // A refresh of a bundle with a hierarchy is refused (it would keep stale centres).
+    // A refresh of a bundle that does not record its levels' parents (an earlier
+    // version's) is refused: it could not recentre them.
+    let mut old: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap();
+    for key in ["postcode_area", "district"] {
+        let parent = old["columns"][key]["parent"].as_object_mut().unwrap();
+        parent.remove("levels");
+        parent.remove("outside");
+    }
+    let earlier = dir.join("earlier");
+    std::fs::create_dir_all(&earlier).unwrap();
+    std::fs::write(earlier.join("bundle.json"), old.to_string()).unwrap();
     let o = encode_output(&[
         "encode",
         "--update",
-        out.to_str().unwrap(),
+        earlier.to_str().unwrap(),
         "--train",
         &train,
         "--out",
         dir.join("refreshed").to_str().unwrap(),
     ]);
     assert!(
-        !o.status.success() && String::from_utf8_lossy(&o.stderr).contains("--hierarchy"),
+        !o.status.success()
+            && String::from_utf8_lossy(&o.stderr).contains("does not record each level's parent"),
         "{o:?}"
+    );
+}
+
+// A refresh (`--update`) of a bundle encoded under `--hierarchy` pools each level's
+// data with the new rows' and centres it anew on its parent's refreshed posterior
+// less its own data there, with the stored strength: every level of the refreshed
+// bundle against the counts of both halves by hand. A level keeps its stored parent;
+// a new level takes the one most of its new rows have; rows under another parent
+// (every 50th row sits in district PA99) are its data outside, as recorded.
+#[tokio::test]
+async fn refresh_recentres_levels_on_their_refreshed_parents() {
+    use posterity::layout::AnyPosterior;
+    let dir = temp_dir("hierarchy-refresh");
+    let (crossed, rows) = crossed_sample(&dir);
+    let text = std::fs::read_to_string(&crossed).unwrap();
+    let lines: Vec<&str> = text.lines().collect();
+    let half = 1500;
+    let (first, second) = (dir.join("first.csv"), dir.join("second.csv"));
+    std::fs::write(&first, format!("{}\n", lines[..=half].join("\n"))).unwrap();
+    std::fs::write(
+        &second,
+        format!("{}\n{}\n", lines[0], lines[half + 1..].join("\n")),
+    )
+    .unwrap();
+    let (before, after) = (dir.join("before"), dir.join("after"));
+    encode(&[
+        "--train",
+        first.to_str().unwrap(),
+        "--target",
+        "no_show",
+        "--columns",
+        "postcode_area,district,region",
+        "--hierarchy",
+        "postcode_area>district>region",
+        "--out",
+        before.to_str().unwrap(),
+    ]);
+    encode(&[
+        "--update",
+        before.to_str().unwrap(),
+        "--train",
+        second.to_str().unwrap(),
+        "--out",
+        after.to_str().unwrap(),
+    ]);
+    let (stored, bundle) = (bundle_in(&before), bundle_in(&after));
+    let beta = |p: &AnyPosterior| match p {
+        AnyPosterior::Beta(b) => *b,
+        other => panic!("{other:?}"),
+    };
+    // Each child's parent: the stored one, else the most frequent among new rows.
+    let parent_of = |child: usize, parent: usize, key: &str| {
+        let field = |r: &CrossedRow, f: usize| [&r.0, &r.1, &r.2][f].clone();
+        let mut counts: HashMap<(String, String), usize> = HashMap::new();
+        for r in &rows[half..] {
+            *counts
+                .entry((field(r, child), field(r, parent)))
+                .or_default() += 1;
+        }
+        let mut best: HashMap<String, (usize, String)> = HashMap::new();
+        for ((c, p), n) in counts {
+            let e = best.entry(c).or_insert((0, String::new()));
+            if n > e.0 || (n == e.0 && p < e.1) {
+                *e = (n, p);
+            }
+        }
+        let mut out: HashMap<String, String> = best.into_iter().map(|(c, (_, p))| (c, p)).collect();
+        for (level, (p, _)) in &stored.columns[key].parent_levels {
+            out.insert(level.clone(), p.clone());
+        }
+        out
+    };
+    let (area_parent, district_parent) = (
+        parent_of(0, 1, "postcode_area"),
+        parent_of(1, 2, "district"),
+    );
+    // Successes and trials over both halves of the rows `keep` selects.
+    let counts = |keep: &dyn Fn(&CrossedRow) -> bool| {
+        rows.iter()
+            .filter(|r| keep(r))
+            .fold((0.0, 0.0), |(s, n), r| (s + r.4, n + 1.0))
+    };
+    let check = |key: &str,
+                 parent_key: &str,
+                 parents: &HashMap<String, String>,
+                 child: &dyn Fn(&CrossedRow) -> &String,
+                 parent: &dyn Fn(&CrossedRow) -> &String| {
+        let (_, strength) = bundle.columns[key].parent.clone().unwrap();
+        assert_eq!(
+            strength,
+            stored.columns[key].parent.as_ref().unwrap().1,
+            "{key}: the stored strength"
+        );
+        for (level, p) in &bundle.columns[key].levels {
+            let p = beta(p);
+            let (s, n) = counts(&|r| child(r) == level);
+            assert_eq!((p.successes, p.trials), (s, n), "{key} {level}: data");
+            let main = &parents[level];
+            let (sw, nw) = counts(&|r| child(r) == level && parent(r) == main);
+            let (pa, pb) = beta(&bundle.columns[parent_key].levels[main]).params();
+            let m = (pa - sw) / (pa + pb - nw);
+            assert!(
+                (p.prior.a0 - strength * m).abs() < 1e-9 * strength,
+                "{key} {level}: a0 {} vs {}",
+                p.prior.a0,
+                strength * m
+            );
+            assert!(
+                (p.prior.b0 - strength * (1.0 - m)).abs() < 1e-9 * strength,
+                "{key} {level}: b0"
+            );
+            let (recorded, outside) = &bundle.columns[key].parent_levels[level];
+            assert_eq!(recorded, main, "{key} {level}: parent");
+            let outside = outside
+                .as_ref()
+                .map_or((0.0, 0.0), |o| (beta(o).successes, beta(o).trials));
+            assert_eq!(outside, (s - sw, n - nw), "{key} {level}: data outside");
+        }
+    };
+    // The region (no parent) pools its data under its stored prior.
+    for (level, p) in &bundle.columns["region"].levels {
+        let p = beta(p);
+        assert_eq!(
+            (p.successes, p.trials),
+            counts(&|r| r.2 == *level),
+            "region {level}"
+        );
+        assert_eq!(p.prior, beta(&stored.columns["region"].prior).prior);
+    }
+    check("district", "region", &district_parent, &|r| &r.1, &|r| &r.2);
+    check("postcode_area", "district", &area_parent, &|r| &r.0, &|r| {
+        &r.1
+    });
+    assert!(
+        bundle.columns["postcode_area"]
+            .parent_levels
+            .values()
+            .any(|(_, o)| o.is_some()),
+        "some areas have rows outside their district"
     );
 }
