@@ -319,7 +319,7 @@ def test_bad_input_is_a_python_error(ctx):
         (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
                                   horizon=-1), ["horizon -1 is out of range"]),
         (lambda: posterity.encode(pa.table({"k": ["a", "b"], "y": [0.5, float("nan")]}), target="y",
-                                  columns=["k"]), ["nig_posterior", "NaN"]),
+                                  columns=["k"]), ["target 'y' has 1 row(s)", "NaN", "finite numbers"]),
         (lambda: posterity.Bundle.load("/no/such/bundle.json"), ["Bundle.load", "cannot read"]),
         (lambda: posterity.Bundle.from_json("{}"), ["Bundle.from_json", "posterity bundle"]),
     ]
