@@ -6,7 +6,7 @@
 use std::sync::Arc;
 
 use datafusion::arrow::array::{ArrayRef, RecordBatch, StringArray};
-use datafusion::arrow::datatypes::{DataType, Field, Schema};
+use datafusion::arrow::datatypes::{Field, Schema};
 use datafusion::datasource::MemTable;
 use datafusion::prelude::SessionContext;
 
@@ -199,29 +199,16 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
         let mut levels = Vec::with_capacity(column.levels.len());
         let mut posteriors = Vec::with_capacity(column.levels.len());
         for (level, p) in &column.levels {
-            let p = match options.decay {
-                Some(d) => p
-                    .scale(d)
-                    .map_err(|e| EncodeError::Usage(format!("--decay: {e}")))?,
-                None => p.clone(),
-            };
             levels.push(level.as_str());
-            posteriors.push(Some(p));
+            posteriors.push(Some(decayed(p, options.decay)?));
         }
-        let p = build(column.prior.kind(), &posteriors)?;
-        let schema = Arc::new(Schema::new(vec![
-            Field::new("level", DataType::Utf8, false),
-            Field::new("p", p.data_type().clone(), true),
-        ]));
-        let batch = RecordBatch::try_new(
-            schema.clone(),
-            vec![Arc::new(StringArray::from(levels)) as ArrayRef, p],
-        )?;
-        let name = format!("__stored{i}");
-        ctx.deregister_table(&name)?;
-        ctx.register_table(
-            &name,
-            Arc::new(MemTable::try_new(schema, vec![vec![batch]])?),
+        register_columns(
+            ctx,
+            &format!("__stored{i}"),
+            vec![
+                ("level", Arc::new(StringArray::from(levels))),
+                ("p", build(column.prior.kind(), &posteriors)?),
+            ],
         )?;
     }
     for (i, column) in stored.iter().enumerate() {
@@ -255,32 +242,49 @@ fn register_parents(
     for (level, (parent, out)) in &column.parent_levels {
         levels.push(level.as_str());
         parents.push(parent.as_str());
-        outside.push(match (out, decay) {
-            (Some(p), Some(d)) => Some(
-                p.scale(d)
-                    .map_err(|e| EncodeError::Usage(format!("--decay: {e}")))?,
-            ),
-            (out, _) => out.clone(),
-        });
+        outside.push(out.as_ref().map(|p| decayed(p, decay)).transpose()?);
     }
-    let p = build(column.prior.kind(), &outside)?;
-    let schema = Arc::new(Schema::new(vec![
-        Field::new("level", DataType::Utf8, false),
-        Field::new("parent", DataType::Utf8, false),
-        Field::new("p", p.data_type().clone(), true),
-    ]));
+    register_columns(
+        ctx,
+        &format!("__storedparent{i}"),
+        vec![
+            ("level", Arc::new(StringArray::from(levels))),
+            ("parent", Arc::new(StringArray::from(parents))),
+            ("p", build(column.prior.kind(), &outside)?),
+        ],
+    )
+}
+
+/// A stored posterior with its evidence multiplied by `--decay`, if given.
+fn decayed(p: &AnyPosterior, decay: Option<f64>) -> Result<AnyPosterior> {
+    match decay {
+        Some(d) => p
+            .scale(d)
+            .map_err(|e| EncodeError::Usage(format!("--decay: {e}"))),
+        None => Ok(p.clone()),
+    }
+}
+
+/// Register `columns` (name and values) as the one-batch table `name`, replacing
+/// any table of that name.
+fn register_columns(
+    ctx: &SessionContext,
+    name: &str,
+    columns: Vec<(&str, ArrayRef)>,
+) -> Result<()> {
+    let schema = Arc::new(Schema::new(
+        columns
+            .iter()
+            .map(|(n, a)| Field::new(*n, a.data_type().clone(), true))
+            .collect::<Vec<_>>(),
+    ));
     let batch = RecordBatch::try_new(
         schema.clone(),
-        vec![
-            Arc::new(StringArray::from(levels)) as ArrayRef,
-            Arc::new(StringArray::from(parents)) as ArrayRef,
-            p,
-        ],
+        columns.into_iter().map(|(_, a)| a).collect(),
     )?;
-    let name = format!("__storedparent{i}");
-    ctx.deregister_table(&name)?;
+    ctx.deregister_table(name)?;
     ctx.register_table(
-        &name,
+        name,
         Arc::new(MemTable::try_new(schema, vec![vec![batch]])?),
     )?;
     Ok(())
