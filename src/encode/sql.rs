@@ -117,7 +117,7 @@ pub(super) fn as_of_window(
 }
 
 /// The columns every `encodings/<key>` file may have besides the key's readers.
-const ENCODINGS_COLUMNS: [&str; 3] = ["p", "top_rank", "code"];
+const ENCODINGS_COLUMNS: [&str; 4] = ["p", "top_rank", "code", "parent"];
 
 /// The name of the level column of key `key`'s encodings file: the key's own name,
 /// or `level` where that name is one of the file's other columns.
@@ -453,10 +453,14 @@ impl EncodePlan {
                 format!("SELECT level, CAST(row_number() OVER (ORDER BY level) - 1 AS BIGINT) AS code FROM {fits}"),
             ));
         }
-        let code_join = match key.treatment {
+        let mut code_join = match key.treatment {
             Treatment::Codes => format!(" LEFT JOIN __code{i} c ON c.level = e.level"),
             _ => String::new(),
         };
+        if key.parent.is_some() {
+            encoding_columns.push("pr.parent AS parent".to_string());
+            code_join.push_str(&format!(" LEFT JOIN __pair{i} pr ON pr.level = e.level"));
+        }
         out.push(output(
                 format!("encodings/{k}"),
                 format!(

@@ -759,18 +759,19 @@ async fn names_from_the_data_are_never_templates() {
 }
 
 // A key named like one of the encodings file's own columns (`p`, `top_rank`,
-// `code`) encodes like any other; its file names the level column `level`.
+// `code`, `parent`) encodes like any other; its file names the level column `level`.
 #[tokio::test]
 async fn keys_named_like_the_encodings_columns() {
     let dir = temp_dir("fixed-names");
     let train = dir.join("train.csv");
-    let mut csv = String::from("p,top_rank,code,y\n");
+    let mut csv = String::from("p,top_rank,code,parent,y\n");
     for i in 0..600 {
         csv.push_str(&format!(
-            "a{},b{},c{},{}\n",
+            "a{},b{},c{},d{},{}\n",
             i % 7,
             i % 5,
             i % 3,
+            i % 4,
             (i * 7 % 10 < 3) as i32
         ));
     }
@@ -782,7 +783,7 @@ async fn keys_named_like_the_encodings_columns() {
         "--target",
         "y",
         "--columns",
-        "p,top_rank,code",
+        "p,top_rank,code,parent",
         "--treatment",
         "code=codes",
         "--indicator-min-rows",
@@ -798,6 +799,7 @@ async fn keys_named_like_the_encodings_columns() {
             5,
         ),
         ("code", vec!["level", "p", "code"], 3),
+        ("parent", vec!["level", "p", "parent_mean", "top_rank"], 4),
     ] {
         let path = out.join(format!("encodings/{key}.parquet"));
         let ctx = SessionContext::new();
@@ -2566,6 +2568,21 @@ async fn hierarchy_centres_levels_on_their_parents() {
         "region"
     );
     assert_eq!(bundle.columns["region"].parent, None);
+    // The encodings file names each area's parent district, as the bundle does.
+    let areas_file = out.join("encodings/postcode_area.parquet");
+    let (area_levels, area_parents) = (
+        texts(&areas_file, "postcode_area").await,
+        texts(&areas_file, "parent").await,
+    );
+    for (level, parent) in area_levels.iter().zip(&area_parents) {
+        let level = level.as_ref().unwrap();
+        assert_eq!(
+            parent.as_ref(),
+            Some(&bundle.columns["postcode_area"].parent_levels[level].0),
+            "{level}"
+        );
+        assert_eq!(parent.as_deref(), Some(&level[..4]), "{level}: nested");
+    }
     let beta = |p: &AnyPosterior| match p {
         AnyPosterior::Beta(b) => *b,
         other => panic!("{other:?}"),
