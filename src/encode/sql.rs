@@ -496,16 +496,10 @@ impl EncodePlan {
         let mut out = Vec::new();
         for (i, key) in self.keys.iter().enumerate() {
             let Some(j) = key.parent else { continue };
-            let fit = self.fit(key);
             out.push(stage(
                 format!("parents {}", key.name),
                 &format!("__pair{i}"),
-                format!(
-                    "SELECT level, parent, p FROM (SELECT level, parent, p, row_number() OVER \
-                     (PARTITION BY level ORDER BY posterior_data_weight(p) DESC, parent) AS r FROM \
-                     (SELECT __k{i} AS level, __k{j} AS parent, {fit} AS p FROM __keyed t \
-                     WHERE __k{i} IS NOT NULL AND __k{j} IS NOT NULL GROUP BY __k{i}, __k{j})) WHERE r = 1"
-                ),
+                self.main_parents(i, key, j),
             ));
         }
         if self.method != Method::Time {
@@ -584,6 +578,18 @@ impl EncodePlan {
         out
     }
 
+    /// Each level of child key `i` with its main parent in key `j` (the parent most
+    /// of its rows have; ties: the first name) and its data there: `level, parent, p`.
+    fn main_parents(&self, i: usize, key: &KeyPlan, j: usize) -> String {
+        format!(
+            "SELECT level, parent, p FROM (SELECT level, parent, p, row_number() OVER \
+             (PARTITION BY level ORDER BY posterior_data_weight(p) DESC, parent) AS r FROM \
+             (SELECT __k{i} AS level, __k{j} AS parent, {} AS p FROM __keyed t \
+             WHERE __k{i} IS NOT NULL AND __k{j} IS NOT NULL GROUP BY __k{i}, __k{j})) WHERE r = 1",
+            self.fit(key)
+        )
+    }
+
     /// A refresh's `__pair{i}` for child key `i` under `j`: each level keeps its
     /// stored parent (`__storedparent{i}`: level, parent, data outside it), a new
     /// level takes the parent most of its new rows have; its data inside the parent
@@ -596,12 +602,7 @@ impl EncodePlan {
             stage(
                 format!("parents of new levels {k}"),
                 &format!("__newparent{i}"),
-                format!(
-                    "SELECT level, parent FROM (SELECT level, parent, row_number() OVER \
-                     (PARTITION BY level ORDER BY posterior_data_weight(p) DESC, parent) AS r FROM \
-                     (SELECT __k{i} AS level, __k{j} AS parent, {fit} AS p FROM __keyed t \
-                     WHERE __k{i} IS NOT NULL AND __k{j} IS NOT NULL GROUP BY __k{i}, __k{j})) WHERE r = 1"
-                ),
+                self.main_parents(i, key, j),
             ),
             stage(
                 format!("parents {k}"),
