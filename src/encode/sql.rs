@@ -327,6 +327,11 @@ impl EncodePlan {
         format!("COALESCE({own}, {})", self.unseen(j, side))
     }
 
+    /// Whether key `i` is some key's parent (`--hierarchy`).
+    fn has_children(&self, i: usize) -> bool {
+        self.keys.iter().any(|k| k.parent == Some(i))
+    }
+
     /// Keys in an order where every parent comes before its children.
     fn parents_first(&self) -> Vec<usize> {
         let depth = |mut i: usize| {
@@ -506,21 +511,20 @@ impl EncodePlan {
             return out;
         }
         let time = quote(self.options.time_column.as_deref().unwrap_or_default());
-        let has_children = |j: usize| self.keys.iter().any(|k| k.parent == Some(j));
         // The (level, time) pairs key `i` is read at: its rows' and its children's.
         let read_at = |i: usize| {
             let own = format!(
                 "SELECT __k{i} AS level, t.{time} AS __time FROM __keyed t \
                  WHERE __k{i} IS NOT NULL AND t.{time} IS NOT NULL"
             );
-            if has_children(i) {
+            if self.has_children(i) {
                 format!("{own} UNION SELECT level, __time FROM __need{i}")
             } else {
                 own
             }
         };
         for j in self.parents_first().into_iter().rev() {
-            if !has_children(j) {
+            if !self.has_children(j) {
                 continue;
             }
             let children: Vec<String> = (0..self.keys.len())
@@ -703,7 +707,7 @@ impl EncodePlan {
             None => o.time_ties,
         };
         // `resolve` refuses a hierarchy with as-of encodings in file order.
-        let in_hierarchy = key.parent.is_some() || self.keys.iter().any(|k| k.parent == Some(i));
+        let in_hierarchy = key.parent.is_some() || self.has_children(i);
         let (name, query, on) = match (self.method, ties, key.parent) {
             (Method::Kfold, _, Some(j)) => {
                 self.out_of_fold_under_parent(i, key, j, fit, &mut stages)
@@ -873,7 +877,7 @@ impl EncodePlan {
              WHERE t.__k{i} IS NOT NULL AND t.{time} IS NOT NULL GROUP BY t.__k{i}, t.{time}",
             data.join(", ")
         );
-        if self.keys.iter().any(|k| k.parent == Some(i)) {
+        if self.has_children(i) {
             grid.push_str(&format!(
                 " UNION ALL SELECT level, __time, 0 AS __kind, {probe} FROM __need{i}"
             ));
