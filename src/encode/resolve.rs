@@ -431,8 +431,9 @@ pub(super) async fn check_target_values(
     exposure: Option<&str>,
     family: Kind,
 ) -> Result<()> {
-    // A value v is finite when -inf < v < inf: NaN fails both comparisons in IEEE
-    // order and the second in Arrow's total order (where NaN sorts last).
+    // A value v is finite when -inf < v < inf (so is 0 <= v < 1e100): NaN fails
+    // both comparisons in IEEE order and the second in Arrow's total order (where
+    // NaN sorts last).
     let finite = |c: &str| {
         format!("(CAST({c} AS DOUBLE) > CAST('-Infinity' AS DOUBLE) AND CAST({c} AS DOUBLE) < CAST('Infinity' AS DOUBLE))")
     };
@@ -446,14 +447,15 @@ pub(super) async fn check_target_values(
         )],
         Kind::Gamma => vec![(
             format!("--target '{target}'"),
-            format!("{} AND CAST({t} AS DOUBLE) >= 0", finite(&t)),
-            "finite counts >= 0 for the gamma family",
+            format!("CAST({t} AS DOUBLE) >= 0 AND CAST({t} AS DOUBLE) < 1e100"),
+            "counts from 0 to 1e100 for the gamma family",
             t.clone(),
         )],
+        // Squares of values this large stay finite when summed over any table.
         Kind::Nig => vec![(
             format!("--target '{target}'"),
-            finite(&t),
-            "finite numbers for the nig family",
+            format!("{} AND ABS(CAST({t} AS DOUBLE)) < 1e100", finite(&t)),
+            "finite numbers between -1e100 and 1e100 for the nig family",
             t.clone(),
         )],
         Kind::Dirichlet => Vec::new(),
@@ -462,8 +464,8 @@ pub(super) async fn check_target_values(
         let q = quote(x);
         checks.push((
             format!("--exposure '{x}'"),
-            format!("{} AND CAST({q} AS DOUBLE) >= 0", finite(&q)),
-            "finite numbers >= 0",
+            format!("CAST({q} AS DOUBLE) >= 0 AND CAST({q} AS DOUBLE) < 1e100"),
+            "numbers from 0 to 1e100",
             q,
         ));
     }
