@@ -108,6 +108,14 @@ pub fn centred_terms(x: f64, w: f64, c: f64) -> Result<[Dd; 3]> {
     let w = weight("weight", w)?;
     let d = x - c;
     let d2 = two_prod(d, d);
+    // Its square (and a sum of many) must stay finite.
+    if !(d.abs() < 1e150) {
+        return Err(FamilyError::InvalidObservation {
+            name: "value",
+            value: x,
+            allowed: "a number within 1e150 of the prior mean",
+        });
+    }
     let wd2 = if w == 1.0 {
         d2
     } else {

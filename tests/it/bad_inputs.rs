@@ -24,6 +24,7 @@ fn cases() -> Vec<(String, Vec<&'static str>)> {
         (w("'inf'::double"), vec!["beta_posterior", "weight = inf", "finite"]),
         ("SELECT nig_posterior(x) FROM (VALUES ('NaN'::double)) t(x)".into(), vec!["nig_posterior", "value = NaN", "finite"]),
         ("SELECT nig_posterior(x) FROM (VALUES ('inf'::double)) t(x)".into(), vec!["nig_posterior", "value = inf", "finite"]),
+        ("SELECT nig_posterior(x) FROM (VALUES (1e200)) t(x)".into(), vec!["nig_posterior", "value = 1e200", "within 1e150 of the prior mean"]),
         ("SELECT nig_posterior(x, nig_prior(0, 1, 1, 1), -2) FROM (VALUES (1.0)) t(x)".into(), vec!["nig_posterior", "weight = -2", ">= 0"]),
         ("SELECT gamma_posterior(-1)".into(), vec!["gamma_posterior", "events = -1", ">= 0"]),
         ("SELECT gamma_posterior(1, -1)".into(), vec!["gamma_posterior", "exposure = -1", ">= 0"]),
