@@ -109,7 +109,7 @@ pub fn centred_terms(x: f64, w: f64, c: f64) -> Result<[Dd; 3]> {
     let d = x - c;
     let d2 = two_prod(d, d);
     // Its square (and a sum of many) must stay finite.
-    if !(d.abs() < 1e150) {
+    if d.abs() >= 1e150 {
         return Err(FamilyError::InvalidObservation {
             name: "value",
             value: x,
