@@ -63,6 +63,8 @@ pub struct ColumnSummary {
     /// (pseudo-observations; `None` when no level has a parent level).
     pub parent: Option<String>,
     pub parent_strength: Option<f64>,
+    /// Whether that strength was kept from a refreshed bundle (else fitted).
+    pub parent_strength_kept: bool,
     pub warnings: Vec<String>,
 }
 
@@ -408,6 +410,7 @@ pub(super) async fn finish(
             readers_why: key.readers_why.clone(),
             parent: under.as_ref().map(|(parent, _)| parent.clone()),
             parent_strength: under.as_ref().and_then(|(_, s)| *s),
+            parent_strength_kept: key.strength.is_some(),
             warnings,
         });
         columns.insert(
@@ -556,7 +559,11 @@ pub fn summary_table(summary: &[ColumnSummary]) -> String {
                  own rows), {}\n",
                 s.key,
                 match s.parent_strength {
-                    Some(v) => format!("{} pseudo-observations (fitted)", crate::render::short(v)),
+                    Some(v) => format!(
+                        "{} pseudo-observations ({})",
+                        crate::render::short(v),
+                        if s.parent_strength_kept { "as stored" } else { "fitted" }
+                    ),
                     None => "but no level has a parent: the key's own prior".to_string(),
                 }
             ));
