@@ -562,7 +562,11 @@ pub fn summary_table(summary: &[ColumnSummary]) -> String {
                     Some(v) => format!(
                         "{} pseudo-observations ({})",
                         crate::render::short(v),
-                        if s.parent_strength_kept { "as stored" } else { "fitted" }
+                        if s.parent_strength_kept {
+                            "as stored"
+                        } else {
+                            "fitted"
+                        }
                     ),
                     None => "but no level has a parent: the key's own prior".to_string(),
                 }
