@@ -267,6 +267,26 @@ def test_pandas_and_polars_in_and_out(tmp_path):
     assert isinstance(from_path.bundle.score(pl.from_pandas(frame)), pl.DataFrame)
 
 
+def test_pandas_dates_and_categories():
+    """What a pandas user has: keys as the category dtype and the time as datetime64
+    (here in UTC, six hours into the day). Days count as the numeric day does; the bundle scores
+    category keys as text."""
+    frame = pd.read_csv(SAMPLE, dtype={"breed": "string"})
+    by_day = posterity.encode(frame, target="no_show", columns=["breed"], time_column="day",
+                              half_life=30, horizon=7)
+    typed = frame.assign(breed=frame["breed"].astype("category"),
+                         when=pd.to_datetime(frame["booked_on"]).dt.tz_localize("UTC")
+                         + pd.Timedelta(hours=6))
+    by_date = posterity.encode(typed, target="no_show", columns=["breed"], time_column="when",
+                               half_life=30, horizon=7)
+    want, got = by_day.train_encoded["breed_mean"], by_date.train_encoded["breed_mean"]
+    assert len(want) == len(got) == len(frame)
+    assert (want - got).abs().max() < 1e-12
+    assert by_date.summary[0]["horizon"] == 7
+    scored = by_date.bundle.score(typed.head(50))
+    assert scored["breed_mean"].tolist() == by_day.bundle.score(frame.head(50))["breed_mean"].tolist()
+
+
 def test_key_types_nulls_and_empty():
     rows = pa.table({
         "text": ["a", "b", None, "a", "b", "c"] * 50,

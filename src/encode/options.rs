@@ -412,8 +412,8 @@ pub struct EncodeOptions {
     /// Key text through `normalize_key` (NFKC, case, white space) before encoding.
     pub normalize_keys: bool,
     /// Recency weighting: a row `h` time units older than the newest training row
-    /// (for as-of encodings: than the row being encoded) counts 2^(-age/h); needs a
-    /// numeric time column; `Fitted` chooses `h` per key from the training rows.
+    /// (for as-of encodings: than the row being encoded) counts 2^(-age/h), in the time
+    /// column's units (days for dates and timestamps, `TimeUnits`); `Fitted` chooses `h` per key from the training rows.
     pub half_life: Option<HalfLife>,
     /// How far back as-of training rows read (see `Horizon`); `None`: every
     /// strictly earlier time.
@@ -438,7 +438,7 @@ pub struct EncodeOptions {
     pub treatments: Vec<(String, Treatment)>,
     /// Chains of key columns, finest first (`postcode>district>region`): each
     /// level's prior is centred on its parent level's posterior, with a strength
-    /// per layer fitted from the data (k-fold encodings).
+    /// per layer fitted from the data (k-fold and as-of encodings, refreshes).
     pub hierarchy: Vec<Vec<String>>,
     /// A table registered on the session to score with the encodings.
     pub score: Option<String>,

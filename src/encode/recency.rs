@@ -20,7 +20,7 @@ use datafusion::arrow::datatypes::{Float64Type, Int64Type};
 use datafusion::prelude::SessionContext;
 
 use super::options::Method;
-use super::resolve::{EncodePlan, KeyPlan};
+use super::resolve::{EncodePlan, KeyPlan, TimeUnits};
 use super::sql::{as_of_window, AsOfDecay, TRAIN};
 use super::{quote, text, EncodeError, Result};
 use crate::layout::Kind;
@@ -70,10 +70,7 @@ pub(super) async fn cut(ctx: &SessionContext, plan: &EncodePlan) -> Result<Optio
     };
     let from =
         datafusion::common::TableReference::from(plan.options.train.as_str()).to_quoted_string();
-    let (t, y) = (
-        format!("CAST({} AS DOUBLE)", quote(time)),
-        quote(&plan.options.target),
-    );
+    let (t, y) = (plan.time_number(&quote(time)), quote(&plan.options.target));
     let span = newest - oldest;
     if !(span.is_finite() && span > 0.0) {
         return Ok(None);
@@ -274,7 +271,7 @@ impl Trial {
     ) -> Self {
         let time = plan.options.time_column.as_deref().unwrap_or_default();
         // Rows are `t`, as in `EncodePlan::fit_with_weight`.
-        let t = format!("CAST(t.{} AS DOUBLE)", quote(time));
+        let t = plan.time_number(&format!("t.{}", quote(time)));
         let y = format!("t.{}", quote(&plan.options.target));
         let x = plan
             .options
@@ -345,7 +342,12 @@ impl Trial {
                             aged(
                                 &format!(
                                     "posterior_pool(p) {}",
-                                    as_of_window("level", "time", None, candidate.horizon)
+                                    as_of_window(
+                                        "level",
+                                        ("time", TimeUnits::Numbers),
+                                        None,
+                                        candidate.horizon
+                                    )
                                 ),
                                 "time"
                             )

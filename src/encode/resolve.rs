@@ -134,8 +134,42 @@ pub struct EncodePlan {
     pub newest_time: Option<f64>,
     /// ...and the oldest (as-of encodings scale their running sums from it).
     pub oldest_time: Option<f64>,
+    /// What one time unit of `--time-column` is (half-lives and horizons count them).
+    pub time_units: TimeUnits,
     /// The factor on each level's data in the posteriors that score rows (1: all of it).
     pub score_scale: f64,
+}
+
+/// What one unit of `--time-column` is: a number's own unit (days, hours, seasons),
+/// or for a date or timestamp a day, so `--horizon 30` reads rows at least thirty
+/// days older whatever the column's type. Timestamps count from 1970-01-01 UTC.
+#[derive(Debug, Clone, Copy, PartialEq, Default)]
+pub enum TimeUnits {
+    #[default]
+    Numbers,
+    Days,
+}
+
+impl TimeUnits {
+    /// The units of a column of type `d`; `None` for a type that is no time.
+    pub fn of(d: &DataType) -> Option<TimeUnits> {
+        match d {
+            d if d.is_numeric() => Some(TimeUnits::Numbers),
+            DataType::Null => Some(TimeUnits::Numbers),
+            DataType::Date32 | DataType::Date64 | DataType::Timestamp(_, _) => {
+                Some(TimeUnits::Days)
+            }
+            _ => None,
+        }
+    }
+
+    /// The SQL number of time units of the time expression `expr`.
+    pub fn number(self, expr: &str) -> String {
+        match self {
+            TimeUnits::Numbers => format!("CAST({expr} AS DOUBLE)"),
+            TimeUnits::Days => format!("(date_part('epoch', {expr}) / 86400.0)"),
+        }
+    }
 }
 
 /// What one output column of a key holds.
@@ -846,24 +880,21 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         (None, Some(Horizon::Units(_) | Horizon::Matched)) => Some("--horizon"),
         _ => None,
     };
+    let time_units = options
+        .time_column
+        .as_ref()
+        .and_then(|time| train.iter().find(|(n, _)| n == time))
+        .and_then(|(_, d)| TimeUnits::of(d));
     let time_range = match (timed, &options.time_column) {
         (Some(flag), Some(time)) => {
-            let numeric = train
-                .iter()
-                .any(|(n, d)| n == time && (d.is_numeric() || d == &DataType::Null));
-            if !numeric {
+            let Some(units) = time_units else {
                 return usage(format!(
-                    "{flag} needs a numeric --time-column (days, hours, ...); '{time}' is not"
+                    "{flag} needs a --time-column of numbers (days, hours, ...), dates or \
+                     timestamps (counted in days); '{time}' is neither"
                 ));
-            }
-            let b = one_row(
-                ctx,
-                &format!(
-                    "SELECT CAST(MIN({0}) AS DOUBLE), CAST(MAX({0}) AS DOUBLE) FROM {from}",
-                    quote(time)
-                ),
-            )
-            .await?;
+            };
+            let t = units.number(&quote(time));
+            let b = one_row(ctx, &format!("SELECT MIN({t}), MAX({t}) FROM {from}")).await?;
             let (oldest, newest) = (
                 b.column(0).as_primitive::<Float64Type>(),
                 b.column(1).as_primitive::<Float64Type>(),
@@ -894,6 +925,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
     let mut plan = EncodePlan {
         newest_time,
         oldest_time,
+        time_units: time_units.unwrap_or_default(),
         score_scale,
         options: options.clone(),
         family,
@@ -1051,20 +1083,26 @@ async fn scoring_horizon(ctx: &SessionContext, plan: &EncodePlan) -> Result<Opti
         );
     };
     let columns = columns_of(ctx, score).await?;
-    if !columns
+    let units = columns
         .iter()
-        .any(|(n, d)| n == time && (d.is_numeric() || d == &DataType::Null))
-    {
+        .find(|(n, _)| n == time)
+        .and_then(|(_, d)| TimeUnits::of(d));
+    if units != Some(plan.time_units) {
+        let kind = match plan.time_units {
+            TimeUnits::Numbers => "numbers",
+            TimeUnits::Days => "dates or timestamps",
+        };
         return usage(format!(
-            "--horizon matched needs the numeric --time-column '{time}' in the scoring table \
-             (the scored rows' times); give a number of time units instead"
+            "--horizon matched needs the --time-column '{time}' in the scoring table, of \
+             {kind} as in the training table (the scored rows' times); give a number of time \
+             units instead"
         ));
     }
     let b = one_row(
         ctx,
         &format!(
-            "SELECT CAST(median(GREATEST(CAST({} AS DOUBLE) - {newest}, 0.0)) AS DOUBLE) FROM {}",
-            quote(time),
+            "SELECT CAST(median(GREATEST({} - {newest}, 0.0)) AS DOUBLE) FROM {}",
+            plan.time_units.number(&quote(time)),
             datafusion::common::TableReference::from(score.as_str()).to_quoted_string()
         ),
     )

@@ -8,7 +8,7 @@
 //! as-of encodings have a posterior per row.
 
 use super::options::{Method, TimeTies, Treatment};
-use super::resolve::{EncodePlan, KeyPlan, OutputColumn};
+use super::resolve::{EncodePlan, KeyPlan, OutputColumn, TimeUnits};
 use super::{quote, text};
 use crate::layout::Kind;
 
@@ -81,34 +81,37 @@ pub(super) struct AsOfDecay {
 }
 
 impl AsOfDecay {
-    /// The growing weight of a row at time `time` (SQL).
+    /// The growing weight of a row at time `time` (SQL, a number of time units).
     pub fn growing_weight(&self, time: &str) -> String {
         let (oldest, h) = (self.oldest, self.half_life);
-        format!("power(2.0, (CAST({time} AS DOUBLE) - {oldest}) / {h})")
+        format!("power(2.0, ({time} - {oldest}) / {h})")
     }
 
-    /// Posterior `p`, a sum of growing-weighted fits, as seen from time `at` (SQL).
+    /// Posterior `p`, a sum of growing-weighted fits, as seen from time `at` (SQL, a
+    /// number of time units).
     pub fn aged(&self, p: &str, at: &str) -> String {
         let (oldest, h) = (self.oldest, self.half_life);
-        format!("posterior_scale({p}, power(2.0, -(CAST({at} AS DOUBLE) - {oldest}) / {h}))")
+        format!("posterior_scale({p}, power(2.0, -({at} - {oldest}) / {h}))")
     }
 }
 
 /// The window of as-of encodings over rows grouped per (level, time), ordered by
-/// `time`: every earlier time, or with a horizon every time at least that much
-/// older (a horizon is > 0, so rows never read their own time). With `first`, the
-/// rows of one time where it is 0 (rows that only read, with no data) come before
-/// the time's data, so they too read only earlier times.
+/// `time`: every earlier time (in the column's own order: numbers, dates, text), or
+/// with a horizon every time at least that much older, counted in `units` (a horizon
+/// is > 0, so rows never read their own time). With `first`, the rows of one time
+/// where it is 0 (rows that only read, with no data) come before the time's data, so
+/// they too read only earlier times.
 pub(super) fn as_of_window(
     level: &str,
-    time: &str,
+    (time, units): (&str, TimeUnits),
     first: Option<&str>,
     horizon: Option<f64>,
 ) -> String {
     let first = first.map(|f| format!(", {f}")).unwrap_or_default();
     match horizon {
         Some(h) => format!(
-            "OVER (PARTITION BY {level} ORDER BY CAST({time} AS DOUBLE) RANGE BETWEEN UNBOUNDED PRECEDING AND {h:?} PRECEDING)"
+            "OVER (PARTITION BY {level} ORDER BY {} RANGE BETWEEN UNBOUNDED PRECEDING AND {h:?} PRECEDING)",
+            units.number(time)
         ),
         None => format!(
             "OVER (PARTITION BY {level} ORDER BY {time}{first} ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)"
@@ -137,8 +140,8 @@ impl EncodePlan {
     pub(super) fn fit(&self, key: &KeyPlan) -> String {
         let weight = match (self.newest_time, key.half_life, &self.options.time_column) {
             (Some(newest), Some(h), Some(time)) => Some(format!(
-                "decay_weight({newest} - CAST(t.{} AS DOUBLE), {h})",
-                quote(time)
+                "decay_weight({newest} - {}, {h})",
+                self.time_number(&format!("t.{}", quote(time)))
             )),
             _ => None,
         };
@@ -153,11 +156,16 @@ impl EncodePlan {
             oldest: self.oldest_time?,
             half_life: key.half_life?,
         };
-        let time = format!("t.{}", quote(self.options.time_column.as_ref()?));
+        let time = self.time_number(&format!("t.{}", quote(self.options.time_column.as_ref()?)));
         Some((
             self.fit_with_weight(key, Some(&decay.growing_weight(&time))),
             decay,
         ))
+    }
+
+    /// The time expression `expr` (of `--time-column`) as a number of time units.
+    pub(super) fn time_number(&self, expr: &str) -> String {
+        self.time_units.number(expr)
     }
 
     /// The fit of the target over table alias `t` for `key`, each row weighted by
@@ -734,10 +742,10 @@ impl EncodePlan {
                 let time = quote(o.time_column.as_deref().unwrap_or_default());
                 let pooled = format!(
                     "posterior_pool(p) {}",
-                    as_of_window("level", "__time", None, key.horizon)
+                    as_of_window("level", ("__time", self.time_units), None, key.horizon)
                 );
                 let (fit, pooled) = match self.as_of_decay(key) {
-                    Some((fit, decay)) => (fit, decay.aged(&pooled, "__time")),
+                    Some((fit, decay)) => (fit, decay.aged(&pooled, &self.time_number("__time"))),
                     None => (fit.to_string(), pooled),
                 };
                 (
@@ -759,9 +767,10 @@ impl EncodePlan {
                     "OVER (PARTITION BY __k{i} ORDER BY t.{time}, t.__row ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)"
                 );
                 let window = match self.as_of_decay(key) {
-                    Some((fit, decay)) => {
-                        decay.aged(&format!("{fit} {over}"), &format!("t.{time}"))
-                    }
+                    Some((fit, decay)) => decay.aged(
+                        &format!("{fit} {over}"),
+                        &self.time_number(&format!("t.{time}")),
+                    ),
                     None => format!("{fit} {over}"),
                 };
                 (
@@ -837,12 +846,13 @@ impl EncodePlan {
         // A key's fit and the pooled window over the (level, time) grid, with the
         // key's own decay and horizon.
         let windowed = |k: &KeyPlan, column: &str| {
+            let time = ("__time", self.time_units);
             let pooled = format!(
                 "posterior_pool({column}) {}",
-                as_of_window("level", "__time", Some("__kind"), k.horizon)
+                as_of_window("level", time, Some("__kind"), k.horizon)
             );
             match self.as_of_decay(k) {
-                Some((fit, decay)) => (fit, decay.aged(&pooled, "__time")),
+                Some((fit, decay)) => (fit, decay.aged(&pooled, &self.time_number("__time"))),
                 None => (self.fit(k), pooled),
             }
         };

@@ -181,6 +181,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     let plan = EncodePlan {
         newest_time: None,
         oldest_time: None,
+        time_units: Default::default(),
         // The previous run's scoring rule carries over (every column has the same one).
         score_scale: stored.first().map_or(1.0, |c| c.score_scale),
         options: encode_options,

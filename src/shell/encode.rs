@@ -90,14 +90,15 @@ pub struct EncodeArgs {
     #[arg(long)]
     pub time_column: Option<String>,
     /// Recency weighting: a row this many time units older than the newest training row
-    /// (as-of encodings: than the row encoded) counts half (needs a numeric --time-column);
+    /// (as-of encodings: than the row encoded) counts half (a number, dates or timestamps
+    /// in days);
     /// `fitted` chooses it per key from the training rows (the latest fifth scored by fits
     /// of the rest).
     #[arg(long, value_name = "UNITS|fitted")]
     pub half_life: Option<String>,
     /// As-of encodings: training rows read only their level's rows at least this many
-    /// time units older, as scored rows that far past the training period do (needs a
-    /// numeric --time-column); `matched`: the --score rows' median time past the
+    /// time units older (days for dates and timestamps), as scored rows that far past the
+    /// training period do; `matched`: the --score rows' median time past the
     /// training rows; `none` (the default): every earlier time.
     #[arg(long, value_name = "UNITS|matched|none")]
     pub horizon: Option<String>,

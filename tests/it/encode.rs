@@ -658,6 +658,7 @@ fn snapshot_plan() -> posterity::encode::EncodePlan {
         family: Kind::Dirichlet,
         method: Method::Kfold,
         score_scale: 0.8,
+        time_units: Default::default(),
         classes: vec![
             "{y}".into(),
             "a\"b".into(),
@@ -1581,11 +1582,11 @@ async fn as_of_horizon_reads_only_rows_that_old() {
         (&["--horizon", "matched"], "--horizon matched needs --score"),
         (
             &["--horizon", "matched", "--score", no_time.to_str().unwrap()],
-            "--horizon matched needs the numeric --time-column 'day' in the scoring table",
+            "--horizon matched needs the --time-column 'day' in the scoring table, of numbers as in the training table",
         ),
         (
-            &["--horizon", "30", "--time-column", "booked_on"],
-            "--horizon needs a numeric --time-column (days, hours, ...); 'booked_on' is not",
+            &["--horizon", "30", "--time-column", "channel"],
+            "--horizon needs a --time-column of numbers (days, hours, ...), dates or timestamps (counted in days); 'channel' is neither",
         ),
     ] {
         let mut args = vec![
@@ -1622,6 +1623,112 @@ async fn as_of_horizon_reads_only_rows_that_old() {
         bad,
     ]);
     assert!(String::from_utf8_lossy(&o.stderr).contains("--horizon needs --time-column"));
+}
+
+// A date or timestamp --time-column counts time in days: the sample's `booked_on`
+// (a date, the same day as its `day` number) and a timestamp six hours into that
+// day give the encodings `day` gives, with recency weights, a horizon and a horizon
+// matched to scored rows' times; as-of encodings alone order any column (the date
+// as ISO text too); a time of another type is refused by name where units count.
+#[tokio::test]
+async fn dates_and_timestamps_count_time_in_days() {
+    let dir = temp_dir("time-in-days");
+    let ctx = SessionContext::new();
+    ctx.register_csv("a", &sample(), Default::default())
+        .await
+        .unwrap();
+    let (train, later) = (dir.join("train.parquet"), dir.join("later.parquet"));
+    for (file, rows) in [(&train, "day < 300"), (&later, "day >= 300")] {
+        let copy = format!(
+            "COPY (SELECT *, CAST(booked_on AS TIMESTAMP) + INTERVAL '6 hours' AS booked_at, \
+             CAST(booked_on AS VARCHAR) AS booked_text FROM a WHERE {rows}) TO '{}' STORED AS PARQUET",
+            file.display()
+        );
+        ctx.sql(&copy).await.unwrap().collect().await.unwrap();
+    }
+    let types = rows_of(&train).await.schema();
+    assert_eq!(
+        types.field_with_name("booked_on").unwrap().data_type(),
+        &DataType::Date32
+    );
+    assert!(matches!(
+        types.field_with_name("booked_at").unwrap().data_type(),
+        DataType::Timestamp(_, _)
+    ));
+    let (train, later) = (train.to_str().unwrap(), later.to_str().unwrap());
+    let days = ["day", "booked_on", "booked_at"];
+    let options: [(&[&str], &[&str]); 4] = [
+        (
+            &["--method", "time"],
+            &["day", "booked_on", "booked_at", "booked_text"],
+        ),
+        (&["--half-life", "30", "--method", "kfold"], &days),
+        (&["--half-life", "30", "--horizon", "7"], &days),
+        (&["--horizon", "matched", "--score", later], &days),
+    ];
+    for (n, (extra, times)) in options.into_iter().enumerate() {
+        let mut means = Vec::new();
+        for &time in times {
+            let out = dir.join(format!("{time}-{n}"));
+            let mut args = vec![
+                "--train",
+                train,
+                "--target",
+                "no_show",
+                "--columns",
+                "breed",
+            ];
+            args.extend(["--time-column", time, "--out", out.to_str().unwrap()]);
+            args.extend_from_slice(extra);
+            encode(&args);
+            let summary: serde_json::Value =
+                serde_json::from_str(&std::fs::read_to_string(out.join("summary.json")).unwrap())
+                    .unwrap();
+            let enc = out.join("train_encoded.parquet");
+            means.push((
+                time,
+                summary[0]["horizon"].clone(),
+                column(&enc, "breed_mean").await,
+            ));
+        }
+        let (_, horizon, by_day) = &means[0];
+        for (time, h, m) in &means[1..] {
+            assert_eq!(h, horizon, "{extra:?}: --time-column {time}");
+            let worst = by_day
+                .iter()
+                .zip(m)
+                .map(|(x, y)| (x - y).abs())
+                .fold(0.0, f64::max);
+            assert!(
+                worst < 1e-12,
+                "{extra:?}: --time-column {time} differs by {worst}"
+            );
+        }
+    }
+    let bad = dir.join("bad");
+    let o = encode_output(&[
+        "encode",
+        "--train",
+        train,
+        "--target",
+        "no_show",
+        "--columns",
+        "breed",
+        "--time-column",
+        "channel",
+        "--horizon",
+        "7",
+        "--out",
+        bad.to_str().unwrap(),
+    ]);
+    assert!(
+        String::from_utf8_lossy(&o.stderr).contains(
+            "--horizon needs a --time-column of numbers (days, hours, ...), dates or timestamps \
+             (counted in days); 'channel' is neither"
+        ),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
 }
 
 // Messy key text: with --normalize-keys, spellings that differ in case, white space

@@ -231,7 +231,7 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     ``readers=["mean", "sd"]`` (default ``["mean"]``, plus ``"sd"`` for a continuous key whose
     levels differ widely in spread; the summary's ``readers_reason`` says which), ``draws``, ``indicators``, ``indicator_min_rows``,
     ``treatment={"clinic": "levels"}``, ``hierarchy="postcode>district>region"`` (or a list of
-    such chains, finest first; k-fold encodings), ``score_evidence`` ("matched" or "full"),
+    such chains, finest first; k-fold and as-of encodings), ``score_evidence`` ("matched" or "full"),
     ``report=True`` (the HTML report: ``Encoded.report``, ``report.html``). The same
     inputs give the shell's numbers. With ``out``, the outputs are also written there.
     """
