@@ -102,9 +102,14 @@ fn f64_column(values: &[ArrayRef], i: usize) -> Result<Float64Array> {
         .clone())
 }
 
-/// Numeric and boolean inputs coerce to Float64; anything else is a plan error.
+/// Numeric and boolean inputs (also dictionary-encoded, as pandas' category dtype
+/// arrives) coerce to Float64; anything else is a plan error.
 fn numeric(function: &str, argument: &str, t: &DataType) -> Result<DataType> {
-    if t.is_numeric() || matches!(t, DataType::Boolean | DataType::Null) {
+    let values = match t {
+        DataType::Dictionary(_, values) => values.as_ref(),
+        t => t,
+    };
+    if values.is_numeric() || matches!(values, DataType::Boolean | DataType::Null) {
         Ok(DataType::Float64)
     } else {
         plan_err!("{function}: argument {argument} has type {t}; expected a number or boolean")

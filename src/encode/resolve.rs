@@ -509,6 +509,10 @@ pub(super) async fn check_target_values(
         .filter(|_| family != Kind::Dirichlet)
     {
         let numeric = columns.iter().any(|(n, d)| {
+            let d = match d {
+                DataType::Dictionary(_, values) => values.as_ref(),
+                d => d,
+            };
             n == name && (d.is_numeric() || matches!(d, DataType::Boolean | DataType::Null))
         });
         if !numeric {
@@ -626,6 +630,28 @@ pub(super) fn require_columns<'a>(
     Ok(())
 }
 
+/// Refuse a key column whose values have no text form (a struct, a map): a key's
+/// levels are its values' text.
+pub(super) fn require_key_types(
+    what: &str,
+    available: &[(String, DataType)],
+    keys: &[KeyPlan],
+) -> Result<()> {
+    for column in keys.iter().flat_map(|k| &k.columns) {
+        let Some((_, d)) = available.iter().find(|(n, _)| n == column) else {
+            continue;
+        };
+        if !datafusion::arrow::compute::can_cast_types(d, &DataType::Utf8View) {
+            return usage(format!(
+                "key column '{column}' of the {what} has type {d}, which has no text form; \
+                 allowed: text, numbers, booleans, dates and times (encode one field of it \
+                 as its own column)"
+            ));
+        }
+    }
+    Ok(())
+}
+
 /// The scoring table's columns, after checking that it has every key column.
 pub(super) async fn scoring_columns(
     ctx: &SessionContext,
@@ -641,6 +667,7 @@ pub(super) async fn scoring_columns(
         &columns,
         keys.iter().flat_map(KeyPlan::roles),
     )?;
+    require_key_types("scoring table", &columns, keys)?;
     Ok(columns.into_iter().map(|(n, _)| n).collect())
 }
 
@@ -702,6 +729,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
                     .map(|c| (c, "--exposure".to_string())),
             ),
     )?;
+    require_key_types("training table", &train, &keys)?;
     choose_treatments(ctx, options, &mut keys).await?;
     link_hierarchy(options, method, &mut keys)?;
     let score_columns = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
@@ -728,11 +756,17 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         .await?;
         Ok::<bool, EncodeError>(b.column(0).as_primitive::<Int64Type>().value(0) == 0)
     };
+    // A dictionary column (pandas' category dtype) is inferred from its values.
+    let values_type = match &target_type {
+        DataType::Dictionary(_, values) => values.as_ref(),
+        d => d,
+    };
     let family = match options.family {
         Some(f) => f,
-        None => match &target_type {
+        None => match values_type {
             DataType::Boolean => Kind::Beta,
-            d if d.is_integer() || d.is_floating() => match (binary().await?, d.is_integer()) {
+            // Decimals (amounts) are continuous unless they are all 0 or 1.
+            d if d.is_numeric() => match (binary().await?, d.is_integer()) {
                 (true, _) => Kind::Beta,
                 (false, true) => Kind::Gamma,
                 (false, false) => Kind::Nig,

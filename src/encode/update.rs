@@ -163,6 +163,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
                     .map(|c| (c, "--exposure".to_string())),
             ),
     )?;
+    super::resolve::require_key_types("table of new rows", &train, &keys)?;
     check_target_values(
         ctx,
         (&options.train, &train),

@@ -1731,6 +1731,83 @@ async fn dates_and_timestamps_count_time_in_days() {
     );
 }
 
+// Column types users bring (Parquet from other tools, pandas' category dtype): a
+// decimal amount is continuous, a dictionary-encoded class or 0/1 column is read by
+// its values, each giving the encodings of its plain column; a key with no text form
+// (a struct, a map) is refused by name.
+#[tokio::test]
+async fn decimal_and_dictionary_columns_encode_as_their_values() {
+    let dir = temp_dir("column-types");
+    let ctx = SessionContext::new();
+    ctx.register_csv("a", &sample(), Default::default())
+        .await
+        .unwrap();
+    let typed = dir.join("typed.parquet");
+    let copy = format!(
+        "COPY (SELECT breed, amount, outcome, no_show, CAST(amount AS DECIMAL(10, 2)) AS amount_d, \
+         arrow_cast(outcome, 'Dictionary(Int32, Utf8)') AS outcome_d, \
+         arrow_cast(no_show, 'Dictionary(Int32, Int64)') AS no_show_d, \
+         named_struct('name', breed) AS breed_s FROM a) TO '{}' STORED AS PARQUET",
+        typed.display()
+    );
+    ctx.sql(&copy).await.unwrap().collect().await.unwrap();
+    let typed = typed.to_str().unwrap();
+    for (plain, typed_target, family, reader) in [
+        ("amount", "amount_d", "nig", "breed_mean"),
+        ("outcome", "outcome_d", "dirichlet", "breed_no_show_mean"),
+        ("no_show", "no_show_d", "beta", "breed_mean"),
+    ] {
+        let mut means = Vec::new();
+        for target in [plain, typed_target] {
+            let out = dir.join(target);
+            let o = out.to_str().unwrap();
+            encode(&[
+                "--train",
+                typed,
+                "--target",
+                target,
+                "--columns",
+                "breed",
+                "--out",
+                o,
+            ]);
+            let summary: serde_json::Value =
+                serde_json::from_str(&std::fs::read_to_string(out.join("summary.json")).unwrap())
+                    .unwrap();
+            assert_eq!(summary[0]["family"], family, "{target}: {summary}");
+            means.push(column(&out.join("train_encoded.parquet"), reader).await);
+        }
+        let worst = means[0]
+            .iter()
+            .zip(&means[1])
+            .map(|(x, y)| (x - y).abs())
+            .fold(0.0, f64::max);
+        assert!(
+            worst < 1e-12,
+            "{typed_target} differs from {plain} by {worst}"
+        );
+    }
+    let bad = dir.join("bad");
+    let o = encode_output(&[
+        "encode",
+        "--train",
+        typed,
+        "--target",
+        "no_show",
+        "--columns",
+        "breed_s",
+        "--out",
+        bad.to_str().unwrap(),
+    ]);
+    let stderr = String::from_utf8_lossy(&o.stderr);
+    assert_eq!(o.status.code(), Some(2), "{stderr}");
+    assert!(
+        stderr.contains("key column 'breed_s' of the training table has type Struct(")
+            && stderr.contains("which has no text form; allowed: text, numbers, booleans"),
+        "{stderr}"
+    );
+}
+
 // Messy key text: with --normalize-keys, spellings that differ in case, white space
 // or Unicode compatibility form (full-width letters, non-breaking spaces) are one
 // level, the merge is reported, and the bundle scores raw spellings the same way.
