@@ -268,9 +268,9 @@ def test_pandas_and_polars_in_and_out(tmp_path):
 
 
 def test_pandas_dates_and_categories():
-    """What a pandas user has: keys as the category dtype and the time as datetime64
-    (here in UTC, six hours into the day). Days count as the numeric day does; the bundle scores
-    category keys as text."""
+    """What a pandas user has: keys and targets as the category dtype and the time as
+    datetime64 (here in UTC, six hours into the day). Days count as the numeric day does;
+    the bundle scores category keys as text."""
     frame = pd.read_csv(SAMPLE, dtype={"breed": "string"})
     by_day = posterity.encode(frame, target="no_show", columns=["breed"], time_column="day",
                               half_life=30, horizon=7)
@@ -285,6 +285,13 @@ def test_pandas_dates_and_categories():
     assert by_date.summary[0]["horizon"] == 7
     scored = by_date.bundle.score(typed.head(50))
     assert scored["breed_mean"].tolist() == by_day.bundle.score(frame.head(50))["breed_mean"].tolist()
+    # A category target is read by its values: text classes, or 0/1.
+    classes = posterity.encode(typed.assign(outcome=typed["outcome"].astype("category")),
+                               target="outcome", columns=["breed"])
+    assert classes.summary[0]["family"] == "dirichlet"
+    flags = posterity.encode(typed.assign(no_show=typed["no_show"].astype("category")),
+                             target="no_show", columns=["breed"])
+    assert flags.summary[0]["family"] == "beta"
 
 
 def test_key_types_nulls_and_empty():

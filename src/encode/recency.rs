@@ -157,7 +157,7 @@ pub(super) async fn fit_half_life(
         "the latest fifth of training rows ({rows} rows from {} = {}) scored by fits of the \
          earlier ones, read through a line fitted on those rows' {} encodings",
         plan.options.time_column.as_deref().unwrap_or_default(),
-        short(cut.at),
+        plan.time_units.show_time(cut.at),
         match design {
             Design::OutOfFold => "out-of-fold",
             Design::AsOf { .. } => "as-of",
@@ -169,7 +169,7 @@ pub(super) async fn fit_half_life(
             format!(
                 "half-life {} fitted: {scored}; mean loss {} against {} without recency weights \
                  (standard error of the difference {})",
-                short(h),
+                plan.time_units.show(h),
                 short(base + d),
                 short(base),
                 short(se)
@@ -180,8 +180,9 @@ pub(super) async fn fit_half_life(
             format!(
                 "no half-life: {scored}; no half-life from {} to {} beat no recency weights \
                  (mean loss {}) by more than a standard error",
-                short(FRACTIONS[0] * cut.span),
-                short(FRACTIONS[FRACTIONS.len() - 1] * cut.span),
+                plan.time_units.show(FRACTIONS[0] * cut.span),
+                plan.time_units
+                    .show(FRACTIONS[FRACTIONS.len() - 1] * cut.span),
                 short(base)
             ),
         ),

@@ -163,6 +163,33 @@ impl TimeUnits {
         }
     }
 
+    /// An amount of time for a message: `7`, or `7 days`.
+    pub fn show(self, amount: f64) -> String {
+        match self {
+            TimeUnits::Numbers => crate::render::short(amount),
+            TimeUnits::Days => format!("{} days", crate::render::short(amount)),
+        }
+    }
+
+    /// A point in time for a message: the number, or the UTC date (and time of day
+    /// when it has one).
+    pub fn show_time(self, t: f64) -> String {
+        let seconds = (t * 86400.0).round();
+        let when = match self {
+            TimeUnits::Days if seconds.abs() < 1e15 => {
+                datafusion::arrow::array::temporal_conversions::timestamp_s_to_datetime(
+                    seconds as i64,
+                )
+            }
+            _ => None,
+        };
+        match when {
+            Some(w) if seconds % 86400.0 == 0.0 => w.date().to_string(),
+            Some(w) => w.to_string(),
+            None => crate::render::short(t),
+        }
+    }
+
     /// The SQL number of time units of the time expression `expr`.
     pub fn number(self, expr: &str) -> String {
         match self {
@@ -1073,14 +1100,14 @@ async fn choose_reading(ctx: &SessionContext, plan: &mut EncodePlan) -> Result<(
         let (horizon, why) = match (plan.options.horizon, matched) {
             (Some(Horizon::Units(h)), _) => (
                 Some(h),
-                format!("horizon {} (--horizon)", crate::render::short(h)),
+                format!("horizon {} (--horizon)", plan.time_units.show(h)),
             ),
             (_, Some(Some(h))) => (
                 Some(h),
                 format!(
                     "horizon {}: the scored rows' median time past the newest training row \
                      (--horizon matched)",
-                    crate::render::short(h)
+                    plan.time_units.show(h)
                 ),
             ),
             (_, Some(None)) => (

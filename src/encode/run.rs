@@ -343,8 +343,8 @@ pub(super) async fn finish(
                     "the horizon of {} ({}) is at least the training period ({}): every training \
                      row reads the prior",
                     key.name,
-                    crate::render::short(h),
-                    crate::render::short(newest - oldest)
+                    plan.time_units.show(h),
+                    plan.time_units.show(newest - oldest)
                 ));
             }
         }

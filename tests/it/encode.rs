@@ -1684,6 +1684,12 @@ async fn dates_and_timestamps_count_time_in_days() {
             let summary: serde_json::Value =
                 serde_json::from_str(&std::fs::read_to_string(out.join("summary.json")).unwrap())
                     .unwrap();
+            // Messages give dates' horizons in days.
+            let reason = summary[0]["horizon_reason"].as_str().unwrap_or_default();
+            if extra.contains(&"7") {
+                let want = ["horizon 7 (--horizon)", "horizon 7 days (--horizon)"];
+                assert_eq!(reason, want[usize::from(time != "day")], "{time}");
+            }
             let enc = out.join("train_encoded.parquet");
             means.push((
                 time,
