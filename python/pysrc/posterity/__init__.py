@@ -226,8 +226,9 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     pandas or a polars DataFrame. The options are the shell's ``encode`` flags with
     underscores: ``interactions=[["breed", "clinic"]]``, ``family``, ``prior`` ("fitted",
     "jeffreys", "uniform" or numbers), ``method`` ("kfold" or "time"), ``folds``, ``seed``,
-    ``time_column``, ``half_life`` (time units, or "fitted": chosen per key), ``horizon`` (time
-    units, "matched": from ``score``'s times, or "none"), ``normalize_keys``, ``time_ties``, ``exposure``,
+    ``time_column`` (numbers, or dates and datetimes, whose half-lives and horizons count
+    days), ``half_life`` (time units, or "fitted": chosen per key), ``horizon`` (time units,
+    "matched": from ``score``'s times, or "none"), ``normalize_keys``, ``time_ties``, ``exposure``,
     ``readers=["mean", "sd"]`` (default ``["mean"]``, plus ``"sd"`` for a continuous key whose
     levels differ widely in spread; the summary's ``readers_reason`` says which), ``draws``, ``indicators``, ``indicator_min_rows``,
     ``treatment={"clinic": "levels"}``, ``hierarchy="postcode>district>region"`` (or a list of
