@@ -231,6 +231,11 @@ async fn main() {
         ("oof5", "5-fold out-of-fold fit + join back + mean", "WITH f AS (SELECT key, y, fold_of(key, 5) AS fold FROM t), tot AS (SELECT key, beta_posterior(y) AS p FROM f GROUP BY key), per AS (SELECT key, fold, beta_posterior(y) AS p FROM f GROUP BY key, fold) SELECT SUM(posterior_mean(posterior_subtract(tot.p, per.p))) FROM f JOIN tot USING (key) JOIN per ON per.key = f.key AND per.fold = f.fold"),
         ("quantiles", "quantile(0.05) over the encoding table", "SELECT SUM(posterior_quantile(p, 0.05)) FROM enc"),
         ("fit_prior", "fit_prior (beta-binomial) over the encoding table", "SELECT fit_prior(p) FROM enc"),
+        // Pooling (as-of encodings pool per-(level, time) fits in a running window).
+        ("pool_engine", "engine: per-(key, key2) COUNT/SUM, summed per key", "SELECT key, SUM(n), SUM(s) FROM (SELECT key, key2, COUNT(*) AS n, SUM(y) AS s FROM t GROUP BY key, key2) GROUP BY key"),
+        ("pool", "posterior_pool of per-(key, key2) fits, per key", "SELECT key, posterior_pool(p) FROM (SELECT key, key2, beta_posterior(y) AS p FROM t GROUP BY key, key2) GROUP BY key"),
+        ("pool_window_engine", "engine: running SUM windows over per-(key, key2) counts", "SELECT SUM(m) FROM (SELECT (COALESCE(SUM(s) OVER w, 0) + 0.5) / (COALESCE(SUM(n) OVER w, 0) + 1.0) AS m FROM (SELECT key, key2, COUNT(*) AS n, SUM(y) AS s FROM t GROUP BY key, key2) WINDOW w AS (PARTITION BY key ORDER BY key2 ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING))"),
+        ("pool_window", "running posterior_pool window (as-of) + posterior_mean", "SELECT SUM(m) FROM (SELECT posterior_mean(COALESCE(posterior_pool(p) OVER (PARTITION BY key ORDER BY key2 ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING), beta_prior(0.5, 0.5))) AS m FROM (SELECT key, key2, beta_posterior(y) AS p FROM t GROUP BY key, key2))"),
     ];
     let mut json = vec![format!("\"baseline\": {baseline}")];
     println!("| query | seconds | ratio to COUNT/SUM group-by |");

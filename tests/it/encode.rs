@@ -87,6 +87,15 @@ async fn column(path: &Path, name: &str) -> Vec<f64> {
     out
 }
 
+/// The largest absolute difference between two columns of the same rows.
+fn largest_difference(a: &[f64], b: &[f64]) -> f64 {
+    assert_eq!(a.len(), b.len(), "the columns have different lengths");
+    a.iter()
+        .zip(b)
+        .map(|(x, y)| (x - y).abs())
+        .fold(0.0, f64::max)
+}
+
 fn corr(x: &[f64], y: &[f64]) -> f64 {
     let n = x.len() as f64;
     let (mx, my) = (x.iter().sum::<f64>() / n, y.iter().sum::<f64>() / n);
@@ -321,6 +330,24 @@ fn encode_output(args: &[&str]) -> std::process::Output {
         .args(args)
         .output()
         .unwrap()
+}
+
+/// The message of an encode run with `args` that must be refused as a usage error.
+fn encode_refusal(args: &[&str]) -> String {
+    let o = encode_output(&[&["encode"], args].concat());
+    let stderr = String::from_utf8_lossy(&o.stderr).into_owned();
+    assert_eq!(o.status.code(), Some(2), "{args:?}: {stderr}");
+    stderr
+}
+
+/// The rows of `select` over the sample (table `a`) written to the Parquet `file`.
+async fn sample_to_parquet(select: &str, file: &Path) {
+    let ctx = SessionContext::new();
+    ctx.register_csv("a", &sample(), Default::default())
+        .await
+        .unwrap();
+    let copy = format!("COPY ({select}) TO '{}' STORED AS PARQUET", file.display());
+    ctx.sql(&copy).await.unwrap().collect().await.unwrap();
 }
 
 /// Text column `name` of a Parquet file, in file order.
@@ -1633,18 +1660,13 @@ async fn as_of_horizon_reads_only_rows_that_old() {
 #[tokio::test]
 async fn dates_and_timestamps_count_time_in_days() {
     let dir = temp_dir("time-in-days");
-    let ctx = SessionContext::new();
-    ctx.register_csv("a", &sample(), Default::default())
-        .await
-        .unwrap();
     let (train, later) = (dir.join("train.parquet"), dir.join("later.parquet"));
     for (file, rows) in [(&train, "day < 300"), (&later, "day >= 300")] {
-        let copy = format!(
-            "COPY (SELECT *, CAST(booked_on AS TIMESTAMP) + INTERVAL '6 hours' AS booked_at, \
-             CAST(booked_on AS VARCHAR) AS booked_text FROM a WHERE {rows}) TO '{}' STORED AS PARQUET",
-            file.display()
+        let select = format!(
+            "SELECT *, CAST(booked_on AS TIMESTAMP) + INTERVAL '6 hours' AS booked_at, \
+             CAST(booked_on AS VARCHAR) AS booked_text FROM a WHERE {rows}"
         );
-        ctx.sql(&copy).await.unwrap().collect().await.unwrap();
+        sample_to_parquet(&select, file).await;
     }
     let types = rows_of(&train).await.schema();
     assert_eq!(
@@ -1656,6 +1678,14 @@ async fn dates_and_timestamps_count_time_in_days() {
         DataType::Timestamp(_, _)
     ));
     let (train, later) = (train.to_str().unwrap(), later.to_str().unwrap());
+    let breed = [
+        "--train",
+        train,
+        "--target",
+        "no_show",
+        "--columns",
+        "breed",
+    ];
     let days = ["day", "booked_on", "booked_at"];
     let options: [(&[&str], &[&str]); 4] = [
         (
@@ -1670,14 +1700,7 @@ async fn dates_and_timestamps_count_time_in_days() {
         let mut means = Vec::new();
         for &time in times {
             let out = dir.join(format!("{time}-{n}"));
-            let mut args = vec![
-                "--train",
-                train,
-                "--target",
-                "no_show",
-                "--columns",
-                "breed",
-            ];
+            let mut args = breed.to_vec();
             args.extend(["--time-column", time, "--out", out.to_str().unwrap()]);
             args.extend_from_slice(extra);
             encode(&args);
@@ -1700,11 +1723,7 @@ async fn dates_and_timestamps_count_time_in_days() {
         let (_, horizon, by_day) = &means[0];
         for (time, h, m) in &means[1..] {
             assert_eq!(h, horizon, "{extra:?}: --time-column {time}");
-            let worst = by_day
-                .iter()
-                .zip(m)
-                .map(|(x, y)| (x - y).abs())
-                .fold(0.0, f64::max);
+            let worst = largest_difference(by_day, m);
             assert!(
                 worst < 1e-12,
                 "{extra:?}: --time-column {time} differs by {worst}"
@@ -1712,28 +1731,18 @@ async fn dates_and_timestamps_count_time_in_days() {
         }
     }
     let bad = dir.join("bad");
-    let o = encode_output(&[
-        "encode",
-        "--train",
-        train,
-        "--target",
-        "no_show",
-        "--columns",
-        "breed",
-        "--time-column",
-        "channel",
-        "--horizon",
-        "7",
-        "--out",
-        bad.to_str().unwrap(),
-    ]);
+    let (bad, time) = (bad.to_str().unwrap(), "channel");
+    let refused = [
+        &breed[..],
+        &["--time-column", time, "--horizon", "7", "--out", bad],
+    ];
+    let stderr = encode_refusal(&refused.concat());
     assert!(
-        String::from_utf8_lossy(&o.stderr).contains(
+        stderr.contains(
             "--horizon needs a --time-column of numbers (days, hours, ...), dates or timestamps \
              (counted in days); 'channel' is neither"
         ),
-        "{}",
-        String::from_utf8_lossy(&o.stderr)
+        "{stderr}"
     );
 }
 
@@ -1744,19 +1753,13 @@ async fn dates_and_timestamps_count_time_in_days() {
 #[tokio::test]
 async fn decimal_and_dictionary_columns_encode_as_their_values() {
     let dir = temp_dir("column-types");
-    let ctx = SessionContext::new();
-    ctx.register_csv("a", &sample(), Default::default())
-        .await
-        .unwrap();
     let typed = dir.join("typed.parquet");
-    let copy = format!(
-        "COPY (SELECT breed, amount, outcome, no_show, CAST(amount AS DECIMAL(10, 2)) AS amount_d, \
+    let select =
+        "SELECT breed, amount, outcome, no_show, CAST(amount AS DECIMAL(10, 2)) AS amount_d, \
          arrow_cast(outcome, 'Dictionary(Int32, Utf8)') AS outcome_d, \
          arrow_cast(no_show, 'Dictionary(Int32, Int64)') AS no_show_d, \
-         named_struct('name', breed) AS breed_s FROM a) TO '{}' STORED AS PARQUET",
-        typed.display()
-    );
-    ctx.sql(&copy).await.unwrap().collect().await.unwrap();
+         named_struct('name', breed) AS breed_s FROM a";
+    sample_to_parquet(select, &typed).await;
     let typed = typed.to_str().unwrap();
     for (plain, typed_target, family, reader) in [
         ("amount", "amount_d", "nig", "breed_mean"),
@@ -1783,19 +1786,14 @@ async fn decimal_and_dictionary_columns_encode_as_their_values() {
             assert_eq!(summary[0]["family"], family, "{target}: {summary}");
             means.push(column(&out.join("train_encoded.parquet"), reader).await);
         }
-        let worst = means[0]
-            .iter()
-            .zip(&means[1])
-            .map(|(x, y)| (x - y).abs())
-            .fold(0.0, f64::max);
+        let worst = largest_difference(&means[0], &means[1]);
         assert!(
             worst < 1e-12,
             "{typed_target} differs from {plain} by {worst}"
         );
     }
     let bad = dir.join("bad");
-    let o = encode_output(&[
-        "encode",
+    let stderr = encode_refusal(&[
         "--train",
         typed,
         "--target",
@@ -1805,8 +1803,6 @@ async fn decimal_and_dictionary_columns_encode_as_their_values() {
         "--out",
         bad.to_str().unwrap(),
     ]);
-    let stderr = String::from_utf8_lossy(&o.stderr);
-    assert_eq!(o.status.code(), Some(2), "{stderr}");
     assert!(
         stderr.contains("key column 'breed_s' of the training table has type Struct(")
             && stderr.contains("which has no text form; allowed: text, numbers, booleans"),
