@@ -102,14 +102,25 @@ fn f64_column(values: &[ArrayRef], i: usize) -> Result<Float64Array> {
         .clone())
 }
 
-/// Numeric and boolean inputs (also dictionary-encoded, as pandas' category dtype
-/// arrives) coerce to Float64; anything else is a plan error.
-fn numeric(function: &str, argument: &str, t: &DataType) -> Result<DataType> {
-    let values = match t {
+/// The type of a column's values: a dictionary-encoded column (as pandas' category
+/// dtype arrives) by its values, any other as it is.
+pub(crate) fn values_type(t: &DataType) -> &DataType {
+    match t {
         DataType::Dictionary(_, values) => values.as_ref(),
         t => t,
-    };
-    if values.is_numeric() || matches!(values, DataType::Boolean | DataType::Null) {
+    }
+}
+
+/// Whether the fits take a column of type `t` as numbers: numeric and boolean
+/// values, also dictionary-encoded.
+pub(crate) fn is_number(t: &DataType) -> bool {
+    let values = values_type(t);
+    values.is_numeric() || matches!(values, DataType::Boolean | DataType::Null)
+}
+
+/// Inputs the fits take as numbers coerce to Float64; anything else is a plan error.
+fn numeric(function: &str, argument: &str, t: &DataType) -> Result<DataType> {
+    if is_number(t) {
         Ok(DataType::Float64)
     } else {
         plan_err!("{function}: argument {argument} has type {t}; expected a number or boolean")

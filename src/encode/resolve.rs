@@ -535,13 +535,9 @@ pub(super) async fn check_target_values(
         .chain(exposure.map(|x| (format!("--exposure '{x}'"), x, "")))
         .filter(|_| family != Kind::Dirichlet)
     {
-        let numeric = columns.iter().any(|(n, d)| {
-            let d = match d {
-                DataType::Dictionary(_, values) => values.as_ref(),
-                d => d,
-            };
-            n == name && (d.is_numeric() || matches!(d, DataType::Boolean | DataType::Null))
-        });
+        let numeric = columns
+            .iter()
+            .any(|(n, d)| n == name && crate::fit::is_number(d));
         if !numeric {
             return usage(format!(
                 "{what} is not numeric; the {} family needs numbers{hint}",
@@ -783,14 +779,10 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         .await?;
         Ok::<bool, EncodeError>(b.column(0).as_primitive::<Int64Type>().value(0) == 0)
     };
-    // A dictionary column (pandas' category dtype) is inferred from its values.
-    let values_type = match &target_type {
-        DataType::Dictionary(_, values) => values.as_ref(),
-        d => d,
-    };
     let family = match options.family {
         Some(f) => f,
-        None => match values_type {
+        // A dictionary column (pandas' category dtype) is inferred from its values.
+        None => match crate::fit::values_type(&target_type) {
             DataType::Boolean => Kind::Beta,
             // Decimals (amounts) are continuous unless they are all 0 or 1.
             d if d.is_numeric() => match (binary().await?, d.is_integer()) {

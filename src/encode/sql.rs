@@ -163,6 +163,20 @@ impl EncodePlan {
         ))
     }
 
+    /// Key `k`'s fit (weighted by its half-life, if any) and the as-of pooled window
+    /// of `column` over the rows' `level, __time` (`as_of_window` with `first`), aged
+    /// to each row's time.
+    fn as_of_pooled(&self, k: &KeyPlan, column: &str, first: Option<&str>) -> (String, String) {
+        let pooled = format!(
+            "posterior_pool({column}) {}",
+            as_of_window("level", ("__time", self.time_units), first, k.horizon)
+        );
+        match self.as_of_decay(k) {
+            Some((fit, decay)) => (fit, decay.aged(&pooled, &self.time_number("__time"))),
+            None => (self.fit(k), pooled),
+        }
+    }
+
     /// The time expression `expr` (of `--time-column`) as a number of time units.
     pub(super) fn time_number(&self, expr: &str) -> String {
         self.time_units.number(expr)
@@ -740,14 +754,7 @@ impl EncodePlan {
             }
             (Method::Time, TimeTies::Strict, _) => {
                 let time = quote(o.time_column.as_deref().unwrap_or_default());
-                let pooled = format!(
-                    "posterior_pool(p) {}",
-                    as_of_window("level", ("__time", self.time_units), None, key.horizon)
-                );
-                let (fit, pooled) = match self.as_of_decay(key) {
-                    Some((fit, decay)) => (fit, decay.aged(&pooled, &self.time_number("__time"))),
-                    None => (fit.to_string(), pooled),
-                };
+                let (fit, pooled) = self.as_of_pooled(key, "p", None);
                 (
                     "as-of",
                     format!(
@@ -843,19 +850,8 @@ impl EncodePlan {
     fn as_of_in_hierarchy(&self, i: usize, key: &KeyPlan) -> (&'static str, String, String) {
         let time = quote(self.options.time_column.as_deref().unwrap_or_default());
         let prior = format!("__prior{i}");
-        // A key's fit and the pooled window over the (level, time) grid, with the
-        // key's own decay and horizon.
-        let windowed = |k: &KeyPlan, column: &str| {
-            let time = ("__time", self.time_units);
-            let pooled = format!(
-                "posterior_pool({column}) {}",
-                as_of_window("level", time, Some("__kind"), k.horizon)
-            );
-            match self.as_of_decay(k) {
-                Some((fit, decay)) => (fit, decay.aged(&pooled, &self.time_number("__time"))),
-                None => (self.fit(k), pooled),
-            }
-        };
+        // Probe rows (`__kind` 0) come before a time's data.
+        let windowed = |k: &KeyPlan, column: &str| self.as_of_pooled(k, column, Some("__kind"));
         let (fit, pooled) = windowed(key, "p");
         let (mut data, mut pooled, mut joins) = (
             vec![format!("{fit} AS p")],

@@ -107,7 +107,6 @@ pub fn centred_terms(x: f64, w: f64, c: f64) -> Result<[Dd; 3]> {
     let x = check_value(x)?;
     let w = weight("weight", w)?;
     let d = x - c;
-    let d2 = two_prod(d, d);
     // Its square (and a sum of many) must stay finite.
     if d.abs() >= 1e150 {
         return Err(FamilyError::InvalidObservation {
@@ -116,6 +115,7 @@ pub fn centred_terms(x: f64, w: f64, c: f64) -> Result<[Dd; 3]> {
             allowed: "a number within 1e150 of the prior mean",
         });
     }
+    let d2 = two_prod(d, d);
     let wd2 = if w == 1.0 {
         d2
     } else {
