@@ -1071,7 +1071,6 @@ fn targets_outside_the_family_are_refused_by_name() {
         ),
     ] {
         let mut all = vec![
-            "encode",
             "--train",
             train,
             "--columns",
@@ -1080,9 +1079,7 @@ fn targets_outside_the_family_are_refused_by_name() {
             out.to_str().unwrap(),
         ];
         all.extend(args.iter().copied());
-        let o = encode_output(&all);
-        let stderr = String::from_utf8_lossy(&o.stderr);
-        assert_eq!(o.status.code(), Some(2), "{args:?}: {stderr}");
+        let stderr = encode_refusal(&all);
         for f in fragments {
             assert!(stderr.contains(f), "{args:?}: {stderr}");
         }
@@ -1617,7 +1614,6 @@ async fn as_of_horizon_reads_only_rows_that_old() {
         ),
     ] {
         let mut args = vec![
-            "encode",
             "--train",
             &sample,
             "--target",
@@ -1631,9 +1627,7 @@ async fn as_of_horizon_reads_only_rows_that_old() {
             args.extend(["--time-column", "day"]);
         }
         args.extend_from_slice(extra);
-        let o = encode_output(&args);
-        let stderr = String::from_utf8_lossy(&o.stderr);
-        assert_eq!(o.status.code(), Some(2), "{extra:?}: {stderr}");
+        let stderr = encode_refusal(&args);
         assert!(stderr.contains(expected), "{extra:?}: {stderr}");
     }
     let o = encode_output(&[
