@@ -962,7 +962,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
                 ));
             }
             if let (Method::Time, Some(HalfLife::Units(h))) = (method, options.half_life) {
-                check_as_of_half_life(h, newest - oldest)?;
+                check_as_of_half_life(h, newest - oldest, units)?;
             }
             Some((oldest, newest))
         }
@@ -1170,14 +1170,18 @@ async fn scoring_horizon(ctx: &SessionContext, plan: &EncodePlan) -> Result<Opti
 /// rows 2^(period / half-life) times the oldest, which must stay a finite number.
 const MAX_AS_OF_HALF_LIVES: f64 = 1000.0;
 
-fn check_as_of_half_life(h: f64, period: f64) -> Result<()> {
+fn check_as_of_half_life(h: f64, period: f64, units: TimeUnits) -> Result<()> {
     if period / h > MAX_AS_OF_HALF_LIVES {
+        let period_shown = match units {
+            TimeUnits::Numbers => format!("{} time units", crate::render::short(period)),
+            TimeUnits::Days => units.show(period),
+        };
         return usage(format!(
-            "--half-life {h} is out of range for as-of encodings over a training period of {} \
-             time units; allowed: at least {} (1/{MAX_AS_OF_HALF_LIVES} of the period), or \
+            "--half-life {} is out of range for as-of encodings over a training period of \
+             {period_shown}; allowed: at least {} (1/{MAX_AS_OF_HALF_LIVES} of the period), or \
              --method kfold",
-            crate::render::short(period),
-            crate::render::short(period / MAX_AS_OF_HALF_LIVES)
+            crate::render::short(h),
+            units.show(period / MAX_AS_OF_HALF_LIVES)
         ));
     }
     Ok(())

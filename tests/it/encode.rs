@@ -1738,6 +1738,18 @@ async fn dates_and_timestamps_count_time_in_days() {
         ),
         "{stderr}"
     );
+    // An as-of half-life too short for the period is refused in days too.
+    let short = [
+        &breed[..],
+        &["--time-column", "booked_on", "--half-life", "0.01"],
+        &["--method", "time", "--out", bad],
+    ];
+    let stderr = encode_refusal(&short.concat());
+    assert!(
+        stderr.contains("--half-life 0.01 is out of range for as-of encodings over a training period of 29")
+            && stderr.contains(" days; allowed: at least 0.29"),
+        "{stderr}"
+    );
 }
 
 // Column types users bring (Parquet from other tools, pandas' category dtype): a
