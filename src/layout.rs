@@ -73,8 +73,17 @@ impl Kind {
         }
     }
 
-    /// The canonical Arrow type of this family's posterior.
+    /// The canonical Arrow type of this family's posterior. Built once per family:
+    /// a running window asks for it for every row it evaluates.
     pub fn data_type(self) -> DataType {
+        static TYPES: std::sync::OnceLock<[DataType; 4]> = std::sync::OnceLock::new();
+        let types = TYPES.get_or_init(|| {
+            [Kind::Beta, Kind::Gamma, Kind::Nig, Kind::Dirichlet].map(Kind::build_data_type)
+        });
+        types[self as usize].clone()
+    }
+
+    fn build_data_type(self) -> DataType {
         let float_fields = |names: &[&str]| {
             Fields::from(
                 names
@@ -395,10 +404,14 @@ impl PosteriorColumn {
                 .cloned()
                 .ok_or_else(|| exec_datafusion_err!("{function}: field {name} missing"))
         };
+        // Cast only what is not already in the canonical layout: a window frame
+        // decodes a column of one row per row it evaluates.
+        let as_type = |name: &str, to: &DataType| -> Result<ArrayRef> {
+            let c = column(name)?;
+            Ok(if c.data_type() == to { c } else { cast(&c, to)? })
+        };
         let as_f64 = |name: &str| -> Result<Float64Array> {
-            Ok(cast(&column(name)?, &DataType::Float64)?
-                .as_primitive()
-                .clone())
+            Ok(as_type(name, &DataType::Float64)?.as_primitive().clone())
         };
         let names: &[&str] = match kind {
             Kind::Beta => &BETA_FIELDS,
@@ -412,9 +425,7 @@ impl PosteriorColumn {
             .collect::<Result<Vec<_>>>()?;
         let lists = if kind == Kind::Dirichlet {
             let list = |name: &str, item: DataType| -> Result<ListArray> {
-                Ok(cast(&column(name)?, &list_of(item))?
-                    .as_list::<i32>()
-                    .clone())
+                Ok(as_type(name, &list_of(item))?.as_list::<i32>().clone())
             };
             Some((
                 list("classes", DataType::Utf8)?,

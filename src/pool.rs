@@ -298,7 +298,11 @@ impl Accumulator for PoolAccumulator {
     }
 
     fn evaluate(&mut self) -> Result<ScalarValue> {
-        ScalarValue::try_from_array(&self.0.posteriors(&self.one())?, 0)
+        // A running window evaluates once per row: wrap the one-row column as it
+        // is rather than slicing a copy of it.
+        let pooled = self.0.pooled.first().and_then(Option::as_ref);
+        let column = build(self.0.kind, &[pooled.map(Pooled::posterior)])?;
+        Ok(ScalarValue::Struct(Arc::new(column.as_struct().clone())))
     }
 
     fn size(&self) -> usize {
