@@ -76,11 +76,16 @@ impl Kind {
     /// The canonical Arrow type of this family's posterior. Built once per family:
     /// a running window asks for it for every row it evaluates.
     pub fn data_type(self) -> DataType {
+        const ORDER: [Kind; 4] = [Kind::Beta, Kind::Gamma, Kind::Nig, Kind::Dirichlet];
         static TYPES: std::sync::OnceLock<[DataType; 4]> = std::sync::OnceLock::new();
-        let types = TYPES.get_or_init(|| {
-            [Kind::Beta, Kind::Gamma, Kind::Nig, Kind::Dirichlet].map(Kind::build_data_type)
-        });
-        types[self as usize].clone()
+        let types = TYPES.get_or_init(|| ORDER.map(Kind::build_data_type));
+        let index = match self {
+            Kind::Beta => 0,
+            Kind::Gamma => 1,
+            Kind::Nig => 2,
+            Kind::Dirichlet => 3,
+        };
+        types[index].clone()
     }
 
     fn build_data_type(self) -> DataType {
@@ -408,7 +413,11 @@ impl PosteriorColumn {
         // decodes a column of one row per row it evaluates.
         let as_type = |name: &str, to: &DataType| -> Result<ArrayRef> {
             let c = column(name)?;
-            Ok(if c.data_type() == to { c } else { cast(&c, to)? })
+            Ok(if c.data_type() == to {
+                c
+            } else {
+                cast(&c, to)?
+            })
         };
         let as_f64 = |name: &str| -> Result<Float64Array> {
             Ok(as_type(name, &DataType::Float64)?.as_primitive().clone())

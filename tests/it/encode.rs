@@ -1746,8 +1746,9 @@ async fn dates_and_timestamps_count_time_in_days() {
     ];
     let stderr = encode_refusal(&short.concat());
     assert!(
-        stderr.contains("--half-life 0.01 is out of range for as-of encodings over a training period of 29")
-            && stderr.contains(" days; allowed: at least 0.29"),
+        stderr.contains(
+            "--half-life 0.01 is out of range for as-of encodings over a training period of 29"
+        ) && stderr.contains(" days; allowed: at least 0.29"),
         "{stderr}"
     );
 }
