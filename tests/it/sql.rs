@@ -474,6 +474,40 @@ async fn pool_slides_over_window_frames() {
     }
 }
 
+// Posteriors written by other tools may carry integer or single-precision fields:
+// they read, pool and slide as the same posterior in Float64 (the decoder casts only
+// such columns). Expected means by the conjugate updates, (a0 + s) / (a0 + b0 + n)
+// and (a0_c + n_c) / sum(a0 + n) (Gelman et al., Bayesian Data Analysis, 3rd ed.,
+// sections 2.4 and 3.4; from memory).
+#[tokio::test]
+async fn posteriors_with_integer_fields_read_as_floats() {
+    let c = ctx().await;
+    let beta = one(
+        &c,
+        "SELECT posterior_mean(named_struct('a0', 1, 'b0', 2, 'successes', 3, 'trials', CAST(10 AS REAL)))",
+    )
+    .await;
+    close(beta, 4.0 / 13.0, 1e-15);
+    let dirichlet = one(
+        &c,
+        "SELECT posterior_mean(named_struct('classes', ['a', 'b'], 'a0', [1, 1], 'counts', [2, 3]), 'a')",
+    )
+    .await;
+    close(dirichlet, 3.0 / 7.0, 1e-15);
+    // A running pool over integer-field posteriors: day d reads days before it.
+    let running = floats(
+        &c,
+        "SELECT posterior_mean(posterior_pool(p) OVER (ORDER BY d ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)) \
+         FROM (VALUES (1, named_struct('a0', 1, 'b0', 1, 'successes', 2, 'trials', 3)), \
+                      (2, named_struct('a0', 1, 'b0', 1, 'successes', 0, 'trials', 4)), \
+                      (3, named_struct('a0', 1, 'b0', 1, 'successes', 5, 'trials', 5))) t(d, p) ORDER BY d",
+    )
+    .await;
+    assert_eq!(running[0], None, "day 1 reads no earlier day");
+    close(running[1].unwrap(), 3.0 / 5.0, 1e-15);
+    close(running[2].unwrap(), 3.0 / 9.0, 1e-15);
+}
+
 // Out-of-fold = total minus the fold's own evidence = a fit on the other folds.
 #[tokio::test]
 async fn out_of_fold_by_subtraction() {
