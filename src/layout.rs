@@ -76,16 +76,15 @@ impl Kind {
     /// The canonical Arrow type of this family's posterior. Built once per family:
     /// a running window asks for it for every row it evaluates.
     pub fn data_type(self) -> DataType {
-        const ORDER: [Kind; 4] = [Kind::Beta, Kind::Gamma, Kind::Nig, Kind::Dirichlet];
-        static TYPES: std::sync::OnceLock<[DataType; 4]> = std::sync::OnceLock::new();
-        let types = TYPES.get_or_init(|| ORDER.map(Kind::build_data_type));
-        let index = match self {
-            Kind::Beta => 0,
-            Kind::Gamma => 1,
-            Kind::Nig => 2,
-            Kind::Dirichlet => 3,
+        use std::sync::OnceLock;
+        static TYPES: [OnceLock<DataType>; 4] = [const { OnceLock::new() }; 4];
+        let cell = match self {
+            Kind::Beta => &TYPES[0],
+            Kind::Gamma => &TYPES[1],
+            Kind::Nig => &TYPES[2],
+            Kind::Dirichlet => &TYPES[3],
         };
-        types[index].clone()
+        cell.get_or_init(|| self.build_data_type()).clone()
     }
 
     fn build_data_type(self) -> DataType {
