@@ -251,12 +251,13 @@ fn beta_prior_of(p: Option<AnyPosterior>) -> Result<BetaPrior> {
     }
 }
 
-fn beta_finish(prior: &BetaPrior, stats: &[f64]) -> Result<ArrayRef> {
+fn beta_finish(function: &str, prior: &BetaPrior, stats: &[f64]) -> Result<ArrayRef> {
     let groups = stats.len() / 4;
     let [successes, trials]: [Vec<f64>; 2] = values_of(stats, 2)
         .try_into()
         .map_err(|_| DataFusionError::Internal("two statistics".into()))?;
     build_floats(
+        function,
         Kind::Beta,
         vec![
             vec![prior.a0; groups],
@@ -357,7 +358,7 @@ impl FitKernel for BetaOutcomes {
     }
 
     fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
-        beta_finish(&self.prior, stats)
+        beta_finish(Self::NAME, &self.prior, stats)
     }
 }
 
@@ -425,7 +426,7 @@ impl FitKernel for BetaCounts {
     }
 
     fn finish(&self, stats: &[f64]) -> Result<ArrayRef> {
-        beta_finish(&self.prior, stats)
+        beta_finish(Self::NAME, &self.prior, stats)
     }
 }
 
@@ -516,6 +517,7 @@ impl FitKernel for GammaCounts {
             .try_into()
             .map_err(|_| DataFusionError::Internal("two statistics".into()))?;
         build_floats(
+            Self::NAME,
             Kind::Gamma,
             vec![
                 vec![self.prior.shape0; groups],
@@ -633,7 +635,7 @@ impl FitKernel for NigValues {
             cols[5].push(st.mean);
             cols[6].push(st.m2);
         }
-        build_floats(Kind::Nig, cols)
+        build_floats(Self::NAME, Kind::Nig, cols)
     }
 }
 
@@ -757,7 +759,7 @@ impl FitKernel for DirichletClasses {
                 }))
             })
             .collect();
-        build(Kind::Dirichlet, &rows)
+        build(Self::NAME, Kind::Dirichlet, &rows)
     }
 }
 

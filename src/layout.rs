@@ -513,8 +513,10 @@ impl PosteriorColumn {
     }
 }
 
-/// Build a column of `kind` from optional posteriors (None becomes NULL).
-pub fn build(kind: Kind, rows: &[Option<AnyPosterior>]) -> Result<ArrayRef> {
+/// Build a column of `kind` from optional posteriors (None becomes NULL). A
+/// posterior whose evidence overflowed is an error naming `function`, never a
+/// stored `inf` or `NaN`.
+pub fn build(function: &str, kind: Kind, rows: &[Option<AnyPosterior>]) -> Result<ArrayRef> {
     let DataType::Struct(fields) = kind.data_type() else {
         unreachable!("posterior types are structs")
     };
@@ -538,6 +540,7 @@ pub fn build(kind: Kind, rows: &[Option<AnyPosterior>]) -> Result<ArrayRef> {
                     classes.values().append_value(c);
                 }
                 a0.values().append_slice(&p.prior.alpha0);
+                finite_evidence(function, &p.counts)?;
                 counts.values().append_slice(&p.counts);
             }
             classes.append(true);
@@ -572,6 +575,7 @@ pub fn build(kind: Kind, rows: &[Option<AnyPosterior>]) -> Result<ArrayRef> {
                 // NULL rows: masked by the null buffer.
                 _ => vec![0.0; width],
             };
+            finite_evidence(function, &values)?;
             for (col, v) in cols.iter_mut().zip(values) {
                 col.push(v);
             }
@@ -589,13 +593,30 @@ pub fn build(kind: Kind, rows: &[Option<AnyPosterior>]) -> Result<ArrayRef> {
 
 /// Build a struct column of a float-field family directly from per-row field
 /// values laid out field-major (`columns[field][row]`): the fast path of the fits.
-pub fn build_floats(kind: Kind, columns: Vec<Vec<f64>>) -> Result<ArrayRef> {
+pub fn build_floats(function: &str, kind: Kind, columns: Vec<Vec<f64>>) -> Result<ArrayRef> {
     let DataType::Struct(fields) = kind.data_type() else {
         unreachable!("posterior types are structs")
     };
+    for column in &columns {
+        finite_evidence(function, column)?;
+    }
     let arrays = columns
         .into_iter()
         .map(|c| Arc::new(Float64Array::from(c)) as ArrayRef)
         .collect();
     Ok(Arc::new(StructArray::try_new(fields, arrays, None)?))
+}
+
+/// Sums of weights, values or exposures beyond the largest float (about 1.8e308)
+/// become `inf` or `NaN`; refuse them where a posterior is stored, the one place
+/// every fit, pool and transform passes through.
+fn finite_evidence(function: &str, values: &[f64]) -> Result<()> {
+    if values.iter().all(|v| v.is_finite()) {
+        return Ok(());
+    }
+    datafusion::common::exec_err!(
+        "{function}: a posterior's evidence is not a finite number (its sums exceed about \
+         1.8e308); allowed: weights, values, events and exposures whose sums per level are \
+         finite"
+    )
 }

@@ -208,7 +208,7 @@ impl PoolGroups {
             .iter()
             .map(|r| r.as_ref().map(Pooled::posterior))
             .collect();
-        build(self.kind, &posteriors)
+        build("posterior_pool", self.kind, &posteriors)
     }
 
     /// The partial state of `rows`: pooled posteriors and their compensated sums.
@@ -301,7 +301,11 @@ impl Accumulator for PoolAccumulator {
         // A running window evaluates once per row: wrap the one-row column as it
         // is rather than slicing a copy of it.
         let pooled = self.0.pooled.first().and_then(Option::as_ref);
-        let column = build(self.0.kind, &[pooled.map(Pooled::posterior)])?;
+        let column = build(
+            "posterior_pool",
+            self.0.kind,
+            &[pooled.map(Pooled::posterior)],
+        )?;
         Ok(ScalarValue::Struct(Arc::new(column.as_struct().clone())))
     }
 

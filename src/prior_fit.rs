@@ -254,7 +254,7 @@ impl Accumulator for FitPriorAccumulator {
         if self.report {
             return Ok(ScalarValue::Utf8(Some(report_json(&prior, &report))));
         }
-        ScalarValue::try_from_array(&build(self.kind, &[Some(prior)])?, 0)
+        ScalarValue::try_from_array(&build(self.function, self.kind, &[Some(prior)])?, 0)
     }
 
     fn size(&self) -> usize {
@@ -263,7 +263,7 @@ impl Accumulator for FitPriorAccumulator {
 
     fn state(&mut self) -> Result<Vec<ScalarValue>> {
         let rows: Vec<Option<AnyPosterior>> = self.levels.iter().cloned().map(Some).collect();
-        let values = build(self.kind, &rows)?;
+        let values = build(self.function, self.kind, &rows)?;
         let field = Arc::new(Field::new_list_field(self.kind.data_type(), true));
         let list = ListArray::try_new(
             field,
@@ -427,7 +427,7 @@ impl Accumulator for FitStrengthAccumulator {
                 let list = ListArray::try_new(
                     field.clone(),
                     OffsetBuffer::from_lengths([rows.len()]),
-                    build(self.kind, rows)?,
+                    build(FIT_STRENGTH, self.kind, rows)?,
                     None,
                 )?;
                 Ok(ScalarValue::List(Arc::new(list)))

@@ -16,8 +16,8 @@ use datafusion::logical_expr::{
 };
 
 use crate::family::{
-    rng, BetaPosterior, BetaPrior, DirichletPosterior, DirichletPrior, FamilyError, GammaPosterior,
-    GammaPrior, Marginal, NigPosterior, NigPrior,
+    number, rng, BetaPosterior, BetaPrior, DirichletPosterior, DirichletPrior, FamilyError,
+    GammaPosterior, GammaPrior, Marginal, NigPosterior, NigPrior,
 };
 use crate::fit::family_error;
 use crate::layout::{build, AnyPosterior, Combine, Kind, PosteriorColumn};
@@ -509,7 +509,7 @@ impl ScalarFunction {
                     prior,
                 ))));
             }
-            return build(kind, &out);
+            return build(self.name, kind, &out);
         }
         let cols = args.iter().map(floats).collect::<Result<Vec<_>>>()?;
         for i in 0..rows {
@@ -530,7 +530,7 @@ impl ScalarFunction {
                 .map_err(|e| self.err(e))?;
             out.push(Some(p));
         }
-        build(kind, &out)
+        build(self.name, kind, &out)
     }
 
     fn read(&self, reader: Reader, args: &[ArrayRef], rows: usize) -> Result<ArrayRef> {
@@ -617,15 +617,16 @@ impl ScalarFunction {
                 .flatten()
                 .filter(|_| reader == Reader::Interval);
             if !value.is_finite() || upper_value.is_some_and(|u| !u.is_finite()) {
-                if matches!(reader, Reader::Var | Reader::Sd) {
+                let infinite_variance = matches!(m, Marginal::StudentT { dof, .. } if dof <= 2.0);
+                if matches!(reader, Reader::Var | Reader::Sd) && infinite_variance {
                     // A Student-t with at most 2 degrees of freedom has no finite
                     // variance: NULL, as documented, never inf.
                     lower.push(None);
                     continue;
                 }
                 return exec_err!(
-                    "{}: the result for the marginal {m:?} is not a finite number; its spread \
-                     is too wide for this reader",
+                    "{}: the result is not a finite number for this posterior, whose \
+                     marginal is {m}; its parameters are too extreme for this reader",
                     self.name
                 );
             }
@@ -681,7 +682,7 @@ impl ScalarFunction {
                 None => p,
             }));
         }
-        build(p.kind(), &out)
+        build(self.name, p.kind(), &out)
     }
 
     fn transform(&self, args: &[ArrayRef], rows: usize) -> Result<ArrayRef> {
@@ -745,7 +746,7 @@ impl ScalarFunction {
             };
             out.push(result);
         }
-        build(kind, &out)
+        build(self.name, kind, &out)
     }
 
     fn without(
@@ -839,14 +840,16 @@ impl ScalarFunction {
             let (a, h) = (age.value(i), half.value(i));
             if !(a.is_finite() && a >= 0.0) {
                 return exec_err!(
-                    "{}: argument age = {a} is out of range; allowed: a finite number >= 0",
-                    self.name
+                    "{}: argument age = {} is out of range; allowed: a finite number >= 0",
+                    self.name,
+                    number(a)
                 );
             }
             if !(h.is_finite() && h > 0.0) {
                 return exec_err!(
-                    "{}: argument half_life = {h} is out of range; allowed: a finite number > 0",
-                    self.name
+                    "{}: argument half_life = {} is out of range; allowed: a finite number > 0",
+                    self.name,
+                    number(h)
                 );
             }
             out.push(Some((-a / h).exp2()));
@@ -921,6 +924,8 @@ fn fast_moments(reader: Reader, column: &PosteriorColumn) -> Option<ArrayRef> {
             }
             _ => return None, // NIG: the general path (Student-t moments) is already cheap enough
         };
+        // A result that overflowed: the general path reports it.
+        bad |= checked && !value.is_finite();
         out.push(value);
     }
     if bad {

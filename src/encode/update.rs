@@ -209,7 +209,10 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
             &format!("__stored{i}"),
             vec![
                 ("level", Arc::new(StringArray::from(levels))),
-                ("p", build(column.prior.kind(), &posteriors)?),
+                (
+                    "p",
+                    build("encode --update", column.prior.kind(), &posteriors)?,
+                ),
             ],
         )?;
     }
@@ -252,7 +255,10 @@ fn register_parents(
         vec![
             ("level", Arc::new(StringArray::from(levels))),
             ("parent", Arc::new(StringArray::from(parents))),
-            ("p", build(column.prior.kind(), &outside)?),
+            (
+                "p",
+                build("encode --update", column.prior.kind(), &outside)?,
+            ),
         ],
     )
 }

@@ -2,7 +2,7 @@
 
 use super::compensated::Dd;
 use super::special::ln_beta;
-use super::{positive, remaining, weight, Conjugate, FamilyError, Marginal, Result};
+use super::{at_least_zero, positive, remaining, weight, Conjugate, FamilyError, Marginal, Result};
 
 /// Beta(a0, b0) prior.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -182,10 +182,16 @@ impl Conjugate for BetaPosterior {
     }
 
     fn with_evidence_sums(&self, sums: &[Dd]) -> Self {
-        let trials = sums[1].value().max(0.0);
+        let trials = at_least_zero(sums[1].value());
+        let successes = at_least_zero(sums[0].value());
         BetaPosterior {
             prior: self.prior,
-            successes: sums[0].value().clamp(0.0, trials),
+            // Not `clamp`, which panics on NaN.
+            successes: if successes > trials {
+                trials
+            } else {
+                successes
+            },
             trials,
         }
     }

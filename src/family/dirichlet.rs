@@ -3,7 +3,7 @@
 
 use super::compensated::Dd;
 use super::special::ln_gamma;
-use super::{positive, remaining, weight, Conjugate, FamilyError, Marginal, Result};
+use super::{at_least_zero, positive, remaining, weight, Conjugate, FamilyError, Marginal, Result};
 
 /// Dirichlet prior over a named, ordered class list.
 #[derive(Debug, Clone, PartialEq)]
@@ -195,7 +195,7 @@ impl Conjugate for DirichletPosterior {
     fn with_evidence_sums(&self, sums: &[Dd]) -> Self {
         DirichletPosterior {
             prior: self.prior.clone(),
-            counts: sums.iter().map(|s| s.value().max(0.0)).collect(),
+            counts: sums.iter().map(|s| at_least_zero(s.value())).collect(),
         }
     }
 

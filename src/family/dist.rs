@@ -20,6 +20,26 @@ pub enum Marginal {
     StudentT { loc: f64, scale: f64, dof: f64 },
 }
 
+/// In messages, in the words of the README's reference.
+impl std::fmt::Display for Marginal {
+    fn fmt(&self, f: &mut std::fmt::Formatter<'_>) -> std::fmt::Result {
+        use super::number;
+        match *self {
+            Marginal::Beta { a, b } => write!(f, "Beta({}, {})", number(a), number(b)),
+            Marginal::Gamma { shape, rate } => {
+                write!(f, "Gamma(shape {}, rate {})", number(shape), number(rate))
+            }
+            Marginal::StudentT { loc, scale, dof } => write!(
+                f,
+                "Student-t(centre {}, scale {}, {} degrees of freedom)",
+                number(loc),
+                number(scale),
+                number(dof)
+            ),
+        }
+    }
+}
+
 /// Largest shape (or degrees of freedom) the readers accept: far beyond any data
 /// set's evidence, and the edge of the range the special functions are tested on.
 pub const MAX_SHAPE: f64 = 1e15;

@@ -2,7 +2,7 @@
 
 use super::compensated::Dd;
 use super::special::ln_gamma;
-use super::{positive, remaining, weight, Conjugate, FamilyError, Marginal, Result};
+use super::{at_least_zero, positive, remaining, weight, Conjugate, FamilyError, Marginal, Result};
 
 /// Gamma(shape0, rate0) prior on a Poisson rate per unit of exposure.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -136,8 +136,8 @@ impl Conjugate for GammaPosterior {
     fn with_evidence_sums(&self, sums: &[Dd]) -> Self {
         GammaPosterior {
             prior: self.prior,
-            events: sums[0].value().max(0.0),
-            exposure: sums[1].value().max(0.0),
+            events: at_least_zero(sums[0].value()),
+            exposure: at_least_zero(sums[1].value()),
         }
     }
 

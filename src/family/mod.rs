@@ -167,6 +167,17 @@ pub(crate) fn weight(name: &'static str, value: f64) -> Result<f64> {
     }
 }
 
+/// Rounding residue below zero becomes zero; NaN stays NaN, so that a sum that
+/// overflowed is refused where the posterior is stored instead of reading as no
+/// evidence (`f64::max` would turn it into 0).
+pub(crate) fn at_least_zero(value: f64) -> f64 {
+    if value < 0.0 {
+        0.0
+    } else {
+        value
+    }
+}
+
 /// Require a discount factor in [0, 1].
 pub(crate) fn factor(value: f64) -> Result<f64> {
     if (0.0..=1.0).contains(&value) {

@@ -130,7 +130,7 @@ pub fn stats_from_centred(n: Dd, s1: Dd, s2: Dd, c: f64) -> NigStats {
         return NigStats::default();
     }
     let shift = s1 / n;
-    let m2 = (s2 - shift * s1).value().max(0.0);
+    let m2 = super::at_least_zero((s2 - shift * s1).value());
     NigStats {
         n: n.value(),
         mean: (Dd::new(c) + shift).value(),

@@ -78,6 +78,22 @@ fn cases() -> Vec<(String, Vec<&'static str>)> {
         // readers now refuse marginals beyond 1e15 with an error.
         ("SELECT posterior_quantile(beta_prior(6.7e299, 1e10), 0.5)".into(), vec!["posterior_quantile", "shape = 6.7e299", "at most 1e15"]),
         ("SELECT posterior_prob_above(gamma_prior(1e300, 1), 2)".into(), vec!["posterior_prob_above", "at most 1e15"]),
+        // Probed at the edges of the float range (thirteenth session): sums that overflow
+        // were stored as NaN or inf, a pool of them read as no evidence, and readers
+        // wrote inf. Each is now refused where the posterior is stored or read.
+        (w("1e308), (0, 1e308"), vec!["beta_posterior", "evidence is not a finite number", "sums per level are finite"]),
+        ("SELECT beta_posterior(y, beta_prior(1, 1), w) OVER (ORDER BY w) FROM (VALUES (1, 1e308), (0, 1.5e308)) t(y, w)".into(), vec!["beta_posterior", "evidence is not a finite number"]),
+        ("SELECT gamma_posterior(e, 1) FROM (VALUES (1e308), (1e308)) t(e)".into(), vec!["gamma_posterior", "evidence is not a finite number"]),
+        ("SELECT nig_posterior(x, nig_prior(0, 1, 2, 1), w) FROM (VALUES (1.0, 1e308), (2.0, 1e308)) t(x, w)".into(), vec!["nig_posterior", "evidence is not a finite number"]),
+        (format!("SELECT dirichlet_posterior(c, {d}, w) FROM (VALUES ('no_show', 1e308), ('no_show', 1e308)) t(c, w)"), vec!["dirichlet_posterior", "evidence is not a finite number"]),
+        ("SELECT posterior_merge(p, p) FROM (SELECT gamma_posterior(1e308, 1) AS p)".into(), vec!["posterior_merge", "evidence is not a finite number"]),
+        ("SELECT posterior_pool(p) FROM (SELECT gamma_posterior(1e308, 1) AS p UNION ALL SELECT gamma_posterior(1e308, 1))".into(), vec!["posterior_pool", "evidence is not a finite number"]),
+        ("SELECT posterior_pool(p) OVER (ORDER BY e) FROM (SELECT e, gamma_posterior(e, 1) AS p FROM (VALUES (1e308), (1.7e308)) t(e) GROUP BY e)".into(), vec!["posterior_pool", "evidence is not a finite number"]),
+        ("SELECT posterior_mean(gamma_prior(1e300, 1e-300))".into(), vec!["posterior_mean", "shape = 1e300", "at most 1e15"]),
+        ("SELECT posterior_sd(gamma_prior(1e300, 1e-300))".into(), vec!["posterior_sd", "shape = 1e300", "at most 1e15"]),
+        ("SELECT posterior_var(nig_prior(0, 1e-300, 3, 1e300))".into(), vec!["posterior_var", "not a finite number", "Student-t(centre 0, scale inf, 6 degrees of freedom)"]),
+        ("SELECT posterior_quantile(nig_prior(0, 1e-300, 3, 1e300), 0.9)".into(), vec!["posterior_quantile", "not a finite number", "Student-t(centre 0"]),
+        ("SELECT decay_weight(-1e308, 1)".into(), vec!["decay_weight", "age = -1e308", ">= 0"]),
         // Transforms and pooling.
         ("SELECT posterior_merge(beta_prior(1, 1), beta_prior(1, 2))".into(), vec!["posterior_merge", "beta_prior(1, 1)", "beta_prior(1, 2)", "posterior_with_prior"]),
         ("SELECT posterior_merge(beta_prior(1, 1), gamma_prior(1, 2))".into(), vec!["posterior_merge", "cannot combine a Beta posterior with a Gamma one"]),
