@@ -72,7 +72,12 @@ pub async fn register(
     if !path.contains('*') && !Path::new(path).exists() {
         return Err(FileError::Read(format!("'{path}' does not exist")));
     }
-    preflight(path, format, csv.header).map_err(FileError::Read)?;
+    let delimiter = if format == FileKind::Tsv {
+        b'\t'
+    } else {
+        csv.delimiter
+    };
+    preflight(path, format, csv.header, delimiter).map_err(FileError::Read)?;
     let result = match format {
         FileKind::Parquet => {
             let ext = extension_of(path, ".parquet");
@@ -92,11 +97,6 @@ pub async fn register(
                     ".csv"
                 },
             );
-            let delimiter = if format == FileKind::Tsv {
-                b'\t'
-            } else {
-                csv.delimiter
-            };
             let mut options = CsvReadOptions::new()
                 .has_header(csv.header)
                 .delimiter(delimiter)
@@ -226,9 +226,10 @@ fn json_array_as_ndjson(path: &str) -> Result<String, String> {
 }
 
 /// Checks the engine does not make, so that broken files fail at registration with
-/// the file's name: Parquet magic bytes, empty CSV files, unterminated quotes, and
-/// CSV directories whose files disagree on the header.
-fn preflight(path: &str, kind: FileKind, header: bool) -> Result<(), String> {
+/// the file's name: Parquet magic bytes, empty CSV files, unterminated quotes, a
+/// header naming one column twice (the engine reports a wrong field count on the
+/// first row), and CSV directories whose files disagree on the header.
+fn preflight(path: &str, kind: FileKind, header: bool, delimiter: u8) -> Result<(), String> {
     use std::io::Read as _;
     let p = Path::new(path);
     let files: Vec<std::path::PathBuf> = if p.is_dir() {
@@ -292,6 +293,19 @@ fn preflight(path: &str, kind: FileKind, header: bool) -> Result<(), String> {
                 if quotes % 2 == 1 {
                     return Err(format!("{shown} has an unterminated quoted field (an odd number of '\"' characters)"));
                 }
+                if header {
+                    let names = header_names(&String::from_utf8_lossy(&first_line), delimiter);
+                    if let Some(twice) = names
+                        .iter()
+                        .enumerate()
+                        .find_map(|(i, n)| names[..i].contains(n).then_some(n))
+                    {
+                        return Err(format!(
+                            "{shown} names the column '{twice}' twice in its header; give every \
+                             column its own name"
+                        ));
+                    }
+                }
                 if header && kind_of_name(path).is_none() {
                     let line = String::from_utf8_lossy(&first_line).to_string();
                     match &first_header {
@@ -310,6 +324,29 @@ fn preflight(path: &str, kind: FileKind, header: bool) -> Result<(), String> {
         }
     }
     Ok(())
+}
+
+/// The column names of a CSV header line: fields split at `delimiter` outside
+/// double quotes, a doubled quote inside quotes read as one.
+fn header_names(line: &str, delimiter: u8) -> Vec<String> {
+    let delimiter = char::from(delimiter);
+    let mut names = Vec::new();
+    let mut name = String::new();
+    let mut quoted = false;
+    let mut chars = line.chars().peekable();
+    while let Some(c) = chars.next() {
+        match c {
+            '"' if quoted && chars.peek() == Some(&'"') => {
+                chars.next();
+                name.push('"');
+            }
+            '"' => quoted = !quoted,
+            c if c == delimiter && !quoted => names.push(std::mem::take(&mut name)),
+            c => name.push(c),
+        }
+    }
+    names.push(name);
+    names
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

@@ -23,6 +23,9 @@ fn broken_files_fail_at_registration_naming_the_file() {
     write("ragged.csv", b"a,b\n1,2\n3\n4,5,6\n");
     write("quote.csv", b"a,b\n1,\"x\n2,y\n");
     write("empty.csv", b"");
+    write("twice.csv", b"breed,no_show,breed\nbeagle,1,pug\n");
+    // A delimiter inside quotes is part of the name: these are three names.
+    write("quoted.csv", b"\"breed\",\"a,b\",\"breed,\"\nbeagle,1,pug\n");
     write("empty.parquet", b"");
     write("fake.parquet", b"hello, not parquet at all");
     let good = std::fs::read(format!(
@@ -52,6 +55,7 @@ fn broken_files_fail_at_registration_naming_the_file() {
         ("ragged.csv", &["ragged.csv", "unequal lengths"]),
         ("quote.csv", &["quote.csv", "unterminated quoted field"]),
         ("empty.csv", &["empty.csv", "empty", "no header row"]),
+        ("twice.csv", &["twice.csv", "names the column 'breed' twice"]),
         (
             "empty.parquet",
             &["empty.parquet", "not a complete Parquet file"],
@@ -84,6 +88,12 @@ fn broken_files_fail_at_registration_naming_the_file() {
             assert!(err.contains(f), "{path}: missing '{f}' in {err}");
         }
     }
+    let o = bin()
+        .current_dir(&d)
+        .args(["-t", "x=quoted.csv", "-c", "SELECT * FROM x"])
+        .output()
+        .unwrap();
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
     // A column of the wrong type deep in a file is a query error naming the value.
     let mut typed = String::from("a,b\n");
     for i in 0..3000 {
