@@ -69,6 +69,9 @@ def main():
     # measured too.
     methods = {
         "kfold": ["--method", "kfold"],
+        # The most folds encode takes: beyond them k-fold approaches leave-one-out.
+        "kfold, 10 folds": ["--method", "kfold", "--folds", "10"],
+        "kfold, 11 folds": ["--method", "kfold", "--folds", "11"],
         "time": ["--time-column", "t"],
         "kfold, half-life fitted": ["--time-column", "t", "--method", "kfold", "--half-life",
                                     "fitted"],

@@ -15,7 +15,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 from evaluate import (  # noqa: E402
     hand_encodings, held_out_score, posterity_mean_score, split, task_named)
 
-VARIANTS = {"k-fold defaults": [], "--folds 20": ["--folds", "20"],
+VARIANTS = {"k-fold defaults": [], "--folds 10": ["--folds", "10"],
             "--score-evidence full": ["--score-evidence", "full"],
             "--readers mean,sd": ["--readers", "mean,sd"],
             "--readers mean,data_weight": ["--readers", "mean,data_weight"]}

@@ -399,7 +399,11 @@ fn parse_options(options: &Bound<'_, pyo3::types::PyDict>, o: &mut EncodeOptions
                         .map_err(error)?,
                 )
             }
-            "folds" => o.folds = value.extract().map_err(|_| wrong("an integer >= 2"))?,
+            "folds" => {
+                o.folds = value
+                    .extract()
+                    .map_err(|_| wrong("an integer from 2 to 10"))?
+            }
             "seed" => o.seed = value.extract().map_err(|_| wrong("an integer >= 0"))?,
             "time_column" => o.time_column = Some(text().map_err(|_| wrong("a column name"))?),
             "half_life" => {

@@ -82,7 +82,7 @@ pub struct EncodeArgs {
     /// Training encodings: kfold (default), loo, or time (default when --time-column is given).
     #[arg(long, value_enum)]
     pub method: Option<MethodChoice>,
-    /// Number of folds for kfold.
+    /// Number of folds for kfold, 2 to 10 (more approach leave-one-out, which leaks).
     #[arg(long, default_value_t = 5)]
     pub folds: u32,
     /// Column giving the time order for --method time (the default with it) and the ages

@@ -25,7 +25,10 @@ fn broken_files_fail_at_registration_naming_the_file() {
     write("empty.csv", b"");
     write("twice.csv", b"breed,no_show,breed\nbeagle,1,pug\n");
     // A delimiter inside quotes is part of the name: these are three names.
-    write("quoted.csv", b"\"breed\",\"a,b\",\"breed,\"\nbeagle,1,pug\n");
+    write(
+        "quoted.csv",
+        b"\"breed\",\"a,b\",\"breed,\"\nbeagle,1,pug\n",
+    );
     write("empty.parquet", b"");
     write("fake.parquet", b"hello, not parquet at all");
     let good = std::fs::read(format!(
@@ -55,7 +58,10 @@ fn broken_files_fail_at_registration_naming_the_file() {
         ("ragged.csv", &["ragged.csv", "unequal lengths"]),
         ("quote.csv", &["quote.csv", "unterminated quoted field"]),
         ("empty.csv", &["empty.csv", "empty", "no header row"]),
-        ("twice.csv", &["twice.csv", "names the column 'breed' twice"]),
+        (
+            "twice.csv",
+            &["twice.csv", "names the column 'breed' twice"],
+        ),
         (
             "empty.parquet",
             &["empty.parquet", "not a complete Parquet file"],

@@ -75,6 +75,7 @@ fn no_encode_method_leaks_to_a_tree_learner() {
     // (a margin of our own choosing, no source).
     for method in [
         "kfold",
+        "kfold, 10 folds",
         "time",
         "kfold, half-life fitted",
         "time, half-life 20",
@@ -111,6 +112,13 @@ fn no_encode_method_leaks_to_a_tree_learner() {
             .unwrap()
             .contains("not offered"),
         "leave-one-out must be refused"
+    );
+    assert!(
+        find("kfold, 11 folds")["refused"]
+            .as_str()
+            .unwrap()
+            .contains("allowed: 2 to 10"),
+        "more folds than 10 must be refused"
     );
     let leaky = find("in-sample mean (leaky reference)")["in_sample_gain"]
         .as_f64()

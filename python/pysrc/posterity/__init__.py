@@ -123,7 +123,11 @@ def _as_input(data: Any, what: str):
         return os.fspath(data)
     if _kind(data) == "pandas":
         # The index is not data; a named one is a column in pandas' own Arrow form.
-        return pa.Table.from_pandas(data, preserve_index=False)
+        try:
+            return pa.Table.from_pandas(data, preserve_index=False)
+        except (pa.ArrowException, ValueError, TypeError) as e:
+            # Duplicate column names, or an object column mixing text and numbers.
+            raise Error(f"{what}: the pandas DataFrame cannot be read as a table: {e}") from e
     if hasattr(data, "__arrow_c_stream__"):
         return data
     raise Error(f"{what}: expected a file path, a pyarrow Table, a pandas or a polars DataFrame; "
