@@ -265,6 +265,17 @@ def test_pandas_and_polars_in_and_out(tmp_path):
         got, want = scored[c].tolist(), from_path.scored.column(c).to_pylist()
         assert all(abs(x - y) <= 1e-12 * abs(y) for x, y in zip(got, want)), c
     assert isinstance(from_path.bundle.score(pl.from_pandas(frame)), pl.DataFrame)
+    # A polars LazyFrame, a pyarrow Dataset and a pandas frame indexed by a key give
+    # the same numbers as the file.
+    import pyarrow.dataset as pads
+    want = from_path.train_encoded.column("breed_mean").to_pylist()
+    lazy = posterity.encode(pl.from_pandas(frame).lazy(), target="no_show", **OPTIONS)
+    assert isinstance(lazy.train_encoded, pl.DataFrame)
+    assert lazy.train_encoded["breed_mean"].to_list() == want
+    dataset = posterity.encode(pads.dataset(SAMPLE, format="csv"), target="no_show", **OPTIONS)
+    assert dataset.train_encoded.column("breed_mean").to_pylist() == want
+    indexed = posterity.encode(frame.set_index("breed"), target="no_show", **OPTIONS)
+    assert indexed.train_encoded["breed_mean"].tolist() == want
 
 
 def test_pandas_dates_and_categories():

@@ -23,6 +23,7 @@ from types import SimpleNamespace
 from typing import Any
 
 import pyarrow as pa
+import pyarrow.dataset  # noqa: F401 (pa.dataset.Dataset inputs)
 
 from . import _posterity
 from ._posterity import Error
@@ -122,7 +123,11 @@ def _as_input(data: Any, what: str):
     if isinstance(data, (str, os.PathLike)):
         return os.fspath(data)
     if _kind(data) == "pandas":
-        # The index is not data; a named one is a column in pandas' own Arrow form.
+        # An unnamed index is not data; a named one (``set_index("breed")``) is a column,
+        # as in pandas' own Arrow form.
+        named = [n for n in data.index.names if n is not None and n not in data.columns]
+        if named:
+            data = data.reset_index(level=named)
         try:
             return pa.Table.from_pandas(data, preserve_index=False)
         except (pa.ArrowException, ValueError, TypeError) as e:
@@ -130,8 +135,12 @@ def _as_input(data: Any, what: str):
             raise Error(f"{what}: the pandas DataFrame cannot be read as a table: {e}") from e
     if hasattr(data, "__arrow_c_stream__"):
         return data
-    raise Error(f"{what}: expected a file path, a pyarrow Table, a pandas or a polars DataFrame; "
-                f"got {type(data).__name__}")
+    if _kind(data) == "polars" and hasattr(data, "collect"):
+        return data.collect()  # a LazyFrame: its query runs here
+    if isinstance(data, pa.dataset.Dataset):
+        return data.scanner().to_reader()  # streamed, batch by batch
+    raise Error(f"{what}: expected a file path, a pyarrow Table or Dataset, a pandas or a polars "
+                f"DataFrame or LazyFrame; got {type(data).__name__}")
 
 
 def _as_output(data, kind: str):
@@ -226,8 +235,9 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
            **options) -> Encoded:
     """Training encodings, encoding tables, a serving bundle and (with ``score``) scored rows.
 
-    ``train`` and ``score``: a file path (Parquet, CSV, TSV, NDJSON), a pyarrow Table, a
-    pandas or a polars DataFrame. The options are the shell's ``encode`` flags with
+    ``train`` and ``score``: a file path (Parquet, CSV, TSV, NDJSON), a pyarrow Table or
+    Dataset, a pandas DataFrame (a named index is read as a column) or a polars DataFrame or
+    LazyFrame. The options are the shell's ``encode`` flags with
     underscores: ``interactions=[["breed", "clinic"]]``, ``family``, ``prior`` ("fitted",
     "jeffreys", "uniform" or numbers), ``method`` ("kfold" or "time"), ``folds``, ``seed``,
     ``time_column`` (numbers, or dates and datetimes, whose half-lives and horizons count
