@@ -323,6 +323,16 @@ fn keys_of(options: &EncodeOptions) -> Result<Vec<KeyPlan>> {
                 parts.join(":")
             ));
         }
+        if let Some(twice) = parts
+            .iter()
+            .enumerate()
+            .find_map(|(i, p)| parts[..i].contains(p).then_some(p))
+        {
+            return usage(format!(
+                "--interactions: '{}' names '{twice}' twice; an interaction joins different columns",
+                parts.join(":")
+            ));
+        }
         let name = parts
             .iter()
             .map(|p| sanitize(p))
@@ -810,6 +820,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
             }
         },
     };
+    check_thresholds(options.readers.as_deref().unwrap_or_default(), family)?;
     if options.exposure.is_some() && family != Kind::Gamma {
         return usage(format!(
             "--exposure is for count targets (the gamma family); target '{target}' is encoded \
@@ -1181,6 +1192,30 @@ async fn scoring_horizon(ctx: &SessionContext, plan: &EncodePlan) -> Result<Opti
 /// The most half-lives as-of encodings span: their running sums weigh the newest
 /// rows 2^(period / half-life) times the oldest, which must stay a finite number.
 const MAX_AS_OF_HALF_LIVES: f64 = 1000.0;
+
+/// An `above:T` reader whose threshold lies outside the family's parameter range
+/// would be the same number for every level: a column that carries nothing.
+fn check_thresholds(readers: &[Reader], family: Kind) -> Result<()> {
+    for reader in readers {
+        let Reader::Above(t) = *reader else { continue };
+        let (inside, range) = match family {
+            Kind::Beta | Kind::Dirichlet => (
+                t > 0.0 && t < 1.0,
+                "strictly between 0 and 1 (a probability)",
+            ),
+            Kind::Gamma => (t > 0.0, "greater than 0 (a rate)"),
+            Kind::Nig => (true, ""),
+        };
+        if !inside {
+            return usage(format!(
+                "--readers: 'above:{t}' would be the same for every level of a {} posterior; \
+                 allowed: a threshold {range}",
+                family.short_name()
+            ));
+        }
+    }
+    Ok(())
+}
 
 fn check_as_of_half_life(h: f64, period: f64, units: TimeUnits) -> Result<()> {
     if period / h > MAX_AS_OF_HALF_LIVES {

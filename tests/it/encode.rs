@@ -3184,3 +3184,50 @@ async fn refresh_recentres_levels_on_their_refreshed_parents() {
         "some areas have rows outside their district"
     );
 }
+
+// Options that would write a column carrying nothing: an exceedance threshold outside
+// the family's range (every level's probability is 0 or 1) and an interaction of a
+// column with itself (the key again). Found by probing the options.
+#[test]
+fn options_that_carry_nothing_are_refused() {
+    let out = temp_dir("carry_nothing").join("out");
+    let sample = sample();
+    let base = [
+        "--train",
+        &sample,
+        "--target",
+        "no_show",
+        "--columns",
+        "breed",
+    ];
+    for (extra, fragments) in [
+        (
+            vec!["--readers", "mean,above:1.5"],
+            vec!["'above:1.5'", "beta posterior", "strictly between 0 and 1"],
+        ),
+        (
+            vec!["--readers", "above:0"],
+            vec!["'above:0'", "strictly between 0 and 1"],
+        ),
+        (
+            vec!["--interactions", "breed:clinic:breed"],
+            vec!["--interactions", "'breed:clinic:breed' names 'breed' twice"],
+        ),
+    ] {
+        let args = [&base[..], &extra, &["--out", out.to_str().unwrap()]].concat();
+        let stderr = encode_refusal(&args);
+        for f in fragments {
+            assert!(stderr.contains(f), "{extra:?}: {stderr}");
+        }
+        assert!(!out.exists(), "{extra:?}");
+    }
+    // Inside the range the reader is written.
+    encode(
+        &[
+            &base[..],
+            &["--readers", "above:0.3", "--out", out.to_str().unwrap()],
+        ]
+        .concat(),
+    );
+    assert!(out.join("train_encoded.parquet").exists());
+}
