@@ -236,6 +236,7 @@ async fn main() {
         ("pool", "posterior_pool of per-(key, key2) fits, per key", "SELECT key, posterior_pool(p) FROM (SELECT key, key2, beta_posterior(y) AS p FROM t GROUP BY key, key2) GROUP BY key"),
         ("pool_window_engine", "engine: running SUM windows over per-(key, key2) counts", "SELECT SUM(m) FROM (SELECT (COALESCE(SUM(s) OVER w, 0) + 0.5) / (COALESCE(SUM(n) OVER w, 0) + 1.0) AS m FROM (SELECT key, key2, COUNT(*) AS n, SUM(y) AS s FROM t GROUP BY key, key2) WINDOW w AS (PARTITION BY key ORDER BY key2 ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING))"),
         ("pool_window", "running posterior_pool window (as-of) + posterior_mean", "SELECT SUM(m) FROM (SELECT posterior_mean(COALESCE(posterior_pool(p) OVER (PARTITION BY key ORDER BY key2 ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING), beta_prior(0.5, 0.5))) AS m FROM (SELECT key, key2, beta_posterior(y) AS p FROM t GROUP BY key, key2))"),
+        ("pool_before", "posterior_pool_before window (as-of, what encode runs) + posterior_mean", "SELECT SUM(m) FROM (SELECT posterior_mean(COALESCE(posterior_pool_before(p, key2) OVER (PARTITION BY key ORDER BY key2), beta_prior(0.5, 0.5))) AS m FROM (SELECT key, key2, beta_posterior(y) AS p FROM t GROUP BY key, key2))"),
     ];
     let mut json = vec![format!("\"baseline\": {baseline}")];
     println!("| query | seconds | ratio to COUNT/SUM group-by |");

@@ -20,7 +20,7 @@ pub struct FunctionDoc {
 
 const PRIORS: &str = "Priors";
 const FIT: &str = "Fitting posteriors (aggregate and window functions)";
-const COMBINE: &str = "Combining posteriors (aggregate functions)";
+const COMBINE: &str = "Combining posteriors (aggregate and window functions)";
 const READ: &str = "Reading posteriors";
 const TRANSFORM: &str = "Transforming posteriors";
 const HELPERS: &str = "Helpers";
@@ -157,6 +157,24 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
         syntax: "posterior_pool(p)",
         arguments: &[P],
         example: "SELECT breed, posterior_pool(p) AS p FROM daily_encodings GROUP BY breed;",
+    },
+    FunctionDoc {
+        name: "posterior_pool_before",
+        section: COMBINE,
+        description: "Window function: each row's pool of the posteriors of its partition's rows at \
+            strictly earlier times t (with a gap: at times up to t - gap), for as-of encodings. \
+            The window must be ordered by t, ascending; rows at one time read the same pool, so \
+            they never see each other. Gives the posteriors posterior_pool gives over the frame \
+            ROWS (or, with a gap, RANGE) BETWEEN UNBOUNDED PRECEDING and the row's earlier times, \
+            to the bit, in one pass over the partition. A row with no earlier non-NULL posterior \
+            (its level's first time) or a NULL t yields NULL: COALESCE it with the prior.",
+        syntax: "posterior_pool_before(p, t [, gap]) OVER (PARTITION BY level ORDER BY t)",
+        arguments: &[
+            ("p", "The posterior of each row (one per level and time, or per row); NULLs are skipped."),
+            ("t", "The time the window is ordered by: any type without a gap; a number with one."),
+            ("gap", "Optional: a row reads only times at least this much earlier (a constant > 0)."),
+        ],
+        example: "SELECT breed, day, COALESCE(posterior_pool_before(p, day) OVER (PARTITION BY breed ORDER BY day), beta_prior(2, 18)) AS as_of FROM (SELECT breed, day, beta_posterior(no_show, beta_prior(2, 18)) AS p FROM appointments GROUP BY breed, day);",
     },
     FunctionDoc {
         name: "fit_prior",

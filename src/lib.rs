@@ -3,7 +3,8 @@
 //!
 //! * [`family`] — the pure mathematics of the four conjugate families;
 //! * [`layout`] — the posterior value format (Arrow structs);
-//! * [`fit`], [`pool`] — aggregate functions; [`scalar`] — scalar functions;
+//! * [`fit`], [`pool`] — aggregate functions; [`pool_window`] — the as-of window
+//!   function; [`scalar`] — scalar functions;
 //! * [`docs`] — the documentation table behind every function;
 //! * [`encode`] — the encode workflow: plan, statements, outputs, refresh;
 //! * [`bundle`] — the JSON serving bundle, for scoring without the engine;
@@ -33,6 +34,7 @@ pub mod layout;
 pub mod numbered;
 pub mod optimizer;
 pub mod pool;
+pub mod pool_window;
 pub mod prior_binding;
 pub mod prior_fit;
 pub mod read_before_join;
@@ -44,7 +46,7 @@ pub mod shell;
 
 pub use datafusion;
 
-use datafusion::logical_expr::AggregateUDF;
+use datafusion::logical_expr::{AggregateUDF, WindowUDF};
 use datafusion::prelude::SessionContext;
 
 use fit::{BetaCounts, BetaOutcomes, DirichletClasses, FitAggregate, GammaCounts, NigValues};
@@ -81,6 +83,14 @@ fn aggregate_list(foreign: bool) -> Vec<AggregateUDF> {
     ]
 }
 
+/// Every window function of the SQL surface (the aggregates are window functions
+/// too).
+pub fn window_functions() -> Vec<WindowUDF> {
+    vec![WindowUDF::new_from_impl(
+        pool_window::PosteriorPoolBefore::default(),
+    )]
+}
+
 /// Register every posterity function on a DataFusion session, with the planning
 /// rule that gives empty window frames and empty groups the call's own prior
 /// ([`prior_binding`]). Registering the functions alone (from [`aggregates`])
@@ -93,5 +103,8 @@ pub fn register(ctx: &SessionContext) {
     }
     for f in aggregates() {
         ctx.register_udaf(f);
+    }
+    for f in window_functions() {
+        ctx.register_udwf(f);
     }
 }

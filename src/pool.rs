@@ -98,7 +98,7 @@ impl AggregateUDFImpl for PosteriorPool {
 /// `[hi, lo]` slot pairs of compensated sums, and how many inputs it holds (a
 /// sliding window frame that retracts them all is empty again).
 #[derive(Debug, Clone)]
-struct Pooled {
+pub(crate) struct Pooled {
     prior: AnyPosterior,
     sums: Vec<f64>,
     inputs: u64,
@@ -106,18 +106,25 @@ struct Pooled {
 
 impl Pooled {
     /// Add (or with `retract`, remove) the evidence `sums` of a posterior with
-    /// `p`'s prior; a pool left with no inputs is emptied.
-    fn add(slot: &mut Option<Pooled>, p: &AnyPosterior, sums: &[Dd], retract: bool) -> Result<()> {
+    /// `p`'s prior; a pool left with no inputs is emptied. `function` names the SQL
+    /// function in errors.
+    pub(crate) fn add(
+        function: &str,
+        slot: &mut Option<Pooled>,
+        p: &AnyPosterior,
+        sums: &[Dd],
+        retract: bool,
+    ) -> Result<()> {
         let pooled = match slot {
             Some(pooled) => {
                 pooled
                     .prior
                     .same_prior(p)
-                    .map_err(|e| family_error(NAME, e))?;
+                    .map_err(|e| family_error(function, e))?;
                 pooled
             }
             None if retract => {
-                return exec_err!("{NAME}: a window frame removed an input it never had")
+                return exec_err!("{function}: a window frame removed an input it never had")
             }
             None => slot.insert(Pooled {
                 prior: p.clone(),
@@ -126,7 +133,7 @@ impl Pooled {
             }),
         };
         if pooled.sums.len() != 2 * sums.len() {
-            return exec_err!("{NAME}: posteriors with different numbers of classes");
+            return exec_err!("{function}: posteriors with different numbers of classes");
         }
         for (slot, s) in pooled.sums.chunks_exact_mut(2).zip(sums) {
             Dd::accumulate_dd(slot, if retract { -*s } else { *s });
@@ -142,7 +149,7 @@ impl Pooled {
         Ok(())
     }
 
-    fn posterior(&self) -> AnyPosterior {
+    pub(crate) fn posterior(&self) -> AnyPosterior {
         let sums: Vec<Dd> = self.sums.chunks_exact(2).map(Dd::from_slot).collect();
         self.prior.with_evidence_sums(&sums)
     }
@@ -194,7 +201,7 @@ impl PoolGroups {
                 }
                 _ => p.evidence_sums(),
             };
-            Pooled::add(&mut self.pooled[g], &p, &evidence, retract)?;
+            Pooled::add(NAME, &mut self.pooled[g], &p, &evidence, retract)?;
         }
         Ok(())
     }

@@ -216,6 +216,11 @@ pub fn function_registry() -> BallistaFunctionRegistry {
             .aggregate_functions
             .insert(f.name().to_string(), Arc::new(f));
     }
+    for f in posterity::window_functions() {
+        registry
+            .window_functions
+            .insert(f.name().to_string(), Arc::new(f));
+    }
     registry
 }
 
@@ -240,6 +245,9 @@ fn register_functions(state: &mut SessionState) -> Result<()> {
     }
     for f in posterity::aggregates() {
         state.register_udaf(Arc::new(f))?;
+    }
+    for f in posterity::window_functions() {
+        state.register_udwf(Arc::new(f))?;
     }
     Ok(())
 }

@@ -13,12 +13,13 @@ use std::sync::{Arc, OnceLock};
 
 use datafusion_ffi::udaf::FFI_AggregateUDF;
 use datafusion_ffi::udf::FFI_ScalarUDF;
+use datafusion_ffi::udwf::FFI_WindowUDF;
 use posterity::bundle::Bundle as RustBundle;
 use posterity::datafusion::arrow::array::{RecordBatch, RecordBatchIterator};
 use posterity::datafusion::arrow::datatypes::SchemaRef;
 use posterity::datafusion::arrow::ffi_stream::{ArrowArrayStreamReader, FFI_ArrowArrayStream};
 use posterity::datafusion::datasource::MemTable;
-use posterity::datafusion::logical_expr::{AggregateUDF, ScalarUDF};
+use posterity::datafusion::logical_expr::{AggregateUDF, ScalarUDF, WindowUDF};
 use posterity::datafusion::prelude::{DataFrame, SessionContext};
 use posterity::encode::{
     self, EncodeOptions, EncodeOutput, HalfLife, Horizon, Method, PriorChoice, Reader,
@@ -128,6 +129,28 @@ impl AggregateFunction {
     }
 }
 
+/// A window function (`posterior_pool_before`), shared through its FFI capsule.
+#[pyclass(frozen, module = "posterity")]
+struct WindowFunction {
+    udwf: Arc<WindowUDF>,
+}
+
+#[pymethods]
+impl WindowFunction {
+    #[getter]
+    fn name(&self) -> String {
+        self.udwf.name().to_string()
+    }
+
+    fn __datafusion_window_udf__<'py>(&self, py: Python<'py>) -> PyResult<Bound<'py, PyCapsule>> {
+        PyCapsule::new_with_value(
+            py,
+            FFI_WindowUDF::from(Arc::clone(&self.udwf)),
+            c"datafusion_window_udf",
+        )
+    }
+}
+
 #[pyfunction]
 fn scalar_functions() -> Vec<ScalarFunction> {
     posterity::scalar::all()
@@ -142,6 +165,16 @@ fn aggregate_functions() -> Vec<AggregateFunction> {
         .into_iter()
         .map(|udaf| AggregateFunction {
             udaf: Arc::new(udaf),
+        })
+        .collect()
+}
+
+#[pyfunction]
+fn window_functions() -> Vec<WindowFunction> {
+    posterity::window_functions()
+        .into_iter()
+        .map(|udwf| WindowFunction {
+            udwf: Arc::new(udwf),
         })
         .collect()
 }
@@ -642,11 +675,13 @@ fn _posterity(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("Error", m.py().get_type::<Error>())?;
     m.add_class::<ScalarFunction>()?;
     m.add_class::<AggregateFunction>()?;
+    m.add_class::<WindowFunction>()?;
     m.add_class::<ArrowData>()?;
     m.add_class::<EncodeResult>()?;
     m.add_class::<Bundle>()?;
     m.add_function(wrap_pyfunction!(scalar_functions, m)?)?;
     m.add_function(wrap_pyfunction!(aggregate_functions, m)?)?;
+    m.add_function(wrap_pyfunction!(window_functions, m)?)?;
     m.add_function(wrap_pyfunction!(documentation, m)?)?;
     m.add_function(wrap_pyfunction!(engine_version, m)?)?;
     m.add_function(wrap_pyfunction!(encode_data, m)?)?;

@@ -99,6 +99,11 @@ SAME_AS_SHELL = {
     "as-of window": """SELECT appointment_id, posterior_mean(beta_posterior(no_show, beta_prior(2, 18))
         OVER (PARTITION BY breed ORDER BY day RANGE BETWEEN 30 PRECEDING AND 0 PRECEDING)) AS m
         FROM a ORDER BY appointment_id""",
+    # The window function as-of encodings use, through the foreign-function interface.
+    "as-of pool": """SELECT breed, day, posterior_mean(COALESCE(posterior_pool_before(p, day, 7)
+            OVER (PARTITION BY breed ORDER BY day), beta_prior(2, 18))) AS m
+        FROM (SELECT breed, day, beta_posterior(no_show, beta_prior(2, 18)) AS p FROM a
+              GROUP BY breed, day) ORDER BY breed, day""",
 }
 
 

@@ -21,7 +21,7 @@ use datafusion::prelude::SessionContext;
 
 use super::options::Method;
 use super::resolve::{EncodePlan, KeyPlan, TimeUnits};
-use super::sql::{as_of_window, AsOfDecay, TRAIN};
+use super::sql::{as_of_pool, AsOfDecay, TRAIN};
 use super::{quote, text, EncodeError, Result};
 use crate::layout::Kind;
 use crate::render::short;
@@ -341,14 +341,11 @@ impl Trial {
                         format!(
                             "s{i} AS (SELECT level, time, {} AS p FROM f{i})",
                             aged(
-                                &format!(
-                                    "posterior_pool(p) {}",
-                                    as_of_window(
-                                        "level",
-                                        ("time", TimeUnits::Numbers),
-                                        None,
-                                        candidate.horizon
-                                    )
+                                &as_of_pool(
+                                    "p",
+                                    "level",
+                                    ("time", TimeUnits::Numbers),
+                                    candidate.horizon,
                                 ),
                                 "time"
                             )

@@ -95,26 +95,26 @@ impl AsOfDecay {
     }
 }
 
-/// The window of as-of encodings over rows grouped per (level, time), ordered by
-/// `time`: every earlier time (in the column's own order: numbers, dates, text), or
-/// with a horizon every time at least that much older, counted in `units` (a horizon
-/// is > 0, so rows never read their own time). With `first`, the rows of one time
-/// where it is 0 (rows that only read, with no data) come before the time's data, so
-/// they too read only earlier times.
-pub(super) fn as_of_window(
+/// The as-of pool of posterior `column` over rows of one `level` ordered by
+/// `time`: each row reads its level's rows of every earlier time (in the column's
+/// own order: numbers, dates, text), or with a horizon every time at least that
+/// much older, counted in `units` (a horizon is > 0, so rows never read their own
+/// time). Rows of one time read the same pool, whatever else they hold.
+pub(super) fn as_of_pool(
+    column: &str,
     level: &str,
     (time, units): (&str, TimeUnits),
-    first: Option<&str>,
     horizon: Option<f64>,
 ) -> String {
-    let first = first.map(|f| format!(", {f}")).unwrap_or_default();
     match horizon {
-        Some(h) => format!(
-            "OVER (PARTITION BY {level} ORDER BY {} RANGE BETWEEN UNBOUNDED PRECEDING AND {h:?} PRECEDING)",
-            units.number(time)
-        ),
+        Some(h) => {
+            let time = units.number(time);
+            format!(
+                "posterior_pool_before({column}, {time}, {h:?}) OVER (PARTITION BY {level} ORDER BY {time})"
+            )
+        }
         None => format!(
-            "OVER (PARTITION BY {level} ORDER BY {time}{first} ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)"
+            "posterior_pool_before({column}, {time}) OVER (PARTITION BY {level} ORDER BY {time})"
         ),
     }
 }
@@ -163,14 +163,11 @@ impl EncodePlan {
         ))
     }
 
-    /// Key `k`'s fit (weighted by its half-life, if any) and the as-of pooled window
-    /// of `column` over the rows' `level, __time` (`as_of_window` with `first`), aged
-    /// to each row's time.
-    fn as_of_pooled(&self, k: &KeyPlan, column: &str, first: Option<&str>) -> (String, String) {
-        let pooled = format!(
-            "posterior_pool({column}) {}",
-            as_of_window("level", ("__time", self.time_units), first, k.horizon)
-        );
+    /// Key `k`'s fit (weighted by its half-life, if any) and the as-of pool of
+    /// `column` over the rows' `level, __time` (`as_of_pool`), aged to each row's
+    /// time.
+    fn as_of_pooled(&self, k: &KeyPlan, column: &str) -> (String, String) {
+        let pooled = as_of_pool(column, "level", ("__time", self.time_units), k.horizon);
         match self.as_of_decay(k) {
             Some((fit, decay)) => (fit, decay.aged(&pooled, &self.time_number("__time"))),
             None => (self.fit(k), pooled),
@@ -754,7 +751,7 @@ impl EncodePlan {
             }
             (Method::Time, TimeTies::Strict, _) => {
                 let time = quote(o.time_column.as_deref().unwrap_or_default());
-                let (fit, pooled) = self.as_of_pooled(key, "p", None);
+                let (fit, pooled) = self.as_of_pooled(key, "p");
                 (
                     "as-of",
                     format!(
@@ -850,8 +847,9 @@ impl EncodePlan {
     fn as_of_in_hierarchy(&self, i: usize, key: &KeyPlan) -> (&'static str, String, String) {
         let time = quote(self.options.time_column.as_deref().unwrap_or_default());
         let prior = format!("__prior{i}");
-        // Probe rows (`__kind` 0) come before a time's data.
-        let windowed = |k: &KeyPlan, column: &str| self.as_of_pooled(k, column, Some("__kind"));
+        // Probe rows (times a child needs its parent at, with no data of their own)
+        // read earlier times only, as the data rows do.
+        let windowed = |k: &KeyPlan, column: &str| self.as_of_pooled(k, column);
         let (fit, pooled) = windowed(key, "p");
         let (mut data, mut pooled, mut joins) = (
             vec![format!("{fit} AS p")],
@@ -879,13 +877,13 @@ impl EncodePlan {
             None => String::new(),
         };
         let mut grid = format!(
-            "SELECT t.__k{i} AS level, t.{time} AS __time, 1 AS __kind, {} FROM __keyed t{main_parent} \
+            "SELECT t.__k{i} AS level, t.{time} AS __time, {} FROM __keyed t{main_parent} \
              WHERE t.__k{i} IS NOT NULL AND t.{time} IS NOT NULL GROUP BY t.__k{i}, t.{time}",
             data.join(", ")
         );
         if self.has_children(i) {
             grid.push_str(&format!(
-                " UNION ALL SELECT level, __time, 0 AS __kind, {probe} FROM __need{i}"
+                " UNION ALL SELECT level, __time, {probe} FROM __need{i}"
             ));
         }
         (

@@ -566,6 +566,11 @@ fn with_cluster_hint(f: Failure, sql: &str) -> Failure {
             crate::aggregates()
                 .into_iter()
                 .map(|f| f.name().to_string()),
+        )
+        .chain(
+            crate::window_functions()
+                .into_iter()
+                .map(|f| f.name().to_string()),
         );
     let used: Vec<String> = names.filter(|n| lower.contains(&format!("{n}("))).collect();
     if used.is_empty() {

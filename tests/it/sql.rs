@@ -703,6 +703,10 @@ async fn functions_are_documented_in_information_schema() {
             assert!(f.documentation().is_some(), "{} is undocumented", f.name());
             f.name().to_string()
         }))
+        .chain(posterity::window_functions().iter().map(|f| {
+            assert!(f.documentation().is_some(), "{} is undocumented", f.name());
+            f.name().to_string()
+        }))
         .collect();
     registered.sort();
     let mut documented: Vec<String> = posterity::docs::FUNCTIONS
@@ -1051,4 +1055,148 @@ async fn posterior_under_and_fit_strength_refuse_bad_arguments() {
         floats(&ctx, "SELECT fit_strength(p, CASE WHEN false THEN p END, NULL) FROM (SELECT beta_prior(1, 1) AS p)").await,
         vec![None]
     );
+}
+
+// `posterior_pool_before` walks a partition once; it must give what `posterior_pool`
+// gives over the frame it replaces, to the bit, for every family: ROWS up to the
+// row before without a gap, RANGE up to `gap` before with one (on one row per level
+// and time, as as-of encodings have them), under any partitioning and batch size.
+#[tokio::test]
+async fn pool_before_equals_the_frames_to_the_bit() {
+    let fits = [
+        "beta_posterior(no_show, beta_prior(1, 2))",
+        "gamma_posterior(visits, 1.5, gamma_prior(2, 1))",
+        "nig_posterior(amount, nig_prior(70, 0.5, 2, 40))",
+        "dirichlet_posterior(outcome, dirichlet_prior(['attended', 'no_show', 'late_cancel'], 0.5))",
+    ];
+    for (partitions, batch) in [(4, 8192), (1, 3)] {
+        let c = ctx_with(partitions, batch).await;
+        for fit in fits {
+            let grouped = format!(
+                "(SELECT breed, CAST(t / 3 AS DOUBLE) AS d, {fit} AS p FROM appts GROUP BY breed, t / 3)"
+            );
+            for (before, frame) in [
+                (
+                    "posterior_pool_before(p, d)",
+                    "ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING",
+                ),
+                (
+                    "posterior_pool_before(p, d, 2)",
+                    "RANGE BETWEEN UNBOUNDED PRECEDING AND 2 PRECEDING",
+                ),
+                (
+                    "posterior_pool_before(p, d, 0.5)",
+                    "RANGE BETWEEN UNBOUNDED PRECEDING AND 0.5 PRECEDING",
+                ),
+            ] {
+                let sql = format!(
+                    "SELECT {before} OVER (PARTITION BY breed ORDER BY d), \
+                     posterior_pool(p) OVER (PARTITION BY breed ORDER BY d {frame}) \
+                     FROM {grouped} ORDER BY breed, d"
+                );
+                let batches = query(&c, &sql).await;
+                let (mut nulls, mut rows) = (0, 0);
+                for b in &batches {
+                    assert_eq!(b.column(0).to_data(), b.column(1).to_data(), "{sql}");
+                    nulls += b.column(0).null_count();
+                    rows += b.num_rows();
+                }
+                // Each breed's first time reads nothing: NULL, as the empty frame.
+                assert!(nulls >= 4 && nulls < rows, "{sql}: {nulls} of {rows}");
+            }
+        }
+    }
+}
+
+// Rows at one time read the same pool and never each other: one posterior per
+// appointment (ties at each d) reads what the day-level pool of earlier days reads.
+// A NULL time reads nothing and lends nothing.
+#[tokio::test]
+async fn pool_before_keeps_rows_of_one_time_apart() {
+    let c = ctx().await;
+    let fit = "beta_posterior(no_show, beta_prior(1, 2))";
+    let per_row = format!(
+        "SELECT m FROM (SELECT t, posterior_mean(posterior_pool_before(p, d) \
+                OVER (PARTITION BY breed ORDER BY d)) AS m \
+         FROM (SELECT breed, t, CASE WHEN t = 39 THEN NULL ELSE t / 3 END AS d, {fit} AS p \
+               FROM appts GROUP BY breed, t)) ORDER BY t"
+    );
+    let per_day = format!(
+        "SELECT m FROM (SELECT a.t, posterior_mean(posterior_pool(g.p) OVER (PARTITION BY g.breed \
+                ORDER BY g.d ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)) AS m \
+         FROM (SELECT breed, t / 3 AS d, {fit} AS p FROM appts WHERE t <> 39 GROUP BY breed, t / 3) g \
+         JOIN appts a ON a.breed = g.breed AND a.t / 3 = g.d) ORDER BY t"
+    );
+    let (got, want) = (floats(&c, &per_row).await, floats(&c, &per_day).await);
+    assert_eq!(got.len(), 40);
+    assert_eq!(&got[..39], &want[..], "per row against per day");
+    assert_eq!(got[39], None, "a NULL time reads nothing");
+}
+
+#[tokio::test]
+async fn pool_before_refuses_what_it_cannot_read() {
+    let c = ctx().await;
+    let grouped = "(SELECT breed, t, beta_posterior(no_show, beta_prior(1, 2)) AS p FROM appts GROUP BY breed, t)";
+    for (call, window, fragments) in [
+        (
+            "posterior_pool_before(p, t)",
+            "ORDER BY t DESC",
+            vec!["posterior_pool_before", "not ordered by argument t"],
+        ),
+        (
+            "posterior_pool_before(p, t)",
+            "",
+            vec!["posterior_pool_before", "not ordered by argument t"],
+        ),
+        (
+            "posterior_pool_before(p, t, 0)",
+            "ORDER BY t",
+            vec!["posterior_pool_before", "gap = 0", "> 0"],
+        ),
+        (
+            "posterior_pool_before(p, t, -2)",
+            "ORDER BY t",
+            vec!["gap = -2"],
+        ),
+        (
+            "posterior_pool_before(p, t, t + 1)",
+            "ORDER BY t",
+            vec!["gap must be one number for every row"],
+        ),
+        (
+            "posterior_pool_before(p, CAST(t AS DOUBLE) / 0.0, 1)",
+            "ORDER BY t",
+            vec!["argument t is NaN"],
+        ),
+        (
+            "posterior_pool_before(p, 'x', 1)",
+            "ORDER BY t",
+            vec!["argument t has type", "must be numbers"],
+        ),
+        (
+            "posterior_pool_before(p)",
+            "ORDER BY t",
+            vec!["takes 2 to 3 arguments", "usage"],
+        ),
+        (
+            "posterior_pool_before(t, t)",
+            "ORDER BY t",
+            vec!["posterior_pool_before", "argument p", "posterior struct"],
+        ),
+        (
+            "posterior_pool_before(CASE WHEN t < 20 THEN p ELSE beta_prior(3, 3) END, t)",
+            "ORDER BY t",
+            vec![
+                "posterior_pool_before",
+                "beta_prior(1, 2)",
+                "beta_prior(3, 3)",
+            ],
+        ),
+    ] {
+        let sql = format!("SELECT {call} OVER (PARTITION BY breed {window}) FROM {grouped}");
+        let e = error(&c, &sql).await;
+        for f in fragments {
+            assert!(e.contains(f), "{sql}\n  missing '{f}' in: {e}");
+        }
+    }
 }

@@ -85,7 +85,7 @@ def register(ctx) -> SimpleNamespace:
     engine's function interface. Give as-of windows a frame that holds rows, or
     COALESCE the result with the prior (README, "posterity from Python").
     """
-    from datafusion import AggregateUDF, ScalarUDF
+    from datafusion import AggregateUDF, ScalarUDF, WindowUDF
 
     _check_engine()
     docs = _documentation()
@@ -98,6 +98,10 @@ def register(ctx) -> SimpleNamespace:
         udaf = AggregateUDF.from_pycapsule(f)
         ctx.register_udaf(udaf)
         out[f.name] = udaf
+    for f in _posterity.window_functions():
+        udwf = WindowUDF.from_pycapsule(f)
+        ctx.register_udwf(udwf)
+        out[f.name] = udwf
     for name, udf in out.items():
         if name in docs:
             try:
