@@ -84,6 +84,8 @@ fn out_of_fold_and_leave_one_out() {
 fn as_of_and_scoring_view() {
     let (dir, rows) = run_recipe("04_as_of");
     assert!(value(&rows, "corr_as_of").abs() < 0.1);
+    // Pooled per day with posterior_pool_before: the per-row frame's numbers.
+    assert!(value(&rows, "pooled_days_difference") < 1e-15, "{rows:?}");
     // Independent computation with plain SUM/COUNT over strictly earlier days: the
     // Beta(2, 18) posterior mean is (2 + no-shows) / (20 + bookings), and a breed's
     // first day gets the prior mean 0.1 (it got 0.5 before the prior was bound).
