@@ -5,6 +5,8 @@
 /// flag says whether the text ends inside an unfinished statement (for multi-line
 /// prompt input).
 pub fn statements(script: &str) -> (Vec<String>, bool) {
+    // A byte-order mark, as some editors start a saved file with, is not SQL.
+    let script = script.strip_prefix('\u{feff}').unwrap_or(script);
     let mut out = Vec::new();
     let mut current = String::new();
     let mut chars = script.chars().peekable();

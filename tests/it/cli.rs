@@ -132,6 +132,15 @@ fn script_file_and_stdin() {
     let o = run(&["--format", "csv", "-f", script.to_str().unwrap()]);
     assert!(o.status.success(), "{}", stderr(&o));
     assert!(stdout(&o).contains("poodle,0.25"));
+    // A script saved with a byte-order mark and Windows line ends runs the same.
+    let windows = dir.join("windows.sql");
+    let text = std::fs::read_to_string(&script)
+        .unwrap()
+        .replace('\n', "\r\n");
+    std::fs::write(&windows, format!("\u{feff}{text}")).unwrap();
+    let o = run(&["--format", "csv", "-f", windows.to_str().unwrap()]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert!(stdout(&o).contains("poodle,0.25"));
     let mut child = bin()
         .args(["--format", "csv", "-t", &format!("s={}", data("small.csv"))])
         .stdin(Stdio::piped())
