@@ -163,8 +163,9 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
         section: COMBINE,
         description: "Window function: each row's pool of the posteriors of its partition's rows at \
             strictly earlier times t (with a gap: at times up to t - gap), for as-of encodings. \
-            The window must be ordered by t, ascending; rows at one time read the same pool, so \
-            they never see each other. Gives the posteriors posterior_pool gives over the frame \
+            The window must be ordered by t, ascending, with no frame clause (the rows each pool \
+            reads follow from t and gap); rows at one time read the same pool, so they never \
+            see each other. Gives the posteriors posterior_pool gives over the frame \
             ROWS (or, with a gap, RANGE) BETWEEN UNBOUNDED PRECEDING and the row's earlier times, \
             to the bit, in one pass over the partition. A row with no earlier non-NULL posterior \
             (its level's first time) or a NULL t yields NULL: COALESCE it with the prior.",

@@ -15,9 +15,13 @@ use datafusion::arrow::array::{make_comparator, Array, ArrayRef, AsArray};
 use datafusion::arrow::compute::SortOptions;
 use datafusion::arrow::datatypes::{DataType, Field, FieldRef, Float64Type};
 use datafusion::common::{exec_err, plan_err, Result};
-use datafusion::logical_expr::function::{PartitionEvaluatorArgs, WindowUDFFieldArgs};
+use datafusion::logical_expr::expr::WindowFunction;
+use datafusion::logical_expr::function::{
+    PartitionEvaluatorArgs, WindowFunctionSimplification, WindowUDFFieldArgs,
+};
 use datafusion::logical_expr::{
-    Documentation, PartitionEvaluator, Signature, Volatility, WindowUDFImpl,
+    Documentation, Expr, PartitionEvaluator, Signature, Volatility, WindowFrame, WindowFrameBound,
+    WindowUDFImpl,
 };
 
 use crate::family::number;
@@ -96,6 +100,36 @@ impl WindowUDFImpl for PosteriorPoolBefore {
     fn documentation(&self) -> Option<&Documentation> {
         crate::docs::get(NAME)
     }
+
+    /// Not a simplification: the planner's one look at the OVER clause. The rows a
+    /// pool reads follow from t and gap alone, so a frame the evaluator would not
+    /// see is refused instead of silently ignored (the engine refuses FILTER).
+    fn simplify(&self) -> Option<WindowFunctionSimplification> {
+        Some(Box::new(|w: WindowFunction, _| {
+            if !is_default_frame(&w.params.window_frame) {
+                return plan_err!(
+                    "{NAME}: the OVER clause has a window frame ({}); leave it out: the rows \
+                     each pool reads follow from t and gap",
+                    w.params.window_frame
+                );
+            }
+            Ok(Expr::from(w))
+        }))
+    }
+}
+
+/// The frame the engine gives an OVER clause without one: from the partition's
+/// start to the current row (with ORDER BY) or to its end (without).
+fn is_default_frame(frame: &WindowFrame) -> bool {
+    let unbounded = |b: &WindowFrameBound| match b {
+        WindowFrameBound::Preceding(v) | WindowFrameBound::Following(v) => v.is_null(),
+        WindowFrameBound::CurrentRow => false,
+    };
+    let to_current_or_end = match &frame.end_bound {
+        WindowFrameBound::CurrentRow => true,
+        end => unbounded(end),
+    };
+    unbounded(&frame.start_bound) && to_current_or_end
 }
 
 #[derive(Debug)]

@@ -1174,6 +1174,15 @@ async fn pool_before_refuses_what_it_cannot_read() {
             vec!["argument t has type", "must be numbers"],
         ),
         (
+            "posterior_pool_before(p, t)",
+            "ORDER BY t RANGE BETWEEN 30 PRECEDING AND 1 PRECEDING",
+            vec![
+                "posterior_pool_before",
+                "has a window frame",
+                "leave it out",
+            ],
+        ),
+        (
             "posterior_pool_before(p)",
             "ORDER BY t",
             vec!["takes 2 to 3 arguments", "usage"],
