@@ -169,7 +169,7 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
             ROWS (or, with a gap, RANGE) BETWEEN UNBOUNDED PRECEDING and the row's earlier times, \
             to the bit, in one pass over the partition. A row with no earlier non-NULL posterior \
             (its level's first time) or a NULL t yields NULL: COALESCE it with the prior.",
-        syntax: "posterior_pool_before(p, t [, gap]) OVER (PARTITION BY level ORDER BY t)",
+        syntax: "posterior_pool_before(p, t [, gap]) OVER (ORDER BY t)",
         arguments: &[
             ("p", "The posterior of each row (one per level and time, or per row); NULLs are skipped."),
             ("t", "The time the window is ordered by: any type without a gap; a number with one."),
