@@ -144,8 +144,8 @@ impl PartitionEvaluator for PoolBeforeEvaluator {
         check_ascending(times)?;
         let mut pool = Running::new(&column, times);
         let out = match self.has_gap {
-            false => pool.before_each_time(times, num_rows)?,
-            true => pool.at_least_gap_before(times.as_primitive(), gap(&values[2])?, num_rows)?,
+            false => pool.before_each_time(num_rows)?,
+            true => pool.at_least_gap_before(gap(&values[2])?, num_rows)?,
         };
         build(NAME, column.kind(), &out)
     }
@@ -195,11 +195,8 @@ impl<'a> Running<'a> {
 
     /// Without a gap: the rows of one time read every row of the earlier times. A
     /// NULL time reads nothing.
-    fn before_each_time(
-        &mut self,
-        times: &ArrayRef,
-        rows: usize,
-    ) -> Result<Vec<Option<AnyPosterior>>> {
+    fn before_each_time(&mut self, rows: usize) -> Result<Vec<Option<AnyPosterior>>> {
+        let times = self.times;
         let same = make_comparator(times, times, SortOptions::default())?;
         let mut out = Vec::with_capacity(rows);
         let mut start = 0;
@@ -222,12 +219,10 @@ impl<'a> Running<'a> {
     }
 
     /// With a gap: a row at time t reads the rows at times up to t - gap.
-    fn at_least_gap_before(
-        &mut self,
-        times: &datafusion::arrow::array::PrimitiveArray<Float64Type>,
-        gap: f64,
-        rows: usize,
-    ) -> Result<Vec<Option<AnyPosterior>>> {
+    fn at_least_gap_before(&mut self, gap: f64, rows: usize) -> Result<Vec<Option<AnyPosterior>>> {
+        let Some(times) = self.times.as_primitive_opt::<Float64Type>() else {
+            return exec_err!("{NAME}: with a gap, argument t must be a number");
+        };
         let mut out = Vec::with_capacity(rows);
         let mut end = 0;
         for i in 0..rows {
@@ -273,7 +268,9 @@ fn check_ascending(times: &ArrayRef) -> Result<()> {
 
 /// The gap: one finite number > 0 for the whole partition.
 fn gap(values: &ArrayRef) -> Result<f64> {
-    let gaps = values.as_primitive::<Float64Type>();
+    let Some(gaps) = values.as_primitive_opt::<Float64Type>() else {
+        return exec_err!("{NAME}: argument gap must be a number");
+    };
     let Some(first) = (0..gaps.len()).next() else {
         return Ok(1.0); // an empty partition reads nothing anyway
     };
