@@ -300,10 +300,17 @@ fn preflight(path: &str, kind: FileKind, header: bool, delimiter: u8) -> Result<
                         .enumerate()
                         .find_map(|(i, n)| names[..i].contains(n).then_some(n))
                     {
-                        return Err(format!(
-                            "{shown} names the column '{twice}' twice in its header; give every \
-                             column its own name"
-                        ));
+                        return Err(if twice.is_empty() {
+                            format!(
+                                "{shown} has more than one column without a name in its header \
+                                 (delimiters at the end of the line?); name every column"
+                            )
+                        } else {
+                            format!(
+                                "{shown} names the column '{twice}' twice in its header; give \
+                                 every column its own name"
+                            )
+                        });
                     }
                 }
                 if header && kind_of_name(path).is_none() {
