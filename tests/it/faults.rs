@@ -24,6 +24,7 @@ fn broken_files_fail_at_registration_naming_the_file() {
     write("quote.csv", b"a,b\n1,\"x\n2,y\n");
     write("empty.csv", b"");
     write("twice.csv", b"breed,no_show,breed\nbeagle,1,pug\n");
+    write("trailing.csv", b"breed,no_show,,\nbeagle,1,,\n");
     // A delimiter inside quotes is part of the name: these are three names.
     write(
         "quoted.csv",
@@ -61,6 +62,10 @@ fn broken_files_fail_at_registration_naming_the_file() {
         (
             "twice.csv",
             &["twice.csv", "names the column 'breed' twice"],
+        ),
+        (
+            "trailing.csv",
+            &["trailing.csv", "more than one column without a name"],
         ),
         (
             "empty.parquet",
