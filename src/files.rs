@@ -293,8 +293,9 @@ fn preflight(path: &str, kind: FileKind, header: bool, delimiter: u8) -> Result<
                 if quotes % 2 == 1 {
                     return Err(format!("{shown} has an unterminated quoted field (an odd number of '\"' characters)"));
                 }
+                let line = String::from_utf8_lossy(&first_line).to_string();
                 if header {
-                    let names = header_names(&String::from_utf8_lossy(&first_line), delimiter);
+                    let names = header_names(&line, delimiter);
                     if let Some(twice) = names
                         .iter()
                         .enumerate()
@@ -314,7 +315,6 @@ fn preflight(path: &str, kind: FileKind, header: bool, delimiter: u8) -> Result<
                     }
                 }
                 if header && kind_of_name(path).is_none() {
-                    let line = String::from_utf8_lossy(&first_line).to_string();
                     match &first_header {
                         None => first_header = Some((line, file.clone())),
                         Some((h, other)) if *h != line => {

@@ -1338,9 +1338,7 @@ impl<K: FitKernel> Accumulator for FitAccumulator<K> {
     fn evaluate(&mut self) -> Result<ScalarValue> {
         self.groups.resize(1);
         let array = self.groups.kernel.finish(&self.groups.stats)?;
-        // A window evaluates once per row: wrap the one-row struct column as it is
-        // rather than slicing a copy of it (a sixth of a running window's time).
-        Ok(ScalarValue::Struct(Arc::new(array.as_struct().clone())))
+        Ok(crate::layout::one_row_scalar(&array))
     }
 
     fn size(&self) -> usize {

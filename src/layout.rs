@@ -591,6 +591,12 @@ pub fn build(function: &str, kind: Kind, rows: &[Option<AnyPosterior>]) -> Resul
     )?))
 }
 
+/// A one-row posterior column as a scalar, wrapped as it is: a window evaluates its
+/// aggregate once per row, and slicing a copy of each result was a sixth of its time.
+pub fn one_row_scalar(column: &ArrayRef) -> datafusion::common::ScalarValue {
+    datafusion::common::ScalarValue::Struct(Arc::new(column.as_struct().clone()))
+}
+
 /// Build a struct column of a float-field family directly from per-row field
 /// values laid out field-major (`columns[field][row]`): the fast path of the fits.
 pub fn build_floats(function: &str, kind: Kind, columns: Vec<Vec<f64>>) -> Result<ArrayRef> {

@@ -215,7 +215,7 @@ impl PoolGroups {
             .iter()
             .map(|r| r.as_ref().map(Pooled::posterior))
             .collect();
-        build("posterior_pool", self.kind, &posteriors)
+        build(NAME, self.kind, &posteriors)
     }
 
     /// The partial state of `rows`: pooled posteriors and their compensated sums.
@@ -305,15 +305,9 @@ impl Accumulator for PoolAccumulator {
     }
 
     fn evaluate(&mut self) -> Result<ScalarValue> {
-        // A running window evaluates once per row: wrap the one-row column as it
-        // is rather than slicing a copy of it.
         let pooled = self.0.pooled.first().and_then(Option::as_ref);
-        let column = build(
-            "posterior_pool",
-            self.0.kind,
-            &[pooled.map(Pooled::posterior)],
-        )?;
-        Ok(ScalarValue::Struct(Arc::new(column.as_struct().clone())))
+        let column = build(NAME, self.0.kind, &[pooled.map(Pooled::posterior)])?;
+        Ok(crate::layout::one_row_scalar(&column))
     }
 
     fn size(&self) -> usize {

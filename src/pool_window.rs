@@ -11,7 +11,7 @@
 use std::cmp::Ordering;
 use std::sync::Arc;
 
-use datafusion::arrow::array::{make_comparator, Array, ArrayRef, AsArray};
+use datafusion::arrow::array::{make_comparator, Array, ArrayRef, AsArray, DynComparator};
 use datafusion::arrow::compute::SortOptions;
 use datafusion::arrow::datatypes::{DataType, Field, FieldRef, Float64Type};
 use datafusion::common::{exec_err, plan_err, Result};
@@ -141,8 +141,8 @@ impl PartitionEvaluator for PoolBeforeEvaluator {
     fn evaluate_all(&mut self, values: &[ArrayRef], num_rows: usize) -> Result<ArrayRef> {
         let column = PosteriorColumn::new(NAME, &values[0])?;
         let times = &values[1];
-        check_ascending(times)?;
-        let mut pool = Running::new(&column, times);
+        let order = time_order(times)?;
+        let mut pool = Running::new(&column, times, order);
         let out = match self.has_gap {
             false => pool.before_each_time(num_rows)?,
             true => pool.at_least_gap_before(gap(&values[2])?, num_rows)?,
@@ -155,15 +155,18 @@ impl PartitionEvaluator for PoolBeforeEvaluator {
 struct Running<'a> {
     column: &'a PosteriorColumn,
     times: &'a ArrayRef,
+    /// Compares two rows' times (checked ascending by `time_order`).
+    order: DynComparator,
     pooled: Option<Pooled>,
     next: usize,
 }
 
 impl<'a> Running<'a> {
-    fn new(column: &'a PosteriorColumn, times: &'a ArrayRef) -> Self {
+    fn new(column: &'a PosteriorColumn, times: &'a ArrayRef, order: DynComparator) -> Self {
         Running {
             column,
             times,
+            order,
             pooled: None,
             next: 0,
         }
@@ -197,7 +200,6 @@ impl<'a> Running<'a> {
     /// NULL time reads nothing.
     fn before_each_time(&mut self, rows: usize) -> Result<Vec<Option<AnyPosterior>>> {
         let times = self.times;
-        let same = make_comparator(times, times, SortOptions::default())?;
         let mut out = Vec::with_capacity(rows);
         let mut start = 0;
         while start < rows {
@@ -207,7 +209,7 @@ impl<'a> Running<'a> {
                 continue;
             }
             let mut end = start + 1;
-            while end < rows && !times.is_null(end) && same(start, end) == Ordering::Equal {
+            while end < rows && !times.is_null(end) && (self.order)(start, end) == Ordering::Equal {
                 end += 1;
             }
             self.grow_to(start)?;
@@ -243,7 +245,8 @@ impl<'a> Running<'a> {
 
 /// The window must be ordered by `t`, ascending (NULLs first or last): otherwise
 /// "earlier" means nothing and the pools would silently read later rows.
-fn check_ascending(times: &ArrayRef) -> Result<()> {
+/// Returns the comparator of the times, for finding rows of one time.
+fn time_order(times: &ArrayRef) -> Result<DynComparator> {
     if let Some(t) = times.as_primitive_opt::<Float64Type>() {
         if t.iter().any(|x| x.is_some_and(f64::is_nan)) {
             return exec_err!("{NAME}: argument t is NaN; times must be numbers or NULL");
@@ -263,7 +266,7 @@ fn check_ascending(times: &ArrayRef) -> Result<()> {
             "{NAME}: the window is not ordered by argument t; write it as {USAGE} (ascending)"
         );
     }
-    Ok(())
+    Ok(order)
 }
 
 /// The gap: one finite number > 0 for the whole partition.
