@@ -16,7 +16,9 @@ use datafusion_ffi::udf::FFI_ScalarUDF;
 use datafusion_ffi::udwf::FFI_WindowUDF;
 use posterity::bundle::Bundle as RustBundle;
 use posterity::datafusion::arrow::array::{RecordBatch, RecordBatchIterator};
-use posterity::datafusion::arrow::datatypes::SchemaRef;
+use posterity::datafusion::arrow::compute::cast;
+use posterity::datafusion::arrow::datatypes::{DataType, SchemaRef};
+use posterity::datafusion::arrow::error::ArrowError;
 use posterity::datafusion::arrow::ffi_stream::{ArrowArrayStreamReader, FFI_ArrowArrayStream};
 use posterity::datafusion::datasource::MemTable;
 use posterity::datafusion::logical_expr::{AggregateUDF, ScalarUDF, WindowUDF};
@@ -271,8 +273,37 @@ fn read_stream(data: &Bound<'_, PyAny>, what: &str) -> PyResult<(SchemaRef, Vec<
 
 async fn collect(df: DataFrame) -> posterity::datafusion::error::Result<ArrowData> {
     let schema = Arc::new(df.schema().as_arrow().clone());
-    let batches = df.collect().await?;
+    let batches = df
+        .collect()
+        .await?
+        .into_iter()
+        .map(unique_dictionaries)
+        .collect::<Result<_, _>>()?;
     Ok(ArrowData { schema, batches })
+}
+
+/// The batch with every dictionary column re-encoded so that its dictionary holds
+/// each value once. The engine may hand back a dictionary concatenated from its
+/// inputs' (the same values twice), which Arrow allows and pandas refuses
+/// ("Categorical categories must be unique") when a category key comes back.
+fn unique_dictionaries(batch: RecordBatch) -> Result<RecordBatch, ArrowError> {
+    if !batch
+        .schema()
+        .fields()
+        .iter()
+        .any(|f| matches!(f.data_type(), DataType::Dictionary(..)))
+    {
+        return Ok(batch);
+    }
+    let columns = batch
+        .columns()
+        .iter()
+        .map(|column| match column.data_type() {
+            DataType::Dictionary(_, values) => cast(&cast(column, values)?, column.data_type()),
+            _ => Ok(Arc::clone(column)),
+        })
+        .collect::<Result<Vec<_>, _>>()?;
+    RecordBatch::try_new(batch.schema(), columns)
 }
 
 async fn collect_some(df: &Option<DataFrame>) -> Result<Option<ArrowData>, String> {

@@ -310,6 +310,20 @@ def test_pandas_dates_and_categories():
     assert flags.summary[0]["family"] == "beta"
 
 
+def test_category_key_comes_back_as_a_category():
+    """A category key passes through to pandas as a category with its own levels. The engine
+    may return a key's dictionary holding each value twice (seen with a text target on a few
+    rows), which pandas refuses; the outputs hold each value once."""
+    frame = pd.DataFrame({"clinic": pd.Categorical(["c6", "c1", "c7", "c44", "c46"]),
+                          "outcome": ["kept", "missed", "kept", "kept", "missed"]})
+    for extra in ({}, {"score": frame}):
+        enc = posterity.encode(frame, target="outcome", columns=["clinic"], **extra)
+        for out in [enc.train_encoded, enc.scored] if extra else [enc.train_encoded]:
+            assert out["clinic"].dtype == "category"
+            assert out["clinic"].tolist() == frame["clinic"].tolist()
+            assert sorted(out["clinic"].cat.categories) == sorted(frame["clinic"].cat.categories)
+
+
 def test_key_types_nulls_and_empty():
     rows = pa.table({
         "text": ["a", "b", None, "a", "b", "c"] * 50,
