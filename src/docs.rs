@@ -6,6 +6,7 @@
 use std::collections::HashMap;
 use std::sync::OnceLock;
 
+use datafusion::common::{plan_err, Result};
 use datafusion::logical_expr::{DocSection, Documentation};
 
 /// One function's documentation.
@@ -397,6 +398,31 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
         example: "SELECT beta_posterior(no_show, beta_prior(1, 19), decay_weight(days_old, 90)) FROM appointments;",
     },
 ];
+
+/// Checks a call's number of arguments; the error says it in the user's words with
+/// the function's syntax: "beta_prior: takes 2 arguments, got 1; usage: beta_prior(a, b)".
+pub fn check_arity(function: &str, n: usize, min: usize, max: usize) -> Result<()> {
+    if (min..=max).contains(&n) {
+        return Ok(());
+    }
+    let takes = match (min, max) {
+        (1, 1) => "1 argument".to_string(),
+        (a, b) if a == b => format!("{a} arguments"),
+        (a, b) => format!("{a} to {b} arguments"),
+    };
+    plan_err!(
+        "{function}: takes {takes}, got {n}; usage: {}",
+        syntax(function)
+    )
+}
+
+/// The function's syntax as the reference gives it ("" for an unknown name).
+pub fn syntax(function: &str) -> &'static str {
+    FUNCTIONS
+        .iter()
+        .find(|f| f.name == function)
+        .map_or("", |f| f.syntax)
+}
 
 /// The DataFusion documentation of `name`.
 pub fn get(name: &str) -> Option<&'static Documentation> {

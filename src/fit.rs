@@ -28,13 +28,14 @@ use datafusion::logical_expr::{
 };
 use datafusion::physical_expr::expressions::Literal;
 
+use crate::docs::check_arity;
 use crate::family::compensated::Dd;
 use crate::family::nig::{centred_terms, stats_from_centred};
 use crate::family::{
     beta::check_outcome, BetaPosterior, BetaPrior, DirichletPosterior, DirichletPrior, FamilyError,
     GammaPosterior, GammaPrior, NigPrior,
 };
-use crate::layout::{build, build_floats, AnyPosterior, Kind, PosteriorColumn};
+use crate::layout::{build, build_floats, describe_type, AnyPosterior, Kind, PosteriorColumn};
 
 /// Wrap a family error with the function's name.
 pub fn family_error(function: &str, e: FamilyError) -> DataFusionError {
@@ -123,7 +124,10 @@ fn numeric(function: &str, argument: &str, t: &DataType) -> Result<DataType> {
     if is_number(t) {
         Ok(DataType::Float64)
     } else {
-        plan_err!("{function}: argument {argument} has type {t}; expected a number or boolean")
+        plan_err!(
+            "{function}: argument {argument} is {}; expected a number or boolean",
+            describe_type(t)
+        )
     }
 }
 
@@ -131,7 +135,8 @@ fn prior_type(function: &str, kind: Kind, t: &DataType) -> Result<DataType> {
     match Kind::detect(t) {
         Some(k) if k == kind => Ok(t.clone()),
         _ => plan_err!(
-            "{function}: argument prior has type {t}; expected a {} prior such as {}",
+            "{function}: argument prior is {}; expected a {} prior such as {}",
+            describe_type(t),
             kind.name(),
             match kind {
                 Kind::Beta => "beta_prior(0.5, 0.5)",
@@ -143,23 +148,14 @@ fn prior_type(function: &str, kind: Kind, t: &DataType) -> Result<DataType> {
     }
 }
 
-fn arity(function: &str, n: usize, min: usize, max: usize, syntax: &str) -> Result<()> {
-    if n < min || n > max {
-        plan_err!("{function}: takes {min} to {max} arguments, got {n}; usage: {syntax}")
-    } else {
-        Ok(())
-    }
-}
-
 /// Coercion for `name(value [, prior [, weight]])`.
 fn value_prior_weight(
     name: &str,
     value: &str,
     kind: Kind,
-    syntax: &str,
     t: &[DataType],
 ) -> Result<Vec<DataType>> {
-    arity(name, t.len(), 1, 3, syntax)?;
+    check_arity(name, t.len(), 1, 3)?;
     let mut out = vec![numeric(name, value, &t[0])?];
     if t.len() > 1 {
         out.push(prior_type(name, kind, &t[1])?);
@@ -281,13 +277,7 @@ impl FitKernel for BetaOutcomes {
     }
 
     fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
-        let mut out = value_prior_weight(
-            Self::NAME,
-            "outcome",
-            Kind::Beta,
-            "beta_posterior(outcome [, prior [, weight]])",
-            t,
-        )?;
+        let mut out = value_prior_weight(Self::NAME, "outcome", Kind::Beta, t)?;
         // 0/1 integers and booleans are counted as they are, without a cast per batch.
         if matches!(t[0], DataType::Int64 | DataType::Int32 | DataType::Boolean) {
             out[0] = t[0].clone();
@@ -382,13 +372,7 @@ impl FitKernel for BetaCounts {
     }
 
     fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
-        arity(
-            Self::NAME,
-            t.len(),
-            2,
-            3,
-            "beta_posterior_counts(successes, trials [, prior])",
-        )?;
+        check_arity(Self::NAME, t.len(), 2, 3)?;
         let mut out = vec![
             numeric(Self::NAME, "successes", &t[0])?,
             numeric(Self::NAME, "trials", &t[1])?,
@@ -459,13 +443,7 @@ impl FitKernel for GammaCounts {
     }
 
     fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
-        arity(
-            Self::NAME,
-            t.len(),
-            1,
-            3,
-            "gamma_posterior(events [, exposure [, prior]])",
-        )?;
+        check_arity(Self::NAME, t.len(), 1, 3)?;
         let mut out = vec![numeric(Self::NAME, "events", &t[0])?];
         if t.len() > 1 {
             out.push(numeric(Self::NAME, "exposure", &t[1])?);
@@ -565,13 +543,7 @@ impl FitKernel for NigValues {
     }
 
     fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
-        value_prior_weight(
-            Self::NAME,
-            "value",
-            Kind::Nig,
-            "nig_posterior(value [, prior [, weight]])",
-            t,
-        )
+        value_prior_weight(Self::NAME, "value", Kind::Nig, t)
     }
 
     /// Centred power sums: weight, weighted deviation, weighted squared deviation
@@ -672,13 +644,7 @@ impl FitKernel for DirichletClasses {
     }
 
     fn coerce(t: &[DataType]) -> Result<Vec<DataType>> {
-        arity(
-            Self::NAME,
-            t.len(),
-            2,
-            3,
-            "dirichlet_posterior(class, prior [, weight])",
-        )?;
+        check_arity(Self::NAME, t.len(), 2, 3)?;
         // Text stays in its own layout (no copy into Utf8); other types are cast to text.
         let class = match &t[0] {
             DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => t[0].clone(),

@@ -132,9 +132,29 @@ impl Kind {
         match Kind::detect(data_type) {
             Some(kind) => Ok(kind),
             None => plan_err!(
-                "{function}: argument {argument} has type {data_type}; expected {ACCEPTED_SHAPES}"
+                "{function}: argument {argument} is {}; expected {ACCEPTED_SHAPES}",
+                describe_type(data_type)
             ),
         }
+    }
+}
+
+/// An argument's type in the user's words for an error message: "a Beta posterior"
+/// for a posterior struct (not its Arrow fields), "a NULL without a type", "a struct
+/// with fields {x, y}", or "of type Utf8".
+pub fn describe_type(data_type: &DataType) -> String {
+    match (Kind::detect(data_type), data_type) {
+        (Some(kind), _) => format!("a {} posterior", kind.name()),
+        (None, DataType::Null) => "a NULL without a type".to_string(),
+        (None, DataType::Struct(fields)) => format!(
+            "a struct with fields {{{}}}",
+            fields
+                .iter()
+                .map(|f| f.name().as_str())
+                .collect::<Vec<_>>()
+                .join(", ")
+        ),
+        (None, other) => format!("of type {other}"),
     }
 }
 

@@ -24,9 +24,10 @@ use datafusion::logical_expr::{
     WindowUDFImpl,
 };
 
+use crate::docs::check_arity;
 use crate::family::number;
 use crate::fit::{family_error, is_number};
-use crate::layout::{build, AnyPosterior, Kind, PosteriorColumn};
+use crate::layout::{build, describe_type, AnyPosterior, Kind, PosteriorColumn};
 use crate::pool::Pooled;
 
 const NAME: &str = "posterior_pool_before";
@@ -55,12 +56,7 @@ impl WindowUDFImpl for PosteriorPoolBefore {
     }
 
     fn coerce_types(&self, t: &[DataType]) -> Result<Vec<DataType>> {
-        if !(2..=3).contains(&t.len()) {
-            return plan_err!(
-                "{NAME}: takes 2 to 3 arguments, got {}; usage: {USAGE}",
-                t.len()
-            );
-        }
+        check_arity(NAME, t.len(), 2, 3)?;
         let p = Kind::expect(NAME, "p", &t[0])?.data_type();
         if t.len() == 2 {
             // Without a gap only the order of the times matters: any type.
@@ -69,8 +65,9 @@ impl WindowUDFImpl for PosteriorPoolBefore {
         for (argument, ty) in [("t", &t[1]), ("gap", &t[2])] {
             if !is_number(ty) {
                 return plan_err!(
-                    "{NAME}: argument {argument} has type {ty}; with a gap, the time and the gap \
-                     must be numbers in one unit (for dates, days: a day number)"
+                    "{NAME}: argument {argument} is {}; with a gap, the time and the gap \
+                     must be numbers in one unit (for dates, days: a day number)",
+                    describe_type(ty)
                 );
             }
         }
@@ -88,7 +85,9 @@ impl WindowUDFImpl for PosteriorPoolBefore {
 
     fn field(&self, args: WindowUDFFieldArgs) -> Result<FieldRef> {
         let Some(p) = args.get_input_field(0) else {
-            return plan_err!("{NAME}: takes 2 to 3 arguments, got none; usage: {USAGE}");
+            // Only a call without arguments gets here, and the check refuses it.
+            check_arity(NAME, 0, 2, 3)?;
+            return plan_err!("{NAME}: takes 2 to 3 arguments");
         };
         Ok(Arc::new(Field::new(
             args.name(),

@@ -15,6 +15,7 @@ use datafusion::logical_expr::{
 };
 use serde_json::json;
 
+use crate::docs::check_arity;
 use crate::family::empirical::{fit_beta, fit_dirichlet, fit_gamma, fit_nig, FitReport};
 use crate::family::{
     BetaPosterior, Conjugate, DirichletPosterior, FamilyError, GammaPosterior, NigPosterior,
@@ -312,12 +313,7 @@ impl AggregateUDFImpl for FitStrength {
     }
 
     fn coerce_types(&self, t: &[DataType]) -> Result<Vec<DataType>> {
-        if t.len() != 3 {
-            return plan_err!(
-                "{FIT_STRENGTH}: takes 3 arguments, got {}; usage: {FIT_STRENGTH}(p, parent, own)",
-                t.len()
-            );
-        }
+        check_arity(FIT_STRENGTH, t.len(), 3, 3)?;
         let kind = Kind::expect(FIT_STRENGTH, "p", &t[0])?;
         for (argument, ty) in [("parent", &t[1]), ("own", &t[2])] {
             if ty != &DataType::Null && Kind::expect(FIT_STRENGTH, argument, ty)? != kind {

@@ -15,12 +15,13 @@ use datafusion::logical_expr::{
     Volatility,
 };
 
+use crate::docs::check_arity;
 use crate::family::{
     number, rng, BetaPosterior, BetaPrior, DirichletPosterior, DirichletPrior, FamilyError,
     GammaPosterior, GammaPrior, Marginal, NigPosterior, NigPrior,
 };
 use crate::fit::family_error;
-use crate::layout::{build, AnyPosterior, Combine, Kind, PosteriorColumn};
+use crate::layout::{build, describe_type, AnyPosterior, Combine, Kind, PosteriorColumn};
 
 /// What a posterior reader returns.
 #[derive(Debug, Clone, Copy, PartialEq, Eq, Hash)]
@@ -157,24 +158,15 @@ impl ScalarFunction {
             Ok(DataType::Float64)
         } else {
             plan_err!(
-                "{}: argument {argument} has type {t}; expected a number",
-                self.name
+                "{}: argument {argument} is {}; expected a number",
+                self.name,
+                describe_type(t)
             )
         }
     }
 
     fn count(&self, n: usize, min: usize, max: usize) -> Result<()> {
-        if n < min || n > max {
-            let syntax = crate::docs::FUNCTIONS
-                .iter()
-                .find(|f| f.name == self.name)
-                .map_or("", |f| f.syntax);
-            return plan_err!(
-                "{}: takes {min} to {max} arguments, got {n}; usage: {syntax}",
-                self.name
-            );
-        }
-        Ok(())
+        check_arity(self.name, n, min, max)
     }
 
     fn posterior(&self, argument: &str, t: &DataType) -> Result<Kind> {
@@ -234,8 +226,9 @@ impl ScalarUDFImpl for ScalarFunction {
                     }
                     other => {
                         return plan_err!(
-                            "{}: argument classes has type {other}; expected a list of text such as ['attended', 'no_show']",
-                            self.name
+                            "{}: argument classes is {}; expected a list of text such as ['attended', 'no_show']",
+                            self.name,
+                            describe_type(other)
                         )
                     }
                 };
@@ -246,12 +239,11 @@ impl ScalarUDFImpl for ScalarFunction {
                         list(DataType::Float64)
                     }
                     other if is_number(other) => DataType::Float64,
-                    other => {
-                        return plan_err!(
-                            "{}: argument concentration has type {other}; expected a number or a list of numbers",
-                            self.name
-                        )
-                    }
+                    other => return plan_err!(
+                        "{}: argument concentration is {}; expected a number or a list of numbers",
+                        self.name,
+                        describe_type(other)
+                    ),
                 };
                 Ok(vec![classes, concentration])
             }
@@ -262,14 +254,27 @@ impl ScalarUDFImpl for ScalarFunction {
                 let kind = self.posterior("p", &t[0])?;
                 let class = kind == Kind::Dirichlet && reader != Reader::Evidence;
                 let expected = 1 + usize::from(class) + usize::from(reader.parameter().is_some());
-                self.count(n, expected, expected)?;
+                if n != expected {
+                    // The class argument depends on p's family: say which way it went.
+                    let why = if class {
+                        "a Dirichlet posterior is read per class, given right after p"
+                    } else {
+                        "a class is given for a Dirichlet posterior only, and p is not one"
+                    };
+                    return plan_err!(
+                        "{}: takes {expected} argument{} here, got {n} ({why}); usage: {}",
+                        self.name,
+                        if expected == 1 { "" } else { "s" },
+                        crate::docs::syntax(self.name)
+                    );
+                }
                 let mut out = vec![t[0].clone()];
                 if class {
                     if !is_text(&t[1]) {
                         return plan_err!(
-                            "{}: argument class has type {}; expected text",
+                            "{}: argument class is {}; expected text",
                             self.name,
-                            t[1]
+                            describe_type(&t[1])
                         );
                     }
                     out.push(DataType::Utf8);
@@ -279,8 +284,9 @@ impl ScalarUDFImpl for ScalarFunction {
                     if reader == Reader::Draw {
                         if !ty.is_integer() && !matches!(ty, DataType::Null) {
                             return plan_err!(
-                                "{}: argument seed has type {ty}; expected an integer",
-                                self.name
+                                "{}: argument seed is {}; expected an integer",
+                                self.name,
+                                describe_type(ty)
                             );
                         }
                         out.push(DataType::Int64);
@@ -318,9 +324,9 @@ impl ScalarUDFImpl for ScalarFunction {
                 if kind == Kind::Dirichlet {
                     if !is_text(&t[1]) {
                         return plan_err!(
-                            "{}: argument observation has type {}; expected a class (text)",
+                            "{}: argument observation is {}; expected a class (text)",
                             self.name,
-                            t[1]
+                            describe_type(&t[1])
                         );
                     }
                     out.push(DataType::Utf8);
@@ -369,8 +375,9 @@ impl ScalarUDFImpl for ScalarFunction {
                 for (name, ty) in ["k", "seed"].iter().zip(&t[1..]) {
                     if !ty.is_integer() && !matches!(ty, DataType::Null) {
                         return plan_err!(
-                            "{}: argument {name} has type {ty}; expected an integer",
-                            self.name
+                            "{}: argument {name} is {}; expected an integer",
+                            self.name,
+                            describe_type(ty)
                         );
                     }
                     out.push(DataType::Int64);

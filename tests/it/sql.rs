@@ -1171,7 +1171,7 @@ async fn pool_before_refuses_what_it_cannot_read() {
         (
             "posterior_pool_before(p, 'x', 1)",
             "ORDER BY t",
-            vec!["argument t has type", "must be numbers"],
+            vec!["argument t is of type Utf8", "must be numbers"],
         ),
         (
             "posterior_pool_before(p, t)",
