@@ -239,11 +239,13 @@ impl ScalarUDFImpl for ScalarFunction {
                         list(DataType::Float64)
                     }
                     other if is_number(other) => DataType::Float64,
-                    other => return plan_err!(
+                    other => {
+                        return plan_err!(
                         "{}: argument concentration is {}; expected a number or a list of numbers",
                         self.name,
                         describe_type(other)
-                    ),
+                    )
+                    }
                 };
                 Ok(vec![classes, concentration])
             }

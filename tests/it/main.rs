@@ -2,6 +2,7 @@
 //! Every check against the outside world names its source beside the test.
 
 mod bad_inputs;
+mod calibration;
 mod cli;
 mod cluster;
 mod empirical;
