@@ -8,38 +8,19 @@
 //! A control makes the check able to fail: the same posteriors with every row counted
 //! twice (an over-confident model) must fall outside the band.
 
-use std::process::Command;
+use std::ffi::OsStr;
 
-use crate::leakage::python;
+use crate::leakage::json_rows;
 
 #[test]
 fn posterior_predictive_intervals_cover_held_out_rows() {
-    let o = Command::new(python())
-        .arg(concat!(
-            env!("CARGO_MANIFEST_DIR"),
-            "/benches/modeling/calibration.py"
-        ))
-        .args([
-            "--check",
-            "baseball:id",
-            "males_union:nr",
-            "snmesp:firm",
-            "rwm5yr:id",
-        ])
-        .env("POSTERITY_BIN", env!("CARGO_BIN_EXE_posterity"))
-        .output()
-        .unwrap();
-    let stdout = String::from_utf8_lossy(&o.stdout);
-    assert!(
-        o.status.success(),
-        "{stdout}\n{}",
-        String::from_utf8_lossy(&o.stderr)
-    );
-    let rows: Vec<serde_json::Value> = stdout
-        .lines()
-        .map(|l| serde_json::from_str(l).unwrap())
+    let keys = ["baseball:id", "males_union:nr", "snmesp:firm", "rwm5yr:id"];
+    let args: Vec<&OsStr> = std::iter::once("--check")
+        .chain(keys)
+        .map(OsStr::new)
         .collect();
-    assert_eq!(rows.len(), 4, "{stdout}");
+    let rows = json_rows("calibration.py", &args);
+    assert_eq!(rows.len(), keys.len(), "{rows:?}");
     for row in &rows {
         let get = |f: &str| row[f].as_f64().unwrap();
         // Measured (seeds fixed, so the numbers repeat): 90 % coverage 0.886 to 0.899,

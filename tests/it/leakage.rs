@@ -7,6 +7,7 @@
 //! The learner lives in a Python virtual environment under `target/`, created here
 //! on first use from the package registry (`.ci/run` creates it up front).
 
+use std::ffi::OsStr;
 use std::path::PathBuf;
 use std::process::Command;
 
@@ -39,28 +40,38 @@ pub fn python() -> PathBuf {
     python
 }
 
-#[test]
-fn no_encode_method_leaks_to_a_tree_learner() {
-    let work = std::env::temp_dir().join(format!("posterity-leakage-{}", std::process::id()));
+/// The JSON lines a script of `benches/modeling/` prints, run in the virtual
+/// environment with this build's shell (`POSTERITY_BIN`); its output on failure.
+pub fn json_rows(script: &str, args: &[&OsStr]) -> Vec<serde_json::Value> {
     let o = Command::new(python())
-        .arg(concat!(
-            env!("CARGO_MANIFEST_DIR"),
-            "/benches/modeling/leakage.py"
-        ))
-        .arg(env!("CARGO_BIN_EXE_posterity"))
-        .arg(&work)
+        .arg(
+            PathBuf::from(env!("CARGO_MANIFEST_DIR"))
+                .join("benches/modeling")
+                .join(script),
+        )
+        .args(args)
+        .env("POSTERITY_BIN", env!("CARGO_BIN_EXE_posterity"))
         .output()
         .unwrap();
     let stdout = String::from_utf8_lossy(&o.stdout);
     assert!(
         o.status.success(),
-        "{stdout}\n{}",
+        "{script}: {stdout}\n{}",
         String::from_utf8_lossy(&o.stderr)
     );
-    let rows: Vec<serde_json::Value> = stdout
+    stdout
         .lines()
-        .map(|l| serde_json::from_str(l).unwrap())
-        .collect();
+        .map(|l| serde_json::from_str(l).unwrap_or_else(|e| panic!("{script}: {e}: {l}")))
+        .collect()
+}
+
+#[test]
+fn no_encode_method_leaks_to_a_tree_learner() {
+    let work = std::env::temp_dir().join(format!("posterity-leakage-{}", std::process::id()));
+    let rows = json_rows(
+        "leakage.py",
+        &[env!("CARGO_BIN_EXE_posterity").as_ref(), work.as_os_str()],
+    );
     let find = |m: &str| rows.iter().find(|r| r["method"] == m).unwrap();
     let noise = find("noise control")["in_sample_gain"].as_f64().unwrap();
     // The encodings are two columns (mean and sd), held to two columns of noise: a
