@@ -176,6 +176,10 @@ pub struct ColumnEncoding {
     pub key_columns: Vec<String>,
     /// Whether each column's text went through [`normalize_key`] first.
     pub normalized: bool,
+    /// Whether float key values were read by [`crate::key_text`] (whole values as
+    /// integers, NaN as NULL): true for bundles this build writes; bundles written
+    /// before it read floats with their fraction ("106.0"), and are scored so.
+    pub whole_floats: bool,
     pub prior: AnyPosterior,
     pub levels: BTreeMap<String, AnyPosterior>,
     /// The levels with an indicator column, in rank order: `<key>_top1` is 1 for
@@ -283,7 +287,8 @@ impl Bundle {
                 .map(|(k, p)| (k.clone(), posterior_json(p)))
                 .collect();
             let mut column = json!({
-                "key": {"columns": c.key_columns, "form": c.key_form(), "normalize": c.normalized},
+                "key": {"columns": c.key_columns, "form": c.key_form(), "normalize": c.normalized,
+                        "floats": if c.whole_floats { "whole_as_integer" } else { "as_text" }},
                 "prior": posterior_json(&c.prior),
                 "levels": levels
             });
@@ -400,6 +405,11 @@ impl Bundle {
                         .and_then(|k| k.get("normalize"))
                         .and_then(Value::as_bool)
                         .unwrap_or(false),
+                    whole_floats: c
+                        .get("key")
+                        .and_then(|k| k.get("floats"))
+                        .and_then(Value::as_str)
+                        == Some("whole_as_integer"),
                     prior,
                     levels,
                     indicators: texts_of(c.get("indicators")),

@@ -387,6 +387,18 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
         example: "SELECT normalize_key('  Golden\u{00a0}RETRIEVER ');  -- 'golden retriever'",
     },
     FunctionDoc {
+        name: "key_text",
+        section: HELPERS,
+        description: "A key value's text as encode, fold_of and the serving bundle read it: text as \
+            it is; a floating-point number with a whole value as the integer it is ('106', as an \
+            integer column gives, not '106.0'); NaN as NULL; anything else its text form. So an \
+            integer key column that became floats to hold a missing value still meets its \
+            levels. NULL stays NULL.",
+        syntax: "key_text(value)",
+        arguments: &[("value", "A key value of any type with a text form.")],
+        example: "SELECT key_text(106.0), key_text(106), key_text(0.5);  -- '106', '106', '0.5'",
+    },
+    FunctionDoc {
         name: "decay_weight",
         section: HELPERS,
         description: "Exponential decay weight 0.5^(age / half_life): a row one half-life old counts 0.5.",

@@ -30,6 +30,7 @@ pub mod encode;
 pub mod family;
 pub mod files;
 pub mod fit;
+pub mod key_text;
 pub mod layout;
 pub mod numbered;
 pub mod optimizer;

@@ -7,7 +7,7 @@ use std::sync::Arc;
 use datafusion::arrow::array::{
     Array, ArrayRef, AsArray, Float64Array, Int64Array, StringArray, StructArray,
 };
-use datafusion::arrow::compute::cast;
+use datafusion::arrow::compute::{can_cast_types, cast};
 use datafusion::arrow::datatypes::{DataType, Field, Fields, Float64Type};
 use datafusion::common::{exec_err, plan_err, DataFusionError, Result};
 use datafusion::logical_expr::{
@@ -62,6 +62,7 @@ pub enum Op {
     FoldOf,
     DecayWeight,
     NormalizeKey,
+    KeyText,
 }
 
 /// A scalar SQL function.
@@ -131,6 +132,7 @@ pub fn all() -> Vec<ScalarUDF> {
         ScalarFunction::udf("fold_of", Op::FoldOf),
         ScalarFunction::udf("decay_weight", Op::DecayWeight),
         ScalarFunction::udf("normalize_key", Op::NormalizeKey),
+        ScalarFunction::udf("key_text", Op::KeyText),
     ]
 }
 
@@ -390,6 +392,18 @@ impl ScalarUDFImpl for ScalarFunction {
                 self.count(n, 1, 1)?;
                 Ok(vec![DataType::Utf8])
             }
+            Op::KeyText => {
+                self.count(n, 1, 1)?;
+                if !can_cast_types(&t[0], &DataType::Utf8) {
+                    return plan_err!(
+                        "{}: argument value is {}, which has no text form; expected text, a \
+                         number, a boolean, a date or a time",
+                        self.name,
+                        describe_type(&t[0])
+                    );
+                }
+                Ok(vec![t[0].clone()])
+            }
             Op::DecayWeight => {
                 self.count(n, 2, 2)?;
                 Ok(vec![
@@ -407,6 +421,7 @@ impl ScalarUDFImpl for ScalarFunction {
             Op::Read(_) | Op::DecayWeight => DataType::Float64,
             Op::FoldOf => DataType::Int64,
             Op::NormalizeKey => DataType::Utf8,
+            Op::KeyText => DataType::Utf8View,
             Op::Combine(_) | Op::Without | Op::Scale | Op::WithPrior | Op::Under => {
                 self.posterior("p", &t[0])?.data_type()
             }
@@ -432,6 +447,7 @@ impl ScalarUDFImpl for ScalarFunction {
             Op::Under => self.under(&arrays, rows)?,
             Op::FoldOf => self.fold_of(&arrays, rows)?,
             Op::DecayWeight => self.decay_weight(&arrays, rows)?,
+            Op::KeyText => crate::key_text::key_text(&arrays[0])?,
             Op::NormalizeKey => {
                 let text = arrays[0].as_string::<i32>();
                 Arc::new(
@@ -788,8 +804,9 @@ impl ScalarFunction {
             DataType::LargeUtf8 => self.folds(key.as_string::<i64>().iter(), args, rows),
             DataType::Utf8 => self.folds(key.as_string::<i32>().iter(), args, rows),
             _ => {
-                let text = texts(key)?;
-                self.folds(text.iter(), args, rows)
+                // Any other type through its key text, so 123, 123.0 and '123' share a fold.
+                let text = crate::key_text::key_text(key)?;
+                self.folds(text.as_string_view().iter(), args, rows)
             }
         }
     }

@@ -96,7 +96,12 @@ fn key_texts(name: &str, encoding: &ColumnEncoding, batch: &RecordBatch) -> Resu
                 have.join(", ")
             ));
         };
-        texts.push(cast(array, &DataType::Utf8).map_err(|e| {
+        let text = match encoding.whole_floats {
+            true => crate::key_text::key_text(array).and_then(|t| cast(&t, &DataType::Utf8)),
+            // Bundles written before key_text read float keys with their fraction.
+            false => cast(array, &DataType::Utf8),
+        };
+        texts.push(text.map_err(|e| {
             EncodeError::Usage(format!(
                 "score: column '{c}' of key '{name}' cannot be read as text: {e}"
             ))

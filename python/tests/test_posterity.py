@@ -12,6 +12,7 @@ import subprocess
 from pathlib import Path
 
 import datafusion
+import numpy as np
 import pandas as pd
 import polars as pl
 import pyarrow as pa
@@ -322,6 +323,24 @@ def test_category_key_comes_back_as_a_category():
             assert out["clinic"].dtype == "category"
             assert out["clinic"].tolist() == frame["clinic"].tolist()
             assert sorted(out["clinic"].cat.categories) == sorted(frame["clinic"].cat.categories)
+
+
+def test_integer_keys_scored_as_floats_meet_their_levels():
+    """pandas turns an integer column with a missing value into floats (106 becomes 106.0);
+    scored that way, the rows still meet their levels, and NaN is a NULL key."""
+    rng = np.random.default_rng(3)
+    clinic = rng.integers(100, 110, 2000)
+    train = pd.DataFrame({"clinic": clinic, "y": (rng.random(2000) < (clinic - 99) / 12).astype(int)})
+    ints = train.head(50)
+    floats = ints.assign(clinic=ints["clinic"].astype(float))
+    floats.loc[floats.index[0], "clinic"] = np.nan
+    nulls = ints.assign(clinic=ints["clinic"].astype("Int64"))
+    nulls.loc[nulls.index[0], "clinic"] = pd.NA
+    by_float = posterity.encode(train, target="y", columns=["clinic"], score=floats, indicators=0)
+    by_null = posterity.encode(train, target="y", columns=["clinic"], score=nulls, indicators=0)
+    assert by_float.scored["clinic_mean"].tolist() == by_null.scored["clinic_mean"].tolist()
+    assert by_float.summary[0]["unseen_share"] == 0
+    assert by_float.bundle.score(floats)["clinic_mean"].tolist() == by_float.scored["clinic_mean"].tolist()
 
 
 def test_key_types_nulls_and_empty():

@@ -85,14 +85,14 @@ impl KeyPlan {
         self.columns.iter().map(|c| (c, "key column".to_string()))
     }
 
-    /// The SQL of the key's text over table alias `t`: the column's text, or for an
+    /// The SQL of the key's text over table alias `t`: the column's `key_text`, or for an
     /// interaction each part's text prefixed by its length in characters and `:`,
     /// joined by `|` (collision-free; `crate::bundle::interaction_key` is the same).
     /// With `normalize`, each part goes through `normalize_key` first.
     pub fn sql(&self, normalize: bool) -> String {
         let part = |c: &str| match normalize {
-            true => format!("normalize_key(CAST(t.{} AS VARCHAR))", quote(c)),
-            false => format!("CAST(t.{} AS VARCHAR)", quote(c)),
+            true => format!("normalize_key(key_text(t.{}))", quote(c)),
+            false => format!("key_text(t.{})", quote(c)),
         };
         if let [one] = self.columns.as_slice() {
             return part(one);

@@ -418,6 +418,7 @@ pub(super) async fn finish(
             ColumnEncoding {
                 key_columns: key.columns.clone(),
                 normalized: plan.options.normalize_keys,
+                whole_floats: true,
                 prior,
                 levels,
                 indicators,

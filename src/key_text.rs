@@ -1,0 +1,94 @@
+//! The text of a key value, as encode, `fold_of` and the serving bundle read it.
+//!
+//! Levels are matched by their text, so one key must give one text whatever type
+//! its column has in a given table. Text is itself, and other types go through
+//! their text form, with one exception: a floating-point number with a whole value
+//! is written as the integer it is ("106", not "106.0"), and NaN is no value
+//! (NULL). An integer column that became floats to hold a missing value — what
+//! pandas does — still meets the levels it was trained with, instead of every row
+//! reading the prior.
+
+use std::sync::Arc;
+
+use datafusion::arrow::array::{Array, ArrayRef, AsArray, StringViewArray};
+use datafusion::arrow::compute::cast;
+use datafusion::arrow::datatypes::{DataType, Float64Type};
+use datafusion::arrow::error::ArrowError;
+
+/// Above 2^53 not every whole float is an exact integer; such values keep their
+/// float text.
+const EXACT_INTEGERS: f64 = 9_007_199_254_740_992.0;
+
+/// Each value's key text (see the module documentation) as UTF-8 view text, the type
+/// SQL's `CAST(x AS VARCHAR)` gives; NULL stays NULL.
+pub fn key_text(values: &ArrayRef) -> Result<ArrayRef, ArrowError> {
+    match values.data_type() {
+        DataType::Utf8View => Ok(Arc::clone(values)),
+        DataType::Dictionary(_, inner) => key_text(&cast(values, inner)?),
+        DataType::Float16 | DataType::Float32 | DataType::Float64 => {
+            let text = cast(values, &DataType::Utf8)?;
+            let text = text.as_string::<i32>();
+            let numbers = cast(values, &DataType::Float64)?;
+            let numbers = numbers.as_primitive::<Float64Type>();
+            let out: StringViewArray = (0..values.len())
+                .map(|i| {
+                    if numbers.is_null(i) {
+                        return None;
+                    }
+                    let v = numbers.value(i);
+                    if v.is_nan() {
+                        None
+                    } else if v == v.trunc() && v.abs() < EXACT_INTEGERS {
+                        Some((v as i64).to_string())
+                    } else {
+                        Some(text.value(i).to_string())
+                    }
+                })
+                .collect();
+            Ok(Arc::new(out))
+        }
+        _ => cast(values, &DataType::Utf8View),
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use datafusion::arrow::array::{Float32Array, Float64Array, Int64Array};
+
+    fn texts(values: ArrayRef) -> Vec<Option<String>> {
+        key_text(&values)
+            .unwrap()
+            .as_string_view()
+            .iter()
+            .map(|t| t.map(str::to_string))
+            .collect()
+    }
+
+    #[test]
+    fn whole_floats_read_as_the_integers_they_are() {
+        let floats = Arc::new(Float64Array::from(vec![
+            Some(106.0),
+            Some(-0.0),
+            Some(0.5),
+            Some(f64::NAN),
+            None,
+            Some(1e300),
+            Some(f64::INFINITY),
+        ]));
+        let want: Vec<Option<String>> = ["106", "0", "0.5"]
+            .iter()
+            .map(|s| Some(s.to_string()))
+            .chain([None, None])
+            .chain(["1e300", "inf"].iter().map(|s| Some(s.to_string())))
+            .collect();
+        assert_eq!(texts(floats), want);
+        let ints = Arc::new(Int64Array::from(vec![Some(106), None]));
+        assert_eq!(texts(ints), vec![Some("106".to_string()), None]);
+        let small = Arc::new(Float32Array::from(vec![106.0f32, 0.1]));
+        assert_eq!(
+            texts(small),
+            vec![Some("106".to_string()), Some("0.1".to_string())]
+        );
+    }
+}
