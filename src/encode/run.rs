@@ -90,6 +90,10 @@ pub struct EncodeOutput {
 /// practice, no source).
 const FEW_LEVELS: u64 = 20;
 
+/// Scored rows at least this many, all at unseen levels, get a warning: fewer may
+/// well be a handful of new levels (our own choice, no source).
+const MANY_UNSEEN_ROWS: i64 = 10;
+
 fn posterior_at(batch: &RecordBatch, column: usize, row: usize) -> Result<Option<AnyPosterior>> {
     PosteriorColumn::new("encode", batch.column(column))?
         .get(row)
@@ -311,10 +315,22 @@ pub(super) async fn finish(
             ),
             None => (prior_strength(&prior), false),
         };
+        let mut warnings = Vec::new();
         let unseen_share = match outputs.get(&format!("unseen/{}", key.name)) {
             Some(df) => {
                 let b = df.clone().collect().await?;
                 let v = |c: usize| b[0].column(c).as_primitive::<Int64Type>().value(0);
+                // Every scored key unseen is more often a mismatch of how the two tables
+                // write the key than a batch of new levels: say so.
+                if v(1) >= MANY_UNSEEN_ROWS && v(2) == v(1) && !levels.is_empty() {
+                    warnings.push(format!(
+                        "none of the {} scored rows with a {} has a level seen in training: \
+                         check that the scored table writes the key as the training table \
+                         does (spelling, case, leading zeros, codes)",
+                        v(1),
+                        key.name
+                    ));
+                }
                 unseen.insert(
                     key.name.clone(),
                     json!({"rows": v(0), "rows_with_key": v(1), "unseen_rows": v(2), "unseen_levels": v(3)}),
@@ -327,7 +343,6 @@ pub(super) async fn finish(
             }
             None => None,
         };
-        let mut warnings = Vec::new();
         if at_bound {
             warnings.push(format!(
                 "the levels of {} show no spread beyond noise: the prior's strength hit its cap \

@@ -3313,3 +3313,41 @@ async fn float_keys_meet_their_integer_levels() {
         "every row reads the prior"
     );
 }
+
+// Scored rows that all miss the training levels are more often a key written another
+// way (here the clinics upper-cased) than new levels: the run warns, by key.
+#[test]
+fn scored_keys_that_all_miss_their_levels_are_reported() {
+    let dir = temp_dir("all-unseen");
+    let upper = dir.join("upper.csv");
+    let rows = std::fs::read_to_string(sample()).unwrap();
+    std::fs::write(&upper, rows.replace("clinic_", "CLINIC_")).unwrap();
+    for (score, warned) in [
+        (upper.to_str().unwrap().to_string(), true),
+        (sample(), false),
+    ] {
+        let out = dir.join("out");
+        let o = encode_output(&[
+            "encode",
+            "--train",
+            &sample(),
+            "--target",
+            "no_show",
+            "--columns",
+            "clinic,breed",
+            "--score",
+            &score,
+            "--out",
+            out.to_str().unwrap(),
+            "--replace",
+        ]);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        // The summary, warnings included, goes to standard output.
+        let printed = String::from_utf8_lossy(&o.stdout);
+        let warning = "none of the 3000 scored rows with a clinic has a level seen in training";
+        assert_eq!(printed.contains(warning), warned, "{printed}");
+        assert!(!printed.contains("with a breed has"), "{printed}");
+        let summary = std::fs::read_to_string(out.join("summary.json")).unwrap();
+        assert_eq!(summary.contains(warning), warned, "{summary}");
+    }
+}
