@@ -366,8 +366,8 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
     FunctionDoc {
         name: "fold_of",
         section: HELPERS,
-        description: "Fold number in 0..k-1 for a key, from a fixed 64-bit hash of its text: stable \
-            across runs, platforms, partitionings and key types (123 and '123' share a fold).",
+        description: "Fold number in 0..k-1 for a key, from a fixed 64-bit hash of its key_text: stable \
+            across runs, platforms, partitionings and key types (123, 123.0 and '123' share a fold).",
         syntax: "fold_of(key [, k [, seed]])",
         arguments: &[
             ("key", "Any value; NULL keys give NULL."),

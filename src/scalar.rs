@@ -370,12 +370,16 @@ impl ScalarUDFImpl for ScalarFunction {
             }
             Op::FoldOf => {
                 self.count(n, 1, 3)?;
-                // Text keys are hashed in place; other types through their text form.
-                let key = match &t[0] {
-                    DataType::Utf8 | DataType::LargeUtf8 | DataType::Utf8View => t[0].clone(),
-                    _ => DataType::Utf8,
-                };
-                let mut out = vec![key];
+                // Text keys are hashed in place; other types through their key text
+                // (so the type reaches the function: a whole float hashes as its integer).
+                if !can_cast_types(&t[0], &DataType::Utf8) {
+                    return plan_err!(
+                        "{}: argument key is {}, which has no text form",
+                        self.name,
+                        describe_type(&t[0])
+                    );
+                }
+                let mut out = vec![t[0].clone()];
                 for (name, ty) in ["k", "seed"].iter().zip(&t[1..]) {
                     if !ty.is_integer() && !matches!(ty, DataType::Null) {
                         return plan_err!(

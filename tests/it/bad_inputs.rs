@@ -2,6 +2,7 @@
 //! function (or file), the argument (or column) and what is allowed — never a
 //! panic, never a silent NaN. Each row: SQL, fragments the error must contain.
 
+use datafusion::arrow::array::AsArray;
 use datafusion::prelude::SessionContext;
 
 const B: &str = "beta_prior(1, 1)";
@@ -202,4 +203,11 @@ async fn odd_but_valid_inputs() {
         let v = datafusion::arrow::array::AsArray::as_primitive::<datafusion::arrow::datatypes::Float64Type>(b[0].column(0)).value(0);
         assert_eq!(v, 0.25, "{sql}");
     }
+    // Key text: a whole float is its integer, NaN no key; so 123, 123.0 and '123'
+    // share a fold.
+    let sql = "SELECT key_text(106.0) = '106' AND key_text(106) = '106' AND key_text(0.5) = '0.5' \
+               AND key_text(CAST('NaN' AS DOUBLE)) IS NULL AND key_text(NULL) IS NULL \
+               AND fold_of(123.0, 5) = fold_of(123, 5) AND fold_of(123, 5) = fold_of('123', 5)";
+    let b = ctx.sql(sql).await.unwrap().collect().await.unwrap();
+    assert!(b[0].column(0).as_boolean().value(0), "{sql}");
 }
