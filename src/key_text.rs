@@ -15,9 +15,10 @@ use datafusion::arrow::compute::cast;
 use datafusion::arrow::datatypes::{DataType, Float64Type};
 use datafusion::arrow::error::ArrowError;
 
-/// Above 2^53 not every whole float is an exact integer; such values keep their
-/// float text.
-const EXACT_INTEGERS: f64 = 9_007_199_254_740_992.0;
+/// Whole floats within the 64-bit integer range are written as integers (the value
+/// a float holds is exact; beyond 2^53 it may differ from the integer it was made
+/// from, which no text could recover); larger ones keep their float text.
+const INTEGER_RANGE: f64 = 9_223_372_036_854_775_808.0;
 
 /// Each value's key text (see the module documentation) as UTF-8 view text, the type
 /// SQL's `CAST(x AS VARCHAR)` gives; NULL stays NULL.
@@ -38,7 +39,7 @@ pub fn key_text(values: &ArrayRef) -> Result<ArrayRef, ArrowError> {
                     let v = numbers.value(i);
                     if v.is_nan() {
                         None
-                    } else if v == v.trunc() && v.abs() < EXACT_INTEGERS {
+                    } else if v == v.trunc() && (-INTEGER_RANGE..INTEGER_RANGE).contains(&v) {
                         Some((v as i64).to_string())
                     } else {
                         Some(text.value(i).to_string())
@@ -74,13 +75,18 @@ mod tests {
             Some(f64::NAN),
             None,
             Some(1e300),
+            Some(1e16),
             Some(f64::INFINITY),
         ]));
         let want: Vec<Option<String>> = ["106", "0", "0.5"]
             .iter()
             .map(|s| Some(s.to_string()))
             .chain([None, None])
-            .chain(["1e300", "inf"].iter().map(|s| Some(s.to_string())))
+            .chain(
+                ["1e300", "10000000000000000", "inf"]
+                    .iter()
+                    .map(|s| Some(s.to_string())),
+            )
             .collect();
         assert_eq!(texts(floats), want);
         let ints = Arc::new(Int64Array::from(vec![Some(106), None]));

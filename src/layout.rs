@@ -146,6 +146,7 @@ pub fn describe_type(data_type: &DataType) -> String {
     match (Kind::detect(data_type), data_type) {
         (Some(kind), _) => format!("a {} posterior", kind.name()),
         (None, DataType::Null) => "a NULL without a type".to_string(),
+        (None, DataType::Map(..)) => "a map".to_string(),
         (None, DataType::Struct(fields)) => format!(
             "a struct with fields {{{}}}",
             fields
