@@ -684,9 +684,10 @@ pub(super) fn require_key_types(
         };
         if !datafusion::arrow::compute::can_cast_types(d, &DataType::Utf8View) {
             return usage(format!(
-                "key column '{column}' of the {what} has type {d}, which has no text form; \
+                "key column '{column}' of the {what} is {}, which has no text form; \
                  allowed: text, numbers, booleans, dates and times (encode one field of it \
-                 as its own column)"
+                 as its own column)",
+                crate::layout::describe_type(d)
             ));
         }
     }
