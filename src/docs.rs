@@ -6,7 +6,7 @@
 use std::collections::HashMap;
 use std::sync::OnceLock;
 
-use datafusion::common::{plan_err, Result};
+use datafusion::common::{DataFusionError, Result};
 use datafusion::logical_expr::{DocSection, Documentation};
 
 /// One function's documentation.
@@ -414,18 +414,34 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
 /// Checks a call's number of arguments; the error says it in the user's words with
 /// the function's syntax: "beta_prior: takes 2 arguments, got 1; usage: beta_prior(a, b)".
 pub fn check_arity(function: &str, n: usize, min: usize, max: usize) -> Result<()> {
-    if (min..=max).contains(&n) {
-        return Ok(());
+    match (min..=max).contains(&n) {
+        true => Ok(()),
+        false => Err(arity_error(function, n, min, max, None)),
     }
+}
+
+/// The error of a call with `n` arguments where `min..=max` are allowed; `why`
+/// (when the count depends on another argument) is said after it.
+pub fn arity_error(
+    function: &str,
+    n: usize,
+    min: usize,
+    max: usize,
+    why: Option<&str>,
+) -> DataFusionError {
     let takes = match (min, max) {
         (1, 1) => "1 argument".to_string(),
         (a, b) if a == b => format!("{a} arguments"),
         (a, b) => format!("{a} to {b} arguments"),
     };
-    plan_err!(
-        "{function}: takes {takes}, got {n}; usage: {}",
+    let (here, why) = match why {
+        Some(why) => (" here", format!(" ({why})")),
+        None => ("", String::new()),
+    };
+    DataFusionError::Plan(format!(
+        "{function}: takes {takes}{here}, got {n}{why}; usage: {}",
         syntax(function)
-    )
+    ))
 }
 
 /// The function's syntax as the reference gives it ("" for an unknown name).

@@ -10,7 +10,7 @@
 
 use std::sync::Arc;
 
-use datafusion::arrow::array::{Array, ArrayRef, AsArray, StringViewArray};
+use datafusion::arrow::array::{Array, ArrayRef, AsArray, StringArray};
 use datafusion::arrow::compute::cast;
 use datafusion::arrow::datatypes::{DataType, Float64Type};
 use datafusion::arrow::error::ArrowError;
@@ -20,18 +20,18 @@ use datafusion::arrow::error::ArrowError;
 /// from, which no text could recover); larger ones keep their float text.
 const INTEGER_RANGE: f64 = 9_223_372_036_854_775_808.0;
 
-/// Each value's key text (see the module documentation) as UTF-8 view text, the type
-/// SQL's `CAST(x AS VARCHAR)` gives; NULL stays NULL.
-pub fn key_text(values: &ArrayRef) -> Result<ArrayRef, ArrowError> {
+/// Each value's key text (see the module documentation) as `text_type` (Utf8View,
+/// what SQL's `CAST(x AS VARCHAR)` gives, or Utf8 for the bundle's lookups); NULL
+/// stays NULL. Text already of that type is returned as it is.
+pub fn key_text(values: &ArrayRef, text_type: &DataType) -> Result<ArrayRef, ArrowError> {
     match values.data_type() {
-        DataType::Utf8View => Ok(Arc::clone(values)),
-        DataType::Dictionary(_, inner) => key_text(&cast(values, inner)?),
+        DataType::Dictionary(_, inner) => key_text(&cast(values, inner)?, text_type),
         DataType::Float16 | DataType::Float32 | DataType::Float64 => {
             let text = cast(values, &DataType::Utf8)?;
             let text = text.as_string::<i32>();
             let numbers = cast(values, &DataType::Float64)?;
             let numbers = numbers.as_primitive::<Float64Type>();
-            let out: StringViewArray = (0..values.len())
+            let out: StringArray = (0..values.len())
                 .map(|i| {
                     if numbers.is_null(i) {
                         return None;
@@ -46,9 +46,9 @@ pub fn key_text(values: &ArrayRef) -> Result<ArrayRef, ArrowError> {
                     }
                 })
                 .collect();
-            Ok(Arc::new(out))
+            cast(&(Arc::new(out) as ArrayRef), text_type)
         }
-        _ => cast(values, &DataType::Utf8View),
+        _ => cast(values, text_type),
     }
 }
 
@@ -58,7 +58,7 @@ mod tests {
     use datafusion::arrow::array::{Float32Array, Float64Array, Int64Array};
 
     fn texts(values: ArrayRef) -> Vec<Option<String>> {
-        key_text(&values)
+        key_text(&values, &DataType::Utf8View)
             .unwrap()
             .as_string_view()
             .iter()

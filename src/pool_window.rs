@@ -24,7 +24,7 @@ use datafusion::logical_expr::{
     WindowUDFImpl,
 };
 
-use crate::docs::check_arity;
+use crate::docs::{arity_error, check_arity};
 use crate::family::number;
 use crate::fit::{family_error, is_number};
 use crate::layout::{build, describe_type, AnyPosterior, Kind, PosteriorColumn};
@@ -85,9 +85,7 @@ impl WindowUDFImpl for PosteriorPoolBefore {
 
     fn field(&self, args: WindowUDFFieldArgs) -> Result<FieldRef> {
         let Some(p) = args.get_input_field(0) else {
-            // Only a call without arguments gets here, and the check refuses it.
-            check_arity(NAME, 0, 2, 3)?;
-            return plan_err!("{NAME}: takes 2 to 3 arguments");
+            return Err(arity_error(NAME, 0, 2, 3, None));
         };
         Ok(Arc::new(Field::new(
             args.name(),

@@ -15,7 +15,7 @@ use datafusion::logical_expr::{
     Volatility,
 };
 
-use crate::docs::check_arity;
+use crate::docs::{arity_error, check_arity};
 use crate::family::{
     number, rng, BetaPosterior, BetaPrior, DirichletPosterior, DirichletPrior, FamilyError,
     GammaPosterior, GammaPrior, Marginal, NigPosterior, NigPrior,
@@ -167,6 +167,20 @@ impl ScalarFunction {
         }
     }
 
+    /// A key argument as it is, when its values have a text form (`key_text`).
+    fn text_form(&self, argument: &str, t: &DataType) -> Result<DataType> {
+        if can_cast_types(t, &DataType::Utf8) {
+            Ok(t.clone())
+        } else {
+            plan_err!(
+                "{}: argument {argument} is {}, which has no text form; expected text, a \
+                 number, a boolean, a date or a time",
+                self.name,
+                describe_type(t)
+            )
+        }
+    }
+
     fn count(&self, n: usize, min: usize, max: usize) -> Result<()> {
         check_arity(self.name, n, min, max)
     }
@@ -265,12 +279,7 @@ impl ScalarUDFImpl for ScalarFunction {
                     } else {
                         "a class is given for a Dirichlet posterior only, and p is not one"
                     };
-                    return plan_err!(
-                        "{}: takes {expected} argument{} here, got {n} ({why}); usage: {}",
-                        self.name,
-                        if expected == 1 { "" } else { "s" },
-                        crate::docs::syntax(self.name)
-                    );
+                    return Err(arity_error(self.name, n, expected, expected, Some(why)));
                 }
                 let mut out = vec![t[0].clone()];
                 if class {
@@ -372,14 +381,7 @@ impl ScalarUDFImpl for ScalarFunction {
                 self.count(n, 1, 3)?;
                 // Text keys are hashed in place; other types through their key text
                 // (so the type reaches the function: a whole float hashes as its integer).
-                if !can_cast_types(&t[0], &DataType::Utf8) {
-                    return plan_err!(
-                        "{}: argument key is {}, which has no text form",
-                        self.name,
-                        describe_type(&t[0])
-                    );
-                }
-                let mut out = vec![t[0].clone()];
+                let mut out = vec![self.text_form("key", &t[0])?];
                 for (name, ty) in ["k", "seed"].iter().zip(&t[1..]) {
                     if !ty.is_integer() && !matches!(ty, DataType::Null) {
                         return plan_err!(
@@ -398,15 +400,7 @@ impl ScalarUDFImpl for ScalarFunction {
             }
             Op::KeyText => {
                 self.count(n, 1, 1)?;
-                if !can_cast_types(&t[0], &DataType::Utf8) {
-                    return plan_err!(
-                        "{}: argument value is {}, which has no text form; expected text, a \
-                         number, a boolean, a date or a time",
-                        self.name,
-                        describe_type(&t[0])
-                    );
-                }
-                Ok(vec![t[0].clone()])
+                Ok(vec![self.text_form("value", &t[0])?])
             }
             Op::DecayWeight => {
                 self.count(n, 2, 2)?;
@@ -451,7 +445,7 @@ impl ScalarUDFImpl for ScalarFunction {
             Op::Under => self.under(&arrays, rows)?,
             Op::FoldOf => self.fold_of(&arrays, rows)?,
             Op::DecayWeight => self.decay_weight(&arrays, rows)?,
-            Op::KeyText => crate::key_text::key_text(&arrays[0])?,
+            Op::KeyText => crate::key_text::key_text(&arrays[0], &DataType::Utf8View)?,
             Op::NormalizeKey => {
                 let text = arrays[0].as_string::<i32>();
                 Arc::new(
@@ -809,7 +803,7 @@ impl ScalarFunction {
             DataType::Utf8 => self.folds(key.as_string::<i32>().iter(), args, rows),
             _ => {
                 // Any other type through its key text, so 123, 123.0 and '123' share a fold.
-                let text = crate::key_text::key_text(key)?;
+                let text = crate::key_text::key_text(key, &DataType::Utf8View)?;
                 self.folds(text.as_string_view().iter(), args, rows)
             }
         }

@@ -97,7 +97,7 @@ fn key_texts(name: &str, encoding: &ColumnEncoding, batch: &RecordBatch) -> Resu
             ));
         };
         let text = match encoding.whole_floats {
-            true => crate::key_text::key_text(array).and_then(|t| cast(&t, &DataType::Utf8)),
+            true => crate::key_text::key_text(array, &DataType::Utf8),
             // Bundles written before key_text read float keys with their fraction.
             false => cast(array, &DataType::Utf8),
         };

@@ -77,17 +77,20 @@ def pit_nig(p, held, evidence=1.0):
     return stats.t.cdf((held.mean() - mu) / scale, 2 * alpha)
 
 
-def pits(kind, fit_keys, fit_y, held_keys, held_y, key, work, rng, time=None, evidence=1.0):
+def pits(kind, fit_keys, fit_y, held_keys, held_y, key, work, rngs, time=None):
+    """PIT values of the held-out levels under posteriors fitted once, for each evidence
+    factor in `rngs` (factor -> its own random stream for the randomised PIT)."""
     post = posteriors(fit_keys, fit_y, key, work, time)
-    out = []
+    out = {evidence: [] for evidence in rngs}
     for level, held in pd.Series(held_y.values).groupby(held_keys.values):
         p = post.get(str(level))
         if p is None:
             continue
         held = held.to_numpy(dtype=float)
-        out.append(pit_beta(p, held, rng, evidence) if kind == "binary"
-                   else pit_nig(p, held, evidence))
-    return np.array(out)
+        for evidence, rng in rngs.items():
+            out[evidence].append(pit_beta(p, held, rng, evidence) if kind == "binary"
+                                 else pit_nig(p, held, evidence))
+    return {evidence: np.array(u) for evidence, u in out.items()}
 
 
 def coverage(u):
@@ -98,14 +101,12 @@ def coverage(u):
             np.sqrt(inside90 * (1 - inside90) / len(u)))
 
 
-def exchangeable(kind, tr, ytr, key, work, rng, evidence=1.0):
-    """PIT values of three random halves of the training rows, each scored by the other."""
-    out = []
-    for seed in range(3):
-        half = np.random.default_rng(seed).random(len(tr)) < 0.5
-        out.append(pits(kind, tr[key][half], ytr[half], tr[key][~half], ytr[~half], key, work,
-                        rng, evidence=evidence))
-    return np.concatenate(out)
+def exchangeable(kind, tr, ytr, key, work, rngs):
+    """PIT values of three random halves of the training rows, each scored by the other,
+    per evidence factor in `rngs`."""
+    out = [pits(kind, tr[key][half], ytr[half], tr[key][~half], ytr[~half], key, work, rngs)
+           for half in (np.random.default_rng(seed).random(len(tr)) < 0.5 for seed in range(3))]
+    return {evidence: np.concatenate([u[evidence] for u in out]) for evidence in rngs}
 
 
 def check(pairs):
@@ -117,8 +118,9 @@ def check(pairs):
         name, loader, kind = task_named(prefix)
         _, _, tr, _, ytr, _ = split(loader)
         with tempfile.TemporaryDirectory() as d:
-            u = exchangeable(kind, tr, ytr, key, Path(d), np.random.default_rng(0))
-            twice = exchangeable(kind, tr, ytr, key, Path(d), np.random.default_rng(0), 2.0)
+            rngs = {1.0: np.random.default_rng(0), 2.0: np.random.default_rng(0)}
+            both = exchangeable(kind, tr, ytr, key, Path(d), rngs)
+            u, twice = both[1.0], both[2.0]
         c50, c90, se90 = coverage(u)
         print(json.dumps(dict(task=name, key=key, pits=len(u), c50=c50, c90=c90, se90=se90,
                               c90_counted_twice=coverage(twice)[1])), flush=True)
@@ -139,10 +141,10 @@ def main():
             with tempfile.TemporaryDirectory() as d:
                 work = Path(d)
                 rng = np.random.default_rng(0)
-                mixed = exchangeable(kind, tr, ytr, key, work, rng)
-                later = pits(kind, tr[key], ytr, te[key], yte, key, work, rng)
-                weighted = pits(kind, tr[key], ytr, te[key], yte, key, work, rng,
-                                time_of(name, tr))
+                mixed = exchangeable(kind, tr, ytr, key, work, {1.0: rng})[1.0]
+                later = pits(kind, tr[key], ytr, te[key], yte, key, work, {1.0: rng})[1.0]
+                weighted = pits(kind, tr[key], ytr, te[key], yte, key, work, {1.0: rng},
+                                time_of(name, tr))[1.0]
             cells = " | ".join(f"{c50:.2f} / {c90:.2f} (±{se:.2f})" for c50, c90, se in
                                map(coverage, (mixed, later, weighted)))
             print(f"| {name.split(' ')[0]} | {key} | {len(later)} | {cells} |", flush=True)
