@@ -37,18 +37,22 @@ pub fn key_text(values: &ArrayRef, text_type: &DataType) -> Result<ArrayRef, Arr
                         return None;
                     }
                     let v = numbers.value(i);
-                    if v.is_nan() {
-                        None
-                    } else if v == v.trunc() && (-INTEGER_RANGE..INTEGER_RANGE).contains(&v) {
-                        Some((v as i64).to_string())
-                    } else {
-                        Some(text.value(i).to_string())
-                    }
+                    (!v.is_nan()).then(|| float_text(v, text.value(i)))
                 })
                 .collect();
             cast(&(Arc::new(out) as ArrayRef), text_type)
         }
         _ => cast(values, text_type),
+    }
+}
+
+/// The key text of a float that is not NaN: the integer it is when whole and
+/// within the 64-bit integer range, else `text`, its text form.
+pub fn float_text(v: f64, text: &str) -> String {
+    if v == v.trunc() && (-INTEGER_RANGE..INTEGER_RANGE).contains(&v) {
+        (v as i64).to_string()
+    } else {
+        text.to_string()
     }
 }
 

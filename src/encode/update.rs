@@ -18,8 +18,12 @@ use super::resolve::{
 use super::run::{execute, finish, EncodeOutput};
 use super::sql::{SCORE, TRAIN};
 use super::{text, usage, EncodeError, Result};
-use crate::bundle::Bundle;
-use crate::layout::{build, AnyPosterior, Kind};
+use std::collections::BTreeMap;
+
+use datafusion::arrow::datatypes::DataType;
+
+use crate::bundle::{interaction_key, Bundle, ColumnEncoding};
+use crate::layout::{build, AnyPosterior, Combine, Kind};
 
 /// What a refresh needs.
 #[derive(Debug, Clone)]
@@ -94,6 +98,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
         .map(|r| Reader::parse(r))
         .collect::<Result<Vec<_>>>()?;
     let mut encode_options = EncodeOptions::new(&options.train, &previous.target, &[]);
+    let train = columns_of(ctx, &options.train).await?;
     let mut keys = Vec::new();
     let mut stored = Vec::new();
     for (name, column) in &previous.columns {
@@ -129,7 +134,17 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
             Treatment::Codes => key.indicators = 0,
         }
         keys.push(key);
-        stored.push(column);
+        let in_hierarchy = column.parent.is_some()
+            || previous
+                .columns
+                .values()
+                .any(|c| c.parent.as_ref().is_some_and(|(parent, _)| parent == name));
+        stored.push(levels_as_this_build_reads_them(
+            name,
+            column,
+            in_hierarchy,
+            &train,
+        )?);
     }
     // Under a hierarchy each child keeps its parent key and the layer's strength.
     for (i, column) in stored.iter().enumerate() {
@@ -146,7 +161,6 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
         AnyPosterior::Dirichlet(d) => d.prior.classes.clone(),
         _ => Vec::new(),
     };
-    let train = columns_of(ctx, &options.train).await?;
     require_columns(
         "table of new rows",
         &train,
@@ -235,6 +249,115 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     finish(ctx, &plan, outputs).await
 }
 
+/// A stored column whose levels read as this build reads the new rows' keys.
+///
+/// Bundles written before [`crate::key_text`] read a float key value with its
+/// fraction ("106.0"); this build reads a whole float as the integer it is ("106")
+/// and NaN as no key. Refreshed as stored, every such level would meet the new rows
+/// as a second level of the same key, so the stored levels are re-read first
+/// (levels that now share a text, such as 0.0 and -0.0, are merged; a level that
+/// was NaN is dropped, as NaN keys now read the prior).
+fn levels_as_this_build_reads_them(
+    name: &str,
+    column: &ColumnEncoding,
+    in_hierarchy: bool,
+    train: &[(String, DataType)],
+) -> Result<ColumnEncoding> {
+    let float_parts: Vec<bool> = column
+        .key_columns
+        .iter()
+        .map(|c| {
+            train.iter().any(|(n, t)| {
+                n == c && matches!(t, DataType::Float16 | DataType::Float32 | DataType::Float64)
+            })
+        })
+        .collect();
+    let mut column = column.clone();
+    if column.whole_floats || !float_parts.contains(&true) {
+        return Ok(column);
+    }
+    if in_hierarchy {
+        return usage(format!(
+            "--update: key '{name}' is a float key in a hierarchy (--hierarchy), encoded by an \
+             earlier version that wrote whole floats with their fraction ('106.0'); this version \
+             writes them as integers ('106'); encode the rows again"
+        ));
+    }
+    let retext = |level: &str| -> Result<Option<String>> {
+        let parts: Vec<String> = match float_parts.len() {
+            1 => vec![level.to_string()],
+            _ => interaction_parts(level).ok_or_else(|| {
+                EncodeError::Usage(format!(
+                    "--update: the bundle's level '{level}' of key '{name}' is not an \
+                     interaction's level"
+                ))
+            })?,
+        };
+        let mut out = Vec::with_capacity(parts.len());
+        for (part, float) in parts.iter().zip(&float_parts) {
+            match (*float, part.parse::<f64>()) {
+                (true, Ok(v)) if v.is_nan() => return Ok(None),
+                (true, Ok(v)) => out.push(crate::key_text::float_text(v, part)),
+                _ => out.push(part.clone()),
+            }
+        }
+        Ok(Some(match float_parts.len() {
+            1 => out.remove(0),
+            _ => interaction_key(&out.iter().map(String::as_str).collect::<Vec<_>>()),
+        }))
+    };
+    let mut levels: BTreeMap<String, AnyPosterior> = BTreeMap::new();
+    for (level, p) in &column.levels {
+        let Some(level) = retext(level)? else {
+            continue;
+        };
+        let p = match levels.remove(&level) {
+            Some(q) => q
+                .combine(p, Combine::Merge)
+                .map_err(|e| EncodeError::Usage(format!("--update: key '{name}': {e}")))?,
+            None => p.clone(),
+        };
+        levels.insert(level, p);
+    }
+    let mut indicators = Vec::new();
+    for level in &column.indicators {
+        if let Some(level) = retext(level)? {
+            if !indicators.contains(&level) {
+                indicators.push(level);
+            }
+        }
+    }
+    column.levels = levels;
+    column.indicators = indicators;
+    column.whole_floats = true;
+    Ok(column)
+}
+
+/// The parts of an interaction's level (see [`interaction_key`]), or None when the
+/// text is not one.
+fn interaction_parts(level: &str) -> Option<Vec<String>> {
+    let mut parts = Vec::new();
+    let mut rest = level;
+    loop {
+        let (length, tail) = rest.split_once(':')?;
+        let length: usize = length.parse().ok()?;
+        if tail.chars().count() < length {
+            return None;
+        }
+        let end = tail
+            .char_indices()
+            .nth(length)
+            .map_or(tail.len(), |(i, _)| i);
+        parts.push(tail[..end].to_string());
+        rest = &tail[end..];
+        match rest.strip_prefix('|') {
+            Some(next) => rest = next,
+            None if rest.is_empty() => return Some(parts),
+            None => return None,
+        }
+    }
+}
+
 /// Register `__storedparent{i}`: child column `i`'s levels, their parent levels and
 /// their data outside them (NULL when none), decayed like the stored posteriors.
 fn register_parents(
@@ -296,4 +419,20 @@ fn register_columns(
         Arc::new(MemTable::try_new(schema, vec![vec![batch]])?),
     )?;
     Ok(())
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn interaction_parts_undo_interaction_key() {
+        for parts in [vec!["12.0", "clinic_01"], vec!["", "a|b:c", "é"], vec!["x"]] {
+            let level = interaction_key(&parts);
+            assert_eq!(interaction_parts(&level).unwrap(), parts, "{level}");
+        }
+        for not_one in ["12", "3:ab", "2:ab|", "2:abc", "x:ab", "1:é|"] {
+            assert_eq!(interaction_parts(not_one), None, "{not_one}");
+        }
+    }
 }

@@ -3315,6 +3315,81 @@ async fn float_keys_meet_their_integer_levels() {
     );
 }
 
+// A refresh of a bundle written before whole floats were read as integers: its
+// stored levels ("12.0", and "4:12.0|9:clinic_01" in an interaction) meet the new
+// rows' keys ("12") as the same levels, and the refresh equals one of the bundle
+// this build writes.
+#[tokio::test]
+async fn refresh_of_an_older_float_keyed_bundle_keeps_its_levels() {
+    let dir = temp_dir("float-refresh");
+    let (old, new) = (dir.join("old.parquet"), dir.join("new.parquet"));
+    let slot = "CAST(day % 40 AS DOUBLE) AS slot, clinic, no_show FROM a";
+    sample_to_parquet(&format!("SELECT {slot} WHERE day < 200"), &old).await;
+    sample_to_parquet(&format!("SELECT {slot} WHERE day >= 200"), &new).await;
+    let first = dir.join("first");
+    encode(&[
+        "--train",
+        old.to_str().unwrap(),
+        "--target",
+        "no_show",
+        "--columns",
+        "slot",
+        "--interactions",
+        "slot:clinic",
+        "--out",
+        first.to_str().unwrap(),
+    ]);
+    // The same bundle as an older build wrote it: floats with their fraction.
+    let mut json: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(first.join("bundle.json")).unwrap()).unwrap();
+    for (key, column) in json["columns"].as_object_mut().unwrap() {
+        column["key"].as_object_mut().unwrap().remove("floats");
+        let levels = std::mem::take(column["levels"].as_object_mut().unwrap());
+        let old_text = |level: &str| match key.as_str() {
+            "slot" => format!("{level}.0"),
+            _ => {
+                let (slot, clinic) = level.split_once('|').unwrap();
+                let slot = slot.split_once(':').unwrap().1;
+                format!("{}:{slot}.0|{clinic}", slot.len() + 2)
+            }
+        };
+        *column["levels"].as_object_mut().unwrap() =
+            levels.into_iter().map(|(l, p)| (old_text(&l), p)).collect();
+    }
+    let older = dir.join("older");
+    std::fs::create_dir_all(&older).unwrap();
+    std::fs::write(older.join("bundle.json"), json.to_string()).unwrap();
+    assert!(bundle_in(&older).columns["slot"]
+        .levels
+        .contains_key("12.0"));
+
+    let mut refreshed = Vec::new();
+    for stored in [&first, &older] {
+        let out = dir.join(format!("refreshed-{}", refreshed.len()));
+        encode(&[
+            "--update",
+            stored.to_str().unwrap(),
+            "--train",
+            new.to_str().unwrap(),
+            "--out",
+            out.to_str().unwrap(),
+        ]);
+        refreshed.push(out);
+    }
+    let (a, b) = (bundle_in(&refreshed[0]), bundle_in(&refreshed[1]));
+    for key in ["slot", "slot_x_clinic"] {
+        assert!(a.columns[key].levels.len() > 30, "{key}");
+        assert_eq!(a.columns[key].levels, b.columns[key].levels, "{key}");
+        let name = format!("{key}_mean");
+        let file = |out: &Path| out.join(format!("encodings/{key}.parquet"));
+        assert_eq!(
+            column(&file(&refreshed[0]), &name).await,
+            column(&file(&refreshed[1]), &name).await,
+            "{key}"
+        );
+    }
+}
+
 // Scored rows that all miss the training levels are more often a key written another
 // way (here the clinics upper-cased) than new levels: the run warns, by key.
 #[test]
