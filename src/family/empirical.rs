@@ -46,10 +46,37 @@ pub struct FitReport {
     /// Levels with evidence that took part.
     pub levels: usize,
     pub method: &'static str,
+    /// Why the data set the prior at a bound without a fit (for example, no level
+    /// has more than one row), to be shown to users; `None` after a fit.
+    pub unfitted: Option<&'static str>,
 }
 
 fn no_levels() -> FamilyError {
     FamilyError::NoLevels
+}
+
+/// How a fit reports levels that each hold at most one row. One binary, class or
+/// continuous outcome per level cannot tell a level's own rate from noise (its
+/// marginal likelihood does not depend on the prior's strength; for continuous
+/// outcomes the within- and between-level variances are not separable), so the
+/// strength is set to [`MAX_STRENGTH`]: every level is pooled to the overall rate.
+/// (Counts are different: one count per level still shows over-dispersion.)
+const ONE_ROW_PER_LEVEL: &str =
+    "no level has more than one row, so the strength is not identified: every level is pooled \
+     to the overall rate";
+
+/// The report of a prior the data set at a bound without a fit; `why` says why.
+fn unfitted_report(strength: f64, levels: usize, why: &'static str) -> FitReport {
+    FitReport {
+        log_marginal_likelihood: 0.0,
+        iterations: 0,
+        converged: true,
+        strength,
+        at_bound: true,
+        levels,
+        method: "set without a fit",
+        unfitted: Some(why),
+    }
 }
 
 /// Value, gradient and Hessian of an objective in (x, y).
@@ -146,6 +173,13 @@ pub fn fit_beta(levels: &[(f64, f64)]) -> Result<(BetaPrior, FitReport)> {
         (s + m * a, n + m * (a + b))
     });
     let mean = (s_total / n_total).clamp(1e-6, 1.0 - 1e-6);
+    if data.iter().all(|([s, f], _)| s + f <= 1.0) {
+        let (a, b) = (mean * MAX_STRENGTH, (1.0 - mean) * MAX_STRENGTH);
+        return Ok((
+            BetaPrior::new(a, b)?,
+            unfitted_report(a + b, count as usize, ONE_ROW_PER_LEVEL),
+        ));
+    }
     let objective = |a: f64, b: f64| -> Derivatives {
         let (mut v, mut ga, mut gb, mut haa, mut hbb, mut hab) = (0.0, 0.0, 0.0, 0.0, 0.0, 0.0);
         let (dab, tab) = (digamma(a + b), trigamma(a + b));
@@ -190,6 +224,7 @@ pub fn fit_beta(levels: &[(f64, f64)]) -> Result<(BetaPrior, FitReport)> {
             at_bound,
             levels: count as usize,
             method: "beta-binomial maximum marginal likelihood (Newton)",
+            unfitted: None,
         },
     ))
 }
@@ -245,6 +280,7 @@ fn fit_shape_rate(data: &[([f64; 2], f64)], method: &'static str) -> Result<(f64
             at_bound,
             levels: count as usize,
             method,
+            unfitted: None,
         },
     ))
 }
@@ -299,6 +335,14 @@ pub fn fit_dirichlet(
         }
     }
     let grand: f64 = totals.iter().sum();
+    if data.iter().all(|(c, _)| c.iter().sum::<f64>() <= 1.0) {
+        let alpha: Vec<f64> = totals
+            .iter()
+            .map(|t| (MAX_STRENGTH * t / grand).max(MIN_PARAMETER))
+            .collect();
+        let report = unfitted_report(alpha.iter().sum(), count as usize, ONE_ROW_PER_LEVEL);
+        return Ok((DirichletPrior::new(classes.to_vec(), alpha)?, report));
+    }
     let mut alpha: Vec<f64> = totals
         .iter()
         .map(|t| (10.0 * t / grand).max(MIN_PARAMETER))
@@ -361,9 +405,66 @@ pub fn fit_dirichlet(
         at_bound,
         levels: count as usize,
         method: "Dirichlet-multinomial maximum marginal likelihood (Minka's fixed point)",
+        unfitted: None,
     };
     Ok((DirichletPrior::new(classes.to_vec(), alpha)?, report))
 }
+
+/// The NIG prior when no level shows spread within it and the data cannot say more:
+/// no level has more than one row (or all values are equal): pooled to the
+/// values' mean, with their total variance as the expected variance; every level
+/// constant and the levels different: each level reads its own value. `None` when
+/// some level does show spread (weighted levels of at most one row's weight).
+fn without_within_spread(
+    used: &[&NigStats],
+    df_sum: f64,
+    m2_sum: f64,
+) -> Option<Result<(NigPrior, FitReport)>> {
+    let n: f64 = used.iter().map(|s| s.n).sum();
+    let centre = used.iter().map(|s| s.n * s.mean).sum::<f64>() / n;
+    let total = used
+        .iter()
+        .map(|s| s.n * (s.mean - centre).powi(2) + s.m2)
+        .sum::<f64>()
+        / n;
+    // A variance the data say is zero, as a positive number far below the values' size.
+    let tiny = (f64::EPSILON * centre.abs().max(total.sqrt()))
+        .powi(2)
+        .max(f64::MIN_POSITIVE);
+    let prior = |kappa0: f64, variance: f64| {
+        NigPrior::new(
+            centre,
+            kappa0,
+            NO_SPREAD_SHAPE,
+            variance * (NO_SPREAD_SHAPE - 1.0),
+        )
+    };
+    let (prior, method) = if df_sum == 0.0 {
+        (prior(MAX_STRENGTH, total.max(tiny)), ONE_ROW_PER_LEVEL)
+    } else if total == 0.0 {
+        (
+            prior(MAX_STRENGTH, tiny),
+            "every value is the same: every level is pooled to it",
+        )
+    } else if m2_sum == 0.0 {
+        (
+            prior(MIN_PARAMETER, tiny),
+            "each level's values are all the same and the levels differ: each level reads \
+             its own value",
+        )
+    } else {
+        return None;
+    };
+    Some(prior.map(|p| {
+        let report = unfitted_report(p.kappa0, used.len(), method);
+        (p, report)
+    }))
+}
+
+/// The inverse-gamma shape when no level shows spread within it: above 2, so the
+/// prior's variance of the variance is finite and the `sd` reader is not chosen for
+/// a spread nobody measured.
+const NO_SPREAD_SHAPE: f64 = 3.0;
 
 /// Normal-Inverse-Gamma prior from per-level statistics (see the module notes).
 pub fn fit_nig(levels: &[NigStats]) -> Result<(NigPrior, FitReport)> {
@@ -377,11 +478,21 @@ pub fn fit_nig(levels: &[NigStats]) -> Result<(NigPrior, FitReport)> {
             .filter(|s| s.n > 1.0 && s.m2 > 0.0)
             .map(|s| [(s.n - 1.0) / 2.0, s.m2 / 2.0]),
     );
+    // Within-level variance for the mean part: the pooled estimate.
+    let (m2_sum, df_sum) = used
+        .iter()
+        .fold((0.0, 0.0), |(m, d), s| (m + s.m2, d + (s.n - 1.0).max(0.0)));
     let (alpha0, beta0, mut report) = if spread.is_empty() {
-        // No within-level spread observed: a weak prior with unit scale.
+        // No level shows spread within it: nothing for the inverse-gamma part to
+        // fit, and every number below must come from the values' own scale.
+        if let Some(fixed) = without_within_spread(&used, df_sum, m2_sum) {
+            return fixed;
+        }
+        // Spread only in levels of at most one row's weight: the pooled estimate.
+        let sigma2 = m2_sum / df_sum;
         (
-            1.5,
-            1.0,
+            NO_SPREAD_SHAPE,
+            sigma2 * (NO_SPREAD_SHAPE - 1.0),
             FitReport {
                 log_marginal_likelihood: 0.0,
                 iterations: 0,
@@ -390,21 +501,14 @@ pub fn fit_nig(levels: &[NigStats]) -> Result<(NigPrior, FitReport)> {
                 at_bound: true,
                 levels: used.len(),
                 method: "",
+                unfitted: None,
             },
         )
     } else {
         let (a, b, r) = fit_shape_rate(&spread, "")?;
         (a, b, r)
     };
-    // Within-level variance for the mean part: the pooled estimate.
-    let (m2_sum, df_sum) = used
-        .iter()
-        .fold((0.0, 0.0), |(m, d), s| (m + s.m2, d + (s.n - 1.0).max(0.0)));
-    let sigma2 = if df_sum > 0.0 && m2_sum > 0.0 {
-        m2_sum / df_sum
-    } else {
-        beta0 / alpha0.max(1.0)
-    };
+    let sigma2 = m2_sum / df_sum;
     // DerSimonian–Laird between-level variance of the level means.
     let w: Vec<f64> = used.iter().map(|s| s.n / sigma2).collect();
     let w_sum: f64 = w.iter().sum();

@@ -227,6 +227,115 @@ fn nig_recovers_the_hierarchy() {
     );
 }
 
+// A fitted prior is a property of the data, not of its units: rescaling and shifting
+// a continuous target (y -> c y + d) moves mu0 to c mu0 + d and beta0 to c^2 beta0 and
+// leaves kappa0 and alpha0 alone — for replicated levels, for levels of one row each
+// (where the within- and between-level variances cannot be told apart and every level
+// is pooled) and for levels constant within (each level reads its own value).
+#[test]
+fn nig_fit_follows_the_target_s_units() {
+    let mut g = SplitMix(15);
+    let replicated: Vec<Vec<f64>> = (0..300)
+        .map(|i| {
+            let mean = 10.0 + 2.0 * g.normal();
+            (0..(1 + i % 5)).map(|_| mean + 3.0 * g.normal()).collect()
+        })
+        .collect();
+    let singletons: Vec<Vec<f64>> = (0..300).map(|_| vec![10.0 + 3.0 * g.normal()]).collect();
+    let constant: Vec<Vec<f64>> = (0..300).map(|i| vec![(i % 7) as f64; 3]).collect();
+    let stats = |levels: &[Vec<f64>], c: f64, d: f64| -> Vec<NigStats> {
+        levels
+            .iter()
+            .map(|v| {
+                let mut s = NigStats::default();
+                v.iter().for_each(|y| s.push(c * y + d, 1.0));
+                s
+            })
+            .collect()
+    };
+    for (name, levels) in [
+        ("replicated", &replicated),
+        ("one row per level", &singletons),
+        ("constant within", &constant),
+    ] {
+        let (base, report) = fit_nig(&stats(levels, 1.0, 0.0)).unwrap();
+        for (c, d) in [(1e6, 0.0), (1e-6, 5.0), (-3.0, 1e3)] {
+            let (p, _) = fit_nig(&stats(levels, c, d)).unwrap();
+            let close = |a: f64, b: f64| (a - b).abs() <= 1e-6 * a.abs().max(b.abs());
+            assert!(close(p.mu0, c * base.mu0 + d), "{name} {c}: {p:?} {base:?}");
+            assert!(close(p.kappa0, base.kappa0), "{name} {c}: {p:?} {base:?}");
+            assert!(close(p.alpha0, base.alpha0), "{name} {c}: {p:?} {base:?}");
+            if name != "constant within" {
+                assert!(
+                    close(p.beta0, c * c * base.beta0),
+                    "{name} {c}: {p:?} {base:?}"
+                );
+            }
+        }
+        match name {
+            "replicated" => assert_eq!(report.unfitted, None),
+            "one row per level" => {
+                assert_eq!(base.kappa0, MAX_STRENGTH, "{base:?}");
+                // The prior's expected variance is the values' total variance (3^2).
+                let variance = base.beta0 / (base.alpha0 - 1.0);
+                assert!((variance / 9.0 - 1.0).abs() < 0.2, "{base:?}");
+                assert!(report
+                    .unfitted
+                    .unwrap()
+                    .contains("no level has more than one row"));
+            }
+            _ => {
+                assert!(
+                    base.kappa0 <= 1e-3,
+                    "each level reads its own value: {base:?}"
+                );
+                assert!(base.beta0 < 1e-20, "{base:?}");
+                assert!(report.unfitted.is_some());
+            }
+        }
+    }
+    // Every value the same: pooled to it, with a positive (tiny) spread.
+    let (p, r) = fit_nig(&stats(&vec![vec![4.0; 3]; 20], 1.0, 0.0)).unwrap();
+    assert!(p.kappa0 == MAX_STRENGTH && p.mu0 == 4.0 && p.beta0 > 0.0 && p.beta0 < 1e-20);
+    assert!(r.unfitted.unwrap().contains("every value is the same"));
+}
+
+// One binary or class outcome per level says nothing about how far levels differ
+// (its marginal likelihood does not depend on the strength): the fit sets the
+// strength to the cap at the overall rate instead of returning wherever a search
+// stopped. Counts differ: one count per level still shows over-dispersion.
+#[test]
+fn one_row_per_level_pools_binary_and_class_outcomes() {
+    let mut g = SplitMix(16);
+    let binary: Vec<(f64, f64)> = (0..500)
+        .map(|_| ((g.unit() < 0.2) as u8 as f64, 1.0))
+        .collect();
+    let (p, r) = fit_beta(&binary).unwrap();
+    let rate = binary.iter().map(|l| l.0).sum::<f64>() / 500.0;
+    assert!((p.a0 + p.b0 - MAX_STRENGTH).abs() < 1.0, "{p:?}");
+    assert!((p.a0 / (p.a0 + p.b0) - rate).abs() < 1e-9, "{p:?}");
+    assert!(r.at_bound && r.unfitted.is_some(), "{r:?}");
+    let classes: Vec<String> = ["a", "b", "c"].map(String::from).to_vec();
+    let rows: Vec<Vec<f64>> = (0..300)
+        .map(|i| (0..3).map(|c| (c == i % 3) as u8 as f64).collect())
+        .collect();
+    let (p, r) = fit_dirichlet(&classes, &rows).unwrap();
+    let total: f64 = p.alpha0.iter().sum();
+    assert!((total - MAX_STRENGTH).abs() < 1.0, "{p:?}");
+    assert!(p
+        .alpha0
+        .iter()
+        .all(|a| (a / total - 1.0 / 3.0).abs() < 1e-9));
+    assert!(r.unfitted.is_some());
+    // Two rows in one level are enough to fit.
+    let mut two = binary.clone();
+    two[0] = (1.0, 2.0);
+    assert_eq!(fit_beta(&two).unwrap().1.unfitted, None);
+    // Counts: fitted, not pooled by rule.
+    let counts: Vec<(f64, f64)> = (0..500).map(|i| ((i % 7) as f64, 1.0)).collect();
+    assert_eq!(fit_gamma(&counts).unwrap().1.unfitted, None);
+}
+
 #[tokio::test]
 async fn fit_prior_from_sql() {
     let ctx = datafusion::prelude::SessionContext::new();

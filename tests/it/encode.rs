@@ -3390,6 +3390,85 @@ async fn refresh_of_an_older_float_keyed_bundle_keeps_its_levels() {
     }
 }
 
+// A key of one row per level (an identifier) with a continuous target: nothing tells
+// a level from noise, so every level is pooled and the summary says why — and the
+// encodings follow the target's units (before, a fixed unit variance made the
+// pooling depend on them: none for a target in millions, full for one in millionths).
+// A key whose levels are alike in spread but far apart in mean (the variance shape
+// at its cap, the mean strength small) is not reported as pooled.
+#[tokio::test]
+async fn one_row_per_level_and_the_target_s_units() {
+    let dir = temp_dir("one-row-levels");
+    let mut means = Vec::new();
+    for scale in [1.0, 1e6, 1e-6] {
+        let file = dir.join(format!("train-{scale}.parquet"));
+        sample_to_parquet(
+            &format!(
+                "SELECT appointment_id, clinic, \
+                 (day % 17 + appointment_id % 5 + 0.5) * {scale} AS y, \
+                 (CAST(substr(clinic, 8) AS DOUBLE) * 10 + \
+                  CASE WHEN (appointment_id / 12) % 2 = 0 THEN 1 ELSE -1 END) * {scale} AS spread \
+                 FROM a"
+            ),
+            &file,
+        )
+        .await;
+        let out = dir.join(format!("out-{scale}"));
+        encode(&[
+            "--train",
+            file.to_str().unwrap(),
+            "--target",
+            "y",
+            "--columns",
+            "appointment_id,clinic",
+            "--out",
+            out.to_str().unwrap(),
+        ]);
+        let summary: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(out.join("summary.json")).unwrap())
+                .unwrap();
+        let warnings = |key: &str| -> String {
+            summary
+                .as_array()
+                .unwrap()
+                .iter()
+                .find(|k| k["key"] == key)
+                .unwrap()["warnings"]
+                .to_string()
+        };
+        assert!(
+            warnings("appointment_id").contains("no level has more than one row"),
+            "{summary}"
+        );
+        let mut by_key = Vec::new();
+        for key in ["appointment_id", "clinic"] {
+            let m = column(&out.join("train_encoded.parquet"), &format!("{key}_mean")).await;
+            by_key.push(m.iter().map(|v| v / scale).collect::<Vec<_>>());
+        }
+        means.push(by_key);
+
+        let spread = dir.join(format!("spread-{scale}"));
+        encode(&[
+            "--train",
+            file.to_str().unwrap(),
+            "--target",
+            "spread",
+            "--columns",
+            "clinic",
+            "--out",
+            spread.to_str().unwrap(),
+        ]);
+        let summary = std::fs::read_to_string(spread.join("summary.json")).unwrap();
+        assert!(summary.contains(r#""at_bound": true"#), "{summary}");
+        assert!(!summary.contains("pooled"), "{summary}");
+    }
+    for scaled in &means[1..] {
+        for (a, b) in means[0].iter().flatten().zip(scaled.iter().flatten()) {
+            assert!((a - b).abs() <= 1e-9 * a.abs().max(1.0), "{a} {b}");
+        }
+    }
+}
+
 // Scored rows that all miss the training levels are more often a key written another
 // way (here the clinics upper-cased) than new levels: the run warns, by key.
 #[test]
