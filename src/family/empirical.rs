@@ -441,7 +441,7 @@ fn without_within_spread(
     };
     let (prior, method) = if df_sum == 0.0 {
         (prior(MAX_STRENGTH, total.max(tiny)), ONE_ROW_PER_LEVEL)
-    } else if total == 0.0 {
+    } else if m2_sum == 0.0 && used.iter().all(|s| s.mean == used[0].mean) {
         (
             prior(MAX_STRENGTH, tiny),
             "every value is the same: every level is pooled to it",

@@ -300,6 +300,34 @@ fn nig_fit_follows_the_target_s_units() {
     assert!(r.unfitted.unwrap().contains("every value is the same"));
 }
 
+// Exposure in other units (hours for days: exposure x c) leaves the shape alone and
+// divides the rate's scale: rate0 -> c rate0, so every level's rate per new unit is
+// the old one over c.
+#[test]
+fn gamma_fit_follows_the_exposure_s_units() {
+    let mut g = SplitMix(17);
+    let levels: Vec<(f64, f64)> = (0..400)
+        .map(|i| {
+            let exposure = 0.5 + (i % 9) as f64;
+            let rate = 1.5 * (0.5 + g.unit());
+            ((rate * exposure + 3.0 * g.unit()).floor(), exposure)
+        })
+        .collect();
+    let (base, _) = fit_gamma(&levels).unwrap();
+    for c in [24.0, 1e-4, 1e5] {
+        let scaled: Vec<(f64, f64)> = levels.iter().map(|&(y, t)| (y, t * c)).collect();
+        let (p, _) = fit_gamma(&scaled).unwrap();
+        assert!(
+            (p.shape0 / base.shape0 - 1.0).abs() < 1e-6,
+            "{c}: {p:?} {base:?}"
+        );
+        assert!(
+            (p.rate0 / (c * base.rate0) - 1.0).abs() < 1e-6,
+            "{c}: {p:?} {base:?}"
+        );
+    }
+}
+
 // One binary or class outcome per level says nothing about how far levels differ
 // (its marginal likelihood does not depend on the strength): the fit sets the
 // strength to the cap at the overall rate instead of returning wherever a search
