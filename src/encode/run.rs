@@ -1,7 +1,6 @@
 //! Running a plan: numbered rows, the statements, the bundle, the summary, and
 //! writing everything into a directory as one unit.
 
-use crate::family::empirical::MAX_STRENGTH;
 use std::collections::BTreeMap;
 use std::path::{Path, PathBuf};
 
@@ -23,6 +22,7 @@ use super::resolve::EncodePlan;
 use super::sql::{SCORE, TRAIN};
 use super::{EncodeError, Result};
 use crate::bundle::{Bundle, ColumnEncoding};
+use crate::family::empirical::MAX_STRENGTH;
 use crate::layout::{AnyPosterior, PosteriorColumn};
 
 /// What was chosen for one encoded key, and how much data it saw.

@@ -3,10 +3,11 @@
 //! statistics, the result equals a fit on old and new rows together under the same
 //! priors (exactly for integer evidence).
 
+use std::collections::BTreeMap;
 use std::sync::Arc;
 
 use datafusion::arrow::array::{ArrayRef, RecordBatch, StringArray};
-use datafusion::arrow::datatypes::{Field, Schema};
+use datafusion::arrow::datatypes::{DataType, Field, Schema};
 use datafusion::datasource::MemTable;
 use datafusion::prelude::SessionContext;
 
@@ -18,10 +19,6 @@ use super::resolve::{
 use super::run::{execute, finish, EncodeOutput};
 use super::sql::{SCORE, TRAIN};
 use super::{text, usage, EncodeError, Result};
-use std::collections::BTreeMap;
-
-use datafusion::arrow::datatypes::DataType;
-
 use crate::bundle::{interaction_key, Bundle, ColumnEncoding};
 use crate::layout::{build, AnyPosterior, Combine, Kind};
 

@@ -62,8 +62,8 @@ fn no_levels() -> FamilyError {
 /// strength is set to [`MAX_STRENGTH`]: every level is pooled to the overall rate.
 /// (Counts are different: one count per level still shows over-dispersion.)
 const ONE_ROW_PER_LEVEL: &str =
-    "no level has more than one row, so the strength is not identified: every level is pooled \
-     to the overall rate";
+    "no level has more than one row (or, with recency weights, one row's weight), so the \
+     strength is not identified: every level is pooled to the overall rate";
 
 /// The report of a prior the data set at a bound without a fit; `why` says why.
 fn unfitted_report(strength: f64, levels: usize, why: &'static str) -> FitReport {
