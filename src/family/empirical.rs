@@ -427,6 +427,9 @@ fn without_within_spread(
         .map(|s| s.n * (s.mean - centre).powi(2) + s.m2)
         .sum::<f64>()
         / n;
+    if !(centre.is_finite() && total.is_finite()) {
+        return (df_sum == 0.0 || m2_sum == 0.0).then_some(Err(FamilyError::FitOverflow));
+    }
     // A variance the data say is zero, as a positive number far below the values' size.
     let tiny = (f64::EPSILON * centre.abs().max(total.sqrt()))
         .powi(2)
@@ -537,6 +540,9 @@ pub fn fit_nig(levels: &[NigStats]) -> Result<(NigPrior, FitReport)> {
         .map(|(s, p)| p * s.mean)
         .sum::<f64>()
         / precision.iter().sum::<f64>();
+    if !(mu0.is_finite() && kappa0.is_finite() && beta0.is_finite()) {
+        return Err(FamilyError::FitOverflow);
+    }
     let prior = NigPrior::new(mu0, kappa0.max(MIN_PARAMETER), alpha0, beta0)?;
     report.at_bound |= kappa0 >= MAX_STRENGTH;
     report.strength = prior.kappa0;

@@ -46,6 +46,8 @@ pub enum FamilyError {
     InvalidClasses(String),
     /// An empirical-Bayes prior fit saw no level with evidence.
     NoLevels,
+    /// An empirical-Bayes prior fit whose arithmetic overflowed on the levels given.
+    FitOverflow,
     /// A stored value (bundle, file) that is not a posterior of any family.
     UnknownShape(String),
 }
@@ -89,6 +91,12 @@ impl fmt::Display for FamilyError {
                  choose a prior such as beta_prior(0.5, 0.5) instead"
             ),
             FamilyError::UnknownShape(detail) => write!(f, "{detail}"),
+            FamilyError::FitOverflow => write!(
+                f,
+                "the levels' values and weights are too large for the prior fit to hold in 64-bit \
+                 numbers (their spread overflows); rescale the target or the weights, or choose \
+                 a prior"
+            ),
         }
     }
 }

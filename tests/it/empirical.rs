@@ -328,6 +328,24 @@ fn gamma_fit_follows_the_exposure_s_units() {
     }
 }
 
+// Values and weights whose spread overflows 64-bit arithmetic (a mean of 1e149 with a
+// weight of 1e6 beside a level near 0) are refused by the fit in words, not with a
+// parameter the user never gave ("mu0 = NaN").
+#[test]
+fn an_overflowing_normal_fit_says_so() {
+    let level = |values: &[(f64, f64)]| {
+        let mut s = NigStats::default();
+        values.iter().for_each(|&(y, w)| s.push(y, w));
+        s
+    };
+    let levels = [level(&[(1e149, 1e6)]), level(&[(3.0, 1e-9), (0.5, 0.5)])];
+    let message = fit_nig(&levels).unwrap_err().to_string();
+    assert!(message.contains("too large for the prior fit"), "{message}");
+    // Far apart but representable: fitted (pooled, one row per level).
+    let (p, _) = fit_nig(&[level(&[(1e149, 1.0)]), level(&[(-1e149, 1.0)])]).unwrap();
+    assert!(p.beta0.is_finite() && p.mu0 == 0.0, "{p:?}");
+}
+
 // One binary or class outcome per level says nothing about how far levels differ
 // (its marginal likelihood does not depend on the strength): the fit sets the
 // strength to the cap at the overall rate instead of returning wherever a search
