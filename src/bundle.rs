@@ -63,6 +63,31 @@ pub fn interaction_key(parts: &[&str]) -> String {
         .join("|")
 }
 
+/// The parts of an interaction's level (what [`interaction_key`] built), or None when the
+/// text is not one.
+pub fn interaction_parts(level: &str) -> Option<Vec<String>> {
+    let mut parts = Vec::new();
+    let mut rest = level;
+    loop {
+        let (length, tail) = rest.split_once(':')?;
+        let length: usize = length.parse().ok()?;
+        if tail.chars().count() < length {
+            return None;
+        }
+        let end = tail
+            .char_indices()
+            .nth(length)
+            .map_or(tail.len(), |(i, _)| i);
+        parts.push(tail[..end].to_string());
+        rest = &tail[end..];
+        match rest.strip_prefix('|') {
+            Some(next) => rest = next,
+            None if rest.is_empty() => return Some(parts),
+            None => return None,
+        }
+    }
+}
+
 /// A posterior as a JSON object with the value format's field names.
 pub fn posterior_json(p: &AnyPosterior) -> Value {
     match p {
@@ -518,4 +543,20 @@ fn parent_levels(
         }
     }
     Ok(out)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    #[test]
+    fn interaction_parts_undo_interaction_key() {
+        for parts in [vec!["12.0", "clinic_01"], vec!["", "a|b:c", "é"], vec!["x"]] {
+            let level = interaction_key(&parts);
+            assert_eq!(interaction_parts(&level).unwrap(), parts, "{level}");
+        }
+        for not_one in ["12", "3:ab", "2:ab|", "2:abc", "x:ab", "1:é|"] {
+            assert_eq!(interaction_parts(not_one), None, "{not_one}");
+        }
+    }
 }

@@ -26,7 +26,7 @@ const INTEGER_RANGE: f64 = 9_223_372_036_854_775_808.0;
 pub fn key_text(values: &ArrayRef, text_type: &DataType) -> Result<ArrayRef, ArrowError> {
     match values.data_type() {
         DataType::Dictionary(_, inner) => key_text(&cast(values, inner)?, text_type),
-        DataType::Float16 | DataType::Float32 | DataType::Float64 => {
+        t if t.is_floating() => {
             let text = cast(values, &DataType::Utf8)?;
             let text = text.as_string::<i32>();
             let numbers = cast(values, &DataType::Float64)?;
@@ -43,6 +43,15 @@ pub fn key_text(values: &ArrayRef, text_type: &DataType) -> Result<ArrayRef, Arr
             cast(&(Arc::new(out) as ArrayRef), text_type)
         }
         _ => cast(values, text_type),
+    }
+}
+
+/// Whether a column of type `t` is read as floats by [`key_text`] (directly or
+/// through a dictionary).
+pub fn is_float(t: &DataType) -> bool {
+    match t {
+        DataType::Dictionary(_, inner) => is_float(inner),
+        t => t.is_floating(),
     }
 }
 

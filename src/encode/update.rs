@@ -19,7 +19,7 @@ use super::resolve::{
 use super::run::{execute, finish, EncodeOutput};
 use super::sql::{SCORE, TRAIN};
 use super::{text, usage, EncodeError, Result};
-use crate::bundle::{interaction_key, Bundle, ColumnEncoding};
+use crate::bundle::{interaction_key, interaction_parts, Bundle, ColumnEncoding};
 use crate::layout::{build, AnyPosterior, Combine, Kind};
 
 /// What a refresh needs.
@@ -264,9 +264,9 @@ fn levels_as_this_build_reads_them(
         .key_columns
         .iter()
         .map(|c| {
-            train.iter().any(|(n, t)| {
-                n == c && matches!(t, DataType::Float16 | DataType::Float32 | DataType::Float64)
-            })
+            train
+                .iter()
+                .any(|(n, t)| n == c && crate::key_text::is_float(t))
         })
         .collect();
     let mut column = column.clone();
@@ -330,31 +330,6 @@ fn levels_as_this_build_reads_them(
     Ok(column)
 }
 
-/// The parts of an interaction's level (see [`interaction_key`]), or None when the
-/// text is not one.
-fn interaction_parts(level: &str) -> Option<Vec<String>> {
-    let mut parts = Vec::new();
-    let mut rest = level;
-    loop {
-        let (length, tail) = rest.split_once(':')?;
-        let length: usize = length.parse().ok()?;
-        if tail.chars().count() < length {
-            return None;
-        }
-        let end = tail
-            .char_indices()
-            .nth(length)
-            .map_or(tail.len(), |(i, _)| i);
-        parts.push(tail[..end].to_string());
-        rest = &tail[end..];
-        match rest.strip_prefix('|') {
-            Some(next) => rest = next,
-            None if rest.is_empty() => return Some(parts),
-            None => return None,
-        }
-    }
-}
-
 /// Register `__storedparent{i}`: child column `i`'s levels, their parent levels and
 /// their data outside them (NULL when none), decayed like the stored posteriors.
 fn register_parents(
@@ -416,20 +391,4 @@ fn register_columns(
         Arc::new(MemTable::try_new(schema, vec![vec![batch]])?),
     )?;
     Ok(())
-}
-
-#[cfg(test)]
-mod tests {
-    use super::*;
-
-    #[test]
-    fn interaction_parts_undo_interaction_key() {
-        for parts in [vec!["12.0", "clinic_01"], vec!["", "a|b:c", "é"], vec!["x"]] {
-            let level = interaction_key(&parts);
-            assert_eq!(interaction_parts(&level).unwrap(), parts, "{level}");
-        }
-        for not_one in ["12", "3:ab", "2:ab|", "2:abc", "x:ab", "1:é|"] {
-            assert_eq!(interaction_parts(not_one), None, "{not_one}");
-        }
-    }
 }

@@ -485,14 +485,16 @@ pub fn fit_nig(levels: &[NigStats]) -> Result<(NigPrior, FitReport)> {
     let (m2_sum, df_sum) = used
         .iter()
         .fold((0.0, 0.0), |(m, d), s| (m + s.m2, d + (s.n - 1.0).max(0.0)));
-    let (alpha0, beta0, mut report) = if spread.is_empty() {
-        // No level shows spread within it: nothing for the inverse-gamma part to
-        // fit, and every number below must come from the values' own scale.
+    // No level shows spread within it: nothing for the inverse-gamma part to fit,
+    // and every number below must come from the values' own scale.
+    if spread.is_empty() {
         if let Some(fixed) = without_within_spread(&used, df_sum, m2_sum) {
             return fixed;
         }
+    }
+    let sigma2 = m2_sum / df_sum;
+    let (alpha0, beta0, mut report) = if spread.is_empty() {
         // Spread only in levels of at most one row's weight: the pooled estimate.
-        let sigma2 = m2_sum / df_sum;
         (
             NO_SPREAD_SHAPE,
             sigma2 * (NO_SPREAD_SHAPE - 1.0),
@@ -508,10 +510,8 @@ pub fn fit_nig(levels: &[NigStats]) -> Result<(NigPrior, FitReport)> {
             },
         )
     } else {
-        let (a, b, r) = fit_shape_rate(&spread, "")?;
-        (a, b, r)
+        fit_shape_rate(&spread, "")?
     };
-    let sigma2 = m2_sum / df_sum;
     // DerSimonian–Laird between-level variance of the level means.
     let w: Vec<f64> = used.iter().map(|s| s.n / sigma2).collect();
     let w_sum: f64 = w.iter().sum();
