@@ -487,24 +487,20 @@ impl EncodeOptions {
 
     /// The method after defaults, checked against the other options.
     pub fn method(&self) -> Result<Method> {
-        let horizon = self.check_horizon()?;
+        // With a time column the method is as-of unless k-fold is asked for; the
+        // recency weights and the horizon then only change what each row reads.
+        self.check_horizon()?;
         if let Some(half_life) = self.half_life {
             if let HalfLife::Units(h) = half_life {
                 check_time_units("--half-life", h, " or 'fitted'")?;
             }
-            // Out-of-fold unless as-of is asked for (a half-life once meant out-of-fold
-            // encodings only; as-of encodings take a given one).
-            return match (self.method, &self.time_column) {
-                (_, None) => usage("--half-life needs --time-column (the age of each row)"),
-                (Some(m), _) => Ok(m),
-                // A horizon is for as-of encodings.
-                (None, _) if horizon => Ok(Method::Time),
-                (None, _) => Ok(Method::Kfold),
-            };
+            if self.time_column.is_none() {
+                return usage("--half-life needs --time-column (the age of each row)");
+            }
         }
         match (self.method, &self.time_column) {
             (Some(Method::Time), None) => usage("--method time needs --time-column"),
-            (Some(m @ Method::Kfold), Some(t)) => usage(format!(
+            (Some(m @ Method::Kfold), Some(t)) if self.half_life.is_none() => usage(format!(
                 "--time-column '{t}' is only used by --method time or --half-life, not by \
                  --method {} alone",
                 m.name()
@@ -515,23 +511,23 @@ impl EncodeOptions {
         }
     }
 
-    /// Whether a horizon is asked for (as-of encodings only), checked.
-    fn check_horizon(&self) -> Result<bool> {
+    /// A horizon, if any, is a span of time and goes with as-of encodings.
+    fn check_horizon(&self) -> Result<()> {
         let Some(horizon) = self.horizon else {
-            return Ok(false);
+            return Ok(());
         };
         if let Horizon::Units(h) = horizon {
             check_time_units("--horizon", h, ", 'matched' or 'none'")?;
         }
         if horizon == Horizon::None {
-            return Ok(false);
+            return Ok(());
         }
         match (self.method, &self.time_column) {
             (_, None) => usage("--horizon needs --time-column (as-of encodings)"),
             (Some(Method::Kfold), _) => {
                 usage("--horizon applies to as-of encodings (--method time), not to --method kfold")
             }
-            _ => Ok(true),
+            _ => Ok(()),
         }
     }
 }

@@ -930,8 +930,9 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         .await
         .map_err(|e| EncodeError::Usage(format!("--prior: {}", e.strip_backtrace())))?;
 
-    // As-of encodings order rows by time: NaN has no place in that order.
-    if let (Method::Time, Some(time)) = (method, &options.time_column) {
+    // As-of encodings order rows by time and recency weights age them: NaN has no
+    // place in either.
+    if let Some(time) = &options.time_column {
         if train.iter().any(|(n, d)| n == time && d.is_floating()) {
             let t = quote(time);
             let b = one_row(

@@ -89,9 +89,9 @@ pub struct EncodeArgs {
     /// for --half-life.
     #[arg(long)]
     pub time_column: Option<String>,
-    /// Recency weighting: a row this many time units older than the newest training row
-    /// (as-of encodings: than the row encoded) counts half (a number, dates or timestamps
-    /// in days);
+    /// Recency weighting: a row this many time units older than the row encoded (with
+    /// --method kfold: than the newest training row) counts half (a number, dates or
+    /// timestamps in days);
     /// `fitted` chooses it per key from the training rows (the latest fifth scored by fits
     /// of the rest).
     #[arg(long, value_name = "UNITS|fitted")]

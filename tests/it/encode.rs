@@ -1374,16 +1374,20 @@ fn breed_by_day(sample: &str) -> Vec<&str> {
     ]
 }
 
-// Recency weighting: with --half-life H each row counts 2^(-age/H), its age counted
-// from the newest training row; the serving encodings equal the weighted counts
-// computed independently with power() in SQL.
+// Recency weighting in out-of-fold encodings (--method kfold): with --half-life H
+// each row counts 2^(-age/H), its age counted from the newest training row; the
+// serving encodings equal the weighted counts computed independently with power()
+// in SQL.
 #[tokio::test]
 async fn half_life_weights_rows_by_age() {
     let dir = temp_dir("half-life");
     let out = dir.join("out");
-    let ctx =
-        sample_encoded_with_half_life_60(&out, &["--readers", "mean"], "encodings/breed.parquet")
-            .await;
+    let ctx = sample_encoded_with_half_life_60(
+        &out,
+        &["--readers", "mean", "--method", "kfold"],
+        "encodings/breed.parquet",
+    )
+    .await;
     // The encoding table's readers score rows: each level's data scaled by 4/5, as
     // five-fold out-of-fold training rows see it.
     let sql = "WITH w AS (SELECT breed, no_show, power(0.5, ((SELECT MAX(day) FROM a) - day) / 60.0) AS w FROM a),
@@ -1419,7 +1423,8 @@ async fn half_life_weights_rows_by_age() {
     assert_eq!(o.status.code(), Some(2));
 }
 
-// As-of encodings with a half-life: a row at day t reads its level's rows of
+// As-of encodings with a half-life (a time column's method unless k-fold is asked
+// for, also with --half-life): a row at day t reads its level's rows of
 // earlier days, each weighted 2^(-(t - day)/H); equal to that sum computed
 // independently with power() in SQL. A half-life too short for the running sums
 // over the period is refused.
@@ -1427,9 +1432,7 @@ async fn half_life_weights_rows_by_age() {
 async fn as_of_half_life_weights_earlier_rows_by_their_age() {
     let dir = temp_dir("as-of-half-life");
     let out = dir.join("out");
-    let ctx =
-        sample_encoded_with_half_life_60(&out, &["--method", "time"], "train_encoded.parquet")
-            .await;
+    let ctx = sample_encoded_with_half_life_60(&out, &[], "train_encoded.parquet").await;
     let sql = "WITH g AS (SELECT DISTINCT breed, day FROM a WHERE breed IS NOT NULL),
         hand AS (SELECT g.breed, g.day,
             (2.0 + COALESCE(SUM(power(0.5, (g.day - a.day) / 60.0) * a.no_show), 0))
@@ -1512,7 +1515,7 @@ async fn as_of_horizon_reads_only_rows_that_old() {
         (
             run(
                 "h30-hl60",
-                // A horizon makes the encodings as-of without --method time.
+                // A time column makes the encodings as-of without --method time.
                 &["--horizon", "30", "--half-life", "60"],
             ),
             30.0,
@@ -2288,6 +2291,7 @@ async fn fitted_half_life_follows_drift_per_key() {
     let mut options = EncodeOptions::new("rows", "y", &["shifting", "steady"]);
     options.time_column = Some("day".into());
     options.half_life = Some(HalfLife::Fitted);
+    options.method = Some(encode::Method::Kfold);
     let plan = encode::resolve(&ctx, &options).await.unwrap();
     let (shifting, steady) = (&plan.keys[0], &plan.keys[1]);
     // Judged through the earlier rows' out-of-fold encodings (most of which predate
@@ -2313,8 +2317,9 @@ async fn fitted_half_life_follows_drift_per_key() {
     assert_eq!(output.summary[0].half_life, Some(h));
     assert!(encode::summary_table(&output.summary).contains("shifting: half-life"));
 
-    // As-of encodings: the earlier rows read before their own times in the trial.
-    options.method = Some(encode::Method::Time);
+    // As-of encodings (the method a time column gives unless k-fold is asked for):
+    // the earlier rows read before their own times in the trial.
+    options.method = None;
     let plan = encode::resolve(&ctx, &options).await.unwrap();
     let shifting = &plan.keys[0];
     assert!(shifting.half_life.is_some(), "{}", shifting.recency);
@@ -2403,12 +2408,15 @@ async fn fitted_half_life_without_a_spread_of_times() {
     );
     encode::run(&ctx, &plan).await.unwrap();
     options.train = "bad_day".into();
-    let e = encode::resolve(&ctx, &options).await.unwrap_err();
-    assert!(
-        e.to_string()
-            .contains("--time-column 'day' has a non-finite value"),
-        "{e}"
-    );
+    for method in [encode::Method::Time, encode::Method::Kfold] {
+        options.method = Some(method);
+        let e = encode::resolve(&ctx, &options).await.unwrap_err();
+        assert!(
+            e.to_string()
+                .contains("--time-column 'day' has 1 row(s) with NaN or an infinite time"),
+            "{e}"
+        );
+    }
 }
 
 /// Rows of a continuous target under two keys of 40 levels each: `volatile`, whose

@@ -243,7 +243,7 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     Dataset, a pandas DataFrame (a named index is read as a column) or a polars DataFrame or
     LazyFrame. The options are the shell's ``encode`` flags with
     underscores: ``interactions=[["breed", "clinic"]]``, ``family``, ``prior`` ("fitted",
-    "jeffreys", "uniform" or numbers), ``method`` ("kfold" or "time"), ``folds``, ``seed``,
+    "jeffreys", "uniform" or numbers), ``method`` ("kfold" or "time"; "time" by default when ``time_column`` is given), ``folds``, ``seed``,
     ``time_column`` (numbers, or dates and datetimes, whose half-lives and horizons count
     days), ``half_life`` (time units, or "fitted": chosen per key), ``horizon`` (time units,
     "matched": from ``score``'s times, or "none"), ``normalize_keys``, ``time_ties``, ``exposure``,
