@@ -20,7 +20,7 @@ use serde_json::{json, Value};
 use super::options::{Reader, Treatment};
 use super::resolve::EncodePlan;
 use super::sql::{SCORE, TRAIN};
-use super::{EncodeError, Result};
+use super::{text, EncodeError, Result};
 use crate::bundle::{Bundle, ColumnEncoding};
 use crate::family::empirical::MAX_STRENGTH;
 use crate::layout::{AnyPosterior, PosteriorColumn};
@@ -368,6 +368,22 @@ pub(super) async fn finish(
                     plan.time_units.show(newest - oldest)
                 ));
             }
+        }
+        // Two classes read per class give columns that add to one: said once, on the
+        // first key that has readers.
+        let first_with_readers = plan
+            .keys
+            .iter()
+            .position(|k| !plan.reader_columns(k).is_empty());
+        if plan.classes.len() == 2 && first_with_readers == Some(i) {
+            warnings.push(format!(
+                "target '{0}' has two classes ({1}, {2}): each class's columns are one minus \
+                 the other's; for one column per reader give the target as 0/1 or true/false \
+                 (for example {0} = {2})",
+                plan.options.target,
+                text(&plan.classes[0]),
+                text(&plan.classes[1]),
+            ));
         }
         if plan.fitted
             && key.treatment == Treatment::Posterior

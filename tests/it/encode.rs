@@ -3514,3 +3514,68 @@ fn scored_keys_that_all_miss_their_levels_are_reported() {
         assert_eq!(summary.contains(warning), warned, "{summary}");
     }
 }
+
+// A text target of two classes ('no', 'yes': common in open data) is read per class,
+// so each reader's two columns add to one; the summary says so once and how to get
+// one column per reader. Three classes carry no such warning.
+#[tokio::test]
+async fn two_text_classes_are_named_as_one_complement_of_the_other() {
+    use posterity::encode::{self, EncodeOptions};
+    let ctx = SessionContext::new();
+    posterity::register(&ctx);
+    ctx.sql(
+        "CREATE TABLE rows AS SELECT CAST(v % 7 AS VARCHAR) AS clinic, \
+         CAST(v % 5 AS VARCHAR) AS breed, \
+         CASE WHEN v % 3 = 0 THEN 'yes' ELSE 'no' END AS came, \
+         CASE v % 3 WHEN 0 THEN 'kept' WHEN 1 THEN 'missed' ELSE 'moved' END AS outcome \
+         FROM generate_series(1, 300) g(v)",
+    )
+    .await
+    .unwrap()
+    .collect()
+    .await
+    .unwrap();
+    let warned = |target: &str| {
+        let ctx = ctx.clone();
+        let target = target.to_string();
+        async move {
+            let options = EncodeOptions::new("rows", &target, &["clinic", "breed"]);
+            let plan = encode::resolve(&ctx, &options).await.unwrap();
+            let output = encode::run(&ctx, &plan).await.unwrap();
+            let batches = output.train_encoded.unwrap().collect().await.unwrap();
+            let names: Vec<String> = batches[0]
+                .schema()
+                .fields()
+                .iter()
+                .map(|f| f.name().clone())
+                .collect();
+            let warnings: Vec<Vec<String>> = output
+                .summary
+                .iter()
+                .map(|s| {
+                    s.warnings
+                        .iter()
+                        .filter(|w| w.contains("two classes"))
+                        .cloned()
+                        .collect()
+                })
+                .collect();
+            (names, warnings)
+        }
+    };
+    let (names, warnings) = warned("came").await;
+    assert!(
+        names.contains(&"clinic_no_mean".to_string())
+            && names.contains(&"clinic_yes_mean".to_string())
+    );
+    assert_eq!(warnings[0].len(), 1, "{warnings:?}");
+    assert!(warnings[1].is_empty(), "{warnings:?}");
+    assert!(
+        warnings[0][0].contains("target 'came' has two classes ('no', 'yes')")
+            && warnings[0][0].contains("(for example came = 'yes')"),
+        "{}",
+        warnings[0][0]
+    );
+    let (_, warnings) = warned("outcome").await;
+    assert!(warnings.iter().all(Vec::is_empty), "{warnings:?}");
+}
