@@ -48,24 +48,57 @@ fn error(e: impl Display) -> PyErr {
 /// are the shell's flags (`--time-column`); here they are keyword arguments
 /// (`time_column`).
 fn in_python_words(message: impl Display) -> PyErr {
-    let message = message.to_string();
+    error(python_words(&message.to_string()))
+}
+
+/// `message` with each shell flag (`--` at the start or after a character that is
+/// not part of a name, then lowercase letters and dashes) written as its keyword
+/// argument; a `--` inside a name (a key called `a--b`) is left as it is.
+fn python_words(message: &str) -> String {
     let mut out = String::with_capacity(message.len());
-    let mut rest = message.as_str();
+    let mut rest = message;
     while let Some(at) = rest.find("--") {
+        let starts_a_flag = !rest[..at]
+            .chars()
+            .next_back()
+            .is_some_and(|c| c.is_alphanumeric() || c == '_' || c == '-');
         out.push_str(&rest[..at]);
         let after = &rest[at + 2..];
         let end = after
             .find(|c: char| !(c.is_ascii_lowercase() || c == '-'))
             .unwrap_or(after.len());
-        if end == 0 {
+        if end == 0 || !starts_a_flag {
             out.push_str("--");
-        } else {
-            out.push_str(&after[..end].replace('-', "_"));
+            rest = after;
+            continue;
         }
+        out.push_str(&after[..end].replace('-', "_"));
         rest = &after[end..];
     }
     out.push_str(rest);
-    error(out)
+    out
+}
+
+/// The summary with its reasons and warnings in a Python user's words.
+fn summary_in_python_words(summary: &[encode::ColumnSummary]) -> Vec<encode::ColumnSummary> {
+    summary
+        .iter()
+        .cloned()
+        .map(|mut s| {
+            for text in [
+                &mut s.why,
+                &mut s.recency,
+                &mut s.horizon_why,
+                &mut s.readers_why,
+            ] {
+                *text = python_words(text);
+            }
+            for w in &mut s.warnings {
+                *w = python_words(w);
+            }
+            s
+        })
+        .collect()
 }
 
 /// One runtime for every call from Python (the engine is asynchronous).
@@ -398,7 +431,7 @@ impl EncodeResult {
     /// The summary as JSON (what `summary.json` holds).
     #[getter]
     fn summary_json(&self) -> String {
-        encode::summary_json(&self.output.summary).to_string()
+        encode::summary_json(&summary_in_python_words(&self.output.summary)).to_string()
     }
 
     /// With `report=True`: the HTML report (what `report.html` holds).
@@ -410,7 +443,7 @@ impl EncodeResult {
     /// The summary as the shell prints it.
     #[getter]
     fn summary_text(&self) -> String {
-        encode::summary_table(&self.output.summary)
+        encode::summary_table(&summary_in_python_words(&self.output.summary))
     }
 
     /// Write the directory the shell's `--out` writes (whole, or not at all).

@@ -173,11 +173,20 @@ def test_fitted_half_life_is_reported_per_key():
     assert numbers.summary[0]["half_life"] == 30
 
 
+def test_summary_warnings_name_keyword_arguments():
+    enc = posterity.encode(SAMPLE, target="no_show", columns=["clinic"])
+    warnings = enc.summary[0]["warnings"]
+    assert any("consider prior with numbers" in w for w in warnings), warnings
+    assert not any("--" in w for w in warnings), warnings
+
+
 def test_horizon_is_reported_per_key():
     enc = posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
                            horizon=30)
     assert enc.summary[0]["horizon"] == 30
-    assert enc.summary[0]["horizon_reason"] == "horizon 30 (--horizon)"
+    # In a Python user's words: the keyword, not the shell's flag.
+    assert enc.summary[0]["horizon_reason"] == "horizon 30 (horizon)"
+    assert "(horizon)" in str(enc)
     later = pa.table({"breed": ["breed_001"] * 3, "day": [370, 380, 400]})
     matched = posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
                                horizon="matched", score=later)
