@@ -92,6 +92,15 @@ pub fn window_functions() -> Vec<WindowUDF> {
     )]
 }
 
+/// The window functions for an engine reached through the foreign-function
+/// interface (Python), which does not forward the planner's look at the OVER clause:
+/// there a window frame is refused as the query runs.
+pub fn foreign_window_functions() -> Vec<WindowUDF> {
+    vec![WindowUDF::new_from_impl(
+        pool_window::PosteriorPoolBefore::for_foreign_engine(),
+    )]
+}
+
 /// Register every posterity function on a DataFusion session, with the planning
 /// rule that gives empty window frames and empty groups the call's own prior
 /// ([`prior_binding`]). Registering the functions alone (from [`aggregates`])

@@ -206,7 +206,7 @@ fn aggregate_functions() -> Vec<AggregateFunction> {
 
 #[pyfunction]
 fn window_functions() -> Vec<WindowFunction> {
-    posterity::window_functions()
+    posterity::foreign_window_functions()
         .into_iter()
         .map(|udwf| WindowFunction {
             udwf: Arc::new(udwf),

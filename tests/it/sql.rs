@@ -1209,3 +1209,56 @@ async fn pool_before_refuses_what_it_cannot_read() {
         }
     }
 }
+
+// Through the foreign-function interface (Python) the planner's look at the OVER
+// clause is not forwarded, so `posterior_pool_before` there reads each row's frame
+// as the query runs: no frame clause (or one the planner lets through) gives the
+// native function's posteriors to the bit; a frame that changes any row's rows is
+// refused in words instead of ignored. Here the foreign variant is registered on a
+// native session in place of the native one (same name).
+#[tokio::test]
+async fn pool_before_through_the_foreign_interface_refuses_frames_as_it_runs() {
+    let native = ctx().await;
+    let foreign = ctx().await;
+    for f in posterity::foreign_window_functions() {
+        foreign.register_udwf(f);
+    }
+    // One posterior per appointment, at times with ties (ten per day).
+    let rows = "(SELECT breed, t, CAST(t / 10 AS DOUBLE) AS d, \
+                beta_posterior(no_show, beta_prior(1, 2)) AS p FROM appts GROUP BY breed, t)";
+    let call = |window: &str| {
+        format!(
+            "SELECT posterior_mean(posterior_pool_before(p, d) OVER (PARTITION BY breed {window})) \
+             AS m FROM {rows} ORDER BY t"
+        )
+    };
+    let want = floats(&native, &call("ORDER BY d")).await;
+    assert_eq!(want.len(), 40);
+    assert!(want.iter().any(Option::is_none) && want.iter().any(Option::is_some));
+    for window in [
+        "ORDER BY d",
+        "ORDER BY d RANGE BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW",
+        "ORDER BY d ROWS BETWEEN UNBOUNDED PRECEDING AND CURRENT ROW",
+        "ORDER BY d ROWS BETWEEN UNBOUNDED PRECEDING AND UNBOUNDED FOLLOWING",
+        "ORDER BY d, t",
+    ] {
+        assert_eq!(floats(&foreign, &call(window)).await, want, "{window}");
+    }
+    for window in [
+        "ORDER BY d RANGE BETWEEN 30 PRECEDING AND 1 PRECEDING",
+        "ORDER BY d ROWS BETWEEN 2 PRECEDING AND CURRENT ROW",
+        "ORDER BY d ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING",
+        "ORDER BY d ROWS BETWEEN UNBOUNDED PRECEDING AND 2 FOLLOWING",
+    ] {
+        let e = error(&foreign, &call(window)).await;
+        for f in [
+            "posterior_pool_before",
+            "has a window frame",
+            "leave it out",
+        ] {
+            assert!(e.contains(f), "{window}\n  missing '{f}' in: {e}");
+        }
+        // The native planner refuses the same frame before the query runs.
+        assert!(error(&native, &call(window)).await.contains("leave it out"));
+    }
+}
