@@ -9,13 +9,12 @@
 //! running compensated sums in the order the frame would.
 
 use std::cmp::Ordering;
-use std::ops::Range;
 use std::sync::Arc;
 
 use datafusion::arrow::array::{make_comparator, Array, ArrayRef, AsArray, DynComparator};
 use datafusion::arrow::compute::SortOptions;
 use datafusion::arrow::datatypes::{DataType, Field, FieldRef, Float64Type};
-use datafusion::common::{exec_err, plan_err, Result, ScalarValue};
+use datafusion::common::{exec_err, plan_err, Result};
 use datafusion::logical_expr::expr::WindowFunction;
 use datafusion::logical_expr::function::{
     PartitionEvaluatorArgs, WindowFunctionSimplification, WindowUDFFieldArgs,
@@ -38,26 +37,26 @@ const USAGE: &str = "posterior_pool_before(p, t [, gap]) OVER (PARTITION BY ... 
 pub struct PosteriorPoolBefore {
     signature: Signature,
     /// Through DataFusion's foreign-function interface (Python) the planner's look
-    /// at the OVER clause (`simplify`) is not forwarded; there the frame is checked
-    /// as the query runs, from each row's range (see `RowByRow`).
-    frame_per_row: bool,
+    /// at the OVER clause (`simplify`) is not forwarded; the display name the planner
+    /// gives `field` is, and it ends with the frame (see `frame_in_name`).
+    frame_from_name: bool,
 }
 
 impl Default for PosteriorPoolBefore {
     fn default() -> Self {
         PosteriorPoolBefore {
             signature: Signature::user_defined(Volatility::Immutable),
-            frame_per_row: false,
+            frame_from_name: false,
         }
     }
 }
 
 impl PosteriorPoolBefore {
-    /// For an engine reached through the foreign-function interface: a window frame
-    /// is refused when the query runs instead of when it is planned.
+    /// For an engine reached through the foreign-function interface: the frame is
+    /// read from the window expression's display name.
     pub fn for_foreign_engine() -> Self {
         PosteriorPoolBefore {
-            frame_per_row: true,
+            frame_from_name: true,
             ..Default::default()
         }
     }
@@ -97,8 +96,6 @@ impl WindowUDFImpl for PosteriorPoolBefore {
     ) -> Result<Box<dyn PartitionEvaluator>> {
         Ok(Box::new(PoolBeforeEvaluator {
             has_gap: args.input_exprs().len() == 3,
-            frame_per_row: self.frame_per_row,
-            rows: None,
         }))
     }
 
@@ -106,6 +103,13 @@ impl WindowUDFImpl for PosteriorPoolBefore {
         let Some(p) = args.get_input_field(0) else {
             return Err(arity_error(NAME, 0, 2, 3, None));
         };
+        if self.frame_from_name {
+            if let Some(frame) = frame_in_name(args.name()).filter(|f| !is_default_frame_text(f)) {
+                return plan_err!(
+                    "{NAME}: the OVER clause has a window frame ({frame}); {LEAVE_IT_OUT}"
+                );
+            }
+        }
         Ok(Arc::new(Field::new(
             args.name(),
             p.data_type().clone(),
@@ -121,21 +125,49 @@ impl WindowUDFImpl for PosteriorPoolBefore {
     /// pool reads follow from t and gap alone, so a frame the evaluator would not
     /// see is refused instead of silently ignored (the engine refuses FILTER).
     fn simplify(&self) -> Option<WindowFunctionSimplification> {
-        if self.frame_per_row {
-            // Checked as the query runs (the interface would not forward this).
+        if self.frame_from_name {
+            // Checked in `field` (an interface would not forward this).
             return None;
         }
         Some(Box::new(|w: WindowFunction, _| {
             if !is_default_frame(&w.params.window_frame) {
                 return plan_err!(
-                    "{NAME}: the OVER clause has a window frame ({}); leave it out: the rows \
-                     each pool reads follow from t and gap",
+                    "{NAME}: the OVER clause has a window frame ({}); {LEAVE_IT_OUT}",
                     w.params.window_frame
                 );
             }
             Ok(Expr::from(w))
         }))
     }
+}
+
+const LEAVE_IT_OUT: &str = "leave it out: the rows each pool reads follow from t and gap";
+
+/// The frame at the end of a window expression's display name, which the engine
+/// always writes last: `... ORDER BY [t ASC NULLS LAST] RANGE BETWEEN UNBOUNDED
+/// PRECEDING AND CURRENT ROW`. `None` for a name without one.
+fn frame_in_name(name: &str) -> Option<&str> {
+    let start = ["ROWS", "RANGE", "GROUPS"]
+        .iter()
+        .filter_map(|units| name.rfind(&format!(" {units} BETWEEN ")))
+        .max()?;
+    let frame = &name[start + 1..];
+    [" PRECEDING", " FOLLOWING", " CURRENT ROW"]
+        .iter()
+        .any(|end| frame.ends_with(end))
+        .then_some(frame)
+}
+
+/// Whether a frame written as the engine writes it is one `is_default_frame` allows.
+fn is_default_frame_text(frame: &str) -> bool {
+    let Some((_, bounds)) = frame.split_once(" BETWEEN ") else {
+        return false;
+    };
+    bounds
+        .strip_prefix("UNBOUNDED PRECEDING AND ")
+        .is_some_and(|end| {
+            ["CURRENT ROW", "UNBOUNDED PRECEDING", "UNBOUNDED FOLLOWING"].contains(&end)
+        })
 }
 
 /// The frame the engine gives an OVER clause without one: from the partition's
@@ -155,54 +187,6 @@ fn is_default_frame(frame: &WindowFrame) -> bool {
 #[derive(Debug)]
 struct PoolBeforeEvaluator {
     has_gap: bool,
-    frame_per_row: bool,
-    /// With `frame_per_row`: the partition's pools, served one row at a time.
-    rows: Option<RowByRow>,
-}
-
-/// A partition evaluated once and served row by row, as the engine asks when a
-/// function reads its frame: each row's frame range is checked against the frames
-/// the planner would let through (from the partition's start to the current row,
-/// its peers or the partition's end).
-#[derive(Debug)]
-struct RowByRow {
-    pools: ArrayRef,
-    /// Per row, the end of its peers (rows equal in the ORDER BY columns).
-    peers_end: Vec<usize>,
-    next: usize,
-}
-
-impl RowByRow {
-    fn new(pools: ArrayRef, order_by: &[ArrayRef]) -> Result<Self> {
-        let n = pools.len();
-        let mut peers_end = vec![n; n];
-        if !order_by.is_empty() {
-            for peers in datafusion::arrow::compute::partition(order_by)?.ranges() {
-                peers_end[peers.clone()].fill(peers.end);
-            }
-        }
-        Ok(RowByRow {
-            pools,
-            peers_end,
-            next: 0,
-        })
-    }
-
-    /// The next row's pool, when its frame `range` is one the planner allows.
-    fn next(&mut self, range: &Range<usize>) -> Result<ScalarValue> {
-        let (row, n) = (self.next, self.pools.len());
-        self.next += 1;
-        let allowed = range.start == 0 && [row + 1, self.peers_end[row], n].contains(&range.end);
-        if !allowed {
-            return exec_err!(
-                "{NAME}: the OVER clause has a window frame (row {row} of its partition reads \
-                 rows {} to {}); leave it out: the rows each pool reads follow from t and gap",
-                range.start,
-                range.end.saturating_sub(1)
-            );
-        }
-        ScalarValue::try_from_array(&self.pools, row)
-    }
 }
 
 impl PartitionEvaluator for PoolBeforeEvaluator {
@@ -216,26 +200,6 @@ impl PartitionEvaluator for PoolBeforeEvaluator {
             true => pool.at_least_gap_before(gap(&values[2])?, num_rows)?,
         };
         build(NAME, column.kind(), &out)
-    }
-
-    fn uses_window_frame(&self) -> bool {
-        self.frame_per_row
-    }
-
-    /// Row by row (only with `frame_per_row`): `values` are the arguments, then the
-    /// ORDER BY columns; the partition is pooled at its first row.
-    fn evaluate(&mut self, values: &[ArrayRef], range: &Range<usize>) -> Result<ScalarValue> {
-        let arguments = if self.has_gap { 3 } else { 2 };
-        let n = values.first().map_or(0, |v| v.len());
-        let rows = match self.rows.take() {
-            Some(rows) if rows.next < rows.pools.len() => rows,
-            _ => RowByRow::new(
-                self.evaluate_all(&values[..arguments.min(values.len())], n)?,
-                values.get(arguments..).unwrap_or_default(),
-            )?,
-        };
-        let rows = self.rows.insert(rows);
-        rows.next(range)
     }
 }
 

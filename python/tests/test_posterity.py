@@ -434,6 +434,12 @@ def test_bad_input_is_a_python_error(ctx):
         ("SELECT beta_prior('x', 1)", ["beta_prior"]),
         ("SELECT posterior_quantile(beta_prior(1, 1), 1.5)", ["posterior_quantile", "q = 1.5"]),
         ("SELECT nig_posterior(x) FROM (VALUES ('NaN'::double)) t(x)", ["nig_posterior", "value = NaN"]),
+        # The shell refuses this frame when it plans the query; through the interface the
+        # frame is read from the window expression's name and refused too, never ignored.
+        ("""SELECT posterior_pool_before(p, day) OVER (PARTITION BY breed ORDER BY day
+                RANGE BETWEEN 30 PRECEDING AND 1 PRECEDING)
+            FROM (SELECT breed, day, beta_posterior(no_show) AS p FROM a GROUP BY breed, day)""",
+         ["posterior_pool_before", "has a window frame", "leave it out"]),
     ]:
         with pytest.raises(Exception) as e:
             ctx.sql(sql).collect()

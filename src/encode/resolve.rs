@@ -836,7 +836,17 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         options.exposure.as_deref(),
         family,
     )
-    .await?;
+    .await
+    .map_err(|e| match (e, options.family) {
+        // The user never named the family: say where it came from.
+        (EncodeError::Usage(m), None) if family == Kind::Gamma && options.exposure.is_none() => {
+            EncodeError::Usage(format!(
+                "{m}. The gamma family (counts) was chosen because '{target}' holds integers; \
+                 for scores, amounts or other measurements pass --family nig"
+            ))
+        }
+        (e, _) => e,
+    })?;
     let classes = if family == Kind::Dirichlet {
         let batches = ctx
             .sql(&format!(

@@ -95,6 +95,42 @@ const FEW_LEVELS: u64 = 20;
 /// well be a handful of new levels (our own choice, no source).
 const MANY_UNSEEN_ROWS: i64 = 10;
 
+/// Counts vary within a level about as much as their mean (a Poisson count's
+/// variance equals its mean: Cameron and Trivedi, Regression Analysis of Count
+/// Data, on the dispersion index, from memory); an integer target whose values
+/// vary this many times more within levels is likely a measurement, not a count
+/// (common practice, no source).
+const COUNT_DISPERSION: f64 = 2.0;
+
+/// A target the gamma family was given by its integer type, read per level of
+/// `key`: the pooled within-level variance over the mean (the dispersion index).
+async fn within_level_dispersion(
+    ctx: &SessionContext,
+    plan: &EncodePlan,
+    key: &crate::encode::KeyPlan,
+) -> Result<Option<f64>> {
+    let y = format!("CAST(t.{} AS DOUBLE)", super::quote(&plan.options.target));
+    let b = ctx
+        .sql(&format!(
+            "SELECT SUM(v * (n - 1)) / (SUM(n) - COUNT(*)) / (SUM(s) / SUM(n)) FROM \
+             (SELECT {} AS k, VAR_SAMP({y}) AS v, CAST(COUNT({y}) AS DOUBLE) AS n, SUM({y}) AS s \
+              FROM {TRAIN} t GROUP BY 1 HAVING COUNT({y}) > 1) WHERE k IS NOT NULL",
+            key.sql(plan.options.normalize_keys)
+        ))
+        .await?
+        .collect()
+        .await?;
+    Ok(b.first()
+        .filter(|b| b.num_rows() > 0)
+        .map(|b| cast(b.column(0), &DataType::Float64))
+        .transpose()?
+        .and_then(|c| {
+            let c = c.as_primitive::<Float64Type>();
+            (!c.is_null(0)).then(|| c.value(0))
+        })
+        .filter(|d| d.is_finite()))
+}
+
 fn posterior_at(batch: &RecordBatch, column: usize, row: usize) -> Result<Option<AnyPosterior>> {
     PosteriorColumn::new("encode", batch.column(column))?
         .get(row)
@@ -384,6 +420,27 @@ pub(super) async fn finish(
                 text(&plan.classes[0]),
                 text(&plan.classes[1]),
             ));
+        }
+        if plan.family == crate::layout::Kind::Gamma
+            && plan.options.family.is_none()
+            && plan.options.exposure.is_none()
+            && key.treatment == Treatment::Posterior
+        {
+            if let Some(d) = within_level_dispersion(ctx, plan, key)
+                .await?
+                .filter(|d| *d > COUNT_DISPERSION)
+            {
+                warnings.push(format!(
+                    "'{}' varies {} times as much within the levels of {} as counts do \
+                     (variance over mean; a count's is 1): the gamma family, chosen because it \
+                     holds integers, then pools levels too little and gives intervals too \
+                     narrow; for counts over unequal spans of time pass --exposure, for scores, amounts or \
+                     other measurements --family nig",
+                    plan.options.target,
+                    crate::render::short(d),
+                    key.name
+                ));
+            }
         }
         if plan.fitted
             && key.treatment == Treatment::Posterior

@@ -3579,3 +3579,79 @@ async fn two_text_classes_are_named_as_one_complement_of_the_other() {
     let (_, warnings) = warned("outcome").await;
     assert!(warnings.iter().all(Vec::is_empty), "{warnings:?}");
 }
+
+// An integer target is read as counts (the gamma family) unless told otherwise. Test
+// scores in the hundreds vary within a level far more than counts of that size
+// (variance over mean 1: a Poisson count's dispersion index), so the summary warns
+// and names --family nig; counts drawn as Poisson do not warn, nor does a family
+// the user chose. Negative integers, refused as counts, say where the family came
+// from.
+#[tokio::test]
+async fn integer_targets_that_are_not_counts_are_named() {
+    use posterity::encode::{self, EncodeOptions};
+    use posterity::layout::Kind as Family;
+    let ctx = SessionContext::new();
+    posterity::register(&ctx);
+    let mut poisson = String::new();
+    let mut state = 11u64;
+    for row in 0..2000 {
+        // Knuth's multiplication method for a Poisson draw with mean 4 + clinic.
+        let clinic = row % 10;
+        let limit = (-(4.0 + clinic as f64)).exp();
+        let (mut k, mut product) = (0, 1.0);
+        loop {
+            state = mix64(state);
+            product *= uniform(state, &[]);
+            if product <= limit {
+                break;
+            }
+            k += 1;
+        }
+        poisson.push_str(&format!("('c{clinic}', {k}),"));
+    }
+    for sql in [
+        "CREATE TABLE scores AS SELECT 'c' || CAST(v % 10 AS VARCHAR) AS clinic, \
+         CAST(300 + (v * 37) % 397 AS BIGINT) AS score, CAST((v * 37) % 97 - 40 AS BIGINT) AS delta \
+         FROM generate_series(1, 2000) g(v)"
+            .to_string(),
+        format!(
+            "CREATE TABLE visits AS SELECT * FROM (VALUES {}) t(clinic, visits)",
+            poisson.trim_end_matches(',')
+        ),
+    ] {
+        ctx.sql(&sql).await.unwrap().collect().await.unwrap();
+    }
+    let warnings = |table: &str, target: &str, family: Option<Family>| {
+        let ctx = ctx.clone();
+        let (table, target) = (table.to_string(), target.to_string());
+        async move {
+            let mut options = EncodeOptions::new(&table, &target, &["clinic"]);
+            options.family = family;
+            let plan = encode::resolve(&ctx, &options).await.unwrap();
+            let output = encode::run(&ctx, &plan).await.unwrap();
+            output.summary[0].warnings.join("\n")
+        }
+    };
+    let w = warnings("scores", "score", None).await;
+    assert!(
+        w.contains("'score' varies")
+            && w.contains("within the levels of clinic")
+            && w.contains("--family nig"),
+        "{w}"
+    );
+    assert!(!warnings("scores", "score", Some(Family::Gamma))
+        .await
+        .contains("varies"));
+    let w = warnings("visits", "visits", None).await;
+    assert!(!w.contains("varies"), "Poisson counts: {w}");
+    let e = encode::resolve(&ctx, &EncodeOptions::new("scores", "delta", &["clinic"]))
+        .await
+        .unwrap_err()
+        .to_string();
+    assert!(
+        e.contains("counts from 0 to 1e100")
+            && e.contains("chosen because 'delta' holds integers")
+            && e.contains("--family nig"),
+        "{e}"
+    );
+}

@@ -1211,13 +1211,13 @@ async fn pool_before_refuses_what_it_cannot_read() {
 }
 
 // Through the foreign-function interface (Python) the planner's look at the OVER
-// clause is not forwarded, so `posterior_pool_before` there reads each row's frame
-// as the query runs: no frame clause (or one the planner lets through) gives the
-// native function's posteriors to the bit; a frame that changes any row's rows is
-// refused in words instead of ignored. Here the foreign variant is registered on a
-// native session in place of the native one (same name).
+// clause is not forwarded, so `posterior_pool_before` there reads the frame from the
+// window expression's display name (which the interface does forward): no frame
+// clause, or one the planner lets through, gives the native function's posteriors to
+// the bit; any other frame is refused in words instead of ignored. Here the foreign
+// variant is registered on a native session in place of the native one.
 #[tokio::test]
-async fn pool_before_through_the_foreign_interface_refuses_frames_as_it_runs() {
+async fn pool_before_through_the_foreign_interface_refuses_frames_by_name() {
     let native = ctx().await;
     let foreign = ctx().await;
     for f in posterity::foreign_window_functions() {
@@ -1251,9 +1251,11 @@ async fn pool_before_through_the_foreign_interface_refuses_frames_as_it_runs() {
         "ORDER BY d ROWS BETWEEN UNBOUNDED PRECEDING AND 2 FOLLOWING",
     ] {
         let e = error(&foreign, &call(window)).await;
+        let frame = window.trim_start_matches("ORDER BY d ");
         for f in [
             "posterior_pool_before",
             "has a window frame",
+            frame,
             "leave it out",
         ] {
             assert!(e.contains(f), "{window}\n  missing '{f}' in: {e}");
