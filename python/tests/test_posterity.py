@@ -488,3 +488,17 @@ def test_empty_frames_are_null_never_a_default_prior(ctx):
     none = python_rows(ctx, "SELECT posterior_mean(beta_posterior(no_show, beta_prior(2, 18))) AS m "
                             "FROM a WHERE false")
     assert none == [{"m": 0.1}]
+
+
+def test_a_polars_column_of_only_nulls_is_read():
+    # polars gives such a column the Null type, which its own Arrow stream writes in a
+    # form the C interface refuses; posterity reads it through pyarrow instead.
+    rows = pl.DataFrame({"k": [None, None, None, None], "clinic": ["a", "b", "a", "b"],
+                         "y": [1, 0, 1, 1]})
+    assert rows.schema["k"] == pl.Null
+    enc = posterity.encode(rows, target="y", columns=["clinic"])
+    assert enc.train_encoded["clinic_mean"].is_finite().all()
+    scored = posterity.Bundle.from_json(enc.bundle.to_json()).score(rows)
+    assert scored["clinic_mean"].is_finite().all()
+    with pytest.raises(posterity.Error, match="columns k: no training row has both"):
+        posterity.encode(rows.lazy(), target="y", columns=["k"])

@@ -137,10 +137,14 @@ def _as_input(data: Any, what: str):
         except (pa.ArrowException, ValueError, TypeError) as e:
             # Duplicate column names, or an object column mixing text and numbers.
             raise Error(f"{what}: the pandas DataFrame cannot be read as a table: {e}") from e
+    if _kind(data) == "polars":
+        if hasattr(data, "collect"):
+            data = data.collect()  # a LazyFrame: its query runs here
+        # Through pyarrow (no copy): polars' own stream writes a column of only
+        # nulls (dtype Null) with a buffer the Arrow C interface does not allow.
+        return data.to_arrow()
     if hasattr(data, "__arrow_c_stream__"):
         return data
-    if _kind(data) == "polars" and hasattr(data, "collect"):
-        return data.collect()  # a LazyFrame: its query runs here
     if isinstance(data, pa.dataset.Dataset):
         return data.scanner().to_reader()  # streamed, batch by batch
     raise Error(f"{what}: expected a file path, a pyarrow Table or Dataset, a pandas or a polars "
