@@ -94,7 +94,7 @@ pub fn window_functions() -> Vec<WindowUDF> {
 
 /// The window functions for an engine reached through the foreign-function
 /// interface (Python), which does not forward the planner's look at the OVER clause:
-/// there a window frame is refused as the query runs.
+/// there the frame is read from the window expression's name, also when planned.
 pub fn foreign_window_functions() -> Vec<WindowUDF> {
     vec![WindowUDF::new_from_impl(
         pool_window::PosteriorPoolBefore::for_foreign_engine(),

