@@ -122,7 +122,9 @@ async fn within_level_dispersion(
     .await?;
     let d = cast(b.column(0), &DataType::Float64)?;
     let d = d.as_primitive::<Float64Type>();
-    Ok((!d.is_null(0)).then(|| d.value(0)).filter(|d| d.is_finite()))
+    Ok((!d.is_null(0))
+        .then(|| d.value(0))
+        .filter(|d| d.is_finite()))
 }
 
 fn posterior_at(batch: &RecordBatch, column: usize, row: usize) -> Result<Option<AnyPosterior>> {
