@@ -9,42 +9,23 @@ to set beside method_trial.py's.
         target/modeling-venv/bin/python benches/modeling/line_method_trial.py [task prefixes]
 """
 import sys
-import tempfile
 from pathlib import Path
 
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from evaluate import TASKS, posterity_encodings, split, task_named, time_of  # noqa: E402
+from evaluate import posterity_encodings  # noqa: E402
+from method_trial import inner_trial  # noqa: E402
 
-VARIANTS = {"k-fold": [], "as-of": ["--time-column", "t"]}
 
-
-def line_loss(ftr, fte, ytr, yte):
+def line_loss(kind, keys, numeric, tr, te, ytr, yte, work, extra, time):
+    """Seed 0's encodings; a least-squares line through the early rows' own encodings."""
+    ftr, fte = posterity_encodings(tr, te, ytr, keys, 0, None, work, extra, time)
     xtr = np.column_stack([np.ones(len(ftr)), ftr.to_numpy(dtype=float)])
     xte = np.column_stack([np.ones(len(fte)), fte.to_numpy(dtype=float)])
-    beta, *_ = np.linalg.lstsq(xtr, ytr, rcond=None)
-    return float(np.mean((yte - xte @ beta) ** 2))
-
-
-def main():
-    for prefix in sys.argv[1:] or [name.split(" ")[0] for name in TASKS]:
-        name, loader, kind = task_named(prefix)
-        keys, numeric, tr, _, ytr, _ = split(loader)
-        t = time_of(name, tr)
-        early = (t < np.quantile(t.values, 0.8)).values
-        losses = {}
-        with tempfile.TemporaryDirectory() as d:
-            for variant, extra in VARIANTS.items():
-                ftr, fte = posterity_encodings(
-                    tr[early], tr[~early], ytr[early], keys, 0, None, Path(d), extra,
-                    t[early] if extra else None)
-                losses[variant] = line_loss(ftr, fte, ytr[early].values.astype(float),
-                                            ytr[~early].values.astype(float))
-        choice = min(losses, key=losses.get)
-        print(f"| {prefix} | {losses['k-fold']:.6g} | {losses['as-of']:.6g} | {choice} |",
-              flush=True)
+    beta, *_ = np.linalg.lstsq(xtr, ytr.values.astype(float), rcond=None)
+    return float(np.mean((yte.values.astype(float) - xte @ beta) ** 2))
 
 
 if __name__ == "__main__":
-    main()
+    inner_trial(line_loss, ".6g")

@@ -19,22 +19,31 @@ from evaluate import TASKS, posterity_mean_score, split, task_named, time_of  # 
 VARIANTS = {"k-fold": [], "as-of": ["--time-column", "t"]}
 
 
-def main():
+def inner_trial(judge, number_format):
+    """For each task named on the command line (default: all), the training rows split once
+    more in time (the latest fifth scored); `judge(kind, keys, numeric, early rows, late rows,
+    early target, late target, work dir, encode options, early times)` gives each variant's
+    loss; prints a table row with both losses and the lower one's variant."""
     for prefix in sys.argv[1:] or [name.split(" ")[0] for name in TASKS]:
         name, loader, kind = task_named(prefix)
         keys, numeric, tr, _, ytr, _ = split(loader)
         t = time_of(name, tr)
         early = (t < np.quantile(t.values, 0.8)).values
-        scores = {}
+        losses = {}
         with tempfile.TemporaryDirectory() as d:
             for variant, extra in VARIANTS.items():
-                scores[variant] = posterity_mean_score(
-                    kind, keys, numeric, tr[early], tr[~early], ytr[early], ytr[~early].values,
-                    Path(d), extra, t[early] if extra else None, seeds=(0, 1))
-        choice = min(scores, key=scores.get)
-        print(f"| {prefix} | {scores['k-fold']:.4f} | {scores['as-of']:.4f} | {choice} |",
-              flush=True)
+                losses[variant] = judge(kind, keys, numeric, tr[early], tr[~early], ytr[early],
+                                        ytr[~early], Path(d), extra,
+                                        t[early] if extra else None)
+        choice = min(losses, key=losses.get)
+        print(f"| {prefix} | {losses['k-fold']:{number_format}} | "
+              f"{losses['as-of']:{number_format}} | {choice} |", flush=True)
+
+
+def learner_loss(kind, keys, numeric, tr, te, ytr, yte, work, extra, time):
+    return posterity_mean_score(kind, keys, numeric, tr, te, ytr, yte.values, work, extra, time,
+                                seeds=(0, 1))
 
 
 if __name__ == "__main__":
-    main()
+    inner_trial(learner_loss, ".4f")

@@ -290,6 +290,13 @@ pub(super) async fn finish(
         .unwrap_or_else(|| vec![Reader::Mean]);
     let mut summary = Vec::new();
     let mut unseen = serde_json::Map::new();
+    // Two classes read per class give columns that add to one: said once, on the
+    // first key that has readers.
+    let two_classes_said_on = plan
+        .keys
+        .iter()
+        .position(|k| !plan.reader_columns(k).is_empty())
+        .filter(|_| plan.classes.len() == 2);
     for (i, key) in plan.keys.iter().enumerate() {
         let prior_row = ctx
             .sql(&format!("SELECT prior, report FROM __prior{i}"))
@@ -401,13 +408,7 @@ pub(super) async fn finish(
                 ));
             }
         }
-        // Two classes read per class give columns that add to one: said once, on the
-        // first key that has readers.
-        let first_with_readers = plan
-            .keys
-            .iter()
-            .position(|k| !plan.reader_columns(k).is_empty());
-        if plan.classes.len() == 2 && first_with_readers == Some(i) {
+        if two_classes_said_on == Some(i) {
             warnings.push(format!(
                 "target '{0}' has two classes ({1}, {2}): each class's columns are one minus \
                  the other's; for one column per reader give the target as 0/1 or true/false \
