@@ -290,6 +290,25 @@ impl Tmux {
         }
     }
 
+    /// Type `lines` faster than the shell reads them, as a paste does: one tmux
+    /// command sends every line and its Enter, so later lines arrive while the
+    /// shell is still busy with the first.
+    fn paste(&self, lines: &[&str]) {
+        let mut c = Command::new("tmux");
+        for (i, line) in lines.iter().enumerate() {
+            if i > 0 {
+                c.arg(";");
+            }
+            let line = match line.strip_suffix(';') {
+                Some(text) => format!("{text}\\;"),
+                None => line.to_string(),
+            };
+            c.args(["send-keys", "-t", &self.0, "-l", &line, ";"]);
+            c.args(["send-keys", "-t", &self.0, "Enter"]);
+        }
+        assert!(c.status().unwrap().success(), "tmux paste {lines:?}");
+    }
+
     fn screen(&self) -> String {
         let o = Command::new("tmux")
             .args(["capture-pane", "-p", "-t", &self.0])
@@ -364,6 +383,16 @@ fn the_prompt_cancels_queries_and_keeps_tables() {
     assert!(!tmux.alive(), "Ctrl-D leaves the shell");
     let again = Tmux::start("exit").unwrap();
     again.wait_for("1 ▸");
+    // Lines typed ahead of the prompt (a pasted statement) are kept, not dropped
+    // between one line and the next.
+    again.paste(&[
+        "CREATE TABLE pasted AS VALUES (1), (2), (3);",
+        "SELECT SUM(column1)",
+        "AS total FROM pasted;",
+        "SELECT 40 + 2 AS answer;",
+    ]);
+    again.wait_for("| 42     |");
+    assert!(again.screen().contains("| 6     |"), "{}", again.screen());
     again.keys(&["exit", "Enter"]);
     for _ in 0..50 {
         if !again.alive() {
