@@ -280,7 +280,10 @@ impl AnyPosterior {
     /// Replace the prior by `prior`'s full posterior (a posterior serves as a prior
     /// for new data), keeping this state's evidence.
     pub fn with_prior(&self, prior: &AnyPosterior) -> Result<AnyPosterior, FamilyError> {
-        Ok(match (self, prior.as_prior()?) {
+        let prior = prior
+            .as_prior()
+            .map_err(|e| e.derived("the new prior (its evidence folded in)"))?;
+        Ok(match (self, prior) {
             (AnyPosterior::Beta(p), AnyPosterior::Beta(q)) => {
                 AnyPosterior::Beta(p.with_prior(q.prior))
             }
@@ -324,6 +327,21 @@ impl AnyPosterior {
         if let Some(o) = own.filter(|o| o.kind() != kind) {
             return Err(mismatch(self, o));
         }
+        self.under_checked(parent, own, strength)
+            .map_err(|e| e.derived("the prior built from the parent's mean and the strength"))
+    }
+
+    /// [`AnyPosterior::under`] once the strength and the families are checked.
+    fn under_checked(
+        &self,
+        parent: &AnyPosterior,
+        own: Option<&AnyPosterior>,
+        strength: f64,
+    ) -> Result<AnyPosterior, FamilyError> {
+        let mismatch = |a: &AnyPosterior, b: &AnyPosterior| FamilyError::PriorMismatch {
+            left: a.kind().name().into(),
+            right: b.kind().name().into(),
+        };
         Ok(match (self, parent, own) {
             (AnyPosterior::Beta(p), AnyPosterior::Beta(q), own) => {
                 let center = match own {

@@ -97,7 +97,7 @@ impl DirichletPosterior {
     pub fn without(&self, class: &str, w: f64) -> Result<Self> {
         let k = self.prior.index_of(class)?;
         let mut out = self.clone();
-        out.counts[k] = remaining("count", self.counts[k], weight("weight", w)?)?;
+        out.counts[k] = remaining("class count", self.counts[k], weight("weight", w)?)?;
         Ok(out)
     }
 
@@ -168,7 +168,7 @@ impl Conjugate for DirichletPosterior {
             .counts
             .iter()
             .zip(&other.counts)
-            .map(|(a, b)| remaining("count", *a, *b))
+            .map(|(a, b)| remaining("class count", *a, *b))
             .collect::<Result<Vec<_>>>()?;
         Ok(DirichletPosterior {
             prior: self.prior.clone(),

@@ -47,19 +47,24 @@ pub const MAX_SHAPE: f64 = 1e15;
 impl Marginal {
     /// Refuse marginals outside the supported range instead of returning NaN.
     pub fn check(self) -> super::Result<Self> {
-        let (name, value) = match self {
-            Marginal::Beta { a, b } => ("shape", a.max(b)),
-            Marginal::Gamma { shape, .. } => ("shape", shape),
-            Marginal::StudentT { dof, .. } => ("degrees of freedom", dof),
+        let value = match self {
+            Marginal::Beta { a, b } => a.max(b),
+            Marginal::Gamma { shape, .. } => shape,
+            Marginal::StudentT { dof, .. } => dof,
         };
         if value <= MAX_SHAPE {
             Ok(self)
         } else {
-            Err(super::FamilyError::InvalidParameter {
-                name,
-                value,
-                allowed: "at most 1e15 (posterior evidence beyond that is not supported)",
-            })
+            Err(super::FamilyError::EvidenceBeyondRange(self))
+        }
+    }
+
+    /// What [`Marginal::check`] bounds, in the words of the README's reference.
+    pub fn bounded_parameter(&self) -> &'static str {
+        match self {
+            Marginal::Beta { .. } => "each shape",
+            Marginal::Gamma { .. } => "the shape",
+            Marginal::StudentT { .. } => "the degrees of freedom",
         }
     }
 

@@ -38,6 +38,16 @@ pub enum FamilyError {
         value: f64,
         allowed: &'static str,
     },
+    /// A parameter the function computed (not one the caller gave) left its range;
+    /// `context` says what was computed from what.
+    DerivedParameter {
+        context: &'static str,
+        name: &'static str,
+        value: f64,
+        allowed: &'static str,
+    },
+    /// A posterior whose marginal holds more evidence than the readers support.
+    EvidenceBeyondRange(dist::Marginal),
     /// Two states with different priors cannot be merged or subtracted.
     PriorMismatch { left: String, right: String },
     /// More evidence would be removed than the state holds.
@@ -72,6 +82,24 @@ impl fmt::Display for FamilyError {
                 f,
                 "{name} = {} is not allowed; allowed: {allowed}",
                 number(*value)
+            ),
+            FamilyError::DerivedParameter {
+                context,
+                name,
+                value,
+                allowed,
+            } => write!(
+                f,
+                "{context} has {name} = {}, out of range (allowed: {allowed}); its inputs are \
+                 too extreme",
+                number(*value)
+            ),
+            FamilyError::EvidenceBeyondRange(marginal) => write!(
+                f,
+                "the posterior holds more evidence than the readers support: its marginal is \
+                 {marginal}, and {} may be at most {}",
+                marginal.bounded_parameter(),
+                number(dist::MAX_SHAPE)
             ),
             FamilyError::PriorMismatch { left, right } => write!(
                 f,
@@ -199,6 +227,26 @@ pub(crate) fn factor(value: f64) -> Result<f64> {
     }
 }
 
+impl FamilyError {
+    /// Say that a parameter out of range was computed, not given: `context` names
+    /// what was computed from what, in the words of the README's reference.
+    pub(crate) fn derived(self, context: &'static str) -> FamilyError {
+        match self {
+            FamilyError::InvalidParameter {
+                name,
+                value,
+                allowed,
+            } => FamilyError::DerivedParameter {
+                context,
+                name,
+                value,
+                allowed,
+            },
+            other => other,
+        }
+    }
+}
+
 /// Evidence left after a subtraction: tiny negative rounding residue becomes 0,
 /// anything beyond that is an error.
 pub(crate) fn remaining(name: &str, total: f64, removed: f64) -> Result<f64> {
@@ -210,7 +258,9 @@ pub(crate) fn remaining(name: &str, total: f64, removed: f64) -> Result<f64> {
         Ok(0.0)
     } else {
         Err(FamilyError::InsufficientEvidence(format!(
-            "{name}: {removed} removed from {total}"
+            "{name}: {} removed from {}",
+            number(removed),
+            number(total)
         )))
     }
 }

@@ -85,15 +85,15 @@ impl NigStats {
         if part.n == 0.0 {
             return Ok(*self);
         }
-        let n = remaining("n", self.n, part.n)?;
+        let n = remaining("observations (n)", self.n, part.n)?;
         if n <= 1e-12 * self.n.max(1.0) {
-            remaining("m2", self.m2, part.m2)?;
+            remaining("squared deviations (m2)", self.m2, part.m2)?;
             return Ok(NigStats::default());
         }
         let mean = self.mean + (self.mean - part.mean) * (part.n / n);
         let delta = part.mean - mean;
         let m2 = self.m2 - part.m2 - delta * delta * (n / self.n) * part.n;
-        let m2 = remaining("m2", m2 + part.m2, part.m2)?;
+        let m2 = remaining("squared deviations (m2)", m2 + part.m2, part.m2)?;
         Ok(NigStats { n, mean, m2 })
     }
 }
@@ -208,9 +208,19 @@ impl NigPosterior {
         } = self.prior;
         let NigStats { n, mean, m2 } = self.stats;
         let kappa = kappa0 + n;
+        // Without evidence the prior is returned as given: `d` is then not a
+        // distance from data, and d * d * 0 is NaN for a prior mean beyond 1e154.
+        if n <= 0.0 {
+            return NigParams {
+                mu: mu0,
+                kappa,
+                alpha: alpha0,
+                beta: beta0 + 0.5 * m2,
+            };
+        }
         let d = mean - mu0;
         NigParams {
-            mu: if n > 0.0 { mu0 + d * (n / kappa) } else { mu0 },
+            mu: mu0 + d * (n / kappa),
             kappa,
             alpha: alpha0 + 0.5 * n,
             beta: beta0 + 0.5 * m2 + 0.5 * d * d * (kappa0 * n / kappa),

@@ -315,6 +315,19 @@ async fn unseen_levels_fall_back_to_the_prior() {
     close(one(&c, sql).await, 0.25, 1e-15);
 }
 
+// A prior is its own posterior without evidence: taken as a new prior it keeps its
+// parameters, also far from zero (a prior mean of 1e300 once gave beta0 = NaN).
+#[tokio::test]
+async fn a_prior_taken_as_a_prior_keeps_its_parameters() {
+    let c = ctx().await;
+    let sql = "SELECT posterior_mean(posterior_with_prior(nig_prior(0, 1, 1, 1), nig_prior(1e300, 1e-15, 0.01, 1e-6)))";
+    assert_eq!(one(&c, sql).await, 1e300);
+    // The mean's variance under NIG(mu0, kappa0, alpha0, beta0) is beta0 / (kappa0 (alpha0 - 1))
+    // (K. P. Murphy, "Conjugate Bayesian analysis of the Gaussian distribution", 2007; from memory).
+    let sql = "SELECT posterior_var(posterior_with_prior(nig_prior(0, 1, 3, 1), nig_prior(-1e300, 2, 3, 4)))";
+    close(one(&c, sql).await, 4.0 / (2.0 * 2.0), 1e-15);
+}
+
 async fn summary(ctx: &SessionContext) -> Vec<Option<f64>> {
     let sql = "SELECT posterior_mean(b) + posterior_quantile(n, 0.9) + posterior_mean(g) + posterior_mean(d, 'no_show') + posterior_sd(n) FROM (
         SELECT breed, beta_posterior(no_show) AS b, nig_posterior(amount, nig_prior(60, 1, 2, 100)) AS n,
