@@ -284,6 +284,9 @@ TIMED = {
 }
 ENCODINGS = ["posterity", "posterity_sd", *TIMED, "onehot20", "frequency", "ordinal", "oof_smoothed",
              "in_sample"]
+# On request only (`--encodings`): as-of encodings whose first-period training rows read the
+# k-fold encoding (MODELING.md, "First-period rows read out-of-fold").
+BACKFILLED = "posterity_time_backfilled"
 # `--encodings a,b` runs a subset (the hand-written ones are deterministic: their numbers repeat).
 if "--encodings" in sys.argv:
     ENCODINGS = sys.argv[sys.argv.index("--encodings") + 1].split(",")
@@ -351,13 +354,34 @@ def posterity_mean_score(kind, keys, numeric, tr, te, ytr, yte, work, extra, tim
     return float(np.mean(scores))
 
 
+def backfilled(as_of, kfold, tr, keys, t):
+    """as-of training features, with each key's columns taken from the k-fold encodings on the
+    rows whose level has no earlier training row; scored features unchanged. Also returns the
+    share of such rows per key."""
+    train = as_of[0].copy()
+    share = {}
+    for key in keys:
+        first = (t.groupby(tr[key]).transform("min") == t).values & tr[key].notna().values
+        columns = [c for c in train.columns
+                   if c.startswith(f"{key}_") and c in kfold[0].columns]
+        train.loc[first, columns] = kfold[0].loc[first, columns].values
+        share[key] = float(first.mean())
+    return (train, as_of[1]), share
+
+
 def evaluate(task, loader, kind, work):
     keys, numeric, tr, te, ytr, yte = split(loader)
     results = {e: [] for e in ENCODINGS}
     row_losses = {e: [] for e in ENCODINGS}
     for seed in SEEDS:
         for e in ENCODINGS:
-            if e in TIMED:
+            if e == BACKFILLED:
+                t = time_of(task, tr)
+                as_of = posterity_encodings(tr, te, ytr, keys, seed, None, work,
+                                            TIMED["posterity_time"], t, time_of(task, te))
+                kfold = posterity_encodings(tr, te, ytr, keys, seed, None, work)
+                (ftr, fte), _ = backfilled(as_of, kfold, tr, keys, t)
+            elif e in TIMED:
                 ftr, fte = posterity_encodings(
                     tr, te, ytr, keys, seed, None, work, TIMED[e], time_of(task, tr),
                     time_of(task, te))
