@@ -259,12 +259,7 @@ impl AnyPosterior {
             (AnyPosterior::Dirichlet(a), AnyPosterior::Dirichlet(b)) => {
                 AnyPosterior::Dirichlet(run(a, b, op)?)
             }
-            (a, b) => {
-                return Err(FamilyError::PriorMismatch {
-                    left: a.kind().name().into(),
-                    right: b.kind().name().into(),
-                })
-            }
+            (a, b) => return Err(mismatch(a, b)),
         })
     }
 
@@ -296,12 +291,7 @@ impl AnyPosterior {
             (AnyPosterior::Dirichlet(p), AnyPosterior::Dirichlet(q)) => {
                 AnyPosterior::Dirichlet(p.with_prior(q.prior)?)
             }
-            (a, b) => {
-                return Err(FamilyError::PriorMismatch {
-                    left: a.kind().name().into(),
-                    right: b.kind().name().into(),
-                })
-            }
+            (a, b) => return Err(mismatch(a, &b)),
         })
     }
 
@@ -316,10 +306,6 @@ impl AnyPosterior {
         strength: f64,
     ) -> Result<AnyPosterior, FamilyError> {
         let strength = crate::family::positive("strength", strength)?;
-        let mismatch = |a: &AnyPosterior, b: &AnyPosterior| FamilyError::PriorMismatch {
-            left: a.kind().name().into(),
-            right: b.kind().name().into(),
-        };
         let kind = self.kind();
         if parent.kind() != kind {
             return Err(mismatch(self, parent));
@@ -338,10 +324,6 @@ impl AnyPosterior {
         own: Option<&AnyPosterior>,
         strength: f64,
     ) -> Result<AnyPosterior, FamilyError> {
-        let mismatch = |a: &AnyPosterior, b: &AnyPosterior| FamilyError::PriorMismatch {
-            left: a.kind().name().into(),
-            right: b.kind().name().into(),
-        };
         Ok(match (self, parent, own) {
             (AnyPosterior::Beta(p), AnyPosterior::Beta(q), own) => {
                 let center = match own {
@@ -413,6 +395,14 @@ impl AnyPosterior {
                 DirichletPrior::new(p.prior.classes.clone(), p.params())?,
             )),
         })
+    }
+}
+
+/// Two posteriors of different families where one family is needed.
+fn mismatch(a: &AnyPosterior, b: &AnyPosterior) -> FamilyError {
+    FamilyError::PriorMismatch {
+        left: a.kind().name().into(),
+        right: b.kind().name().into(),
     }
 }
 
