@@ -779,6 +779,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
     choose_treatments(ctx, options, &mut keys).await?;
     link_hierarchy(options, method, &mut keys)?;
     let score_columns = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
+    check_input_names(&train, &score_columns)?;
 
     let t = quote(target);
     let from = quote(&options.train);
@@ -1242,6 +1243,24 @@ fn check_as_of_half_life(h: f64, period: f64, units: TimeUnits) -> Result<()> {
             crate::render::short(h),
             units.show(period / MAX_AS_OF_HALF_LIVES)
         ));
+    }
+    Ok(())
+}
+
+/// Input columns must not take the names of the statements' working columns;
+/// checked before any statement runs.
+pub(super) fn check_input_names(train: &[(String, DataType)], score: &[String]) -> Result<()> {
+    let train = train.iter().map(|(name, _)| name);
+    let inputs = train
+        .map(|c| ("training", c))
+        .chain(score.iter().map(|c| ("scored", c)));
+    for (table, c) in inputs {
+        if super::sql::is_working_column(c) {
+            return usage(format!(
+                "the {table} column '{c}' has a name encode keeps for its working columns \
+                 (__row, __fold, __level, __time, __x, __y, __k0, __k1, ...); rename it"
+            ));
+        }
     }
     Ok(())
 }

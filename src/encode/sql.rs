@@ -17,6 +17,25 @@ pub(crate) const TRAIN: &str = "__encode_train_rows";
 /// The numbered scoring rows.
 pub(crate) const SCORE: &str = "__encode_score_rows";
 
+/// The working columns the statements add beside the input's columns (also `__k0`,
+/// `__k1`, ...: each key's level); an input column may not have one of these names.
+const WORKING_COLUMNS: [&str; 6] = [
+    crate::numbered::ROW,
+    "__fold",
+    "__level",
+    "__time",
+    "__x",
+    "__y",
+];
+
+/// Whether an input column's name is one of the statements' working columns.
+pub(crate) fn is_working_column(name: &str) -> bool {
+    WORKING_COLUMNS.contains(&name)
+        || name
+            .strip_prefix("__k")
+            .is_some_and(|n| !n.is_empty() && n.bytes().all(|b| b.is_ascii_digit()))
+}
+
 /// Which rows a select list is for: training rows read their key's out-of-fold or
 /// as-of posteriors (`x{i}`), scored rows the encoding tables (`e{i}`).
 #[derive(Debug, Clone, Copy, PartialEq)]

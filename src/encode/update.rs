@@ -13,8 +13,8 @@ use datafusion::prelude::SessionContext;
 
 use super::options::{EncodeOptions, Method, PriorChoice, Reader, TimeTies, Treatment};
 use super::resolve::{
-    check_output_names, check_target_values, columns_of, require_columns, scoring_columns,
-    EncodePlan, KeyPlan,
+    check_input_names, check_output_names, check_target_values, columns_of, require_columns,
+    scoring_columns, EncodePlan, KeyPlan,
 };
 use super::run::{execute, finish, EncodeOutput};
 use super::sql::{SCORE, TRAIN};
@@ -184,6 +184,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     )
     .await?;
     let score_columns = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
+    check_input_names(&train, &score_columns)?;
     encode_options.readers = Some(readers);
     encode_options.normalize_keys = stored.iter().any(|c| c.normalized);
     encode_options.exposure = options.exposure.clone();

@@ -462,6 +462,66 @@ fn leaky_keys_are_refused() {
     }
 }
 
+// An input column named like one of encode's working columns is refused in words
+// before any statement runs (a training column `__fold`, from a user's own folds,
+// once failed with "Schema contains qualified field name t.__fold ..."); other
+// double-underscore names, such as a pandas index, pass through.
+#[test]
+fn input_columns_named_like_working_columns_are_refused() {
+    let dir = temp_dir("working-names");
+    let out = dir.join("out").display().to_string();
+    let write = |name: &str, text: &str| {
+        let path = dir.join(name);
+        std::fs::write(&path, text).unwrap();
+        path.display().to_string()
+    };
+    let rows: String = (0..60)
+        .map(|i| format!("k{},{},{},{}\n", i % 6, i % 2, i / 6, i % 5))
+        .collect();
+    for (column, time) in [("__fold", false), ("__row", true), ("__k0", true)] {
+        let train = write("train.csv", &format!("key,y,t,{column}\n{rows}"));
+        let mut args = vec![
+            "--train",
+            &train,
+            "--target",
+            "y",
+            "--columns",
+            "key",
+            "--out",
+            &out,
+        ];
+        if time {
+            args.extend(["--time-column", "t", "--half-life", "fitted"]);
+        }
+        let stderr = encode_refusal(&args);
+        assert!(
+            stderr.contains(&format!(
+                "the training column '{column}' has a name encode keeps for its working columns"
+            )),
+            "{stderr}"
+        );
+    }
+    let train = write("train.csv", &format!("key,y,t,__index_level_0__\n{rows}"));
+    let score = write("score.csv", "key,__time\nk1,3\n");
+    let args = [
+        "--train",
+        &train,
+        "--target",
+        "y",
+        "--columns",
+        "key",
+        "--out",
+        &out,
+    ];
+    let stderr = encode_refusal(&[&args[..], &["--score", &score]].concat());
+    assert!(
+        stderr.contains("the scored column '__time' has a name encode keeps"),
+        "{stderr}"
+    );
+    let o = encode_output(&[&["encode"], &args[..]].concat());
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+}
+
 // As-of encodings see strictly earlier times only: rows at one time share an
 // encoding, and a level's first time gets the prior. Checked against a direct
 // count over the CSV (Beta(2, 18): mean = (2 + s) / (20 + n)).
