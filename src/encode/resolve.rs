@@ -659,16 +659,31 @@ pub(super) fn require_columns<'a>(
     for (column, role) in wanted {
         if !available.iter().any(|(n, _)| n == column) {
             return usage(format!(
-                "{role} '{column}' is not a column of the {what} (columns: {})",
+                "{role} '{column}' is not a column of the {what} (columns: {}){}",
                 available
                     .iter()
                     .map(|(n, _)| n.as_str())
                     .collect::<Vec<_>>()
-                    .join(", ")
+                    .join(", "),
+                other_delimiter_hint(available)
             ));
         }
     }
     Ok(())
+}
+
+/// A CSV read with the wrong delimiter has one column whose name holds the others:
+/// say which delimiter the header seems to use (in the shell, `--csv-delimiter`;
+/// from Python, a DataFrame read with it).
+fn other_delimiter_hint(available: &[(String, DataType)]) -> String {
+    let [(name, _)] = available else {
+        return String::new();
+    };
+    [(';', "';'"), ('|', "'|'"), ('\t', "tabs"), (',', "','")]
+        .into_iter()
+        .find(|(d, _)| name.contains(*d))
+        .map(|(_, shown)| format!("; its header looks separated by {shown}"))
+        .unwrap_or_default()
 }
 
 /// Refuse a key column whose values have no text form (a struct, a map): a key's

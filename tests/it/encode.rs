@@ -522,6 +522,36 @@ fn input_columns_named_like_working_columns_are_refused() {
     assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
 }
 
+// A CSV written with another delimiter reads as one column named by the whole
+// header: the refusal says which delimiter the header seems to use.
+#[test]
+fn a_csv_with_another_delimiter_is_named() {
+    let dir = temp_dir("delimiter");
+    let out = dir.join("out").display().to_string();
+    for (text, shown) in [
+        ("breed;no_show\nbeagle;1\n", "';'"),
+        ("breed\tno_show\nbeagle\t1\n", "tabs"),
+    ] {
+        let path = dir.join("train.csv");
+        std::fs::write(&path, text).unwrap();
+        let train = path.display().to_string();
+        let stderr = encode_refusal(&[
+            "--train",
+            &train,
+            "--target",
+            "no_show",
+            "--columns",
+            "breed",
+            "--out",
+            &out,
+        ]);
+        assert!(
+            stderr.contains(&format!("its header looks separated by {shown}")),
+            "{stderr}"
+        );
+    }
+}
+
 // As-of encodings see strictly earlier times only: rows at one time share an
 // encoding, and a level's first time gets the prior. Checked against a direct
 // count over the CSV (Beta(2, 18): mean = (2 + s) / (20 + n)).
