@@ -25,7 +25,9 @@
 //! by its length in Unicode characters and `:`, joined by `|` — `9:breed_017|9:clinic_03`
 //! — which no two different rows can share ([`interaction_key`]). Version 1
 //! bundles (no `key`; interactions joined by a bare `|`) are still read. A column
-//! may list its own `readers` (version 4), which replace the bundle's for it.
+//! may list its own `readers` (version 4), which replace the bundle's for it. A
+//! count target read with an exposure column names it in a top-level `exposure`,
+//! which refreshes read (scoring does not need it).
 
 use std::collections::{BTreeMap, HashMap};
 
@@ -292,6 +294,9 @@ impl ColumnEncoding {
 pub struct Bundle {
     pub target: String,
     pub family: String,
+    /// The exposure column of a Gamma target, when the run read one: a refresh
+    /// reads the new rows' exposures from it too.
+    pub exposure: Option<String>,
     pub readers: Vec<String>,
     pub columns: BTreeMap<String, ColumnEncoding>,
 }
@@ -349,7 +354,7 @@ impl Bundle {
             }
             columns.insert(name.clone(), column);
         }
-        let v = json!({
+        let mut v = json!({
             "format": FORMAT,
             "version": if self.columns.values().any(|c| c.readers.is_some() || c.parent.is_some()) { VERSION } else { 3 },
             "target": self.target,
@@ -357,6 +362,9 @@ impl Bundle {
             "readers": self.readers,
             "columns": columns,
         });
+        if let Some(exposure) = &self.exposure {
+            v["exposure"] = json!(exposure);
+        }
         serde_json::to_string_pretty(&v).unwrap_or_default()
     }
 
@@ -503,6 +511,10 @@ impl Bundle {
         Ok(Bundle {
             target: text_of("target"),
             family: text_of("family"),
+            exposure: v
+                .get("exposure")
+                .and_then(Value::as_str)
+                .map(str::to_string),
             readers: texts_of(v.get("readers")),
             columns,
         })

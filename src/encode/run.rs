@@ -525,6 +525,7 @@ pub(super) async fn finish(
     let bundle = Bundle {
         target: plan.options.target.clone(),
         family: plan.family.short_name().to_string(),
+        exposure: plan.options.exposure.clone(),
         readers: base_readers.iter().map(|r| r.spec()).collect(),
         columns,
     };

@@ -29,7 +29,7 @@ pub struct UpdateOptions {
     pub previous: Bundle,
     /// A table registered on the session: the new rows.
     pub train: String,
-    /// Exposure column of a Gamma target (the bundle does not record it).
+    /// Exposure column of a Gamma target; without it, the one the bundle records.
     pub exposure: Option<String>,
     /// Multiply the stored evidence by this factor in (0, 1] first: 0.5 after one
     /// half-life of age.
@@ -89,6 +89,9 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     if options.exposure.is_some() && family != Kind::Gamma {
         return usage("--exposure is for count targets (the gamma family)");
     }
+    // The new rows' exposures come from the column the previous run read, unless
+    // another is given: without it each new row would count as one unit of exposure.
+    let exposure = options.exposure.as_ref().or(previous.exposure.as_ref());
     let readers = previous
         .readers
         .iter()
@@ -174,12 +177,20 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
                     .map(|c| (c, "--exposure".to_string())),
             ),
     )?;
+    if let (None, Some(stored)) = (&options.exposure, &previous.exposure) {
+        if !train.iter().any(|(name, _)| name == stored) {
+            return usage(format!(
+                "--update: the previous run read exposures from column '{stored}', which the \
+                 table of new rows lacks; give --exposure with the column that holds them"
+            ));
+        }
+    }
     super::resolve::require_key_types("table of new rows", &train, &keys)?;
     check_target_values(
         ctx,
         (&options.train, &train),
         &previous.target,
-        options.exposure.as_deref(),
+        exposure.map(String::as_str),
         family,
     )
     .await?;
@@ -187,7 +198,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     check_input_names(&train, &score_columns)?;
     encode_options.readers = Some(readers);
     encode_options.normalize_keys = stored.iter().any(|c| c.normalized);
-    encode_options.exposure = options.exposure.clone();
+    encode_options.exposure = exposure.cloned();
     encode_options.score = options.score.clone();
     encode_options.prior = PriorChoice::Numbers(Vec::new());
     encode_options.time_ties = TimeTies::Strict;

@@ -997,6 +997,86 @@ fn split_sample(dir: &Path, day: i64) -> (String, String) {
     std::fs::write(&b, new).unwrap();
     (a.display().to_string(), b.display().to_string())
 }
+// A count target's refresh reads the new rows' exposures from the column the
+// first run read, recorded in the bundle: without it every new row counted as one
+// unit of exposure (means off by up to 0.3 on rates near 3), silently.
+#[test]
+fn a_refresh_reads_exposures_from_the_bundles_column() {
+    let dir = temp_dir("update-exposure");
+    let csv = |name: &str, rows: std::ops::Range<u64>| {
+        let mut s = String::from("clinic,visits,years\n");
+        for i in rows {
+            let years = 0.5 + (mix64(i) % 150) as f64 / 100.0;
+            s.push_str(&format!("c{},{},{years}\n", i % 7, mix64(i + 99) % 6));
+        }
+        let path = dir.join(name);
+        std::fs::write(&path, s).unwrap();
+        path.display().to_string()
+    };
+    let (old, new, all) = (
+        csv("old.csv", 0..400),
+        csv("new.csv", 400..700),
+        csv("all.csv", 0..700),
+    );
+    let out = |name: &str| dir.join(name).display().to_string();
+    let common = [
+        "--target",
+        "visits",
+        "--columns",
+        "clinic",
+        "--prior",
+        "3,1",
+        "--exposure",
+        "years",
+    ];
+    encode(&[&["--train", &old, "--out", &out("first")], &common[..]].concat());
+    encode(&[
+        "--update",
+        &out("first"),
+        "--train",
+        &new,
+        "--out",
+        &out("refreshed"),
+    ]);
+    encode(&[&["--train", &all, "--out", &out("full")], &common[..]].concat());
+    assert_eq!(
+        bundle_in(&dir.join("first")).exposure.as_deref(),
+        Some("years")
+    );
+    let refreshed = bundle_in(&dir.join("refreshed"));
+    assert_eq!(refreshed.exposure.as_deref(), Some("years"));
+    let full = bundle_in(&dir.join("full"));
+    let levels = &full.columns["clinic"].levels;
+    assert_eq!(levels.len(), 7);
+    for (level, p) in levels {
+        let (a, b) = (&refreshed.columns["clinic"].levels[level], p);
+        let (a, b) = (
+            a.marginal(None).unwrap().mean(),
+            b.marginal(None).unwrap().mean(),
+        );
+        assert!(
+            (a - b).abs() <= 1e-12 * b,
+            "{level}: refreshed {a}, full refit {b}"
+        );
+    }
+    // A new table without that column is refused naming it.
+    let bare = dir.join("bare.csv");
+    std::fs::write(&bare, "clinic,visits\nc1,2\n").unwrap();
+    let stderr = encode_refusal(&[
+        "--update",
+        &out("first"),
+        "--train",
+        bare.to_str().unwrap(),
+        "--out",
+        &out("bare"),
+    ]);
+    assert!(
+        stderr.contains(
+            "the previous run read exposures from column 'years', which the table of new rows lacks"
+        ),
+        "{stderr}"
+    );
+}
 
 // Refresh without refit: the stored posteriors pooled with new rows under the
 // stored prior equal a full refit on old and new rows with that prior — exactly,
