@@ -74,6 +74,47 @@ fn family_of(name: &str) -> Result<Kind> {
     })
 }
 
+/// A class target's new rows may only hold the classes the previous run's priors
+/// have: a refresh pools under those priors, which cannot take a new class.
+async fn check_classes(
+    ctx: &SessionContext,
+    table: &str,
+    target: &str,
+    classes: &[String],
+) -> Result<()> {
+    use datafusion::arrow::array::AsArray;
+    let listed = classes
+        .iter()
+        .map(|c| text(c))
+        .collect::<Vec<_>>()
+        .join(", ");
+    let b = super::resolve::one_row(
+        ctx,
+        &format!(
+            "SELECT COUNT(*), MIN(v) FROM (SELECT CAST({} AS VARCHAR) AS v FROM {}) \
+             WHERE v IS NOT NULL AND v NOT IN ({listed})",
+            super::quote(target),
+            datafusion::common::TableReference::from(table).to_quoted_string()
+        ),
+    )
+    .await?;
+    let new_rows = b
+        .column(0)
+        .as_primitive::<datafusion::arrow::datatypes::Int64Type>()
+        .value(0);
+    if new_rows > 0 {
+        let example = datafusion::arrow::compute::cast(b.column(1), &DataType::Utf8)?;
+        let example = example.as_string::<i32>().value(0).to_string();
+        return usage(format!(
+            "--update: {new_rows} new row(s) have a class of '{target}' the previous run did \
+             not have (for example '{example}'; its classes: {}); a refresh keeps the stored \
+             priors, so encode old and new rows again to add a class",
+            classes.join(", ")
+        ));
+    }
+    Ok(())
+}
+
 /// Pool the previous run's posteriors with the new rows and return the refreshed
 /// encodings, bundle and (with a scoring table) scored rows.
 pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<EncodeOutput> {
@@ -194,6 +235,11 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
         family,
     )
     .await?;
+    if let Some(AnyPosterior::Dirichlet(stored)) =
+        previous.columns.values().next().map(|c| &c.prior)
+    {
+        check_classes(ctx, &options.train, &previous.target, &stored.prior.classes).await?;
+    }
     let score_columns = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
     check_input_names(&train, &score_columns)?;
     encode_options.readers = Some(readers);

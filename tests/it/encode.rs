@@ -997,6 +997,42 @@ fn split_sample(dir: &Path, day: i64) -> (String, String) {
     std::fs::write(&b, new).unwrap();
     (a.display().to_string(), b.display().to_string())
 }
+// A class target's refresh pools under the stored Dirichlet priors, which have no
+// room for a class the first run did not see: refused in words before anything
+// runs (it failed in the engine with "Execution error: dirichlet_posterior: ...").
+#[test]
+fn a_refresh_with_a_new_class_is_refused_in_words() {
+    let dir = temp_dir("update-class");
+    let write = |name: &str, classes: &[&str]| {
+        let mut s = String::from("clinic,outcome\n");
+        for i in 0..90 {
+            s.push_str(&format!("c{},{}\n", i % 3, classes[i % classes.len()]));
+        }
+        let path = dir.join(name);
+        std::fs::write(&path, s).unwrap();
+        path.display().to_string()
+    };
+    let old = write("old.csv", &["attended", "no_show", "cancelled"]);
+    let new = write("new.csv", &["attended", "rescheduled"]);
+    let first = dir.join("first").display().to_string();
+    encode(&[
+        "--train",
+        &old,
+        "--target",
+        "outcome",
+        "--columns",
+        "clinic",
+        "--out",
+        &first,
+    ]);
+    let out = dir.join("next").display().to_string();
+    let stderr = encode_refusal(&["--update", &first, "--train", &new, "--out", &out]);
+    assert!(
+        stderr.contains("45 new row(s) have a class of 'outcome' the previous run did not have (for example 'rescheduled'; its classes: attended, cancelled, no_show)"),
+        "{stderr}"
+    );
+}
+
 // A count target's refresh reads the new rows' exposures from the column the
 // first run read, recorded in the bundle: without it every new row counted as one
 // unit of exposure (means off by up to 0.3 on rates near 3), silently.
