@@ -28,8 +28,10 @@ pub struct KeyPlan {
     pub why: String,
     /// Indicator columns: up to this many of the largest levels...
     pub indicators: usize,
-    /// ...that have at least this many rows.
+    /// ...that have at least this many rows; or, in a refresh, exactly the previous
+    /// run's indicator levels in their order, so that `<key>_top1` keeps its level.
     pub indicator_min_rows: f64,
+    pub stored_indicators: Option<Vec<String>>,
     /// Recency weighting of its fits: a row this many time units older than the
     /// newest training row (as-of: than the row encoded) counts half.
     pub half_life: Option<f64>,
@@ -61,6 +63,7 @@ impl KeyPlan {
             why: String::new(),
             indicators: options.indicators,
             indicator_min_rows: options.indicator_min_rows,
+            stored_indicators: None,
             half_life: None,
             recency: String::new(),
             horizon: None,

@@ -28,6 +28,23 @@ const WORKING_COLUMNS: [&str; 6] = [
     "__y",
 ];
 
+/// The previous run's indicator levels with their ranks (1, 2, ...), as a table.
+fn stored_ranks(levels: &[String]) -> String {
+    if levels.is_empty() {
+        return "SELECT CAST(NULL AS VARCHAR) AS level, CAST(NULL AS BIGINT) AS rank WHERE false"
+            .into();
+    }
+    let rows: Vec<String> = levels
+        .iter()
+        .enumerate()
+        .map(|(r, level)| format!("({}, CAST({} AS BIGINT))", text(level), r + 1))
+        .collect();
+    format!(
+        "SELECT column1 AS level, column2 AS rank FROM (VALUES {})",
+        rows.join(", ")
+    )
+}
+
 /// Whether an input column's name is one of the statements' working columns.
 pub(crate) fn is_working_column(name: &str) -> bool {
     WORKING_COLUMNS.contains(&name)
@@ -481,11 +498,14 @@ impl EncodePlan {
             stage(
                 format!("largest levels {k}"),
                 &format!("__top{i}"),
-                format!(
-                    "SELECT level, rank FROM (SELECT level, row_number() OVER (ORDER BY posterior_data_weight(p) DESC, level) AS rank \
-                     FROM {enc} WHERE posterior_data_weight(p) >= {}) WHERE rank <= {}",
-                    key.indicator_min_rows, key.indicators
-                ),
+                match &key.stored_indicators {
+                    None => format!(
+                        "SELECT level, rank FROM (SELECT level, row_number() OVER (ORDER BY posterior_data_weight(p) DESC, level) AS rank \
+                         FROM {enc} WHERE posterior_data_weight(p) >= {}) WHERE rank <= {}",
+                        key.indicator_min_rows, key.indicators
+                    ),
+                    Some(levels) => stored_ranks(levels),
+                },
             ),
         ]);
         if key.treatment == Treatment::Codes {

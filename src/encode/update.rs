@@ -11,7 +11,7 @@ use datafusion::arrow::datatypes::{DataType, Field, Schema};
 use datafusion::datasource::MemTable;
 use datafusion::prelude::SessionContext;
 
-use super::options::{EncodeOptions, Method, PriorChoice, Reader, TimeTies, Treatment};
+use super::options::{EncodeOptions, Method, PriorChoice, Reader, TimeTies};
 use super::resolve::{
     check_input_names, check_output_names, check_target_values, columns_of, require_columns,
     scoring_columns, EncodePlan, KeyPlan,
@@ -162,30 +162,22 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
             .iter()
             .map(|r| Reader::parse(r))
             .collect::<Result<_>>()?;
-        // The previous run's treatment carries over; given as levels, every stored
-        // level keeps its indicator.
+        // The previous run's treatment carries over, and with it its indicators.
         key.treatment = column.treatment;
         key.why = "as in the previous run".into();
-        match column.treatment {
-            Treatment::Posterior => {}
-            Treatment::Levels => {
-                key.indicators = column.indicators.len();
-                key.indicator_min_rows = 0.0;
-            }
-            Treatment::Codes => key.indicators = 0,
-        }
         keys.push(key);
         let in_hierarchy = column.parent.is_some()
             || previous
                 .columns
                 .values()
                 .any(|c| c.parent.as_ref().is_some_and(|(parent, _)| parent == name));
-        stored.push(levels_as_this_build_reads_them(
-            name,
-            column,
-            in_hierarchy,
-            &train,
-        )?);
+        let column = levels_as_this_build_reads_them(name, column, in_hierarchy, &train)?;
+        // The refreshed outputs keep the previous run's indicator columns, each for
+        // the same level, so that a model trained on them reads them as before.
+        let key = keys.last_mut().expect("pushed above");
+        key.indicators = column.indicators.len();
+        key.stored_indicators = Some(column.indicators.clone());
+        stored.push(column);
     }
     // Under a hierarchy each child keeps its parent key and the layer's strength.
     for (i, column) in stored.iter().enumerate() {

@@ -997,6 +997,92 @@ fn split_sample(dir: &Path, day: i64) -> (String, String) {
     std::fs::write(&b, new).unwrap();
     (a.display().to_string(), b.display().to_string())
 }
+// A refresh keeps the previous run's indicator columns, each for the same level, so
+// that a model trained on the first run's features reads the refreshed ones alike:
+// it once re-ranked the levels on the pooled data (new rows that change which
+// levels are largest moved `<key>_top1` to another level) and gave 20 indicators to
+// a run made with `--indicators 0`.
+#[tokio::test]
+async fn a_refresh_keeps_each_indicator_on_its_level() {
+    let dir = temp_dir("update-indicators");
+    let write = |name: &str, rows: usize, largest_first: bool, target: bool| {
+        let mut s = String::from(if target { "breed,no_show\n" } else { "breed\n" });
+        for i in 0..rows {
+            // Level b{j} gets j + 1 shares of the rows (or 8 - j when reversed).
+            let u = mix64(i as u64 + 7) % 36;
+            let mut j = 0;
+            while (j + 1) * (j + 2) / 2 <= u as usize {
+                j += 1;
+            }
+            let level = if largest_first { 7 - j } else { j };
+            let y = if target {
+                format!(",{}", mix64(i as u64) % 2)
+            } else {
+                String::new()
+            };
+            s.push_str(&format!("b{level}{y}\n"));
+        }
+        let path = dir.join(name);
+        std::fs::write(&path, s).unwrap();
+        path.display().to_string()
+    };
+    let old = write("old.csv", 800, false, true);
+    let new = write("new.csv", 3000, true, true);
+    let score = write("score.csv", 50, true, false);
+    for indicators in ["3", "0"] {
+        let first = dir.join(format!("first{indicators}")).display().to_string();
+        let next = dir.join(format!("next{indicators}")).display().to_string();
+        encode(&[
+            "--train",
+            &old,
+            "--target",
+            "no_show",
+            "--columns",
+            "breed",
+            "--indicators",
+            indicators,
+            "--out",
+            &first,
+        ]);
+        encode(&[
+            "--update", &first, "--train", &new, "--score", &score, "--out", &next,
+        ]);
+        let stored = bundle_in(Path::new(&first)).columns["breed"]
+            .indicators
+            .clone();
+        assert_eq!(stored.len(), indicators.parse::<usize>().unwrap());
+        assert_eq!(
+            bundle_in(Path::new(&next)).columns["breed"].indicators,
+            stored
+        );
+        // The scored rows have the first run's encoding columns, top1 on its level.
+        let trained = rows_of(&Path::new(&first).join("train_encoded.parquet")).await;
+        let scored = rows_of(&Path::new(&next).join("scored.parquet")).await;
+        let names = |b: &datafusion::arrow::array::RecordBatch| -> Vec<String> {
+            let schema = b.schema();
+            schema
+                .fields()
+                .iter()
+                .map(|f| f.name().clone())
+                .filter(|n| n != "no_show")
+                .collect()
+        };
+        assert_eq!(names(&scored), names(&trained));
+        if let Some(first_level) = stored.first() {
+            let breed = cast(scored.column_by_name("breed").unwrap(), &DataType::Utf8).unwrap();
+            let top1 = cast(
+                scored.column_by_name("breed_top1").unwrap(),
+                &DataType::Int64,
+            )
+            .unwrap();
+            let (breed, top1) = (breed.as_string::<i32>(), top1.as_primitive::<Int64Type>());
+            for r in 0..scored.num_rows() {
+                assert_eq!(top1.value(r) == 1, breed.value(r) == first_level, "row {r}");
+            }
+        }
+    }
+}
+
 // A class target's refresh pools under the stored Dirichlet priors, which have no
 // room for a class the first run did not see: refused in words before anything
 // runs (it failed in the engine with "Execution error: dirichlet_posterior: ...").
