@@ -26,11 +26,11 @@ pub struct KeyPlan {
     pub treatment: Treatment,
     /// Why the treatment was chosen, in the user's words (for the summary).
     pub why: String,
-    /// Indicator columns: up to this many of the largest levels...
+    /// Indicator columns for this many of the largest levels (the plan counts the
+    /// levels with at least `--indicator-min-rows` rows)...
     pub indicators: usize,
-    /// ...that have at least this many rows; or, in a refresh, exactly the previous
-    /// run's indicator levels in their order, so that `<key>_top1` keeps its level.
-    pub indicator_min_rows: f64,
+    /// ...or, in a refresh, for exactly the previous run's indicator levels in their
+    /// order, so that `<key>_top1` keeps its level.
     pub stored_indicators: Option<Vec<String>>,
     /// Recency weighting of its fits: a row this many time units older than the
     /// newest training row (as-of: than the row encoded) counts half.
@@ -62,7 +62,6 @@ impl KeyPlan {
             treatment: Treatment::Posterior,
             why: String::new(),
             indicators: options.indicators,
-            indicator_min_rows: options.indicator_min_rows,
             stored_indicators: None,
             half_life: None,
             recency: String::new(),
@@ -470,7 +469,6 @@ async fn choose_treatments(
                     ));
                 }
                 key.indicators = levels as usize;
-                key.indicator_min_rows = 0.0;
                 "chosen (--treatment)".to_string()
             }
             (Some(_), _) => "chosen (--treatment)".to_string(),

@@ -498,11 +498,16 @@ impl EncodePlan {
             stage(
                 format!("largest levels {k}"),
                 &format!("__top{i}"),
+                // The plan counted the levels with enough rows and wrote that many
+                // indicator columns; all of them go to the largest levels here. (A
+                // second row filter on the data weight, which recency weights, NULL
+                // targets and exposures make smaller than the rows, once left some
+                // columns all zero and missing from the bundle.)
                 match &key.stored_indicators {
                     None => format!(
                         "SELECT level, rank FROM (SELECT level, row_number() OVER (ORDER BY posterior_data_weight(p) DESC, level) AS rank \
-                         FROM {enc} WHERE posterior_data_weight(p) >= {}) WHERE rank <= {}",
-                        key.indicator_min_rows, key.indicators
+                         FROM {enc}) WHERE rank <= {}",
+                        key.indicators
                     ),
                     Some(levels) => stored_ranks(levels),
                 },

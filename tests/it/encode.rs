@@ -997,6 +997,53 @@ fn split_sample(dir: &Path, day: i64) -> (String, String) {
     std::fs::write(&b, new).unwrap();
     (a.display().to_string(), b.display().to_string())
 }
+// Every indicator column the outputs carry is in the bundle and marks a level:
+// levels are counted by rows, and recency weights (or NULL targets, or exposures)
+// make a level's data weight smaller than its rows. A second filter on the weight
+// once left such columns all zero and out of the bundle, so scoring with the bundle
+// gave other columns than the training table.
+#[tokio::test]
+async fn every_indicator_column_is_in_the_bundle() {
+    let dir = temp_dir("indicator-weights");
+    let mut s = String::from("clinic,day,no_show\n");
+    for i in 0..600u64 {
+        let y = if i % 5 == 0 {
+            String::new()
+        } else {
+            (mix64(i) % 2).to_string()
+        };
+        s.push_str(&format!("c{},{},{y}\n", i % 4, i / 3));
+    }
+    let train = dir.join("train.csv");
+    std::fs::write(&train, s).unwrap();
+    for extra in [&["--time-column", "day", "--half-life", "10"][..], &[][..]] {
+        let out = dir.join(format!("out{}", extra.len()));
+        let mut args = vec!["--train", train.to_str().unwrap(), "--target", "no_show"];
+        args.extend(["--columns", "clinic", "--out", out.to_str().unwrap()]);
+        args.extend(extra);
+        encode(&args);
+        let trained = rows_of(&out.join("train_encoded.parquet")).await;
+        let schema = trained.schema();
+        let tops: Vec<&String> = schema
+            .fields()
+            .iter()
+            .map(|f| f.name())
+            .filter(|n| n.contains("_top"))
+            .collect();
+        assert_eq!(tops.len(), 4, "{extra:?}: each clinic has 150 rows");
+        assert_eq!(
+            bundle_in(&out).columns["clinic"].indicators.len(),
+            4,
+            "{extra:?}"
+        );
+        for top in tops {
+            let column = cast(trained.column_by_name(top).unwrap(), &DataType::Int64).unwrap();
+            let ones: i64 = column.as_primitive::<Int64Type>().iter().flatten().sum();
+            assert_eq!(ones, 150, "{extra:?}: {top}");
+        }
+    }
+}
+
 // A refresh keeps the previous run's indicator columns, each for the same level, so
 // that a model trained on the first run's features reads the refreshed ones alike:
 // it once re-ranked the levels on the pooled data (new rows that change which
