@@ -27,7 +27,8 @@
 //! bundles (no `key`; interactions joined by a bare `|`) are still read. A column
 //! may list its own `readers` (version 4), which replace the bundle's for it. A
 //! count target read with an exposure column names it in a top-level `exposure`,
-//! which refreshes read (scoring does not need it).
+//! which refreshes read (scoring does not need it); `key_order` lists the keys in
+//! the order the run wrote their columns, which scoring keeps.
 
 use std::collections::{BTreeMap, HashMap};
 
@@ -297,11 +298,27 @@ pub struct Bundle {
     /// The exposure column of a Gamma target, when the run read one: a refresh
     /// reads the new rows' exposures from it too.
     pub exposure: Option<String>,
+    /// The keys in the order the run wrote their columns (scoring appends them in
+    /// this order); bundles without `key_order` list them by name.
+    pub key_order: Vec<String>,
     pub readers: Vec<String>,
     pub columns: BTreeMap<String, ColumnEncoding>,
 }
 
 impl Bundle {
+    /// The encoded keys in the order the run wrote their columns.
+    pub fn keys_in_order(&self) -> impl Iterator<Item = (&String, &ColumnEncoding)> {
+        let listed = self
+            .key_order
+            .iter()
+            .filter_map(|k| self.columns.get_key_value(k));
+        let rest = self
+            .columns
+            .iter()
+            .filter(|(k, _)| !self.key_order.contains(k));
+        listed.chain(rest)
+    }
+
     /// The readers that score `column`: its own, or the bundle's.
     pub fn readers_of<'a>(&'a self, column: &'a ColumnEncoding) -> &'a [String] {
         column.readers.as_deref().unwrap_or(&self.readers)
@@ -364,6 +381,9 @@ impl Bundle {
         });
         if let Some(exposure) = &self.exposure {
             v["exposure"] = json!(exposure);
+        }
+        if !self.key_order.is_empty() {
+            v["key_order"] = json!(self.key_order);
         }
         serde_json::to_string_pretty(&v).unwrap_or_default()
     }
@@ -515,6 +535,7 @@ impl Bundle {
                 .get("exposure")
                 .and_then(Value::as_str)
                 .map(str::to_string),
+            key_order: texts_of(v.get("key_order")),
             readers: texts_of(v.get("readers")),
             columns,
         })

@@ -49,7 +49,7 @@ pub fn score(bundle: &Bundle, batch: &RecordBatch) -> Result<RecordBatch> {
             )
         })
         .collect();
-    for (name, encoding) in &bundle.columns {
+    for (name, encoding) in bundle.keys_in_order() {
         let levels = &levels_by_key[name.as_str()];
         let unseen = |row: usize| unseen_posterior(bundle, &levels_by_key, name, row);
         let readers = bundle

@@ -705,7 +705,7 @@ impl Bundle {
     /// The encoded keys, in the order their columns are added.
     #[getter]
     fn keys(&self) -> Vec<String> {
-        self.inner.columns.keys().cloned().collect()
+        self.inner.keys_in_order().map(|(k, _)| k.clone()).collect()
     }
 
     /// Score rows (an object with `__arrow_c_stream__`): the rows with every

@@ -526,6 +526,7 @@ pub(super) async fn finish(
         target: plan.options.target.clone(),
         family: plan.family.short_name().to_string(),
         exposure: plan.options.exposure.clone(),
+        key_order: plan.keys.iter().map(|k| k.name.clone()).collect(),
         readers: base_readers.iter().map(|r| r.spec()).collect(),
         columns,
     };

@@ -142,7 +142,8 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     let train = columns_of(ctx, &options.train).await?;
     let mut keys = Vec::new();
     let mut stored = Vec::new();
-    for (name, column) in &previous.columns {
+    // In the first run's order, so that the refreshed outputs keep its columns' order.
+    for (name, column) in previous.keys_in_order() {
         if column.parent.is_some() && column.parent_levels.is_empty() && !column.levels.is_empty() {
             return usage(format!(
                 "--update: key '{name}' was encoded under a parent (--hierarchy) by an earlier \
@@ -182,7 +183,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
     // Under a hierarchy each child keeps its parent key and the layer's strength.
     for (i, column) in stored.iter().enumerate() {
         if let Some((parent, strength)) = &column.parent {
-            keys[i].parent = previous.columns.keys().position(|k| k == parent);
+            keys[i].parent = keys.iter().position(|k| &k.name == parent);
             keys[i].strength = Some(*strength);
         }
     }

@@ -14,7 +14,7 @@ CREATE OR REPLACE TABLE __enc0 AS SELECT level, p, posterior_mean(posterior_scal
 CREATE OR REPLACE TABLE __priorread0 AS SELECT prior, posterior_mean(prior, '{y}') AS "a_b__y__mean", posterior_mean(prior, 'a"b') AS "a_b_a_b_mean", posterior_mean(prior, 'naïve café') AS "a_b_naïve_café_mean", posterior_mean(prior, 'it''s') AS "a_b_it_s_mean", posterior_quantile(prior, '{y}', 0.05) AS "a_b__y__q05", posterior_quantile(prior, 'a"b', 0.05) AS "a_b_a_b_q05", posterior_quantile(prior, 'naïve café', 0.05) AS "a_b_naïve_café_q05", posterior_quantile(prior, 'it''s', 0.05) AS "a_b_it_s_q05" FROM __prior0;
 
 -- largest levels a_b (table)
-CREATE OR REPLACE TABLE __top0 AS SELECT level, rank FROM (SELECT level, row_number() OVER (ORDER BY posterior_data_weight(p) DESC, level) AS rank FROM __enc0 WHERE posterior_data_weight(p) >= 100) WHERE rank <= 20;
+CREATE OR REPLACE TABLE __top0 AS SELECT level, rank FROM (SELECT level, row_number() OVER (ORDER BY posterior_data_weight(p) DESC, level) AS rank FROM __enc0) WHERE rank <= 20;
 
 -- fold fits a_b (table)
 CREATE OR REPLACE TABLE __foldfit0 AS SELECT __k0 AS level, __fold, dirichlet_posterior(CAST(t."{class}" AS VARCHAR), dirichlet_prior(['{y}', 'a"b', 'naïve café', 'it''s'], 0.5)) AS p FROM __keyed t WHERE __k0 IS NOT NULL GROUP BY __k0, __fold;
@@ -38,7 +38,7 @@ CREATE OR REPLACE TABLE __enc1 AS SELECT level, p FROM (SELECT f.level, posterio
 CREATE OR REPLACE TABLE __priorread1 AS SELECT prior FROM __prior1;
 
 -- largest levels naïve_café_x__y_ (table)
-CREATE OR REPLACE TABLE __top1 AS SELECT level, rank FROM (SELECT level, row_number() OVER (ORDER BY posterior_data_weight(p) DESC, level) AS rank FROM __enc1 WHERE posterior_data_weight(p) >= 100) WHERE rank <= 0;
+CREATE OR REPLACE TABLE __top1 AS SELECT level, rank FROM (SELECT level, row_number() OVER (ORDER BY posterior_data_weight(p) DESC, level) AS rank FROM __enc1) WHERE rank <= 0;
 
 -- codes naïve_café_x__y_ (table)
 CREATE OR REPLACE TABLE __code1 AS SELECT level, CAST(row_number() OVER (ORDER BY level) - 1 AS BIGINT) AS code FROM __fit1;
@@ -59,7 +59,7 @@ CREATE OR REPLACE TABLE __enc2 AS SELECT level, p FROM (SELECT f.level, posterio
 CREATE OR REPLACE TABLE __priorread2 AS SELECT prior FROM __prior2;
 
 -- largest levels _y_ (table)
-CREATE OR REPLACE TABLE __top2 AS SELECT level, rank FROM (SELECT level, row_number() OVER (ORDER BY posterior_data_weight(p) DESC, level) AS rank FROM __enc2 WHERE posterior_data_weight(p) >= 100) WHERE rank <= 3;
+CREATE OR REPLACE TABLE __top2 AS SELECT level, rank FROM (SELECT level, row_number() OVER (ORDER BY posterior_data_weight(p) DESC, level) AS rank FROM __enc2) WHERE rank <= 3;
 
 -- encodings/_y_ (encodings/_y_)
 SELECT e.level AS "_y_", e.p, ranked.rank AS top_rank FROM __enc2 e LEFT JOIN __top2 ranked ON ranked.level = e.level ORDER BY e.level;

@@ -2380,7 +2380,8 @@ async fn treatments_follow_the_data_and_the_user() {
 }
 
 // Scoring with the bundle alone (`posterity::serve::score`, what Python's
-// `Bundle.score` runs) gives the scored file's columns: the same names and types,
+// `Bundle.score` runs) gives the scored file's columns: the same names in the same
+// order (it once appended keys by name) and types,
 // the same values (1e-12 relative), for posterior, levels and codes keys, an
 // interaction, a Dirichlet target, unseen levels and NULL keys.
 #[tokio::test]
@@ -2452,7 +2453,13 @@ async fn scoring_with_the_bundle_equals_the_scored_file() {
             )
             .unwrap();
         let got = posterity::serve::score(&bundle, &input).unwrap();
-        assert_eq!(got.num_columns(), want.num_columns(), "{target}");
+        // In the same order too (keys as encode wrote them, not by name), for a
+        // learner fed arrays by position.
+        let names = |b: &datafusion::arrow::array::RecordBatch| -> Vec<String> {
+            let schema = b.schema();
+            schema.fields().iter().map(|f| f.name().clone()).collect()
+        };
+        assert_eq!(names(&got), names(&want), "{target}");
         for field in want.schema().fields() {
             let w = want.column_by_name(field.name()).unwrap();
             let g = got
