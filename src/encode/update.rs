@@ -166,7 +166,6 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
         // The previous run's treatment carries over, and with it its indicators.
         key.treatment = column.treatment;
         key.why = "as in the previous run".into();
-        keys.push(key);
         let in_hierarchy = column.parent.is_some()
             || previous
                 .columns
@@ -175,9 +174,9 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
         let column = levels_as_this_build_reads_them(name, column, in_hierarchy, &train)?;
         // The refreshed outputs keep the previous run's indicator columns, each for
         // the same level, so that a model trained on them reads them as before.
-        let key = keys.last_mut().expect("pushed above");
         key.indicators = column.indicators.len();
         key.stored_indicators = Some(column.indicators.clone());
+        keys.push(key);
         stored.push(column);
     }
     // Under a hierarchy each child keeps its parent key and the layer's strength.
