@@ -374,22 +374,26 @@ def evaluate(task, loader, kind, work):
     results = {e: [] for e in ENCODINGS}
     row_losses = {e: [] for e in ENCODINGS}
     for seed in SEEDS:
+        done = {}  # this seed's features by encoding: the backfilled pair reuses two of them
+
+        def features(e):
+            if e not in done:
+                if e == BACKFILLED:
+                    as_of, kfold = features("posterity_time"), features("posterity")
+                    done[e], _ = backfilled(as_of, kfold, tr, keys, time_of(task, tr))
+                elif e in TIMED:
+                    done[e] = posterity_encodings(
+                        tr, te, ytr, keys, seed, None, work, TIMED[e], time_of(task, tr),
+                        time_of(task, te))
+                elif e.startswith("posterity"):
+                    readers = "mean,sd" if e == "posterity_sd" else None
+                    done[e] = posterity_encodings(tr, te, ytr, keys, seed, readers, work)
+                else:
+                    done[e] = hand_encodings(e, tr, te, ytr, keys, seed)
+            return done[e]
+
         for e in ENCODINGS:
-            if e == BACKFILLED:
-                t = time_of(task, tr)
-                as_of = posterity_encodings(tr, te, ytr, keys, seed, None, work,
-                                            TIMED["posterity_time"], t, time_of(task, te))
-                kfold = posterity_encodings(tr, te, ytr, keys, seed, None, work)
-                (ftr, fte), _ = backfilled(as_of, kfold, tr, keys, t)
-            elif e in TIMED:
-                ftr, fte = posterity_encodings(
-                    tr, te, ytr, keys, seed, None, work, TIMED[e], time_of(task, tr),
-                    time_of(task, te))
-            elif e.startswith("posterity"):
-                readers = "mean,sd" if e == "posterity_sd" else None
-                ftr, fte = posterity_encodings(tr, te, ytr, keys, seed, readers, work)
-            else:
-                ftr, fte = hand_encodings(e, tr, te, ytr, keys, seed)
+            ftr, fte = features(e)
             xtr = pd.concat([tr[numeric], ftr], axis=1).to_numpy(dtype=float)
             xte = pd.concat([te[numeric], fte], axis=1).to_numpy(dtype=float)
             assert np.isfinite(xtr[~np.isnan(xtr)]).all(), f"{e}: non-finite training feature"

@@ -564,20 +564,9 @@ pub(super) async fn check_target_values(
             ));
         }
     }
-    let from = datafusion::common::TableReference::from(table).to_quoted_string();
     for (what, ok, allowed, column) in checks {
-        let b = one_row(
-            ctx,
-            &format!(
-                "SELECT COUNT(*), MIN(CAST({column} AS VARCHAR)) FROM {from} \
-                 WHERE {column} IS NOT NULL AND NOT ({ok})"
-            ),
-        )
-        .await?;
-        let bad = b.column(0).as_primitive::<Int64Type>().value(0);
+        let (bad, example) = rows_failing(ctx, table, &column, &ok).await?;
         if bad > 0 {
-            let example = cast(b.column(1), &DataType::Utf8)?;
-            let example = example.as_string::<i32>().value(0).to_string();
             return usage(format!(
                 "{what} has {bad} row(s) with a value outside the allowed range (for example \
                  {example}); allowed: {allowed}. Fix or filter those rows (NULLs are skipped)"
@@ -585,6 +574,34 @@ pub(super) async fn check_target_values(
         }
     }
     Ok(())
+}
+
+/// How many rows of `table` have a non-NULL `column` that fails `ok`, and the
+/// smallest such value as text (for the message).
+pub(super) async fn rows_failing(
+    ctx: &SessionContext,
+    table: &str,
+    column: &str,
+    ok: &str,
+) -> Result<(i64, String)> {
+    let from = datafusion::common::TableReference::from(table).to_quoted_string();
+    let b = one_row(
+        ctx,
+        &format!(
+            "SELECT COUNT(*), MIN(CAST({column} AS VARCHAR)) FROM {from} \
+             WHERE {column} IS NOT NULL AND NOT ({ok})"
+        ),
+    )
+    .await?;
+    let bad = b.column(0).as_primitive::<Int64Type>().value(0);
+    let example = cast(b.column(1), &DataType::Utf8)?;
+    let example = example.as_string::<i32>();
+    let example = if example.is_valid(0) {
+        example.value(0).to_string()
+    } else {
+        String::new()
+    };
+    Ok((bad, example))
 }
 
 /// A key's number of levels, the rows of its smallest level, and the number of

@@ -82,29 +82,15 @@ async fn check_classes(
     target: &str,
     classes: &[String],
 ) -> Result<()> {
-    use datafusion::arrow::array::AsArray;
     let listed = classes
         .iter()
         .map(|c| text(c))
         .collect::<Vec<_>>()
         .join(", ");
-    let b = super::resolve::one_row(
-        ctx,
-        &format!(
-            "SELECT COUNT(*), MIN(v) FROM (SELECT CAST({} AS VARCHAR) AS v FROM {}) \
-             WHERE v IS NOT NULL AND v NOT IN ({listed})",
-            super::quote(target),
-            datafusion::common::TableReference::from(table).to_quoted_string()
-        ),
-    )
-    .await?;
-    let new_rows = b
-        .column(0)
-        .as_primitive::<datafusion::arrow::datatypes::Int64Type>()
-        .value(0);
+    let class = format!("CAST({} AS VARCHAR)", super::quote(target));
+    let (new_rows, example) =
+        super::resolve::rows_failing(ctx, table, &class, &format!("{class} IN ({listed})")).await?;
     if new_rows > 0 {
-        let example = datafusion::arrow::compute::cast(b.column(1), &DataType::Utf8)?;
-        let example = example.as_string::<i32>().value(0).to_string();
         return usage(format!(
             "--update: {new_rows} new row(s) have a class of '{target}' the previous run did \
              not have (for example '{example}'; its classes: {}); a refresh keeps the stored \
