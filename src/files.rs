@@ -1,5 +1,5 @@
 //! Registering files as tables: Parquet, CSV, TSV, NDJSON and JSON arrays, a file,
-//! a directory of files or a glob, with checks the engine does not make (broken
+//! a directory of files or a glob, a single file also gzip-compressed (`.csv.gz`), with checks the engine does not make (broken
 //! Parquet, empty CSV, unterminated quotes, CSV directories whose headers disagree)
 //! so that a broken file fails at registration with its name. Used by the shell
 //! and by every front end that reads files for `encode`.
@@ -63,11 +63,43 @@ pub async fn register(
     path: &str,
     csv: &CsvOptions,
 ) -> Result<(), FileError> {
+    if !is_gzip(path) {
+        return register_plain(ctx, name, path, csv).await;
+    }
+    // A gzip file is read from a decompressed copy; messages name the file given.
+    let copy = decompressed_copy(path).map_err(FileError::Read)?;
+    let shown = |m: String| m.replace(&copy, path);
+    register_plain(ctx, name, &copy, csv)
+        .await
+        .map_err(|e| match e {
+            FileError::Usage(m) => FileError::Usage(shown(m)),
+            FileError::Read(m) => FileError::Read(shown(m)),
+            FileError::Engine { message, .. } => FileError::Engine {
+                path: path.to_string(),
+                message: shown(message),
+            },
+        })
+}
+
+async fn register_plain(
+    ctx: &SessionContext,
+    name: &str,
+    path: &str,
+    csv: &CsvOptions,
+) -> Result<(), FileError> {
     let text: Vec<&str> = csv.text.iter().map(String::as_str).collect();
     let format = file_kind(path).ok_or_else(|| {
-        FileError::Usage(format!(
-            "cannot tell the format of '{path}'; use a .parquet, .csv, .tsv, .json or .ndjson path"
-        ))
+        FileError::Usage(if gzip_inside(path) {
+            format!(
+                "'{path}' holds gzip files: name each .gz file as a table of its own, or \
+                 decompress them into the directory"
+            )
+        } else {
+            format!(
+                "cannot tell the format of '{path}'; use a .parquet, .csv, .tsv, .json or \
+                 .ndjson path (a single file may also end in .gz)"
+            )
+        })
     })?;
     if !path.contains('*') && !Path::new(path).exists() {
         return Err(FileError::Read(format!("'{path}' does not exist")));
@@ -180,8 +212,7 @@ async fn register_csv(
 }
 
 /// For a file holding one JSON array of objects: the same rows as NDJSON in a
-/// temporary file (removed when the shell ends... by the system's temp cleaning);
-/// any other path unchanged.
+/// temporary file (see `temporary_path`); any other path unchanged.
 fn json_array_as_ndjson(path: &str) -> Result<String, String> {
     use std::io::Read;
     let Ok(mut file) = std::fs::File::open(path) else {
@@ -213,16 +244,97 @@ fn json_array_as_ndjson(path: &str) -> Result<String, String> {
         out.push_str(&raw.replace(['\n', '\r'], " "));
         out.push('\n');
     }
-    let tmp = std::env::temp_dir().join(format!(
-        "posterity-{}-{}.json",
-        std::process::id(),
-        Path::new(path)
-            .file_stem()
-            .map(|s| s.to_string_lossy().to_string())
-            .unwrap_or_default()
-    ));
+    let tmp = temporary_path(path, "json")?;
     std::fs::write(&tmp, out).map_err(|e| format!("cannot write {}: {e}", tmp.display()))?;
     Ok(tmp.display().to_string())
+}
+
+fn is_gzip(path: &str) -> bool {
+    path.to_ascii_lowercase().ends_with(".gz") && !Path::new(path).is_dir()
+}
+
+/// Whether `path` is a directory or glob whose files are gzip files.
+fn gzip_inside(path: &str) -> bool {
+    if path.contains('*') {
+        return path.to_ascii_lowercase().ends_with(".gz");
+    }
+    std::fs::read_dir(path).is_ok_and(|entries| {
+        entries.filter_map(|e| e.ok()).any(|e| {
+            e.file_name()
+                .to_string_lossy()
+                .to_ascii_lowercase()
+                .ends_with(".gz")
+        })
+    })
+}
+
+/// The file at `path` (`name.csv.gz` and the like) decompressed into a temporary file
+/// named like it without `.gz`, so that the format is told from the name as usual.
+fn decompressed_copy(path: &str) -> Result<String, String> {
+    if path.contains('*') {
+        return Err(format!(
+            "'{path}': gzip files are read one at a time; name each .gz file as a table of its own"
+        ));
+    }
+    let file = std::fs::File::open(path).map_err(|e| match e.kind() {
+        std::io::ErrorKind::NotFound => format!("'{path}' does not exist"),
+        _ => format!("cannot open {path}: {e}"),
+    })?;
+    let inner = &path[..path.len() - ".gz".len()];
+    let extension = Path::new(inner)
+        .extension()
+        .map(|e| e.to_string_lossy().to_string())
+        .unwrap_or_default();
+    if kind_of_name(inner).is_none() {
+        return Err(format!(
+            "cannot tell the format of '{path}'; name it .csv.gz, .tsv.gz, .json.gz, \
+             .ndjson.gz or .parquet.gz"
+        ));
+    }
+    let copy = temporary_path(inner, &extension)?;
+    let mut reader = flate2::read::MultiGzDecoder::new(std::io::BufReader::new(file));
+    let mut writer = std::io::BufWriter::new(
+        std::fs::File::create(&copy)
+            .map_err(|e| format!("cannot write {}: {e}", copy.display()))?,
+    );
+    let written = std::io::copy(&mut reader, &mut writer).and_then(|_| {
+        use std::io::Write as _;
+        writer.flush()
+    });
+    if let Err(e) = written {
+        let _ = std::fs::remove_file(&copy);
+        return Err(format!(
+            "{path} is not a complete gzip file (truncated or another format): {e}"
+        ));
+    }
+    Ok(copy.display().to_string())
+}
+
+/// A fresh path for a file written for the engine to read (a JSON array as NDJSON, a
+/// decompressed gzip file), named after `original` so that messages stay readable.
+/// Each call gets its own name: two files with one name in different directories
+/// must not share a copy. Kept until `remove_temporaries` or the system's temp cleaning.
+fn temporary_path(original: &str, extension: &str) -> Result<std::path::PathBuf, String> {
+    use std::sync::atomic::{AtomicU64, Ordering};
+    static NEXT: AtomicU64 = AtomicU64::new(0);
+    let dir = temporary_dir();
+    std::fs::create_dir_all(&dir).map_err(|e| format!("cannot create {}: {e}", dir.display()))?;
+    let stem = Path::new(original)
+        .file_stem()
+        .map(|s| s.to_string_lossy().to_string())
+        .unwrap_or_default();
+    let n = NEXT.fetch_add(1, Ordering::Relaxed);
+    Ok(dir.join(format!("{n}-{stem}.{extension}")))
+}
+
+fn temporary_dir() -> std::path::PathBuf {
+    std::env::temp_dir().join(format!("posterity-{}", std::process::id()))
+}
+
+/// Remove the files this process wrote for the engine to read (decompressed and
+/// converted copies). Call it when no table registered from them will be read again.
+pub fn remove_temporaries() {
+    let _ = std::fs::remove_dir_all(temporary_dir());
 }
 
 /// Checks the engine does not make, so that broken files fail at registration with

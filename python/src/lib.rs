@@ -734,6 +734,13 @@ impl Bundle {
     }
 }
 
+/// Remove the copies of input files written for the engine (decompressed `.gz`
+/// files, JSON arrays as NDJSON); called when the interpreter exits.
+#[pyfunction]
+fn remove_temporaries() {
+    posterity::files::remove_temporaries();
+}
+
 #[pymodule]
 fn _posterity(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add("Error", m.py().get_type::<Error>())?;
@@ -749,5 +756,6 @@ fn _posterity(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(documentation, m)?)?;
     m.add_function(wrap_pyfunction!(engine_version, m)?)?;
     m.add_function(wrap_pyfunction!(encode_data, m)?)?;
+    m.add_function(wrap_pyfunction!(remove_temporaries, m)?)?;
     Ok(())
 }

@@ -162,6 +162,16 @@ def test_encode_equals_the_shell(tmp_path):
     assert enc.report is None
 
 
+def test_a_gzip_file_encodes_like_the_file_inside(tmp_path):
+    import gzip
+    packed = tmp_path / "appointments.csv.gz"
+    packed.write_bytes(gzip.compress(SAMPLE.read_bytes()))
+    plain = posterity.encode(SAMPLE, target="no_show", score=SAMPLE, **OPTIONS)
+    enc = posterity.encode(packed, target="no_show", score=packed, **OPTIONS)
+    same(table_rows(enc.train_encoded), table_rows(plain.train_encoded), "train_encoded")
+    same(table_rows(enc.scored), table_rows(plain.scored), "scored")
+
+
 def test_fitted_half_life_is_reported_per_key():
     enc = posterity.encode(SAMPLE, target="no_show", columns=["breed", "vet"], time_column="day",
                            half_life="fitted")

@@ -23,7 +23,8 @@ pub struct Args {
     /// SQL script to run (repeatable).
     #[arg(short = 'f', long = "file", value_name = "PATH")]
     files: Vec<PathBuf>,
-    /// Register a table: NAME=PATH, PATH a Parquet/CSV/TSV/NDJSON file, a directory or a glob.
+    /// Register a table: NAME=PATH, PATH a Parquet/CSV/TSV/NDJSON file, a directory or a glob
+    /// (a single file may be gzip-compressed: name.csv.gz).
     #[arg(short = 't', long = "table", value_name = "NAME=PATH")]
     tables: Vec<String>,
     /// Output format (default: from the --output extension, else table).

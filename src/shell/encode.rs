@@ -53,7 +53,8 @@ pub enum TimeTies {
 
 #[derive(clap::Args, Debug, Clone)]
 pub struct EncodeArgs {
-    /// Training file (Parquet, CSV, TSV or NDJSON); with --update, the new rows.
+    /// Training file (Parquet, CSV, TSV or NDJSON, also gzip-compressed: name.csv.gz); with
+    /// --update, the new rows.
     #[arg(long)]
     pub train: String,
     /// Target column (with --update, taken from the previous bundle).

@@ -176,6 +176,93 @@ fn tables_from_directory_and_glob() {
     }
 }
 
+/// Runs posterity and returns its output with the directory where it kept copies of
+/// input files (named by the child's process id), which must be gone when it ends.
+fn run_and_temporaries(args: &[&str]) -> (Output, PathBuf) {
+    let child = bin()
+        .args(args)
+        .stdout(Stdio::piped())
+        .stderr(Stdio::piped())
+        .spawn()
+        .expect("run posterity");
+    let copies = std::env::temp_dir().join(format!("posterity-{}", child.id()));
+    (child.wait_with_output().unwrap(), copies)
+}
+
+#[test]
+fn gzip_files_read_like_the_files_inside() {
+    use std::io::Write as _;
+    let dir = temp_dir("gzip");
+    let plain = std::fs::read(data("small.csv")).unwrap();
+    let gz = dir.join("small.csv.gz");
+    let mut encoder =
+        flate2::write::GzEncoder::new(std::fs::File::create(&gz).unwrap(), Default::default());
+    encoder.write_all(&plain).unwrap();
+    encoder.finish().unwrap();
+    let fit = |path: &str| {
+        run_and_temporaries(&[
+            "--table",
+            &format!("s={path}"),
+            "--csv-null",
+            "NA",
+            "--format",
+            "csv",
+            "-c",
+            FIT,
+        ])
+    };
+    let (expected, _) = fit(&data("small.csv"));
+    let (o, copies) = fit(&gz.display().to_string());
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert_eq!(stdout(&o), stdout(&expected));
+    assert!(!copies.exists(), "{} left behind", copies.display());
+
+    // A truncated gzip file: refused with its own name, not the copy's.
+    let bytes = std::fs::read(&gz).unwrap();
+    let cut = dir.join("cut.csv.gz");
+    std::fs::write(&cut, &bytes[..bytes.len() / 2]).unwrap();
+    let (o, copies) = fit(&cut.display().to_string());
+    assert_eq!(o.status.code(), Some(1));
+    assert!(
+        stderr(&o).contains(&format!("{} is not a complete gzip file", cut.display())),
+        "{}",
+        stderr(&o)
+    );
+    assert!(!copies.exists());
+    // A gzip file whose name does not say what is inside.
+    let odd = dir.join("small.gz");
+    std::fs::copy(&gz, &odd).unwrap();
+    let (o, _) = fit(&odd.display().to_string());
+    assert!(stderr(&o).contains("name it .csv.gz"), "{}", stderr(&o));
+}
+
+#[test]
+fn json_arrays_with_one_file_name_stay_apart() {
+    // Each JSON array is read through its own NDJSON copy: two files named alike in
+    // different directories once shared one copy, and both tables read the last one.
+    let dir = temp_dir("json-names");
+    for (sub, rows) in [
+        ("x", r#"[{"a":1},{"a":2}]"#),
+        ("y", r#"[{"a":10},{"a":20},{"a":30}]"#),
+    ] {
+        std::fs::create_dir_all(dir.join(sub)).unwrap();
+        std::fs::write(dir.join(sub).join("data.json"), rows).unwrap();
+    }
+    let (o, copies) = run_and_temporaries(&[
+        "--format",
+        "csv",
+        "-t",
+        &format!("p={}", dir.join("x/data.json").display()),
+        "-t",
+        &format!("q={}", dir.join("y/data.json").display()),
+        "-c",
+        "SELECT (SELECT SUM(a) FROM p) AS p, (SELECT SUM(a) FROM q) AS q",
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert_eq!(stdout(&o), "p,q\n3,60\n");
+    assert!(!copies.exists(), "{} left behind", copies.display());
+}
+
 #[test]
 fn copy_to_parquet_and_read_back() {
     let dir = temp_dir("copy");

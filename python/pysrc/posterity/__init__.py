@@ -17,6 +17,7 @@ whose message names the function, the argument and what is allowed.
 
 from __future__ import annotations
 
+import atexit
 import json
 import os
 from types import SimpleNamespace
@@ -27,6 +28,9 @@ import pyarrow.dataset  # noqa: F401 (pa.dataset.Dataset inputs)
 
 from . import _posterity
 from ._posterity import Error
+
+# Input files read from decompressed or converted copies: removed when Python exits.
+atexit.register(_posterity.remove_temporaries)
 
 __all__ = ["Bundle", "Encoded", "Error", "doc", "encode", "engine_version", "functions",
            "register"]
@@ -243,7 +247,8 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
            **options) -> Encoded:
     """Training encodings, encoding tables, a serving bundle and (with ``score``) scored rows.
 
-    ``train`` and ``score``: a file path (Parquet, CSV, TSV, NDJSON), a pyarrow Table or
+    ``train`` and ``score``: a file path (Parquet, CSV, TSV, NDJSON; ``name.csv.gz`` and the
+    like are read from a decompressed copy), a pyarrow Table or
     Dataset, a pandas DataFrame (a named index is read as a column) or a polars DataFrame or
     LazyFrame. The options are the shell's ``encode`` flags with
     underscores: ``interactions=[["breed", "clinic"]]``, ``family``, ``prior`` ("fitted",
