@@ -214,13 +214,7 @@ async fn register_csv(
 /// For a file holding one JSON array of objects: the same rows as NDJSON in a
 /// temporary file (see `temporary_path`); any other path unchanged.
 fn json_array_as_ndjson(path: &str) -> Result<String, String> {
-    use std::io::Read;
-    let Ok(mut file) = std::fs::File::open(path) else {
-        return Ok(path.to_string());
-    };
-    let mut head = [0u8; 64];
-    let n = file.read(&mut head).unwrap_or(0);
-    if head[..n].iter().find(|b| !b.is_ascii_whitespace()) != Some(&b'[') {
+    if !is_json_array(path) {
         return Ok(path.to_string());
     }
     let text = std::fs::read_to_string(path).map_err(|e| format!("cannot read {path}: {e}"))?;
@@ -247,6 +241,25 @@ fn json_array_as_ndjson(path: &str) -> Result<String, String> {
     let tmp = temporary_path(path, "json")?;
     std::fs::write(&tmp, out).map_err(|e| format!("cannot write {}: {e}", tmp.display()))?;
     Ok(tmp.display().to_string())
+}
+
+/// What makes the file at `path` read from a temporary copy (see `temporary_path`), if
+/// anything: "a gzip file" or "a JSON array".
+pub fn read_from_copy(path: &str) -> Option<&'static str> {
+    if is_gzip(path) {
+        return Some("a gzip file");
+    }
+    (file_kind(path) == Some(FileKind::Json) && is_json_array(path)).then_some("a JSON array")
+}
+
+/// Whether the file at `path` starts with '[' (a JSON array, not NDJSON).
+fn is_json_array(path: &str) -> bool {
+    use std::io::Read as _;
+    let mut head = [0u8; 64];
+    let n = std::fs::File::open(path)
+        .and_then(|mut f| f.read(&mut head))
+        .unwrap_or(0);
+    head[..n].iter().find(|b| !b.is_ascii_whitespace()) == Some(&b'[')
 }
 
 fn is_gzip(path: &str) -> bool {

@@ -5,8 +5,5 @@
 static ALLOCATOR: mimalloc::MiMalloc = mimalloc::MiMalloc;
 
 fn main() -> std::process::ExitCode {
-    let code = posterity::shell::cli::main(None);
-    // Decompressed and converted copies of input files live only as long as the run.
-    posterity::files::remove_temporaries();
-    code
+    posterity::shell::cli::main(None)
 }

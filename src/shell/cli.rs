@@ -113,7 +113,10 @@ pub fn main(connect: Option<Connect>) -> ExitCode {
             return ExitCode::from(1);
         }
     };
-    match runtime.block_on(run(args, connect)) {
+    let result = runtime.block_on(run(args, connect));
+    // Decompressed and converted copies of input files live only as long as the run.
+    crate::files::remove_temporaries();
+    match result {
         Ok(()) => ExitCode::SUCCESS,
         // Standard output closed by its reader (`| head`): a quiet success.
         Err(f) if f.code == 0 => ExitCode::SUCCESS,
@@ -234,6 +237,7 @@ async fn run(args: Args, connect: Option<Connect>) -> Result<(), Failure> {
     };
     let shell = Shell {
         ctx,
+        cluster: args.cluster.is_some(),
         format,
         interactive,
         output: args.output.clone(),

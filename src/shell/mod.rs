@@ -32,6 +32,8 @@ pub struct Shell {
     pub csv: CsvOptions,
     /// At the interactive prompt: Ctrl-C cancels the running query, not the shell.
     pub interactive: bool,
+    /// Statements run on a cluster, whose executors read files by their paths.
+    pub cluster: bool,
 }
 
 /// Write `text` to standard output. A reader that went away (`| head`) ends the
@@ -171,6 +173,13 @@ impl Shell {
         option: &str,
         text: &[String],
     ) -> Result<(), Failure> {
+        if let Some(kind) = crate::files::read_from_copy(path).filter(|_| self.cluster) {
+            return Err(Failure::usage(format!(
+                "{option}: '{path}' is {kind}, which is read from a copy on this machine, and \
+                 the cluster's executors read files by their paths; decompress or convert it \
+                 where every executor can read it (Parquet, CSV or NDJSON)"
+            )));
+        }
         let mut csv = self.csv.clone();
         csv.text.extend_from_slice(text);
         crate::files::register(&self.ctx, name, path, &csv)

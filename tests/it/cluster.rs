@@ -295,6 +295,18 @@ fn the_cluster_gives_the_single_process_numbers() {
         let got = json(&cluster.shell(&args), what);
         same(&want, &got, what);
     }
+    // A gzip file is read from a copy on the client's machine, which other machines'
+    // executors cannot see: refused in words instead of failing on a missing path.
+    let packed =
+        std::env::temp_dir().join(format!("posterity-cluster-{}.csv.gz", std::process::id()));
+    std::fs::write(&packed, [0x1f, 0x8b]).unwrap();
+    let o = cluster.shell(&["-t", &format!("g={}", packed.display()), "-c", "SELECT 1"]);
+    let err = String::from_utf8_lossy(&o.stderr);
+    assert!(
+        o.status.code() == Some(2) && err.contains("is a gzip file") && err.contains("executors"),
+        "{err}"
+    );
+    std::fs::remove_file(&packed).ok();
 }
 
 #[test]
