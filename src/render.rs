@@ -1,5 +1,5 @@
-//! Readable text for numbers and posteriors (tables, summaries); CSV, JSON and
-//! Parquet keep full values.
+//! Readable text for numbers and posteriors (tables, summaries) and for the engine's
+//! errors; CSV, JSON and Parquet keep full values.
 
 /// Six significant digits, trailing zeros dropped.
 pub fn short(v: f64) -> String {
@@ -62,4 +62,27 @@ pub fn describe(p: &crate::layout::AnyPosterior) -> String {
             format!("Dirichlet({})", parts.join(", "))
         }
     }
+}
+
+/// DataFusion errors without the engine's internal prefixes or backtraces.
+pub fn engine_error(e: datafusion::error::DataFusionError) -> String {
+    let text = e.to_string();
+    let mut text = text
+        .split("\n\nbacktrace")
+        .next()
+        .unwrap_or(&text)
+        .to_string();
+    // Our own argument errors arrive wrapped in the engine's signature-matching text.
+    if let Some((_, inner)) = text
+        .clone()
+        .split_once("user-defined coercion failed with: ")
+    {
+        text = inner
+            .split(". No function matches")
+            .next()
+            .unwrap_or(inner)
+            .to_string();
+    }
+    text.replace("Execution error: ", "")
+        .replace("Error during planning: ", "")
 }

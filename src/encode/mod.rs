@@ -74,7 +74,7 @@ impl std::error::Error for EncodeError {}
 
 impl From<datafusion::error::DataFusionError> for EncodeError {
     fn from(e: datafusion::error::DataFusionError) -> Self {
-        EncodeError::Query(e.strip_backtrace())
+        EncodeError::Query(crate::render::engine_error(e))
     }
 }
 

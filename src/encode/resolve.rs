@@ -972,7 +972,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         .await?
         .collect()
         .await
-        .map_err(|e| EncodeError::Usage(format!("--prior: {}", e.strip_backtrace())))?;
+        .map_err(|e| EncodeError::Usage(format!("--prior: {}", crate::render::engine_error(e))))?;
 
     // As-of encodings order rows by time and recency weights age them: NaN has no
     // place in either.

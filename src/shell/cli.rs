@@ -68,6 +68,8 @@ enum Command {
     /// Print the function reference, or one function's documentation.
     Functions { name: Option<String> },
     /// Leak-free training encodings, encoding tables, a serving bundle and a scored file.
+    // A negative number is a value (`--half-life -1` is refused by its range, in words).
+    #[command(allow_negative_numbers = true)]
     Encode(Box<super::encode::EncodeArgs>),
     /// Generate the invented veterinary-clinics data and run the whole job on it.
     Demo {

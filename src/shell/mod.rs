@@ -297,10 +297,13 @@ impl Shell {
             .ctx
             .sql(sql)
             .await
-            .map_err(|e| Failure::query(clean(e)))?;
+            .map_err(|e| Failure::query(crate::render::engine_error(e)))?;
         let progress = !self.quiet && std::io::stderr().is_terminal();
         if !progress && !self.interactive {
-            return df.collect().await.map_err(|e| Failure::query(clean(e)));
+            return df
+                .collect()
+                .await
+                .map_err(|e| Failure::query(crate::render::engine_error(e)));
         }
         // At a terminal: a live progress line (elapsed time, rows read by the scans);
         // at the prompt, Ctrl-C cancels the query and keeps the session.
@@ -308,7 +311,7 @@ impl Shell {
         let plan = df
             .create_physical_plan()
             .await
-            .map_err(|e| Failure::query(clean(e)))?;
+            .map_err(|e| Failure::query(crate::render::engine_error(e)))?;
         let started = Instant::now();
         let mut run = tokio::spawn(datafusion::physical_plan::collect(plan.clone(), task));
         let mut shown = false;
@@ -341,7 +344,7 @@ impl Shell {
                 "cancelled (Ctrl-C) after {}; tables and settings are kept",
                 elapsed(started)
             ))),
-            Some(Ok(r)) => r.map_err(|e| Failure::query(clean(e))),
+            Some(Ok(r)) => r.map_err(|e| Failure::query(crate::render::engine_error(e))),
             Some(Err(e)) => Err(Failure::query(format!("query task failed: {e}"))),
         }
     }
@@ -535,29 +538,6 @@ fn rows_read(plan: &dyn datafusion::physical_plan::ExecutionPlan) -> usize {
     } else {
         children.iter().map(|c| rows_read(c.as_ref())).sum()
     }
-}
-
-/// DataFusion errors without the engine's internal prefixes or backtraces.
-fn clean(e: datafusion::error::DataFusionError) -> String {
-    let text = e.to_string();
-    let mut text = text
-        .split("\n\nbacktrace")
-        .next()
-        .unwrap_or(&text)
-        .to_string();
-    // Our own argument errors arrive wrapped in the engine's signature-matching text.
-    if let Some((_, inner)) = text
-        .clone()
-        .split_once("user-defined coercion failed with: ")
-    {
-        text = inner
-            .split(". No function matches")
-            .next()
-            .unwrap_or(inner)
-            .to_string();
-    }
-    text.replace("Execution error: ", "")
-        .replace("Error during planning: ", "")
 }
 
 /// A cluster reports a task an executor could not decode only as "rejected"; for

@@ -1797,6 +1797,10 @@ async fn as_of_half_life_weights_earlier_rows_by_their_age() {
             "--half-life 0 is out of range; allowed: a finite number > 0",
         ),
         (
+            "-1",
+            "--half-life -1 is out of range; allowed: a finite number > 0",
+        ),
+        (
             "soon",
             "--half-life 'soon' is not a number of time units or 'fitted'",
         ),
@@ -1932,6 +1936,10 @@ async fn as_of_horizon_reads_only_rows_that_old() {
         (
             &["--half-life", "30", "--horizon", "0"],
             "--horizon 0 is out of range; allowed: a finite number > 0",
+        ),
+        (
+            &["--horizon", "-2"],
+            "--horizon -2 is out of range; allowed: a finite number > 0",
         ),
         (
             &["--horizon", "nan"],
@@ -3568,12 +3576,19 @@ fn options_that_carry_nothing_are_refused() {
             vec!["--interactions", "breed:clinic:breed"],
             vec!["--interactions", "'breed:clinic:breed' names 'breed' twice"],
         ),
+        // A prior's numbers out of range, in the function's words without the
+        // engine's prefix ("Execution error: ").
+        (
+            vec!["--prior", "0,1"],
+            vec!["--prior: beta_prior: argument a = 0 is out of range"],
+        ),
     ] {
         let args = [&base[..], &extra, &["--out", out.to_str().unwrap()]].concat();
         let stderr = encode_refusal(&args);
         for f in fragments {
             assert!(stderr.contains(f), "{extra:?}: {stderr}");
         }
+        assert!(!stderr.contains("Execution error"), "{extra:?}: {stderr}");
         assert!(!out.exists(), "{extra:?}");
     }
     // Inside the range the reader is written.
