@@ -1,8 +1,9 @@
 //! Registering files as tables: Parquet, CSV, TSV, NDJSON and JSON arrays, a file,
-//! a directory of files or a glob, a single file also gzip-compressed (`.csv.gz`), with checks the engine does not make (broken
-//! Parquet, empty CSV, unterminated quotes, CSV directories whose headers disagree)
-//! so that a broken file fails at registration with its name. Used by the shell
-//! and by every front end that reads files for `encode`.
+//! a directory of files or a glob (a single file also gzip-compressed, `.csv.gz`),
+//! with checks the engine does not make (broken Parquet, empty CSV, unterminated
+//! quotes, CSV directories whose headers disagree) so that a broken file fails at
+//! registration with its name. Used by the shell and by every front end that reads
+//! files for `encode`.
 
 use std::path::Path;
 
