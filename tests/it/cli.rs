@@ -158,6 +158,10 @@ fn script_file_and_stdin() {
     let o = child.wait_with_output().unwrap();
     assert!(o.status.success(), "{}", stderr(&o));
     assert_eq!(stdout(&o), "n\n5\ntwo\n2\n");
+    // SQL pasted with a leading `--` comment is SQL, not an option.
+    let o = run(&["--format", "csv", "-c", "-- how many\nSELECT 1 + 1 AS two"]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert_eq!(stdout(&o), "two\n2\n");
 }
 
 #[test]
