@@ -1321,6 +1321,14 @@ pub(super) fn check_output_names(plan: &EncodePlan) -> Result<()> {
                      rename the column or choose other readers"
                 ));
             }
+            // The scored file keeps the scoring table's columns beside the encodings
+            // (a file scored before, given again, holds them already).
+            if plan.score_columns.contains(&name) {
+                return usage(format!(
+                    "the output column '{name}' of key '{spelled}' would repeat the scoring \
+                     table's column '{name}' (a file scored before?); drop or rename that column"
+                ));
+            }
         }
     }
     Ok(())

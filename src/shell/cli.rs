@@ -19,7 +19,12 @@ use super::{CsvOptions, Failure, Shell};
 pub struct Args {
     /// SQL to run (repeatable; several statements may be separated by ';').
     // SQL may start with a `--` comment: the value is taken as given.
-    #[arg(short = 'c', long = "command", value_name = "SQL", allow_hyphen_values = true)]
+    #[arg(
+        short = 'c',
+        long = "command",
+        value_name = "SQL",
+        allow_hyphen_values = true
+    )]
     commands: Vec<String>,
     /// SQL script to run (repeatable).
     #[arg(short = 'f', long = "file", value_name = "PATH")]

@@ -3602,6 +3602,52 @@ fn options_that_carry_nothing_are_refused() {
     assert!(out.join("train_encoded.parquet").exists());
 }
 
+// An output column named like an input column: a training table with a column of the
+// same name, or a file scored before given to --score again (the engine once failed
+// with "Schema error: ... ambiguous"). Refused in words, nothing written.
+#[tokio::test]
+async fn output_names_that_repeat_an_input_column_are_refused() {
+    let dir = temp_dir("repeated-names");
+    let out = dir.join("out");
+    let scored_before = dir.join("scored_before.parquet");
+    sample_to_parquet(
+        "SELECT breed, no_show, 0.5 AS breed_mean FROM a",
+        &scored_before,
+    )
+    .await;
+    let sample = sample();
+    let scored_before = scored_before.to_str().unwrap();
+    for (train, score, expected) in [
+        (
+            scored_before,
+            None,
+            "the output column 'breed_mean' of key 'breed' would repeat the training column 'breed_mean'",
+        ),
+        (
+            sample.as_str(),
+            Some(scored_before),
+            "the output column 'breed_mean' of key 'breed' would repeat the scoring table's column 'breed_mean'",
+        ),
+    ] {
+        let mut args = vec![
+            "--train",
+            train,
+            "--target",
+            "no_show",
+            "--columns",
+            "breed",
+            "--out",
+            out.to_str().unwrap(),
+        ];
+        if let Some(score) = score {
+            args.extend(["--score", score]);
+        }
+        let stderr = encode_refusal(&args);
+        assert!(stderr.contains(expected), "{stderr}");
+        assert!(!out.exists());
+    }
+}
+
 // An integer key read as floats — what pandas makes of an integer column holding a
 // missing value — meets the levels it was trained with, in the scored file and
 // through the bundle, and NaN is a NULL key (`key_text`). A bundle written before
