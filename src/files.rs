@@ -306,22 +306,45 @@ fn decompressed_copy(path: &str) -> Result<String, String> {
         ));
     }
     let copy = temporary_path(inner, &extension)?;
-    let mut reader = flate2::read::MultiGzDecoder::new(std::io::BufReader::new(file));
-    let mut writer = std::io::BufWriter::new(
-        std::fs::File::create(&copy)
-            .map_err(|e| format!("cannot write {}: {e}", copy.display()))?,
-    );
-    let written = std::io::copy(&mut reader, &mut writer).and_then(|_| {
-        use std::io::Write as _;
-        writer.flush()
-    });
-    if let Err(e) = written {
-        let _ = std::fs::remove_file(&copy);
-        return Err(format!(
+    let reader = flate2::read::MultiGzDecoder::new(std::io::BufReader::new(file));
+    let failure = match decompress(reader, &copy) {
+        Ok(()) => None,
+        Err(Side::Read(e)) => Some(format!(
             "{path} is not a complete gzip file (truncated or another format): {e}"
-        ));
+        )),
+        Err(Side::Write(e)) => Some(format!(
+            "cannot write the decompressed copy of {path} to {}: {e} (set TMPDIR to a \
+             directory with room for it)",
+            copy.display()
+        )),
+    };
+    if let Some(message) = failure {
+        let _ = std::fs::remove_file(&copy);
+        return Err(message);
     }
     Ok(copy.display().to_string())
+}
+
+/// Which side of a copy failed: a full disk is not a broken file.
+enum Side {
+    Read(std::io::Error),
+    Write(std::io::Error),
+}
+
+fn decompress(mut reader: impl std::io::Read, to: &Path) -> Result<(), Side> {
+    use std::io::Write as _;
+    let mut writer = std::io::BufWriter::new(std::fs::File::create(to).map_err(Side::Write)?);
+    let mut buffer = vec![0u8; 1 << 16];
+    loop {
+        let n = match reader.read(&mut buffer) {
+            Ok(0) => break,
+            Ok(n) => n,
+            Err(e) if e.kind() == std::io::ErrorKind::Interrupted => continue,
+            Err(e) => return Err(Side::Read(e)),
+        };
+        writer.write_all(&buffer[..n]).map_err(Side::Write)?;
+    }
+    writer.flush().map_err(Side::Write)
 }
 
 /// A fresh path for a file written for the engine to read (a JSON array as NDJSON, a
