@@ -138,7 +138,8 @@ pub struct EncodeArgs {
     /// Seed of the fold assignment.
     #[arg(long, default_value_t = 0)]
     pub seed: u64,
-    /// File to score with the encodings (unseen levels and NULL keys get the prior).
+    /// File to score with the encodings, in the formats --train reads (unseen levels and
+    /// NULL keys get the prior).
     #[arg(long)]
     pub score: Option<String>,
     /// The data behind each level that scored rows read: matched (default; (k-1)/k of
