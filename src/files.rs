@@ -1,5 +1,5 @@
 //! Registering files as tables: Parquet, CSV, TSV, NDJSON and JSON arrays, a file,
-//! a directory of files or a glob (a single file also gzip-compressed, `.csv.gz`),
+//! a directory of files or a glob (a file or a directory's files also gzip-compressed),
 //! with checks the engine does not make (broken Parquet, empty CSV, unterminated
 //! quotes, CSV directories whose headers disagree) so that a broken file fails at
 //! registration with its name. Used by the shell and by every front end that reads
@@ -64,10 +64,17 @@ pub async fn register(
     path: &str,
     csv: &CsvOptions,
 ) -> Result<(), FileError> {
+    if Path::new(path).is_dir() && file_kind(path).is_some() && gzip_inside(path) {
+        // The listing would read the plain files and skip the rest without a word.
+        return Err(FileError::Usage(format!(
+            "'{path}' holds both gzip and uncompressed data files, and only one kind would be \
+             read; keep one kind in the directory"
+        )));
+    }
     if !is_gzip(path) {
         return register_plain(ctx, name, path, csv).await;
     }
-    // A gzip file is read from a decompressed copy; messages name the file given.
+    // Gzip files are read from decompressed copies; messages name the path given.
     let copy = decompressed_copy(path).map_err(FileError::Read)?;
     let shown = |m: String| m.replace(&copy, path);
     register_plain(ctx, name, &copy, csv)
@@ -90,17 +97,10 @@ async fn register_plain(
 ) -> Result<(), FileError> {
     let text: Vec<&str> = csv.text.iter().map(String::as_str).collect();
     let format = file_kind(path).ok_or_else(|| {
-        FileError::Usage(if gzip_inside(path) {
-            format!(
-                "'{path}' holds gzip files: name each .gz file as a table of its own, or \
-                 decompress them into the directory"
-            )
-        } else {
-            format!(
-                "cannot tell the format of '{path}'; use a .parquet, .csv, .tsv, .json or \
-                 .ndjson path (a single file may also end in .gz)"
-            )
-        })
+        FileError::Usage(format!(
+            "cannot tell the format of '{path}'; use a .parquet, .csv, .tsv, .json or .ndjson \
+             path (also gzip-compressed: .csv.gz)"
+        ))
     })?;
     if !path.contains('*') && !Path::new(path).exists() {
         return Err(FileError::Read(format!("'{path}' does not exist")));
@@ -263,15 +263,16 @@ fn is_json_array(path: &str) -> bool {
     head[..n].iter().find(|b| !b.is_ascii_whitespace()) == Some(&b'[')
 }
 
+/// A gzip file, or a directory whose data files are all gzip files.
 fn is_gzip(path: &str) -> bool {
-    path.to_ascii_lowercase().ends_with(".gz") && !Path::new(path).is_dir()
+    if Path::new(path).is_dir() {
+        return file_kind(path).is_none() && gzip_inside(path);
+    }
+    path.to_ascii_lowercase().ends_with(".gz")
 }
 
-/// Whether `path` is a directory or glob whose files are gzip files.
+/// Whether the directory at `path` holds gzip files.
 fn gzip_inside(path: &str) -> bool {
-    if path.contains('*') {
-        return path.to_ascii_lowercase().ends_with(".gz");
-    }
     std::fs::read_dir(path).is_ok_and(|entries| {
         entries.filter_map(|e| e.ok()).any(|e| {
             e.file_name()
@@ -283,46 +284,97 @@ fn gzip_inside(path: &str) -> bool {
 }
 
 /// The file at `path` (`name.csv.gz` and the like) decompressed into a temporary file
-/// named like it without `.gz`, so that the format is told from the name as usual.
+/// named like it without `.gz`, so that the format is told from the name as usual; for a
+/// directory of gzip files (`part-0.csv.gz`, ...), a temporary directory of their copies.
 fn decompressed_copy(path: &str) -> Result<String, String> {
     if path.contains('*') {
         return Err(format!(
-            "'{path}': gzip files are read one at a time; name each .gz file as a table of its own"
+            "'{path}': gzip files are not read through a glob; name the directory that holds \
+             them, or each .gz file as a table of its own"
         ));
     }
-    let file = std::fs::File::open(path).map_err(|e| match e.kind() {
-        std::io::ErrorKind::NotFound => format!("'{path}' does not exist"),
-        _ => format!("cannot open {path}: {e}"),
-    })?;
+    if !Path::new(path).exists() {
+        return Err(format!("'{path}' does not exist"));
+    }
+    if !Path::new(path).is_dir() {
+        let (inner, extension) = inner_name(path)?;
+        let copy = temporary_path(&inner, &extension)?;
+        decompress_file(path, &copy)?;
+        return Ok(copy.display().to_string());
+    }
+    let mut files: Vec<_> = std::fs::read_dir(path)
+        .map_err(|e| format!("cannot list {path}: {e}"))?
+        .filter_map(|e| e.ok().map(|e| e.path()))
+        .filter(|f| {
+            let name = f
+                .file_name()
+                .unwrap_or_default()
+                .to_string_lossy()
+                .to_string();
+            let gzip = name.to_ascii_lowercase().ends_with(".gz");
+            f.is_file() && gzip && !name.starts_with('.') && !name.starts_with('_')
+        })
+        .collect();
+    files.sort();
+    let copies = temporary_path(path, "d")?;
+    std::fs::create_dir(&copies).map_err(|e| format!("cannot create {}: {e}", copies.display()))?;
+    let mut kinds = Vec::new();
+    for file in &files {
+        let shown = file.display().to_string();
+        let (inner, _) = inner_name(&shown)?;
+        kinds.push(kind_of_name(&inner));
+        let name = Path::new(&inner).file_name().unwrap_or_default();
+        decompress_file(&shown, &copies.join(name))?;
+    }
+    kinds.dedup();
+    if kinds.len() > 1 {
+        return Err(format!(
+            "'{path}' holds gzip files of more than one format; give a directory of one format"
+        ));
+    }
+    Ok(copies.display().to_string())
+}
+
+/// `name.csv` and `csv` for `name.csv.gz`; refused when the name hides the format.
+fn inner_name(path: &str) -> Result<(String, String), String> {
+    let refused = || {
+        format!(
+            "cannot tell the format of '{path}'; name it .csv.gz, .tsv.gz, .json.gz, \
+             .ndjson.gz or .parquet.gz"
+        )
+    };
+    if !path.to_ascii_lowercase().ends_with(".gz") {
+        return Err(refused());
+    }
+    // ".gz" is ASCII, so the cut falls between characters.
     let inner = &path[..path.len() - ".gz".len()];
+    if kind_of_name(inner).is_none() {
+        return Err(refused());
+    }
     let extension = Path::new(inner)
         .extension()
         .map(|e| e.to_string_lossy().to_string())
         .unwrap_or_default();
-    if kind_of_name(inner).is_none() {
-        return Err(format!(
-            "cannot tell the format of '{path}'; name it .csv.gz, .tsv.gz, .json.gz, \
-             .ndjson.gz or .parquet.gz"
-        ));
-    }
-    let copy = temporary_path(inner, &extension)?;
+    Ok((inner.to_string(), extension))
+}
+
+/// The gzip file at `path` decompressed into `copy` (removed again on failure).
+fn decompress_file(path: &str, copy: &Path) -> Result<(), String> {
+    let file = std::fs::File::open(path).map_err(|e| format!("cannot open {path}: {e}"))?;
     let reader = flate2::read::MultiGzDecoder::new(std::io::BufReader::new(file));
-    let failure = match decompress(reader, &copy) {
-        Ok(()) => None,
-        Err(Side::Read(e)) => Some(format!(
-            "{path} is not a complete gzip file (truncated or another format): {e}"
-        )),
-        Err(Side::Write(e)) => Some(format!(
+    let failure = match decompress(reader, copy) {
+        Ok(()) => return Ok(()),
+        Err(Side::Read(e)) => {
+            format!("{path} is not a complete gzip file (truncated or another format): {e}")
+        }
+        Err(Side::Write(e)) => format!(
             "cannot write the decompressed copy of {path} to {}: {e} (set TMPDIR to a \
              directory with room for it)",
             copy.display()
-        )),
+        ),
     };
-    if let Some(message) = failure {
-        let _ = std::fs::remove_file(&copy);
-        return Err(message);
-    }
-    Ok(copy.display().to_string())
+    let _ = std::fs::remove_file(copy);
+    Err(failure)
 }
 
 /// Which side of a copy failed: a full disk is not a broken file.

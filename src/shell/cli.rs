@@ -30,7 +30,7 @@ pub struct Args {
     #[arg(short = 'f', long = "file", value_name = "PATH")]
     files: Vec<PathBuf>,
     /// Register a table: NAME=PATH, PATH a Parquet/CSV/TSV/NDJSON file, a directory or a glob
-    /// (a single file may be gzip-compressed: name.csv.gz).
+    /// (a file or a directory's files may be gzip-compressed: name.csv.gz).
     #[arg(short = 't', long = "table", value_name = "NAME=PATH")]
     tables: Vec<String>,
     /// Output format (default: from the --output extension, else table).

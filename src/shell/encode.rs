@@ -53,7 +53,8 @@ pub enum TimeTies {
 
 #[derive(clap::Args, Debug, Clone)]
 pub struct EncodeArgs {
-    /// Training file (Parquet, CSV, TSV or NDJSON, also gzip-compressed: name.csv.gz); with
+    /// Training file or directory (Parquet, CSV, TSV or NDJSON, also gzip-compressed:
+    /// name.csv.gz); with
     /// --update, the new rows.
     #[arg(long)]
     pub train: String,

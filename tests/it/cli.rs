@@ -233,6 +233,36 @@ fn gzip_files_read_like_the_files_inside() {
         stderr(&o)
     );
     assert!(!copies.exists());
+    // A directory of gzip parts, as exports write them (`_SUCCESS` markers skipped):
+    // read like the directory of the files inside.
+    let parts = dir.join("parts");
+    std::fs::create_dir_all(&parts).unwrap();
+    let text = String::from_utf8(plain.clone()).unwrap();
+    let (header, rows) = text.split_once('\n').unwrap();
+    let rows: Vec<&str> = rows.lines().collect();
+    for (i, half) in rows.chunks(rows.len().div_ceil(2)).enumerate() {
+        let mut encoder = flate2::write::GzEncoder::new(
+            std::fs::File::create(parts.join(format!("part-{i}.csv.gz"))).unwrap(),
+            Default::default(),
+        );
+        encoder
+            .write_all(format!("{header}\n{}\n", half.join("\n")).as_bytes())
+            .unwrap();
+        encoder.finish().unwrap();
+    }
+    std::fs::write(parts.join("_SUCCESS"), "").unwrap();
+    let (o, copies) = fit(&parts.display().to_string());
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert_eq!(stdout(&o), stdout(&expected));
+    assert!(!copies.exists());
+    // Plain files beside gzip files: the listing would read only the plain ones.
+    std::fs::copy(data("small.csv"), parts.join("more.csv")).unwrap();
+    let (o, _) = fit(&parts.display().to_string());
+    assert!(
+        stderr(&o).contains("holds both gzip and uncompressed data files"),
+        "{}",
+        stderr(&o)
+    );
     // A gzip file whose name does not say what is inside.
     let odd = dir.join("small.gz");
     std::fs::copy(&gz, &odd).unwrap();
