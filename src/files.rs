@@ -64,14 +64,7 @@ pub async fn register(
     path: &str,
     csv: &CsvOptions,
 ) -> Result<(), FileError> {
-    if Path::new(path).is_dir() && file_kind(path).is_some() && gzip_inside(path) {
-        // The listing would read the plain files and skip the rest without a word.
-        return Err(FileError::Usage(format!(
-            "'{path}' holds both gzip and uncompressed data files, and only one kind would be \
-             read; keep one kind in the directory"
-        )));
-    }
-    if !is_gzip(path) {
+    if !is_gzip(path).map_err(FileError::Usage)? {
         return register_plain(ctx, name, path, csv).await;
     }
     // Gzip files are read from decompressed copies; messages name the path given.
@@ -247,7 +240,7 @@ fn json_array_as_ndjson(path: &str) -> Result<String, String> {
 /// What makes the file at `path` read from a temporary copy (see `temporary_path`), if
 /// anything: "a gzip file" or "a JSON array".
 pub fn read_from_copy(path: &str) -> Option<&'static str> {
-    if is_gzip(path) {
+    if is_gzip(path).unwrap_or(false) {
         return Some("a gzip file");
     }
     (file_kind(path) == Some(FileKind::Json) && is_json_array(path)).then_some("a JSON array")
@@ -263,12 +256,20 @@ fn is_json_array(path: &str) -> bool {
     head[..n].iter().find(|b| !b.is_ascii_whitespace()) == Some(&b'[')
 }
 
-/// A gzip file, or a directory whose data files are all gzip files.
-fn is_gzip(path: &str) -> bool {
-    if Path::new(path).is_dir() {
-        return file_kind(path).is_none() && gzip_inside(path);
+/// Whether `path` is a gzip file or a directory of gzip files; a directory holding
+/// both gzip and plain data files is refused.
+fn is_gzip(path: &str) -> Result<bool, String> {
+    if !Path::new(path).is_dir() {
+        return Ok(path.to_ascii_lowercase().ends_with(".gz"));
     }
-    path.to_ascii_lowercase().ends_with(".gz")
+    match (file_kind(path).is_some(), gzip_inside(path)) {
+        // The listing would read the plain files and skip the rest without a word.
+        (true, true) => Err(format!(
+            "'{path}' holds both gzip and uncompressed data files, and only one kind would be \
+             read; keep one kind in the directory"
+        )),
+        (plain, gzip) => Ok(gzip && !plain),
+    }
 }
 
 /// Whether the directory at `path` holds gzip files.
@@ -316,21 +317,24 @@ fn decompressed_copy(path: &str) -> Result<String, String> {
         })
         .collect();
     files.sort();
-    let copies = temporary_path(path, "d")?;
-    std::fs::create_dir(&copies).map_err(|e| format!("cannot create {}: {e}", copies.display()))?;
-    let mut kinds = Vec::new();
-    for file in &files {
-        let shown = file.display().to_string();
-        let (inner, _) = inner_name(&shown)?;
-        kinds.push(kind_of_name(&inner));
-        let name = Path::new(&inner).file_name().unwrap_or_default();
-        decompress_file(&shown, &copies.join(name))?;
-    }
-    kinds.dedup();
-    if kinds.len() > 1 {
+    // Every name checked before anything is decompressed.
+    let inner: Vec<String> = files
+        .iter()
+        .map(|f| inner_name(&f.display().to_string()).map(|(inner, _)| inner))
+        .collect::<Result<_, _>>()?;
+    if inner
+        .iter()
+        .any(|i| kind_of_name(i) != kind_of_name(&inner[0]))
+    {
         return Err(format!(
             "'{path}' holds gzip files of more than one format; give a directory of one format"
         ));
+    }
+    let copies = temporary_path(path, "d")?;
+    std::fs::create_dir(&copies).map_err(|e| format!("cannot create {}: {e}", copies.display()))?;
+    for (file, inner) in files.iter().zip(&inner) {
+        let name = Path::new(inner).file_name().unwrap_or_default();
+        decompress_file(&file.display().to_string(), &copies.join(name))?;
     }
     Ok(copies.display().to_string())
 }

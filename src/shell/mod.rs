@@ -173,7 +173,11 @@ impl Shell {
         option: &str,
         text: &[String],
     ) -> Result<(), Failure> {
-        if let Some(kind) = crate::files::read_from_copy(path).filter(|_| self.cluster) {
+        if let Some(kind) = self
+            .cluster
+            .then(|| crate::files::read_from_copy(path))
+            .flatten()
+        {
             return Err(Failure::usage(format!(
                 "{option}: '{path}' is {kind}, which is read from a copy on this machine, and \
                  the cluster's executors read files by their paths; decompress or convert it \
