@@ -128,7 +128,7 @@ async fn register_plain(
                 .delimiter(delimiter)
                 .file_extension(&ext);
             if let Some(null) = &csv.null {
-                options = options.null_regex(Some(regex_escape(null)));
+                options = options.null_regex(Some(null_pattern(null)));
             }
             register_csv(ctx, name, path, options, csv.null.as_deref(), &text).await
         }
@@ -614,14 +614,17 @@ fn extension_of(path: &str, default: &str) -> String {
     default.to_string()
 }
 
-fn regex_escape(s: &str) -> String {
-    let mut out = String::from("^");
-    for c in s.chars() {
+/// The CSV reader's NULL pattern for `marker`: the marker itself or an empty field.
+/// An empty field stays NULL as without a marker; otherwise one empty field would
+/// make a column of numbers text when its type is inferred.
+fn null_pattern(marker: &str) -> String {
+    let mut out = String::from("^(?:");
+    for c in marker.chars() {
         if "\\.+*?()|[]{}^$".contains(c) {
             out.push('\\');
         }
         out.push(c);
     }
-    out.push('$');
+    out.push_str(")?$");
     out
 }

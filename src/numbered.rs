@@ -29,6 +29,7 @@ use datafusion::common::stats::Precision;
 use datafusion::common::tree_node::TreeNodeRecursion;
 use datafusion::common::{DataFusionError, Result, Statistics};
 use datafusion::datasource::{TableProvider, TableType};
+use datafusion::execution::session_state::SessionState;
 use datafusion::execution::{SendableRecordBatchStream, TaskContext};
 use datafusion::logical_expr::Expr;
 use datafusion::physical_expr::expressions::Column;
@@ -136,6 +137,24 @@ async fn source_scan(
     projection: Option<&Vec<usize>>,
     parts: usize,
 ) -> Result<Arc<dyn ExecutionPlan>> {
+    // A view (a CSV file read with a NULL marker is one) plans its scan with the
+    // session's optimizer, which may deal batches round-robin among parts: a row
+    // would land in another part on every scan, and the numbers would not follow
+    // it. Planned without that, every part reads its own byte ranges in order.
+    let mut in_order = None;
+    if let Some(session) = state.as_any().downcast_ref::<SessionState>() {
+        let mut session = session.clone();
+        session
+            .config_mut()
+            .options_mut()
+            .optimizer
+            .enable_round_robin_repartition = false;
+        in_order = Some(session);
+    }
+    let state: &dyn Session = match &in_order {
+        Some(session) => session,
+        None => state,
+    };
     let plan = source.scan(state, projection, &[], None).await?;
     Ok(plan
         .repartitioned(parts, state.config_options())?

@@ -500,6 +500,52 @@ async fn choose_treatments(
     Ok(())
 }
 
+/// Texts that mark a missing value in files written by common tools (R and pandas
+/// write `NA`, spreadsheets `#N/A`; common practice, no source).
+const MISSING_MARKERS: [&str; 10] = [
+    "na", "n/a", "#n/a", "nan", "null", "none", "nil", "missing", "?", "-",
+];
+
+/// A text target whose classes are numbers plus a missing-value marker (`0`, `1`,
+/// `NA`) was almost surely numbers with gaps that the file reader took for text:
+/// encoded as classes it would give every marker row a class of its own and change
+/// the family without a word. Refused unless the family is named.
+async fn check_missing_marker(
+    ctx: &SessionContext,
+    (from, t): (&str, &str),
+    target: &str,
+    classes: &[String],
+) -> Result<()> {
+    let is_marker = |c: &str| MISSING_MARKERS.contains(&c.trim().to_lowercase().as_str());
+    let markers: Vec<&String> = classes.iter().filter(|c| is_marker(c)).collect();
+    let numbers = classes
+        .iter()
+        .filter(|c| !is_marker(c))
+        .all(|c| c.trim().parse::<f64>().is_ok());
+    if markers.is_empty() || markers.len() == classes.len() || !numbers {
+        return Ok(());
+    }
+    let list = markers
+        .iter()
+        .map(|c| text(c))
+        .collect::<Vec<_>>()
+        .join(", ");
+    let rows = one_row(
+        ctx,
+        &format!("SELECT COUNT(*) FROM {from} WHERE CAST({t} AS VARCHAR) IN ({list})"),
+    )
+    .await?;
+    let rows = rows.column(0).as_primitive::<Int64Type>().value(0);
+    usage(format!(
+        "--target '{target}' holds numbers and {list} ({rows} row(s)), so it was read as text and \
+         would be encoded as {} classes. If {list} marks a missing value, read it as NULL (the \
+         shell's --csv-null {}; pandas' read_csv does so by default) and those rows are skipped; \
+         to encode it as a class of its own, name the family (--family dirichlet)",
+        classes.len(),
+        markers[0]
+    ))
+}
+
 /// Refuse a target (or exposure) of the wrong type, or values outside the family's
 /// domain, before any fit meets them, naming the option, how many rows and one such
 /// value: the fits would stop with their own, less helpful, error. NULLs are skipped
@@ -897,6 +943,9 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         }
         if classes.is_empty() {
             return usage(format!("target '{target}' has no non-NULL values"));
+        }
+        if options.family.is_none() {
+            check_missing_marker(ctx, (from.as_str(), &t), target, &classes).await?;
         }
         classes
     } else {

@@ -54,7 +54,7 @@ pub struct Args {
     /// CSV field delimiter (one character).
     #[arg(global = true, long, default_value = ",", value_name = "CHAR")]
     csv_delimiter: String,
-    /// Text that marks NULL in CSV files, e.g. NA.
+    /// Text that marks NULL in CSV files, e.g. NA (empty fields stay NULL too).
     #[arg(global = true, long, value_name = "TEXT")]
     csv_null: Option<String>,
     /// CSV columns to read as text exactly as written, comma-separated (codes with

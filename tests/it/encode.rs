@@ -1452,6 +1452,71 @@ fn targets_outside_the_family_are_refused_by_name() {
     assert!(!fresh.exists());
 }
 
+// A 0/1 target written with `NA` for missing values is read as text. Encoding its
+// three "classes" would change the family without a word, so encode refuses and
+// names the two ways out; read with `--csv-null NA` it encodes exactly as the same
+// file with empty fields does (the file is then read through a view, whose rows must
+// be numbered in the file's order on every scan).
+#[tokio::test]
+async fn a_target_of_numbers_with_a_missing_marker_is_refused_until_named() {
+    let dir = temp_dir("missing-marker");
+    let (mut marked, mut empty) = (String::from("k,y\n"), String::from("k,y\n"));
+    for i in 0..3000 {
+        let y = ["0", "1", "NA", "1", "0"][(i * 7 + i / 13) % 5];
+        marked.push_str(&format!("k{},{y}\n", i % 37));
+        empty.push_str(&format!("k{},{}\n", i % 37, if y == "NA" { "" } else { y }));
+    }
+    let (marked_csv, empty_csv) = (dir.join("marked.csv"), dir.join("empty.csv"));
+    std::fs::write(&marked_csv, marked).unwrap();
+    std::fs::write(&empty_csv, empty).unwrap();
+    let (marked_csv, empty_csv) = (marked_csv.to_str().unwrap(), empty_csv.to_str().unwrap());
+    let out = |name: &str| dir.join(name).to_str().unwrap().to_string();
+    let common = |train: &str, to: &str| {
+        [
+            "--train",
+            train,
+            "--target",
+            "y",
+            "--columns",
+            "k",
+            "--out",
+            to,
+        ]
+        .map(String::from)
+        .to_vec()
+    };
+    let args = common(marked_csv, &out("refused"));
+    let stderr = encode_refusal(&args.iter().map(String::as_str).collect::<Vec<_>>());
+    for fragment in [
+        "--target 'y' holds numbers and 'NA' (600 row(s))",
+        "--csv-null NA",
+        "--family dirichlet",
+    ] {
+        assert!(stderr.contains(fragment), "{stderr}");
+    }
+    assert!(!dir.join("refused").exists());
+
+    let mut marked_args = common(marked_csv, &out("marked"));
+    marked_args.extend(["--csv-null", "NA"].map(String::from));
+    encode(&marked_args.iter().map(String::as_str).collect::<Vec<_>>());
+    let empty_args = common(empty_csv, &out("empty"));
+    encode(&empty_args.iter().map(String::as_str).collect::<Vec<_>>());
+    let marked_rows = rows_of(&dir.join("marked/train_encoded.parquet")).await;
+    let empty_rows = rows_of(&dir.join("empty/train_encoded.parquet")).await;
+    assert_eq!(marked_rows.num_rows(), 3000);
+    assert_eq!(marked_rows, empty_rows);
+    assert_eq!(bundle_in(&dir.join("marked")).family, "beta");
+
+    // Named, the marker is a class of its own.
+    let mut classes = common(marked_csv, &out("classes"));
+    classes.extend(["--family", "dirichlet"].map(String::from));
+    encode(&classes.iter().map(String::as_str).collect::<Vec<_>>());
+    let header = rows_of(&dir.join("classes/train_encoded.parquet"))
+        .await
+        .schema();
+    assert!(header.column_with_name("k_NA_mean").is_some(), "{header:?}");
+}
+
 // Every input is checked before any output is written, and an output directory
 // ends up holding exactly one run's files.
 #[test]
