@@ -506,18 +506,24 @@ fn parse_options(options: &Bound<'_, pyo3::types::PyDict>, o: &mut EncodeOptions
             "half_life" => {
                 o.half_life = Some(match value.extract::<f64>() {
                     Ok(h) => HalfLife::Units(h),
-                    Err(_) => {
-                        HalfLife::parse(&text().map_err(|_| wrong("a number > 0 or 'fitted'"))?)
-                            .map_err(in_python_words)?
-                    }
+                    Err(_) => HalfLife::parse(&text().map_err(|_| {
+                        wrong(
+                            "a number > 0 (the time column's units: days for dates and \
+                             datetimes; a Timedelta t is t / pandas.Timedelta(days=1)) or 'fitted'",
+                        )
+                    })?)
+                    .map_err(in_python_words)?,
                 })
             }
             "horizon" => {
                 o.horizon = Some(match value.extract::<f64>() {
                     Ok(h) => Horizon::Units(h),
-                    Err(_) => Horizon::parse(
-                        &text().map_err(|_| wrong("a number > 0, 'matched' or 'none'"))?,
-                    )
+                    Err(_) => Horizon::parse(&text().map_err(|_| {
+                        wrong(
+                            "a number > 0 (the time column's units: days for dates and \
+                             datetimes), 'matched' or 'none'",
+                        )
+                    })?)
                     .map_err(in_python_words)?,
                 })
             }

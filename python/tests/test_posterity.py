@@ -5,6 +5,7 @@ Run by .ci/run (python/tests/run.sh): a fresh virtual environment, `pip install
 or POSTERITY_BIN) is the reference for every number.
 """
 
+import datetime
 import json
 import math
 import os
@@ -389,6 +390,18 @@ def test_key_types_nulls_and_empty():
 
 # ------------------------------------------------------------------ bad input
 
+def test_pandas_names_and_missing_targets_read_as_pandas_has_them():
+    # A frame whose column names are numbers: the Arrow table names them by their text,
+    # and encode takes the numbers as the user wrote them. A 0/1 target with NaN (how
+    # pandas holds a missing value) stays a 0/1 target; its NaN rows are skipped.
+    frame = pd.DataFrame({0: ["a", "b", "a", "b", "c"] * 20,
+                          1: [1.0, 0.0, float("nan"), 1.0, 0.0] * 20})
+    enc = posterity.encode(frame, target=1, columns=[0], prior=[1, 1])
+    assert list(enc.train_encoded.columns) == ["0", "1", "0_mean"]
+    assert enc.summary[0]["family"] == "beta"
+    assert enc.summary[0]["rows"] == 80.0
+
+
 def test_bad_input_is_a_python_error(ctx):
     cases = [
         (lambda: posterity.encode(SAMPLE, target="no_show", columns=["no_such"]),
@@ -426,6 +439,11 @@ def test_bad_input_is_a_python_error(ctx):
                                   horizon=-1), ["horizon -1 is out of range"]),
         (lambda: posterity.encode(pa.table({"k": ["a", "b"], "y": [0.5, float("nan")]}), target="y",
                                   columns=["k"]), ["target 'y' has 1 row(s)", "NaN", "finite numbers"]),
+        (lambda: posterity.encode(SAMPLE, target=None, columns=["breed"]),
+         ["encode: target must name a column as text", "None"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
+                                  half_life=datetime.timedelta(days=3)),
+         ["half_life must be a number > 0", "Timedelta(days=1)"]),
         (lambda: posterity.Bundle.load("/no/such/bundle.json"), ["Bundle.load", "cannot read"]),
         (lambda: posterity.Bundle.from_json("{}"), ["Bundle.from_json", "posterity bundle"]),
     ]

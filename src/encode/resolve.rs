@@ -1358,13 +1358,26 @@ pub(super) fn check_output_names(plan: &EncodePlan) -> Result<()> {
     for key in &plan.keys {
         let spelled = key.columns.join(":");
         if let Some(other) = key_names.insert(key.name.clone(), spelled.clone()) {
+            if other == spelled {
+                return usage(format!(
+                    "key '{spelled}' is named twice; name each key once"
+                ));
+            }
             return usage(format!(
                 "keys '{other}' and '{spelled}' both make output names '{}_...'; encode one of them",
                 key.name
             ));
         }
         for (name, _) in plan.output_columns(key) {
-            if let Some(other) = seen.insert(name.clone(), format!("key '{spelled}'")) {
+            let this_key = format!("key '{spelled}'");
+            if let Some(other) = seen.insert(name.clone(), this_key.clone()) {
+                if other == this_key {
+                    return usage(format!(
+                        "the readers of key '{spelled}' give the column '{name}' twice (a \
+                         reader named twice, or two spellings of one such as q5 and q05); name \
+                         each reader once"
+                    ));
+                }
                 return usage(format!(
                     "the output column '{name}' of key '{spelled}' would repeat {other}; \
                      rename the column or choose other readers"

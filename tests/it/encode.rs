@@ -1559,7 +1559,11 @@ fn inputs_are_checked_first_and_outputs_replace_a_run_whole() {
         ),
         (
             vec!["--columns", "key,key"],
-            "keys 'key' and 'key' both make output names",
+            "key 'key' is named twice; name each key once",
+        ),
+        (
+            vec!["--columns", "key", "--readers", "mean,q50,q50"],
+            "the readers of key 'key' give the column 'key_q50' twice",
         ),
         (
             vec!["--columns", "key", "--score", "nosuch.csv"],

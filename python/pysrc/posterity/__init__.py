@@ -155,6 +155,17 @@ def _as_input(data: Any, what: str):
                 f"DataFrame or LazyFrame; got {type(data).__name__}")
 
 
+def _column_name(name: Any, what: str, kind: str) -> str:
+    """A column name as the table has it: pandas names that are not text (``0``,
+    ``1.5``) become their text when the frame becomes an Arrow table."""
+    if isinstance(name, str):
+        return name
+    if kind == "pandas" and name is not None:
+        return str(name)
+    raise Error(f"encode: {what} must name a column as text; got {name!r} "
+                f"({type(name).__name__})")
+
+
 def _as_output(data, kind: str):
     if data is None:
         return None
@@ -263,9 +274,14 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     ``report=True`` (the HTML report: ``Encoded.report``, ``report.html``). The same
     inputs give the shell's numbers. With ``out``, the outputs are also written there.
     """
-    if isinstance(columns, str):
-        columns = [columns]
     kind = _kind(train)
+    target = _column_name(target, "target", kind)
+    if isinstance(columns, str) or not hasattr(columns, "__iter__"):
+        columns = [columns]
+    columns = [_column_name(c, "columns", kind) for c in columns]
+    for option in ("time_column", "exposure"):
+        if options.get(option) is not None:
+            options[option] = _column_name(options[option], option, kind)
     inner = _posterity.encode_data(_as_input(train, "train"), target, list(columns),
                                    None if score is None else _as_input(score, "score"),
                                    **options)
