@@ -7,9 +7,11 @@
 
 use std::path::Path;
 
+use datafusion::arrow::datatypes::DataType;
 use datafusion::datasource::file_format::options::{
     CsvReadOptions, JsonReadOptions, ParquetReadOptions,
 };
+use datafusion::error::DataFusionError;
 use datafusion::prelude::SessionContext;
 
 /// How tables from CSV files are read.
@@ -20,6 +22,9 @@ pub struct CsvOptions {
     pub null: Option<String>,
     /// Columns read as text whatever they look like.
     pub text: Vec<String>,
+    /// How many rows of each file a column's type is inferred from (the engine's
+    /// 1000 when `None`; `usize::MAX` reads whole files).
+    pub infer_rows: Option<usize>,
 }
 
 impl Default for CsvOptions {
@@ -29,6 +34,7 @@ impl Default for CsvOptions {
             delimiter: b',',
             null: None,
             text: Vec::new(),
+            infer_rows: None,
         }
     }
 }
@@ -104,13 +110,23 @@ async fn register_plain(
         csv.delimiter
     };
     preflight(path, format, csv.header, delimiter).map_err(FileError::Read)?;
+    // A partitioned directory's path columns are read as text, as CSV keys are.
+    let partition_columns: Vec<(String, DataType)> = match Path::new(path).is_dir() {
+        true => partitions(path).map_err(FileError::Usage)?.columns,
+        false => Vec::new(),
+    }
+    .into_iter()
+    .map(|c| (c, DataType::Utf8))
+    .collect();
     let result = match format {
         FileKind::Parquet => {
             let ext = extension_of(path, ".parquet");
             ctx.register_parquet(
                 name,
                 path,
-                ParquetReadOptions::default().file_extension(&ext),
+                ParquetReadOptions::default()
+                    .file_extension(&ext)
+                    .table_partition_cols(partition_columns),
             )
             .await
         }
@@ -126,18 +142,36 @@ async fn register_plain(
             let mut options = CsvReadOptions::new()
                 .has_header(csv.header)
                 .delimiter(delimiter)
-                .file_extension(&ext);
+                .file_extension(&ext)
+                .table_partition_cols(partition_columns);
             if let Some(null) = &csv.null {
                 options = options.null_regex(Some(null_pattern(null)));
             }
-            register_csv(ctx, name, path, options, csv.null.as_deref(), &text).await
+            if let Some(rows) = csv.infer_rows {
+                options = options.schema_infer_max_records(rows);
+            }
+            register_csv(
+                ctx,
+                name,
+                path,
+                options,
+                (format, csv.null.as_deref()),
+                &text,
+            )
+            .await
         }
         FileKind::Json => {
             // A JSON array (what --format json writes) is read through NDJSON.
             let path = json_array_as_ndjson(path).map_err(FileError::Read)?;
             let ext = extension_of(&path, ".json");
-            ctx.register_json(name, &path, JsonReadOptions::default().file_extension(&ext))
-                .await
+            ctx.register_json(
+                name,
+                &path,
+                JsonReadOptions::default()
+                    .file_extension(&ext)
+                    .table_partition_cols(partition_columns),
+            )
+            .await
         }
     };
     result.map_err(|e| FileError::Engine {
@@ -155,23 +189,35 @@ async fn register_csv(
     name: &str,
     path: &str,
     options: CsvReadOptions<'_>,
-    null: Option<&str>,
+    (kind, null): (FileKind, Option<&str>),
     text: &[&str],
 ) -> datafusion::error::Result<()> {
-    use datafusion::arrow::datatypes::{DataType, Field, Schema};
-    if null.is_none() && text.is_empty() {
+    use datafusion::arrow::datatypes::{Field, Schema};
+    let directory = Path::new(path).is_dir();
+    if null.is_none() && text.is_empty() && !directory {
         return ctx.register_csv(name, path, options).await;
     }
-    let inferred = ctx
-        .read_csv(path, options.clone())
-        .await?
-        .schema()
-        .as_arrow()
-        .clone();
+    let inferred = match directory {
+        true => directory_schema(ctx, path, kind, &options).await?,
+        false => ctx
+            .read_csv(path, options.clone())
+            .await?
+            .schema()
+            .as_arrow()
+            .clone(),
+    };
+    // A schema given to the reader is the files' own: without the path's columns.
+    let path_columns: Vec<String> = options
+        .table_partition_cols
+        .iter()
+        .map(|(c, _)| c.clone())
+        .collect();
+    let in_path = |f: &Field| path_columns.contains(f.name());
     let typed = Schema::new(
         inferred
             .fields()
             .iter()
+            .filter(|f| !in_path(f))
             .map(|f| match text.contains(&f.name().as_str()) {
                 true => Field::new(f.name(), DataType::Utf8, true),
                 false => f.as_ref().clone(),
@@ -189,9 +235,13 @@ async fn register_csv(
             .collect::<Vec<_>>(),
     );
     let raw = ctx.read_csv(path, options.schema(&all_text)).await?;
+    // The files' columns, then the path's (text).
+    let from_path = inferred.fields().iter().filter(|f| in_path(f)).cloned();
     let columns: Vec<datafusion::prelude::Expr> = typed
         .fields()
         .iter()
+        .cloned()
+        .chain(from_path)
         .map(|f| {
             let column = datafusion::prelude::ident(f.name());
             datafusion::prelude::cast(
@@ -203,6 +253,54 @@ async fn register_csv(
         .collect();
     ctx.register_table(name, raw.select(columns)?.into_view())?;
     Ok(())
+}
+
+/// The columns of a directory of CSV files: each file's types inferred on its own and
+/// widened where files disagree (whole numbers in one file and fractions in another
+/// make a float column, any other disagreement a text column; the engine refuses
+/// such a directory), then the path's partition columns as text.
+async fn directory_schema(
+    ctx: &SessionContext,
+    path: &str,
+    kind: FileKind,
+    options: &CsvReadOptions<'_>,
+) -> datafusion::error::Result<datafusion::arrow::datatypes::Schema> {
+    use datafusion::arrow::datatypes::{Field, Schema};
+    let mut files = Vec::new();
+    data_files(Path::new(path), kind, &mut files).map_err(DataFusionError::Execution)?;
+    files.sort();
+    let mut one_file = options.clone();
+    one_file.table_partition_cols = Vec::new();
+    let mut fields: Vec<Field> = Vec::new();
+    for file in &files {
+        let file = file.display().to_string();
+        let df = ctx.read_csv(&file, one_file.clone()).await?;
+        for field in df.schema().as_arrow().fields() {
+            match fields.iter_mut().find(|f| f.name() == field.name()) {
+                Some(f) => {
+                    let widened = widen(f.data_type(), field.data_type());
+                    *f = f.clone().with_data_type(widened);
+                }
+                None => fields.push(field.as_ref().clone()),
+            }
+        }
+    }
+    for (column, data_type) in &options.table_partition_cols {
+        fields.push(Field::new(column, data_type.clone(), true));
+    }
+    Ok(Schema::new(fields))
+}
+
+/// The type that holds values inferred as `a` in one file and `b` in another.
+fn widen(a: &DataType, b: &DataType) -> DataType {
+    match (a, b) {
+        (a, b) if a == b => a.clone(),
+        (DataType::Null, t) | (t, DataType::Null) => t.clone(),
+        (DataType::Int64, DataType::Float64) | (DataType::Float64, DataType::Int64) => {
+            DataType::Float64
+        }
+        _ => DataType::Utf8,
+    }
 }
 
 /// For a file holding one JSON array of objects: the same rows as NDJSON in a
@@ -262,7 +360,12 @@ fn is_gzip(path: &str) -> Result<bool, String> {
     if !Path::new(path).is_dir() {
         return Ok(path.to_ascii_lowercase().ends_with(".gz"));
     }
+    let partitioned = !partitions(path)?.columns.is_empty();
     match (file_kind(path).is_some(), gzip_inside(path)) {
+        (false, true) if partitioned => Err(format!(
+            "'{path}' is partitioned into directories of gzip files, which are not read; \
+             decompress them, or give each directory of gzip files as a table of its own"
+        )),
         // The listing would read the plain files and skip the rest without a word.
         (true, true) => Err(format!(
             "'{path}' holds both gzip and uncompressed data files, and only one kind would be \
@@ -274,7 +377,10 @@ fn is_gzip(path: &str) -> Result<bool, String> {
 
 /// Whether the directory at `path` holds gzip files.
 fn gzip_inside(path: &str) -> bool {
-    std::fs::read_dir(path).is_ok_and(|entries| {
+    let Ok(dir) = partitions(path).map(|p| p.leaf) else {
+        return false;
+    };
+    std::fs::read_dir(dir).is_ok_and(|entries| {
         entries.filter_map(|e| e.ok()).any(|e| {
             e.file_name()
                 .to_string_lossy()
@@ -438,11 +544,8 @@ fn preflight(path: &str, kind: FileKind, header: bool, delimiter: u8) -> Result<
     use std::io::Read as _;
     let p = Path::new(path);
     let files: Vec<std::path::PathBuf> = if p.is_dir() {
-        let mut f: Vec<_> = std::fs::read_dir(p)
-            .map_err(|e| format!("cannot list {path}: {e}"))?
-            .filter_map(|e| e.ok().map(|e| e.path()))
-            .filter(|f| f.is_file() && kind_of_name(&f.to_string_lossy()) == Some(kind))
-            .collect();
+        let mut f = Vec::new();
+        data_files(p, kind, &mut f)?;
         f.sort();
         f
     } else if p.is_file() {
@@ -538,6 +641,86 @@ fn preflight(path: &str, kind: FileKind, header: bool, delimiter: u8) -> Result<
     Ok(())
 }
 
+/// The data files of `kind` under `dir` and its subdirectories (a listing reads them
+/// all), skipping names that start with `_` or `.`.
+fn data_files(dir: &Path, kind: FileKind, out: &mut Vec<std::path::PathBuf>) -> Result<(), String> {
+    let entries =
+        std::fs::read_dir(dir).map_err(|e| format!("cannot list {}: {e}", dir.display()))?;
+    for entry in entries.filter_map(|e| e.ok()) {
+        let name = entry.file_name().to_string_lossy().to_string();
+        let path = entry.path();
+        if name.starts_with('_') || name.starts_with('.') {
+            continue;
+        }
+        if path.is_dir() {
+            data_files(&path, kind, out)?;
+        } else if kind_of_name(&name) == Some(kind) {
+            out.push(path);
+        }
+    }
+    Ok(())
+}
+
+/// How a directory is partitioned by value, as Spark, pyarrow and polars write
+/// datasets (`region=north/year=2024/part-0.parquet`).
+struct Partitions {
+    /// The columns the directory names hold, outermost first (none for a plain
+    /// directory).
+    columns: Vec<String>,
+    /// The first directory that holds the data files.
+    leaf: std::path::PathBuf,
+}
+
+/// The partition columns of the directory at `path`: every level whose entries are all
+/// directories named `column=value`, one column per level. A level mixing such
+/// directories with files, or naming two columns, is refused: part of it would be
+/// read without its column.
+fn partitions(path: &str) -> Result<Partitions, String> {
+    let mut columns = Vec::new();
+    let mut leaf = std::path::PathBuf::from(path);
+    loop {
+        let mut entries: Vec<(String, std::path::PathBuf)> = std::fs::read_dir(&leaf)
+            .map_err(|e| format!("cannot list {}: {e}", leaf.display()))?
+            .filter_map(|e| e.ok())
+            .map(|e| (e.file_name().to_string_lossy().to_string(), e.path()))
+            .filter(|(n, _)| !n.starts_with('.') && !n.starts_with('_'))
+            .collect();
+        entries.sort();
+        let column_of = |(name, path): &(String, std::path::PathBuf)| {
+            name.split_once('=')
+                .filter(|(c, _)| path.is_dir() && !c.is_empty())
+                .map(|(c, _)| c.to_string())
+        };
+        let named: Vec<String> = entries.iter().filter_map(column_of).collect();
+        if named.is_empty() {
+            return Ok(Partitions { columns, leaf });
+        }
+        if named.len() != entries.len() {
+            return Err(format!(
+                "'{}' mixes partition directories ({}=...) with other files or directories; \
+                 keep one kind",
+                leaf.display(),
+                named[0]
+            ));
+        }
+        if let Some(other) = named.iter().find(|c| **c != named[0]) {
+            return Err(format!(
+                "'{}' is partitioned by two columns at one level ({}=... and {other}=...)",
+                leaf.display(),
+                named[0]
+            ));
+        }
+        if columns.contains(&named[0]) {
+            return Err(format!(
+                "'{path}' is partitioned by '{}' at two levels",
+                named[0]
+            ));
+        }
+        columns.push(named[0].clone());
+        leaf = entries[0].1.clone();
+    }
+}
+
 /// The column names of a CSV header line: fields split at `delimiter` outside
 /// double quotes, a doubled quote inside quotes read as one.
 fn header_names(line: &str, delimiter: u8) -> Vec<String> {
@@ -589,8 +772,8 @@ fn file_kind(path: &str) -> Option<FileKind> {
     if let Some(k) = kind_of_name(path) {
         return Some(k);
     }
-    let dir = Path::new(path);
-    if dir.is_dir() {
+    if Path::new(path).is_dir() {
+        let dir = partitions(path).map(|p| p.leaf).ok()?;
         let mut names: Vec<String> = std::fs::read_dir(dir)
             .ok()?
             .filter_map(|e| e.ok())

@@ -83,6 +83,15 @@ pub fn engine_error(e: datafusion::error::DataFusionError) -> String {
             .unwrap_or(inner)
             .to_string();
     }
-    text.replace("Execution error: ", "")
-        .replace("Error during planning: ", "")
+    let mut text = text
+        .replace("Execution error: ", "")
+        .replace("Error during planning: ", "");
+    // A CSV value later in the file than the rows its column's type was inferred from.
+    if text.contains("Error while parsing value") && text.contains("as type") {
+        text.push_str(
+            ". A CSV column's type is inferred from the first 1000 rows of each file: \
+             --csv-infer-rows all reads whole files first (--csv-text COLUMN reads one as text)",
+        );
+    }
+    text
 }

@@ -888,6 +888,8 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
         None => match crate::fit::values_type(&target_type) {
             DataType::Boolean => Kind::Beta,
             // Decimals (amounts) are continuous unless they are all 0 or 1.
+            // An exposure is only ever given for counts: 0/1 counts are counts then.
+            d if d.is_numeric() && options.exposure.is_some() => Kind::Gamma,
             d if d.is_numeric() => match (binary().await?, d.is_integer()) {
                 (true, _) => Kind::Beta,
                 (false, true) => Kind::Gamma,

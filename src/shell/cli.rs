@@ -29,8 +29,9 @@ pub struct Args {
     /// SQL script to run (repeatable).
     #[arg(short = 'f', long = "file", value_name = "PATH")]
     files: Vec<PathBuf>,
-    /// Register a table: NAME=PATH, PATH a Parquet/CSV/TSV/NDJSON file, a directory or a glob
-    /// (a file or a directory's files may be gzip-compressed: name.csv.gz).
+    /// Register a table: NAME=PATH, PATH a Parquet/CSV/TSV/NDJSON file, a directory (also
+    /// one partitioned by value: year=2024/part-0.parquet) or a glob (a file or a
+    /// directory's files may be gzip-compressed: name.csv.gz).
     #[arg(short = 't', long = "table", value_name = "NAME=PATH")]
     tables: Vec<String>,
     /// Output format (default: from the --output extension, else table).
@@ -57,6 +58,10 @@ pub struct Args {
     /// Text that marks NULL in CSV files, e.g. NA (empty fields stay NULL too).
     #[arg(global = true, long, value_name = "TEXT")]
     csv_null: Option<String>,
+    /// How many rows of a CSV file its columns' types are inferred from: a number, or
+    /// all (the whole file is read once more first). Default 1000.
+    #[arg(global = true, long, value_name = "N|all", value_parser = infer_rows)]
+    csv_infer_rows: Option<usize>,
     /// CSV columns to read as text exactly as written, comma-separated (codes with
     /// leading zeros such as postcodes: 00123 stays 00123, not the number 123).
     #[arg(global = true, long, value_delimiter = ',', value_name = "COLUMNS")]
@@ -255,6 +260,7 @@ async fn run(args: Args, connect: Option<Connect>) -> Result<(), Failure> {
             delimiter,
             null: args.csv_null.clone(),
             text: args.csv_text.iter().map(|c| c.trim().to_string()).collect(),
+            infer_rows: args.csv_infer_rows,
         },
     };
     for spec in &args.tables {
@@ -273,4 +279,16 @@ async fn run(args: Args, connect: Option<Connect>) -> Result<(), Failure> {
         shell.run_stdin_or_prompt().await?;
     }
     Ok(())
+}
+
+/// `--csv-infer-rows`: a number of rows from 1, or `all`.
+fn infer_rows(value: &str) -> Result<usize, String> {
+    match value.trim() {
+        "all" => Ok(usize::MAX),
+        n => n
+            .parse::<usize>()
+            .ok()
+            .filter(|n| *n >= 1)
+            .ok_or_else(|| format!("'{value}' is not a number of rows from 1, or all")),
+    }
 }

@@ -271,6 +271,135 @@ fn gzip_files_read_like_the_files_inside() {
 }
 
 #[test]
+fn partitioned_directories_give_their_path_columns() {
+    // A dataset written partitioned by value (breed=beagle/part-0.csv, as Spark,
+    // pyarrow and polars write them) reads with the path's column, as text; CSV and
+    // Parquet, with and without a NULL marker, give the numbers of the flat file.
+    let dir = temp_dir("partitioned");
+    let text = std::fs::read_to_string(data("small.csv")).unwrap();
+    let csv_dir = dir.join("csv");
+    for line in text.lines().skip(1) {
+        let (breed, rest) = line.split_once(',').unwrap();
+        let part = csv_dir.join(format!("breed={breed}"));
+        std::fs::create_dir_all(&part).unwrap();
+        let file = part.join("part-0.csv");
+        let mut body = std::fs::read_to_string(&file).unwrap_or("no_show,amount\n".into());
+        body.push_str(&format!("{rest}\n"));
+        std::fs::write(&file, body).unwrap();
+    }
+    std::fs::write(csv_dir.join("_SUCCESS"), "").unwrap();
+    let fit = |path: &Path, null: bool| {
+        let table = format!("s={}", path.display());
+        let mut args = vec!["--table", &table, "--format", "csv", "-c", FIT];
+        if null {
+            args.extend(["--csv-null", "NA"]);
+        }
+        run(&args)
+    };
+    let expected = stdout(&fit(Path::new(&data("small.csv")), true));
+    for null in [true, false] {
+        let o = fit(&csv_dir, null);
+        assert!(o.status.success(), "{}", stderr(&o));
+        assert_eq!(stdout(&o), expected);
+    }
+    // Two levels of Parquet, written by the shell itself.
+    let parquet_dir = dir.join("parquet");
+    for (breed, year) in [("beagle", 2024), ("boxer", 2024), ("poodle", 2025)] {
+        let part = parquet_dir.join(format!("year={year}/breed={breed}"));
+        std::fs::create_dir_all(&part).unwrap();
+        let o = run(&[
+            "--table",
+            &format!("s={}", data("small.csv")),
+            "--csv-null",
+            "NA",
+            "-c",
+            &format!(
+                "COPY (SELECT no_show FROM s WHERE breed = '{breed}') TO '{}' STORED AS PARQUET",
+                part.join("part-0.parquet").display()
+            ),
+        ]);
+        assert!(o.status.success(), "{}", stderr(&o));
+    }
+    assert_eq!(stdout(&fit(&parquet_dir, false)), expected);
+    let o = run(&[
+        "--table",
+        &format!("s={}", parquet_dir.display()),
+        "--format",
+        "csv",
+        "-c",
+        "SELECT year, arrow_typeof(year) AS t, COUNT(*) AS n FROM s GROUP BY year ORDER BY year",
+    ]);
+    assert_eq!(
+        stdout(&o),
+        "year,t,n\n2024,Utf8,3\n2025,Utf8,2\n",
+        "{}",
+        stderr(&o)
+    );
+
+    // A level mixing partition directories with files would read part of the rows
+    // without their column; gzip files in partitions are not read: both refused.
+    std::fs::write(csv_dir.join("stray.csv"), "no_show,amount\n1,2\n").unwrap();
+    let o = fit(&csv_dir, true);
+    assert!(
+        stderr(&o).contains("mixes partition directories (breed=...)"),
+        "{}",
+        stderr(&o)
+    );
+    std::fs::remove_file(csv_dir.join("stray.csv")).unwrap();
+    let gz_dir = dir.join("gz/breed=beagle");
+    std::fs::create_dir_all(&gz_dir).unwrap();
+    std::fs::write(gz_dir.join("part-0.csv.gz"), b"").unwrap();
+    let o = fit(&dir.join("gz"), false);
+    assert!(
+        stderr(&o).contains("partitioned into directories of gzip files"),
+        "{}",
+        stderr(&o)
+    );
+}
+
+#[test]
+fn a_late_value_of_another_type_names_the_inference() {
+    // Types are inferred from a file's first rows: a fraction at row 3001 of a column
+    // of whole numbers fails the read. The error says why and what reads it.
+    let dir = temp_dir("late-value");
+    let mut csv = String::from("k,amount\n");
+    for i in 0..3000 {
+        csv.push_str(&format!("k{},{i}\n", i % 10));
+    }
+    csv.push_str("k1,80.5\n");
+    let file = dir.join("late.csv");
+    std::fs::write(&file, csv).unwrap();
+    let table = format!("a={}", file.display());
+    let sum = "SELECT SUM(amount) AS s FROM a";
+    let o = run(&["-t", &table, "-c", sum]);
+    assert_eq!(o.status.code(), Some(1));
+    for fragment in [
+        "'80.5' as type 'Int64'",
+        "first 1000 rows",
+        "--csv-infer-rows all",
+    ] {
+        assert!(stderr(&o).contains(fragment), "{}", stderr(&o));
+    }
+    let o = run(&[
+        "-t",
+        &table,
+        "--csv-infer-rows",
+        "all",
+        "--format",
+        "csv",
+        "-c",
+        sum,
+    ]);
+    assert_eq!(stdout(&o), "s\n4498580.5\n", "{}", stderr(&o));
+    let o = run(&["--csv-infer-rows", "0", "-c", "SELECT 1"]);
+    assert!(
+        stderr(&o).contains("not a number of rows from 1, or all"),
+        "{}",
+        stderr(&o)
+    );
+}
+
+#[test]
 fn json_arrays_with_one_file_name_stay_apart() {
     // Each JSON array is read through its own NDJSON copy: two files named alike in
     // different directories once shared one copy, and both tables read the last one.

@@ -1517,6 +1517,40 @@ async fn a_target_of_numbers_with_a_missing_marker_is_refused_until_named() {
     assert!(header.column_with_name("k_NA_mean").is_some(), "{header:?}");
 }
 
+// Counts per exposure that happen to be 0 or 1 (rare events over short spans) are
+// still counts: an exposure is only ever given for counts, so it sets the family.
+#[test]
+fn an_exposure_makes_zero_one_targets_counts() {
+    let dir = temp_dir("zero-one-counts");
+    let train = dir.join("train.csv");
+    let mut csv = String::from("k,events,years\n");
+    for i in 0..200 {
+        csv.push_str(&format!(
+            "k{},{},{}\n",
+            i % 9,
+            (i % 7 == 0) as u8,
+            0.5 + (i % 3) as f64
+        ));
+    }
+    std::fs::write(&train, csv).unwrap();
+    let out = dir.join("out");
+    encode(&[
+        "--train",
+        train.to_str().unwrap(),
+        "--target",
+        "events",
+        "--exposure",
+        "years",
+        "--columns",
+        "k",
+        "--out",
+        out.to_str().unwrap(),
+    ]);
+    let bundle = bundle_in(&out);
+    assert_eq!(bundle.family, "gamma");
+    assert_eq!(bundle.exposure.as_deref(), Some("years"));
+}
+
 // Every input is checked before any output is written, and an output directory
 // ends up holding exactly one run's files.
 #[test]
@@ -1581,7 +1615,7 @@ fn inputs_are_checked_first_and_outputs_replace_a_run_whole() {
             "--time-column 't' is only used by --method time",
         ),
         (
-            vec!["--columns", "key", "--exposure", "t"],
+            vec!["--columns", "key", "--exposure", "t", "--family", "beta"],
             "--exposure is for count targets (the gamma family)",
         ),
     ] {
