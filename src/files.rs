@@ -39,6 +39,31 @@ impl Default for CsvOptions {
     }
 }
 
+impl CsvOptions {
+    /// A field delimiter as users write it: one character, or `\t` for a tab.
+    pub fn parse_delimiter(value: &str) -> Result<u8, String> {
+        match value.as_bytes() {
+            [b] => Ok(*b),
+            b"\\t" => Ok(b'\t'),
+            _ => Err(format!(
+                "must be one character (or \\t for a tab), got '{value}'"
+            )),
+        }
+    }
+
+    /// How many rows a CSV column's type is inferred from: a number from 1, or `all`.
+    pub fn parse_infer_rows(value: &str) -> Result<usize, String> {
+        match value.trim() {
+            "all" => Ok(usize::MAX),
+            n => n
+                .parse::<usize>()
+                .ok()
+                .filter(|n| *n >= 1)
+                .ok_or_else(|| format!("'{value}' is not a number of rows from 1, or all")),
+        }
+    }
+}
+
 /// Why a file could not be registered.
 #[derive(Debug, Clone, PartialEq)]
 pub enum FileError {

@@ -364,19 +364,20 @@ impl Input {
         Ok(Input::Batches(schema, batches))
     }
 
+    /// Register the input as table `name`; a CSV file is read with `csv`, its key
+    /// columns as text.
     async fn register(
         self,
         ctx: &SessionContext,
         name: &str,
         what: &str,
+        csv: &CsvOptions,
         key_columns: &[String],
     ) -> Result<(), String> {
         match self {
             Input::Path(path) => {
-                let csv = CsvOptions {
-                    text: key_columns.to_vec(),
-                    ..CsvOptions::default()
-                };
+                let mut csv = csv.clone();
+                csv.text.extend_from_slice(key_columns);
                 posterity::files::register(ctx, name, &path, &csv)
                     .await
                     .map_err(|e| format!("{what}: {e}"))
@@ -453,6 +454,64 @@ impl EncodeResult {
         py.detach(|| rt.block_on(encode::write(&self.output, &path, replace)))
             .map_err(error)
     }
+}
+
+/// The options that say how CSV files given by path are read (the shell's `--csv-*`
+/// flags), taken out of `options`; with the first one's name, for messages.
+fn csv_options(options: &Bound<'_, pyo3::types::PyDict>) -> PyResult<Option<(String, CsvOptions)>> {
+    let mut csv = CsvOptions::default();
+    let mut first = None;
+    for key in [
+        "csv_no_header",
+        "csv_delimiter",
+        "csv_null",
+        "csv_infer_rows",
+        "csv_text",
+    ] {
+        let Some(value) = options.get_item(key)? else {
+            continue;
+        };
+        options.del_item(key)?;
+        if value.is_none() {
+            continue;
+        }
+        first.get_or_insert_with(|| key.to_string());
+        let wrong = |what: &str| error(format!("encode: {key} must be {what}"));
+        match key {
+            "csv_no_header" => {
+                csv.header = !value
+                    .extract::<bool>()
+                    .map_err(|_| wrong("True or False"))?
+            }
+            "csv_delimiter" => {
+                let text: String = value.extract().map_err(|_| wrong("one character"))?;
+                csv.delimiter = CsvOptions::parse_delimiter(&text)
+                    .map_err(|e| error(format!("encode: {key} {e}")))?
+            }
+            "csv_null" => csv.null = Some(value.extract().map_err(|_| wrong("text, e.g. 'NA'"))?),
+            "csv_infer_rows" => {
+                let text = match value.extract::<i64>() {
+                    Ok(n) => n.to_string(),
+                    Err(_) => value
+                        .extract::<String>()
+                        .map_err(|_| wrong("a number of rows from 1, or 'all'"))?,
+                };
+                csv.infer_rows = Some(
+                    CsvOptions::parse_infer_rows(&text)
+                        .map_err(|e| error(format!("encode: {key}: {e}")))?,
+                )
+            }
+            _ => {
+                csv.text = match value.extract::<String>() {
+                    Ok(one) => vec![one],
+                    Err(_) => value
+                        .extract()
+                        .map_err(|_| wrong("a column name or a list of them"))?,
+                }
+            }
+        }
+    }
+    Ok(first.map(|named| (named, csv)))
 }
 
 fn parse_options(options: &Bound<'_, pyo3::types::PyDict>, o: &mut EncodeOptions) -> PyResult<()> {
@@ -606,11 +665,21 @@ fn encode_data(
     const SCORE: &str = "score";
     let mut o = EncodeOptions::new(TRAIN, &target, &[]);
     o.columns = columns;
+    let mut csv = None;
     if let Some(options) = options {
+        csv = csv_options(options)?;
         parse_options(options, &mut o)?;
     }
     let train = Input::from_python(train, "train")?;
     let score = score.map(|s| Input::from_python(s, "score")).transpose()?;
+    let paths = matches!(train, Input::Path(_)) || matches!(score, Some(Input::Path(_)));
+    if let (Some((named, _)), false) = (&csv, paths) {
+        return Err(error(format!(
+            "encode: {named} is for CSV files given by path; train and score here are \
+             tables already read (give the reading options to the reader that made them)"
+        )));
+    }
+    let csv = csv.map(|(_, csv)| csv).unwrap_or_default();
     if score.is_some() {
         o.score = Some(SCORE.to_string());
     }
@@ -626,9 +695,13 @@ fn encode_data(
             rt.block_on(async {
                 let ctx = SessionContext::new();
                 posterity::register(&ctx);
-                train.register(&ctx, TRAIN, "train", &key_columns).await?;
+                train
+                    .register(&ctx, TRAIN, "train", &csv, &key_columns)
+                    .await?;
                 if let Some(score) = score {
-                    score.register(&ctx, SCORE, "score", &key_columns).await?;
+                    score
+                        .register(&ctx, SCORE, "score", &csv, &key_columns)
+                        .await?;
                 }
                 let plan = encode::resolve(&ctx, &o).await.map_err(|e| e.to_string())?;
                 let output = encode::run(&ctx, &plan).await.map_err(|e| e.to_string())?;

@@ -173,6 +173,55 @@ def test_a_gzip_file_encodes_like_the_file_inside(tmp_path):
     same(table_rows(enc.scored), table_rows(plain.scored), "scored")
 
 
+def test_csv_files_read_with_the_shells_csv_options(tmp_path):
+    # The same rows as the sample, written with ';', NA for the missing targets, no
+    # header and a fraction after the first rows of an integer-looking column: each
+    # read with its option gives the sample's encodings; without them the errors name
+    # the options.
+    frame = pd.read_csv(SAMPLE, dtype={"breed": "string", "postcode_area": "string",
+                                       "vet": "string"})
+    frame.loc[::7, "no_show"] = None
+    frame["weight"] = ["1"] * (len(frame) - 1) + ["1.5"]
+    plain = tmp_path / "plain.csv"
+    frame.to_csv(plain, index=False)
+    odd = tmp_path / "odd.csv"
+    frame.to_csv(odd, index=False, sep=";", na_rep="NA", header=False)
+    want = posterity.encode(plain, target="no_show", columns=["breed", "vet"],
+                            exposure="weight", csv_infer_rows="all")
+    names = list(frame.columns)
+    got = posterity.encode(odd, target=f"column_{names.index('no_show') + 1}",
+                           columns=[f"column_{names.index(c) + 1}" for c in ["breed", "vet"]],
+                           exposure=f"column_{names.index('weight') + 1}",
+                           csv_no_header=True, csv_delimiter=";", csv_null="NA",
+                           csv_infer_rows="all")
+    want_rows = want.train_encoded.column("breed_mean").to_pylist()
+    got_rows = got.train_encoded.column(
+        f"column_{names.index('breed') + 1}_mean").to_pylist()
+    assert got_rows == want_rows
+    with pytest.raises(posterity.Error) as e:
+        frame.to_csv(tmp_path / "na.csv", index=False, na_rep="NA")
+        posterity.encode(tmp_path / "na.csv", target="no_show", columns=["breed"])
+    assert "csv_null NA" in str(e.value) and "--" not in str(e.value), e.value
+    with pytest.raises(posterity.Error) as e:
+        posterity.encode(plain, target="no_show", columns=["breed"], exposure="weight")
+    assert "csv_infer_rows all" in str(e.value), e.value
+    for options, fragments in [
+        ({"csv_delimiter": ";;"}, ["csv_delimiter must be one character", "';;'"]),
+        ({"csv_infer_rows": 0}, ["csv_infer_rows", "'0' is not a number of rows from 1"]),
+        ({"csv_infer_rows": "some"}, ["csv_infer_rows", "'some'"]),
+        ({"csv_no_header": "yes"}, ["csv_no_header must be True or False"]),
+        ({"csv_text": 3}, ["csv_text must be a column name or a list of them"]),
+    ]:
+        with pytest.raises(posterity.Error) as e:
+            posterity.encode(plain, target="no_show", columns=["breed"], **options)
+        for f in fragments:
+            assert f in str(e.value), f"{f!r} not in {e.value}"
+    # On tables already read the options would do nothing: refused by name.
+    with pytest.raises(posterity.Error) as e:
+        posterity.encode(frame, target="no_show", columns=["breed"], csv_null="NA")
+    assert "csv_null is for CSV files given by path" in str(e.value), e.value
+
+
 def test_fitted_half_life_is_reported_per_key():
     enc = posterity.encode(SAMPLE, target="no_show", columns=["breed", "vet"], time_column="day",
                            half_life="fitted")

@@ -60,7 +60,7 @@ pub struct Args {
     csv_null: Option<String>,
     /// How many rows of a CSV file its columns' types are inferred from: a number, or
     /// all (the whole file is read once more first). Default 1000.
-    #[arg(global = true, long, value_name = "N|all", value_parser = infer_rows)]
+    #[arg(global = true, long, value_name = "N|all", value_parser = CsvOptions::parse_infer_rows)]
     csv_infer_rows: Option<usize>,
     /// CSV columns to read as text exactly as written, comma-separated (codes with
     /// leading zeros such as postcodes: 00123 stays 00123, not the number 123).
@@ -176,16 +176,8 @@ async fn run(args: Args, connect: Option<Connect>) -> Result<(), Failure> {
         .map(super::parse_size)
         .transpose()
         .map_err(Failure::usage)?;
-    let delimiter = match args.csv_delimiter.as_bytes() {
-        [b] => *b,
-        b"\\t" => b'\t',
-        _ => {
-            return Err(Failure::usage(format!(
-                "--csv-delimiter must be one character, got '{}'",
-                args.csv_delimiter
-            )))
-        }
-    };
+    let delimiter = CsvOptions::parse_delimiter(&args.csv_delimiter)
+        .map_err(|e| Failure::usage(format!("--csv-delimiter {e}")))?;
     let format = match (args.format, &args.output) {
         (Some(f), _) => f,
         (None, Some(path)) => Format::from_extension(path).ok_or_else(|| {
@@ -279,16 +271,4 @@ async fn run(args: Args, connect: Option<Connect>) -> Result<(), Failure> {
         shell.run_stdin_or_prompt().await?;
     }
     Ok(())
-}
-
-/// `--csv-infer-rows`: a number of rows from 1, or `all`.
-fn infer_rows(value: &str) -> Result<usize, String> {
-    match value.trim() {
-        "all" => Ok(usize::MAX),
-        n => n
-            .parse::<usize>()
-            .ok()
-            .filter(|n| *n >= 1)
-            .ok_or_else(|| format!("'{value}' is not a number of rows from 1, or all")),
-    }
 }

@@ -271,7 +271,9 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     levels differ widely in spread; the summary's ``readers_reason`` says which), ``draws``, ``indicators``, ``indicator_min_rows``,
     ``treatment={"clinic": "levels"}``, ``hierarchy="postcode>district>region"`` (or a list of
     such chains, finest first; k-fold and as-of encodings), ``score_evidence`` ("matched" or "full"),
-    ``report=True`` (the HTML report: ``Encoded.report``, ``report.html``). The same
+    ``report=True`` (the HTML report: ``Encoded.report``, ``report.html``). CSV files given by
+    path are read with ``csv_null`` ("NA"), ``csv_delimiter``, ``csv_no_header``,
+    ``csv_infer_rows`` (a number or "all") and ``csv_text`` (columns read as text). The same
     inputs give the shell's numbers. With ``out``, the outputs are also written there.
     """
     kind = _kind(train)
