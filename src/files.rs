@@ -5,13 +5,12 @@
 //! registration with its name. Used by the shell and by every front end that reads
 //! files for `encode`.
 
-use std::path::Path;
+use std::path::{Path, PathBuf};
 
 use datafusion::arrow::datatypes::DataType;
 use datafusion::datasource::file_format::options::{
     CsvReadOptions, JsonReadOptions, ParquetReadOptions,
 };
-use datafusion::error::DataFusionError;
 use datafusion::prelude::SessionContext;
 
 /// How tables from CSV files are read.
@@ -95,13 +94,15 @@ pub async fn register(
     path: &str,
     csv: &CsvOptions,
 ) -> Result<(), FileError> {
-    if !is_gzip(path).map_err(FileError::Usage)? {
-        return register_plain(ctx, name, path, csv).await;
+    let source = Source::of(path).map_err(FileError::Usage)?;
+    if !source.gzip {
+        return register_plain(ctx, name, path, &source, csv).await;
     }
     // Gzip files are read from decompressed copies; messages name the path given.
     let copy = decompressed_copy(path).map_err(FileError::Read)?;
     let shown = |m: String| m.replace(&copy, path);
-    register_plain(ctx, name, &copy, csv)
+    let copied = Source::of(&copy).map_err(|m| FileError::Usage(shown(m)))?;
+    register_plain(ctx, name, &copy, &copied, csv)
         .await
         .map_err(|e| match e {
             FileError::Usage(m) => FileError::Usage(shown(m)),
@@ -117,10 +118,11 @@ async fn register_plain(
     ctx: &SessionContext,
     name: &str,
     path: &str,
+    source: &Source,
     csv: &CsvOptions,
 ) -> Result<(), FileError> {
     let text: Vec<&str> = csv.text.iter().map(String::as_str).collect();
-    let format = file_kind(path).ok_or_else(|| {
+    let format = source.kind.ok_or_else(|| {
         FileError::Usage(format!(
             "cannot tell the format of '{path}'; use a .parquet, .csv, .tsv, .json or .ndjson \
              path (also gzip-compressed: .csv.gz)"
@@ -134,15 +136,19 @@ async fn register_plain(
     } else {
         csv.delimiter
     };
-    preflight(path, format, csv.header, delimiter).map_err(FileError::Read)?;
+    let files: Vec<PathBuf> = match &source.directory {
+        Some(directory) => directory.files.clone(),
+        None if Path::new(path).is_file() => vec![PathBuf::from(path)],
+        None => Vec::new(), // globs are checked by the engine
+    };
+    preflight(path, &files, format, csv.header, delimiter).map_err(FileError::Read)?;
     // A partitioned directory's path columns are read as text, as CSV keys are.
-    let partition_columns: Vec<(String, DataType)> = match Path::new(path).is_dir() {
-        true => partitions(path).map_err(FileError::Usage)?.columns,
-        false => Vec::new(),
-    }
-    .into_iter()
-    .map(|c| (c, DataType::Utf8))
-    .collect();
+    let partition_columns: Vec<(String, DataType)> = source
+        .directory
+        .iter()
+        .flat_map(|d| d.partitions.iter())
+        .map(|c| (c.clone(), DataType::Utf8))
+        .collect();
     let result = match format {
         FileKind::Parquet => {
             let ext = extension_of(path, ".parquet");
@@ -175,12 +181,13 @@ async fn register_plain(
             if let Some(rows) = csv.infer_rows {
                 options = options.schema_infer_max_records(rows);
             }
+            let directory_files = source.directory.as_ref().map(|_| files.as_slice());
             register_csv(
                 ctx,
                 name,
                 path,
                 options,
-                (format, csv.null.as_deref()),
+                (directory_files, csv.null.as_deref()),
                 &text,
             )
             .await
@@ -205,26 +212,26 @@ async fn register_plain(
     })
 }
 
-/// A CSV file with its inferred types, except that columns `text` stay text as
-/// written. DataFusion 55 honours a CSV null marker only while inferring the
-/// schema, so with a marker the file is read as text and a view turns the
-/// marker into NULL and casts each column to its type.
+/// A CSV file or directory (`directory_files`: its data files) with its inferred
+/// types, except that columns `text` stay text as written. DataFusion 55 honours a
+/// CSV null marker only while inferring the schema, so with a marker the file is
+/// read as text and a view turns the marker into NULL and casts each column to its
+/// type.
 async fn register_csv(
     ctx: &SessionContext,
     name: &str,
     path: &str,
     options: CsvReadOptions<'_>,
-    (kind, null): (FileKind, Option<&str>),
+    (directory_files, null): (Option<&[PathBuf]>, Option<&str>),
     text: &[&str],
 ) -> datafusion::error::Result<()> {
     use datafusion::arrow::datatypes::{Field, Schema};
-    let directory = Path::new(path).is_dir();
-    if null.is_none() && text.is_empty() && !directory {
+    if null.is_none() && text.is_empty() && directory_files.is_none() {
         return ctx.register_csv(name, path, options).await;
     }
-    let inferred = match directory {
-        true => directory_schema(ctx, path, kind, &options).await?,
-        false => ctx
+    let inferred = match directory_files {
+        Some(files) => directory_schema(ctx, files, &options).await?,
+        None => ctx
             .read_csv(path, options.clone())
             .await?
             .schema()
@@ -280,24 +287,20 @@ async fn register_csv(
     Ok(())
 }
 
-/// The columns of a directory of CSV files: each file's types inferred on its own and
-/// widened where files disagree (whole numbers in one file and fractions in another
-/// make a float column, any other disagreement a text column; the engine refuses
-/// such a directory), then the path's partition columns as text.
+/// The columns of a directory's CSV `files`: each file's types inferred on its own
+/// and widened where files disagree (whole numbers in one file and fractions in
+/// another make a float column, any other disagreement a text column; the engine
+/// refuses such a directory), then the path's partition columns as text.
 async fn directory_schema(
     ctx: &SessionContext,
-    path: &str,
-    kind: FileKind,
+    files: &[PathBuf],
     options: &CsvReadOptions<'_>,
 ) -> datafusion::error::Result<datafusion::arrow::datatypes::Schema> {
     use datafusion::arrow::datatypes::{Field, Schema};
-    let mut files = Vec::new();
-    data_files(Path::new(path), kind, &mut files).map_err(DataFusionError::Execution)?;
-    files.sort();
     let mut one_file = options.clone();
     one_file.table_partition_cols = Vec::new();
     let mut fields: Vec<Field> = Vec::new();
-    for file in &files {
+    for file in files {
         let file = file.display().to_string();
         let df = ctx.read_csv(&file, one_file.clone()).await?;
         for field in df.schema().as_arrow().fields() {
@@ -363,10 +366,11 @@ fn json_array_as_ndjson(path: &str) -> Result<String, String> {
 /// What makes the file at `path` read from a temporary copy (see `temporary_path`), if
 /// anything: "a gzip file" or "a JSON array".
 pub fn read_from_copy(path: &str) -> Option<&'static str> {
-    if is_gzip(path).unwrap_or(false) {
+    let source = Source::of(path).ok()?;
+    if source.gzip {
         return Some("a gzip file");
     }
-    (file_kind(path) == Some(FileKind::Json) && is_json_array(path)).then_some("a JSON array")
+    (source.kind == Some(FileKind::Json) && is_json_array(path)).then_some("a JSON array")
 }
 
 /// Whether the file at `path` starts with '[' (a JSON array, not NDJSON).
@@ -377,42 +381,6 @@ fn is_json_array(path: &str) -> bool {
         .and_then(|mut f| f.read(&mut head))
         .unwrap_or(0);
     head[..n].iter().find(|b| !b.is_ascii_whitespace()) == Some(&b'[')
-}
-
-/// Whether `path` is a gzip file or a directory of gzip files; a directory holding
-/// both gzip and plain data files is refused.
-fn is_gzip(path: &str) -> Result<bool, String> {
-    if !Path::new(path).is_dir() {
-        return Ok(path.to_ascii_lowercase().ends_with(".gz"));
-    }
-    let partitioned = !partitions(path)?.columns.is_empty();
-    match (file_kind(path).is_some(), gzip_inside(path)) {
-        (false, true) if partitioned => Err(format!(
-            "'{path}' is partitioned into directories of gzip files, which are not read; \
-             decompress them, or give each directory of gzip files as a table of its own"
-        )),
-        // The listing would read the plain files and skip the rest without a word.
-        (true, true) => Err(format!(
-            "'{path}' holds both gzip and uncompressed data files, and only one kind would be \
-             read; keep one kind in the directory"
-        )),
-        (plain, gzip) => Ok(gzip && !plain),
-    }
-}
-
-/// Whether the directory at `path` holds gzip files.
-fn gzip_inside(path: &str) -> bool {
-    let Ok(dir) = partitions(path).map(|p| p.leaf) else {
-        return false;
-    };
-    std::fs::read_dir(dir).is_ok_and(|entries| {
-        entries.filter_map(|e| e.ok()).any(|e| {
-            e.file_name()
-                .to_string_lossy()
-                .to_ascii_lowercase()
-                .ends_with(".gz")
-        })
-    })
 }
 
 /// The file at `path` (`name.csv.gz` and the like) decompressed into a temporary file
@@ -538,7 +506,7 @@ fn decompress(mut reader: impl std::io::Read, to: &Path) -> Result<(), Side> {
 /// decompressed gzip file), named after `original` so that messages stay readable.
 /// Each call gets its own name: two files with one name in different directories
 /// must not share a copy. Kept until `remove_temporaries` or the system's temp cleaning.
-fn temporary_path(original: &str, extension: &str) -> Result<std::path::PathBuf, String> {
+fn temporary_path(original: &str, extension: &str) -> Result<PathBuf, String> {
     use std::sync::atomic::{AtomicU64, Ordering};
     static NEXT: AtomicU64 = AtomicU64::new(0);
     let dir = temporary_dir();
@@ -551,7 +519,7 @@ fn temporary_path(original: &str, extension: &str) -> Result<std::path::PathBuf,
     Ok(dir.join(format!("{n}-{stem}.{extension}")))
 }
 
-fn temporary_dir() -> std::path::PathBuf {
+fn temporary_dir() -> PathBuf {
     std::env::temp_dir().join(format!("posterity-{}", std::process::id()))
 }
 
@@ -565,23 +533,18 @@ pub fn remove_temporaries() {
 /// the file's name: Parquet magic bytes, empty CSV files, unterminated quotes, a
 /// header naming one column twice (the engine reports a wrong field count on the
 /// first row), and CSV directories whose files disagree on the header.
-fn preflight(path: &str, kind: FileKind, header: bool, delimiter: u8) -> Result<(), String> {
+fn preflight(
+    path: &str,
+    files: &[PathBuf],
+    kind: FileKind,
+    header: bool,
+    delimiter: u8,
+) -> Result<(), String> {
     use std::io::Read as _;
-    let p = Path::new(path);
-    let files: Vec<std::path::PathBuf> = if p.is_dir() {
-        let mut f = Vec::new();
-        data_files(p, kind, &mut f)?;
-        f.sort();
-        f
-    } else if p.is_file() {
-        vec![p.to_path_buf()]
-    } else {
-        return Ok(()); // globs are checked by the engine
-    };
-    let mut first_header: Option<(String, std::path::PathBuf)> = None;
+    let mut first_header: Option<(String, &PathBuf)> = None;
     for file in files {
         let shown = file.display();
-        let mut f = std::fs::File::open(&file).map_err(|e| format!("cannot open {shown}: {e}"))?;
+        let mut f = std::fs::File::open(file).map_err(|e| format!("cannot open {shown}: {e}"))?;
         let len = f.metadata().map(|m| m.len()).unwrap_or(0);
         match kind {
             FileKind::Parquet => {
@@ -649,7 +612,7 @@ fn preflight(path: &str, kind: FileKind, header: bool, delimiter: u8) -> Result<
                 }
                 if header && kind_of_name(path).is_none() {
                     match &first_header {
-                        None => first_header = Some((line, file.clone())),
+                        None => first_header = Some((line, file)),
                         Some((h, other)) if *h != line => {
                             return Err(format!(
                                 "files in {path} disagree on their columns: {} has '{h}', {shown} has '{line}'",
@@ -668,7 +631,7 @@ fn preflight(path: &str, kind: FileKind, header: bool, delimiter: u8) -> Result<
 
 /// The data files of `kind` under `dir` and its subdirectories (a listing reads them
 /// all), skipping names that start with `_` or `.`.
-fn data_files(dir: &Path, kind: FileKind, out: &mut Vec<std::path::PathBuf>) -> Result<(), String> {
+fn data_files(dir: &Path, kind: FileKind, out: &mut Vec<PathBuf>) -> Result<(), String> {
     let entries =
         std::fs::read_dir(dir).map_err(|e| format!("cannot list {}: {e}", dir.display()))?;
     for entry in entries.filter_map(|e| e.ok()) {
@@ -686,6 +649,82 @@ fn data_files(dir: &Path, kind: FileKind, out: &mut Vec<std::path::PathBuf>) -> 
     Ok(())
 }
 
+/// What a path names, looked at once: a file (or glob), or a directory with its
+/// partition columns and data files.
+struct Source {
+    /// The format, from the name or else a directory's first data file; `None` when
+    /// neither tells.
+    kind: Option<FileKind>,
+    /// A gzip file, or a directory of them (read from decompressed copies).
+    gzip: bool,
+    directory: Option<Directory>,
+}
+
+struct Directory {
+    /// The columns the directory names hold, outermost first (none for a plain
+    /// directory).
+    partitions: Vec<String>,
+    /// Every data file of the source's format under it, sorted (none for gzip files,
+    /// which are listed from their copies).
+    files: Vec<PathBuf>,
+}
+
+impl Source {
+    /// The source at `path`. A directory holding both gzip and plain data files, or
+    /// partitioned into directories of gzip files, is refused: the listing would read
+    /// one kind and skip the other without a word.
+    fn of(path: &str) -> Result<Source, String> {
+        if !Path::new(path).is_dir() {
+            return Ok(Source {
+                kind: kind_of_name(path),
+                gzip: path.to_ascii_lowercase().ends_with(".gz"),
+                directory: None,
+            });
+        }
+        let partitions = partitions(path)?;
+        let mut names: Vec<String> = std::fs::read_dir(&partitions.leaf)
+            .map_err(|e| format!("cannot list {}: {e}", partitions.leaf.display()))?
+            .filter_map(|e| e.ok())
+            .map(|e| e.file_name().to_string_lossy().to_string())
+            .filter(|n| !n.starts_with('.') && !n.starts_with('_'))
+            .collect();
+        names.sort();
+        let kind = kind_of_name(path).or_else(|| names.iter().find_map(|n| kind_of_name(n)));
+        let gzip_inside = names
+            .iter()
+            .any(|n| n.to_ascii_lowercase().ends_with(".gz"));
+        let gzip = match (kind.is_some(), gzip_inside) {
+            (false, true) if !partitions.columns.is_empty() => {
+                return Err(format!(
+                    "'{path}' is partitioned into directories of gzip files, which are not \
+                     read; decompress them, or give each directory of gzip files as a table \
+                     of its own"
+                ))
+            }
+            (true, true) => {
+                return Err(format!(
+                    "'{path}' holds both gzip and uncompressed data files, and only one kind \
+                     would be read; keep one kind in the directory"
+                ))
+            }
+            (_, gzip) => gzip,
+        };
+        let mut files = Vec::new();
+        if let (Some(kind), false) = (kind, gzip) {
+            data_files(Path::new(path), kind, &mut files)?;
+            files.sort();
+        }
+        Ok(Source {
+            kind,
+            gzip,
+            directory: Some(Directory {
+                partitions: partitions.columns,
+                files,
+            }),
+        })
+    }
+}
+
 /// How a directory is partitioned by value, as Spark, pyarrow and polars write
 /// datasets (`region=north/year=2024/part-0.parquet`).
 struct Partitions {
@@ -693,7 +732,7 @@ struct Partitions {
     /// directory).
     columns: Vec<String>,
     /// The first directory that holds the data files.
-    leaf: std::path::PathBuf,
+    leaf: PathBuf,
 }
 
 /// The partition columns of the directory at `path`: every level whose entries are all
@@ -702,16 +741,16 @@ struct Partitions {
 /// read without its column.
 fn partitions(path: &str) -> Result<Partitions, String> {
     let mut columns = Vec::new();
-    let mut leaf = std::path::PathBuf::from(path);
+    let mut leaf = PathBuf::from(path);
     loop {
-        let mut entries: Vec<(String, std::path::PathBuf)> = std::fs::read_dir(&leaf)
+        let mut entries: Vec<(String, PathBuf)> = std::fs::read_dir(&leaf)
             .map_err(|e| format!("cannot list {}: {e}", leaf.display()))?
             .filter_map(|e| e.ok())
             .map(|e| (e.file_name().to_string_lossy().to_string(), e.path()))
             .filter(|(n, _)| !n.starts_with('.') && !n.starts_with('_'))
             .collect();
         entries.sort();
-        let column_of = |(name, path): &(String, std::path::PathBuf)| {
+        let column_of = |(name, path): &(String, PathBuf)| {
             name.split_once('=')
                 .filter(|(c, _)| path.is_dir() && !c.is_empty())
                 .map(|(c, _)| c.to_string())
@@ -790,25 +829,6 @@ fn kind_of_name(name: &str) -> Option<FileKind> {
     } else {
         None
     }
-}
-
-/// The format of a file, glob or directory (from its first data file).
-fn file_kind(path: &str) -> Option<FileKind> {
-    if let Some(k) = kind_of_name(path) {
-        return Some(k);
-    }
-    if Path::new(path).is_dir() {
-        let dir = partitions(path).map(|p| p.leaf).ok()?;
-        let mut names: Vec<String> = std::fs::read_dir(dir)
-            .ok()?
-            .filter_map(|e| e.ok())
-            .map(|e| e.file_name().to_string_lossy().to_string())
-            .filter(|n| !n.starts_with('.') && !n.starts_with('_'))
-            .collect();
-        names.sort();
-        return names.iter().find_map(|n| kind_of_name(n));
-    }
-    None
 }
 
 /// The extension a listing should match: the path's own when it names a file.
