@@ -54,6 +54,9 @@ pub(super) struct Cut {
     pub span: f64,
     /// Rows at or after this time are scored.
     pub at: f64,
+    /// The earliest scored row's time (for messages: a bin's edge can fall between
+    /// two dates).
+    pub first: f64,
 }
 
 /// Where the latest `SCORED_SHARE` of the training rows with a time and a target
@@ -78,7 +81,7 @@ pub(super) async fn cut(ctx: &SessionContext, plan: &EncodePlan) -> Result<Optio
     let bins = ctx
         .sql(&format!(
             "SELECT LEAST(CAST(FLOOR(({t} - {oldest}) / {span} * {BINS}) AS BIGINT), {}) AS bin, \
-             COUNT(*) AS n FROM {from} WHERE {y} IS NOT NULL AND {t} IS NOT NULL \
+             COUNT(*) AS n, MIN({t}) AS first FROM {from} WHERE {y} IS NOT NULL AND {t} IS NOT NULL \
              GROUP BY 1 ORDER BY 1",
             BINS - 1
         ))
@@ -86,13 +89,17 @@ pub(super) async fn cut(ctx: &SessionContext, plan: &EncodePlan) -> Result<Optio
         .collect()
         .await?;
     let mut counts = vec![0i64; BINS as usize];
+    let mut firsts = vec![f64::INFINITY; BINS as usize];
     for b in &bins {
-        let (bin, n) = (
+        let (bin, n, first) = (
             b.column(0).as_primitive::<Int64Type>(),
             b.column(1).as_primitive::<Int64Type>(),
+            b.column(2).as_primitive::<Float64Type>(),
         );
         for r in 0..b.num_rows() {
-            counts[bin.value(r).clamp(0, BINS as i64 - 1) as usize] += n.value(r);
+            let bin = bin.value(r).clamp(0, BINS as i64 - 1) as usize;
+            counts[bin] += n.value(r);
+            firsts[bin] = firsts[bin].min(first.value(r));
         }
     }
     let total: i64 = counts.iter().sum();
@@ -105,7 +112,11 @@ pub(super) async fn cut(ctx: &SessionContext, plan: &EncodePlan) -> Result<Optio
                 return Ok(None);
             }
             let at = oldest + span * (bin + 1) as f64 / BINS as f64;
-            return Ok(Some(Cut { span, at }));
+            let first = firsts[bin + 1..]
+                .iter()
+                .copied()
+                .fold(f64::INFINITY, f64::min);
+            return Ok(Some(Cut { span, at, first }));
         }
     }
     Ok(None)
@@ -157,7 +168,7 @@ pub(super) async fn fit_half_life(
         "the latest fifth of training rows ({rows} rows from {} = {}) scored by fits of the \
          earlier ones, read through a line fitted on those rows' {} encodings",
         plan.options.time_column.as_deref().unwrap_or_default(),
-        plan.time_units.show_time(cut.at),
+        plan.time_units.show_time(cut.first),
         match design {
             Design::OutOfFold => "out-of-fold",
             Design::AsOf { .. } => "as-of",

@@ -2732,6 +2732,47 @@ fn drifting_csv(dir: &Path) -> String {
     path.to_str().unwrap().to_string()
 }
 
+// The fitted half-life's reason names where the trial's scored rows begin. For a date
+// column that is a date (the trial's cut is a bin edge, which can fall inside a day:
+// it once read "from booked_on = 2025-10-19 04:48:00"), and the rows it counts are
+// the rows with a target from that date on.
+#[tokio::test]
+async fn a_fitted_half_life_names_its_scored_rows_by_date() {
+    use posterity::encode::{self, EncodeOptions, HalfLife};
+    let ctx = SessionContext::new();
+    posterity::register(&ctx);
+    ctx.register_csv("a", &sample(), Default::default())
+        .await
+        .unwrap();
+    let mut options = EncodeOptions::new("a", "no_show", &["breed"]);
+    options.time_column = Some("booked_on".into());
+    options.half_life = Some(HalfLife::Fitted);
+    let plan = encode::resolve(&ctx, &options).await.unwrap();
+    let reason = &plan.keys[0].recency;
+    let named = reason
+        .split_once("training rows (")
+        .and_then(|(_, rest)| rest.split_once(')'))
+        .map(|(inside, _)| inside.to_string())
+        .unwrap_or_else(|| panic!("no scored rows named in: {reason}"));
+    let (rows, date) = named
+        .split_once(" rows from booked_on = ")
+        .unwrap_or_else(|| panic!("{named}"));
+    assert_eq!(date.len(), "2025-10-20".len(), "not a date: {reason}");
+    let counted = ctx
+        .sql(&format!(
+            "SELECT COUNT(*) FROM a WHERE booked_on >= DATE '{date}' AND no_show IS NOT NULL"
+        ))
+        .await
+        .unwrap()
+        .collect()
+        .await
+        .unwrap()[0]
+        .column(0)
+        .as_primitive::<Int64Type>()
+        .value(0);
+    assert_eq!(rows, counted.to_string(), "{reason}");
+}
+
 // --half-life fitted: per key, the latest fifth of the training rows scored by fits
 // of the earlier ones. A key whose levels swap rates mid-way gets a short half-life;
 // a key whose rates never move gets none (recency would only throw data away). Every
