@@ -31,7 +31,10 @@
 //! # Ok(()) }
 //! ```
 
+mod checks;
+mod choose;
 mod options;
+mod plan;
 mod recency;
 mod resolve;
 mod run;
@@ -42,7 +45,8 @@ pub use options::{
     parse_hierarchy, EncodeOptions, HalfLife, Horizon, Method, PriorChoice, Reader, ScoreEvidence,
     TimeTies, Treatment, LOO_REFUSED,
 };
-pub use resolve::{feature_columns, resolve, EncodePlan, KeyPlan, OutputColumn};
+pub use plan::{feature_columns, EncodePlan, KeyPlan, OutputColumn};
+pub use resolve::resolve;
 pub use run::{
     run, run_with_progress, summary_json, summary_table, write, ColumnSummary, EncodeOutput,
 };

@@ -20,7 +20,7 @@ use datafusion::arrow::datatypes::{Float64Type, Int64Type};
 use datafusion::prelude::SessionContext;
 
 use super::options::Method;
-use super::resolve::{EncodePlan, KeyPlan, TimeUnits};
+use super::plan::{EncodePlan, KeyPlan, TimeUnits};
 use super::sql::{as_of_pool, AsOfDecay, TRAIN};
 use super::{quote, text, EncodeError, Result};
 use crate::layout::Kind;

@@ -18,7 +18,8 @@ use datafusion::prelude::SessionContext;
 use serde_json::{json, Value};
 
 use super::options::{Reader, Treatment};
-use super::resolve::{one_row, EncodePlan, KeyPlan};
+use super::plan::{EncodePlan, KeyPlan};
+use super::resolve::one_row;
 use super::sql::{SCORE, TRAIN};
 use super::{text, EncodeError, Result};
 use crate::bundle::{Bundle, ColumnEncoding};

@@ -8,7 +8,7 @@
 //! as-of encodings have a posterior per row.
 
 use super::options::{Method, TimeTies, Treatment};
-use super::resolve::{EncodePlan, KeyPlan, OutputColumn, TimeUnits};
+use super::plan::{EncodePlan, KeyPlan, OutputColumn, TimeUnits};
 use super::{quote, text};
 use crate::layout::Kind;
 

@@ -11,11 +11,12 @@ use datafusion::arrow::datatypes::{DataType, Field, Schema};
 use datafusion::datasource::MemTable;
 use datafusion::prelude::SessionContext;
 
-use super::options::{EncodeOptions, Method, PriorChoice, Reader, TimeTies};
-use super::resolve::{
+use super::checks::{
     check_input_names, check_output_names, check_target_values, columns_of, require_columns,
-    scoring_columns, EncodePlan, KeyPlan,
+    scoring_columns,
 };
+use super::options::{EncodeOptions, Method, PriorChoice, Reader, TimeTies};
+use super::plan::{EncodePlan, KeyPlan};
 use super::run::{execute, finish, EncodeOutput};
 use super::sql::{SCORE, TRAIN};
 use super::{text, usage, EncodeError, Result};
@@ -89,7 +90,7 @@ async fn check_classes(
         .join(", ");
     let class = format!("CAST({} AS VARCHAR)", super::quote(target));
     let (new_rows, example) =
-        super::resolve::rows_failing(ctx, table, &class, &format!("{class} IN ({listed})")).await?;
+        super::checks::rows_failing(ctx, table, &class, &format!("{class} IN ({listed})")).await?;
     if new_rows > 0 {
         return usage(format!(
             "--update: {new_rows} new row(s) have a class of '{target}' the previous run did \
@@ -204,7 +205,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
             ));
         }
     }
-    super::resolve::require_key_types("table of new rows", &train, &keys)?;
+    super::checks::require_key_types("table of new rows", &train, &keys)?;
     check_target_values(
         ctx,
         (&options.train, &train),
