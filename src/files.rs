@@ -5,12 +5,15 @@
 //! registration with its name. Used by the shell and by every front end that reads
 //! files for `encode`.
 
+use std::collections::BTreeSet;
 use std::path::{Path, PathBuf};
 
 use datafusion::arrow::datatypes::DataType;
+use datafusion::common::ScalarValue;
 use datafusion::datasource::file_format::options::{
     CsvReadOptions, JsonReadOptions, ParquetReadOptions,
 };
+use datafusion::error::DataFusionError;
 use datafusion::prelude::SessionContext;
 
 /// How tables from CSV files are read.
@@ -147,7 +150,7 @@ async fn register_plain(
         .directory
         .iter()
         .flat_map(|d| d.partitions.iter())
-        .map(|c| (c.clone(), DataType::Utf8))
+        .map(|(c, _)| (c.clone(), DataType::Utf8))
         .collect();
     let result = match format {
         FileKind::Parquet => {
@@ -206,10 +209,17 @@ async fn register_plain(
             .await
         }
     };
-    result.map_err(|e| FileError::Engine {
+    let engine = |e: DataFusionError| FileError::Engine {
         path: path.to_string(),
         message: e.to_string(),
-    })
+    };
+    result.map_err(engine)?;
+    match &source.directory {
+        Some(directory) => type_partitions(ctx, name, &directory.partitions, &text)
+            .await
+            .map_err(engine),
+        None => Ok(()),
+    }
 }
 
 /// A CSV file or directory (`directory_files`: its data files) with its inferred
@@ -661,9 +671,9 @@ struct Source {
 }
 
 struct Directory {
-    /// The columns the directory names hold, outermost first (none for a plain
-    /// directory).
-    partitions: Vec<String>,
+    /// The columns the directory names hold, outermost first, with their values
+    /// (none for a plain directory).
+    partitions: Vec<(String, BTreeSet<String>)>,
     /// Every data file of the source's format under it, sorted (none for gzip files,
     /// which are listed from their copies).
     files: Vec<PathBuf>,
@@ -682,13 +692,10 @@ impl Source {
             });
         }
         let partitions = partitions(path)?;
-        let mut names: Vec<String> = std::fs::read_dir(&partitions.leaf)
-            .map_err(|e| format!("cannot list {}: {e}", partitions.leaf.display()))?
-            .filter_map(|e| e.ok())
-            .map(|e| e.file_name().to_string_lossy().to_string())
-            .filter(|n| !n.starts_with('.') && !n.starts_with('_'))
+        let names: Vec<String> = visible_entries(&partitions.leaf)?
+            .into_iter()
+            .map(|(name, _)| name)
             .collect();
-        names.sort();
         let kind = kind_of_name(path).or_else(|| names.iter().find_map(|n| kind_of_name(n)));
         let gzip_inside = names
             .iter()
@@ -729,8 +736,8 @@ impl Source {
 /// datasets (`region=north/year=2024/part-0.parquet`).
 struct Partitions {
     /// The columns the directory names hold, outermost first (none for a plain
-    /// directory).
-    columns: Vec<String>,
+    /// directory), each with every value its directories name.
+    columns: Vec<(String, BTreeSet<String>)>,
     /// The first directory that holds the data files.
     leaf: PathBuf,
 }
@@ -740,16 +747,10 @@ struct Partitions {
 /// directories with files, or naming two columns, is refused: part of it would be
 /// read without its column.
 fn partitions(path: &str) -> Result<Partitions, String> {
-    let mut columns = Vec::new();
+    let mut columns: Vec<String> = Vec::new();
     let mut leaf = PathBuf::from(path);
     loop {
-        let mut entries: Vec<(String, PathBuf)> = std::fs::read_dir(&leaf)
-            .map_err(|e| format!("cannot list {}: {e}", leaf.display()))?
-            .filter_map(|e| e.ok())
-            .map(|e| (e.file_name().to_string_lossy().to_string(), e.path()))
-            .filter(|(n, _)| !n.starts_with('.') && !n.starts_with('_'))
-            .collect();
-        entries.sort();
+        let entries = visible_entries(&leaf)?;
         let column_of = |(name, path): &(String, PathBuf)| {
             name.split_once('=')
                 .filter(|(c, _)| path.is_dir() && !c.is_empty())
@@ -757,6 +758,9 @@ fn partitions(path: &str) -> Result<Partitions, String> {
         };
         let named: Vec<String> = entries.iter().filter_map(column_of).collect();
         if named.is_empty() {
+            let mut values = vec![BTreeSet::new(); columns.len()];
+            partition_values(Path::new(path), &columns, &mut values)?;
+            let columns = columns.into_iter().zip(values).collect();
             return Ok(Partitions { columns, leaf });
         }
         if named.len() != entries.len() {
@@ -783,6 +787,146 @@ fn partitions(path: &str) -> Result<Partitions, String> {
         columns.push(named[0].clone());
         leaf = entries[0].1.clone();
     }
+}
+
+/// Every value of each partition column in the tree under `dir` (`columns` from its
+/// first branch), checking that every directory at a level is named for that level's
+/// column: the engine would skip the files of any other without a word.
+fn partition_values(
+    dir: &Path,
+    columns: &[String],
+    values: &mut [BTreeSet<String>],
+) -> Result<(), String> {
+    let Some((column, deeper)) = columns.split_first() else {
+        return Ok(());
+    };
+    let (here, below) = values.split_at_mut(1);
+    for (name, path) in visible_entries(dir)? {
+        match name.split_once('=') {
+            Some((c, value)) if c == column && path.is_dir() => {
+                here[0].insert(value.to_string());
+                partition_values(&path, deeper, below)?;
+            }
+            _ => {
+                return Err(format!(
+                    "'{}' holds '{name}' where the dataset's directories at that level are \
+                     {column}=...; keep one column per level, and data files only below the \
+                     last",
+                    dir.display()
+                ))
+            }
+        }
+    }
+    Ok(())
+}
+
+/// The entries of `dir` a listing reads (names starting with `.` or `_` are skipped),
+/// sorted by name.
+fn visible_entries(dir: &Path) -> Result<Vec<(String, PathBuf)>, String> {
+    let mut entries: Vec<(String, PathBuf)> = std::fs::read_dir(dir)
+        .map_err(|e| format!("cannot list {}: {e}", dir.display()))?
+        .filter_map(|e| e.ok())
+        .map(|e| (e.file_name().to_string_lossy().to_string(), e.path()))
+        .filter(|(n, _)| !n.starts_with('.') && !n.starts_with('_'))
+        .collect();
+    entries.sort();
+    Ok(entries)
+}
+
+/// What Spark and pyarrow name the directory of a missing partition value.
+const NULL_PARTITION: &str = "__HIVE_DEFAULT_PARTITION__";
+
+/// The type of a partition column, from its values as the directories name them:
+/// whole numbers (`year=2024`) are integers, other numbers floats, ISO dates
+/// (`day=2024-03-01`) dates; `None` (text) for anything else. A number written with
+/// a leading zero (`area=007`) is a code, and stays text.
+fn partition_type(values: &BTreeSet<String>) -> Option<DataType> {
+    let values: Vec<&str> = values
+        .iter()
+        .map(String::as_str)
+        .filter(|v| *v != NULL_PARTITION)
+        .collect();
+    let leading_zero = |v: &str| {
+        let digits = v.trim_start_matches(['-', '+']);
+        digits.len() > 1 && digits.starts_with('0') && !digits.starts_with("0.")
+    };
+    let whole = |v: &str| {
+        let digits = v.strip_prefix('-').unwrap_or(v);
+        !digits.is_empty() && digits.bytes().all(|b| b.is_ascii_digit()) && v.parse::<i64>().is_ok()
+    };
+    // Digits alone that overflow an integer are an identifier, not a float.
+    let number = |v: &str| {
+        v.bytes()
+            .all(|b| b.is_ascii_digit() || b"+-.eE".contains(&b))
+            && (whole(v) || v.contains(['.', 'e', 'E']))
+            && v.parse::<f64>().is_ok_and(f64::is_finite)
+    };
+    let date = |v: &str| {
+        v.len() == 10
+            && v.bytes().enumerate().all(|(i, b)| match i {
+                4 | 7 => b == b'-',
+                _ => b.is_ascii_digit(),
+            })
+            && ScalarValue::try_from_string(v.to_string(), &DataType::Date32).is_ok()
+    };
+    let all = |test: &dyn Fn(&str) -> bool| !values.is_empty() && values.iter().all(|v| test(v));
+    if values.iter().any(|v| leading_zero(v)) {
+        None
+    } else if all(&whole) {
+        Some(DataType::Int64)
+    } else if all(&number) {
+        Some(DataType::Float64)
+    } else if all(&date) {
+        Some(DataType::Date32)
+    } else {
+        None
+    }
+}
+
+/// Re-register table `name` with its partition columns typed by `partition_type`
+/// (unless named in `text`) and the missing-value directory read as NULL. Nothing
+/// changes for columns that stay text and have no missing value.
+async fn type_partitions(
+    ctx: &SessionContext,
+    name: &str,
+    partitions: &[(String, BTreeSet<String>)],
+    text: &[&str],
+) -> datafusion::error::Result<()> {
+    use datafusion::prelude::{cast, ident, lit, nullif};
+    let typed: Vec<(&str, Option<DataType>, bool)> = partitions
+        .iter()
+        .map(|(column, values)| {
+            let data_type = match text.contains(&column.as_str()) {
+                true => None,
+                false => partition_type(values),
+            };
+            (column.as_str(), data_type, values.contains(NULL_PARTITION))
+        })
+        .collect();
+    if typed.iter().all(|(_, t, null)| t.is_none() && !null) {
+        return Ok(());
+    }
+    let table = ctx.table(name).await?;
+    let columns: Vec<datafusion::prelude::Expr> = table
+        .schema()
+        .fields()
+        .iter()
+        .map(|f| match typed.iter().find(|(c, ..)| c == f.name()) {
+            None => ident(f.name()),
+            Some((column, data_type, _)) => {
+                let value = nullif(ident(f.name()), lit(NULL_PARTITION));
+                match data_type {
+                    Some(t) => cast(value, t.clone()),
+                    None => value,
+                }
+                .alias(*column)
+            }
+        })
+        .collect();
+    let typed = table.select(columns)?.into_view();
+    ctx.deregister_table(name)?;
+    ctx.register_table(name, typed)?;
+    Ok(())
 }
 
 /// The column names of a CSV header line: fields split at `delimiter` outside
@@ -855,4 +999,37 @@ fn null_pattern(marker: &str) -> String {
     }
     out.push_str(")?$");
     out
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn type_of(values: &[&str]) -> Option<DataType> {
+        partition_type(&values.iter().map(|v| v.to_string()).collect())
+    }
+
+    #[test]
+    fn partition_values_are_typed_as_dataset_writers_type_them() {
+        assert_eq!(type_of(&["2024", "2025", "-3"]), Some(DataType::Int64));
+        assert_eq!(type_of(&["0", "10"]), Some(DataType::Int64));
+        assert_eq!(
+            type_of(&["1.5", "2", "1e3", "0.25"]),
+            Some(DataType::Float64)
+        );
+        assert_eq!(
+            type_of(&["2024-03-01", "2024-12-31"]),
+            Some(DataType::Date32)
+        );
+        assert_eq!(type_of(&["2024", NULL_PARTITION]), Some(DataType::Int64));
+        // Codes and identifiers stay text.
+        assert_eq!(type_of(&["007", "12"]), None);
+        assert_eq!(type_of(&["01.5"]), None);
+        assert_eq!(type_of(&["99999999999999999999"]), None);
+        assert_eq!(type_of(&["2024-02-30"]), None);
+        assert_eq!(type_of(&["2024-03-01", "north"]), None);
+        assert_eq!(type_of(&["inf", "nan", "NaN"]), None);
+        assert_eq!(type_of(&[NULL_PARTITION]), None);
+        assert_eq!(type_of(&[]), None);
+    }
 }

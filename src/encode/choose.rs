@@ -239,10 +239,7 @@ pub(super) async fn choose_reading(ctx: &SessionContext, plan: &mut EncodePlan) 
 /// posterior key gets it: a trial per key like the half-life's was measured to
 /// keep it where the learner lost by it and drop it where the learner gained
 /// most (MODELING.md).
-async fn scoring_horizon(
-    ctx: &SessionContext,
-    plan: &EncodePlan,
-) -> Result<Option<f64>> {
+async fn scoring_horizon(ctx: &SessionContext, plan: &EncodePlan) -> Result<Option<f64>> {
     let (Some(score), Some(time), Some(newest)) = (
         &plan.options.score,
         &plan.options.time_column,

@@ -62,8 +62,9 @@ pub struct Args {
     /// all (the whole file is read once more first). Default 1000.
     #[arg(global = true, long, value_name = "N|all", value_parser = CsvOptions::parse_infer_rows)]
     csv_infer_rows: Option<usize>,
-    /// CSV columns to read as text exactly as written, comma-separated (codes with
-    /// leading zeros such as postcodes: 00123 stays 00123, not the number 123).
+    /// CSV columns (and a partitioned directory's path columns) to read as text exactly
+    /// as written, comma-separated (codes with leading zeros such as postcodes: 00123
+    /// stays 00123, not the number 123).
     #[arg(global = true, long, value_delimiter = ',', value_name = "COLUMNS")]
     csv_text: Vec<String>,
     /// Run SQL on a Ballista cluster: its scheduler's URL, df://HOST:PORT (the

@@ -331,10 +331,69 @@ fn partitioned_directories_give_their_path_columns() {
     ]);
     assert_eq!(
         stdout(&o),
-        "year,t,n\n2024,Utf8,3\n2025,Utf8,2\n",
+        "year,t,n\n2024,Int64,3\n2025,Int64,2\n",
         "{}",
         stderr(&o)
     );
+    // Path values are typed as pyarrow and Spark type them (whole numbers, dates), a
+    // code with a leading zero stays text, --csv-text keeps a column text, and the
+    // directory Spark and pyarrow write for a missing value reads as NULL.
+    for (dir_name, part) in [
+        ("area=007/day=2024-03-01", "beagle"),
+        ("area=12/day=2024-03-02", "boxer"),
+        (
+            "area=__HIVE_DEFAULT_PARTITION__/day=__HIVE_DEFAULT_PARTITION__",
+            "poodle",
+        ),
+    ] {
+        let to = dir.join("typed").join(dir_name);
+        std::fs::create_dir_all(&to).unwrap();
+        let from = parquet_dir.join(format!(
+            "year={}/breed={part}/part-0.parquet",
+            if part == "poodle" { 2025 } else { 2024 }
+        ));
+        std::fs::copy(from, to.join("part-0.parquet")).unwrap();
+    }
+    let typed = |extra: &[&str]| {
+        let table = format!("s={}", dir.join("typed").display());
+        let mut args = vec!["--table", &table, "--format", "csv"];
+        args.extend_from_slice(extra);
+        args.extend([
+            "-c",
+            "SELECT area, arrow_typeof(area) AS a, day, arrow_typeof(day) AS d, COUNT(*) AS n \
+             FROM s GROUP BY area, day ORDER BY day NULLS FIRST",
+        ]);
+        stdout(&run(&args))
+    };
+    assert_eq!(
+        typed(&[]),
+        "area,a,day,d,n\n,Utf8,,Date32,2\n007,Utf8,2024-03-01,Date32,2\n12,Utf8,2024-03-02,Date32,1\n"
+    );
+    let o = run(&[
+        "--table",
+        &format!("s={}", parquet_dir.display()),
+        "--csv-text",
+        "year",
+        "-c",
+        "SELECT DISTINCT arrow_typeof(year) FROM s",
+    ]);
+    assert!(stdout(&o).contains("Utf8"), "{}", stderr(&o));
+    // A file beside a deeper level's directories would be skipped by the listing.
+    let stray = parquet_dir.join("year=2025/stray.parquet");
+    std::fs::copy(
+        parquet_dir.join("year=2025/breed=poodle/part-0.parquet"),
+        &stray,
+    )
+    .unwrap();
+    let o = fit(&parquet_dir, false);
+    assert!(
+        stderr(&o).contains(
+            "holds 'stray.parquet' where the dataset's directories at that level are breed=..."
+        ),
+        "{}",
+        stderr(&o)
+    );
+    std::fs::remove_file(stray).unwrap();
 
     // A level mixing partition directories with files would read part of the rows
     // without their column; gzip files in partitions are not read: both refused.
