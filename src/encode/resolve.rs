@@ -305,7 +305,7 @@ async fn family_of(
     }
     check_target_values(
         ctx,
-        (&options.train, &train),
+        (&options.train, train),
         target,
         options.exposure.as_deref(),
         family,
