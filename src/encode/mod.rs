@@ -48,7 +48,8 @@ pub use options::{
 pub use plan::{feature_columns, EncodePlan, KeyPlan, OutputColumn};
 pub use resolve::resolve;
 pub use run::{
-    run, run_with_progress, summary_json, summary_table, write, ColumnSummary, EncodeOutput,
+    run, run_with_progress, summary_json, summary_table, unseen_table, write, ColumnSummary,
+    EncodeOutput,
 };
 pub use sql::Statement;
 pub use update::{update, UpdateOptions};

@@ -685,6 +685,33 @@ pub fn summary_table(summary: &[ColumnSummary]) -> String {
     out
 }
 
+/// The scored rows per key as a short table (`EncodeOutput::unseen`, which
+/// `unseen_levels.json` holds): rows, rows with the key, and rows and levels the
+/// training rows never saw (those rows get the prior).
+pub fn unseen_table(summary: &[ColumnSummary], unseen: &Value) -> String {
+    let mut out = format!(
+        "{:<24} {:>12} {:>12} {:>12} {:>14}\n",
+        "key", "rows", "with key", "unseen rows", "unseen levels"
+    );
+    for s in summary {
+        let count = |field: &str| {
+            unseen[&s.key][field]
+                .as_f64()
+                .map(crate::render::short)
+                .unwrap_or_else(|| "-".into())
+        };
+        out.push_str(&format!(
+            "{:<24} {:>12} {:>12} {:>12} {:>14}\n",
+            s.key,
+            count("rows"),
+            count("rows_with_key"),
+            count("unseen_rows"),
+            count("unseen_levels")
+        ));
+    }
+    out
+}
+
 /// The files of a previous run in an output directory: the only files `write` replaces.
 fn is_previous_run(dir: &Path) -> bool {
     dir.join("bundle.json").is_file()

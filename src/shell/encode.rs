@@ -345,10 +345,11 @@ pub async fn run(shell: &Shell, args: &EncodeArgs) -> Result<(), Failure> {
         encode::summary_table(&output.summary)
     );
     if let (Some(score), Some(unseen)) = (&args.score, &output.unseen) {
-        println!(
-            "scored {score} into {}; unseen levels per key:\n{}",
+        print!(
+            "scored {score} into {} (rows at levels the training rows never saw get the \
+             prior; also in unseen_levels.json)\n{}",
             args.out.join("scored.parquet").display(),
-            serde_json::to_string_pretty(unseen).unwrap_or_default()
+            encode::unseen_table(&output.summary, unseen)
         );
     }
     Ok(())

@@ -4063,6 +4063,20 @@ fn scored_keys_that_all_miss_their_levels_are_reported() {
         assert!(!printed.contains("with a breed has"), "{printed}");
         let summary = std::fs::read_to_string(out.join("summary.json")).unwrap();
         assert_eq!(summary.contains(warning), warned, "{summary}");
+        // The scored rows per key, as a table (unseen_levels.json has the same counts).
+        let clinic = printed
+            .lines()
+            .skip_while(|l| !l.starts_with("key") || !l.contains("unseen levels"))
+            .find(|l| l.starts_with("clinic "))
+            .unwrap_or_else(|| panic!("no scored table in {printed}"));
+        let counts: Vec<&str> = clinic.split_whitespace().skip(1).collect();
+        let unseen_rows = if warned { "3000" } else { "0" };
+        let levels = if warned { "12" } else { "0" };
+        assert_eq!(counts, ["3000", "3000", unseen_rows, levels], "{printed}");
+        let json: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(out.join("unseen_levels.json")).unwrap())
+                .unwrap();
+        assert_eq!(json["clinic"]["unseen_levels"].to_string(), levels);
     }
 }
 
