@@ -568,7 +568,7 @@ fn parse_options(options: &Bound<'_, pyo3::types::PyDict>, o: &mut EncodeOptions
                     Err(_) => HalfLife::parse(&text().map_err(|_| {
                         wrong(
                             "a number > 0 (the time column's units: days for dates and \
-                             datetimes; a Timedelta t is t / pandas.Timedelta(days=1)) or 'fitted'",
+                             datetimes), a Timedelta or 'fitted'",
                         )
                     })?)
                     .map_err(in_python_words)?,
@@ -580,11 +580,15 @@ fn parse_options(options: &Bound<'_, pyo3::types::PyDict>, o: &mut EncodeOptions
                     Err(_) => Horizon::parse(&text().map_err(|_| {
                         wrong(
                             "a number > 0 (the time column's units: days for dates and \
-                             datetimes), 'matched' or 'none'",
+                             datetimes), a Timedelta, 'matched' or 'none'",
                         )
                     })?)
                     .map_err(in_python_words)?,
                 })
+            }
+            // Set by the Python API when half_life or horizon came as a Timedelta.
+            "_durations_in_days" => {
+                o.durations_in_days = value.extract().map_err(|_| wrong("True or False"))?
             }
             "normalize_keys" => {
                 o.normalize_keys = value.extract().map_err(|_| wrong("True or False"))?

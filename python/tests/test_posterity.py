@@ -240,6 +240,18 @@ def test_summary_warnings_name_keyword_arguments():
     assert not any("--" in w for w in warnings), warnings
 
 
+def test_durations_count_days_of_a_date_time_column():
+    # A Timedelta half-life or horizon on a date column is that many days: the same
+    # encodings as the number of days.
+    base = dict(target="no_show", columns=["breed"], time_column="booked_on")
+    by_number = posterity.encode(SAMPLE, half_life=14, horizon=3, **base)
+    for half_life, horizon in [(pd.Timedelta(weeks=2), pd.Timedelta(days=3)),
+                               (datetime.timedelta(days=14), np.timedelta64(72, "h"))]:
+        by_duration = posterity.encode(SAMPLE, half_life=half_life, horizon=horizon, **base)
+        assert by_duration.train_encoded.equals(by_number.train_encoded)
+        assert [s["half_life"] for s in by_duration.summary] == [14.0]
+
+
 def test_horizon_is_reported_per_key():
     enc = posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
                            horizon=30)
@@ -492,7 +504,16 @@ def test_bad_input_is_a_python_error(ctx):
          ["encode: target must name a column as text", "None"]),
         (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
                                   half_life=datetime.timedelta(days=3)),
-         ["half_life must be a number > 0", "Timedelta(days=1)"]),
+         ["half_life was given as a duration", "time_column 'day' is not dates or timestamps"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], time_column="day",
+                                  horizon=pd.Timedelta(days=3)),
+         ["horizon was given as a duration", "give horizon as a number of its own units"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"],
+                                  time_column="booked_on", half_life=np.timedelta64("NaT")),
+         ["NaT is no duration"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"],
+                                  time_column="booked_on", half_life=[3]),
+         ["half_life must be a number > 0", "a Timedelta or 'fitted'"]),
         (lambda: posterity.Bundle.load("/no/such/bundle.json"), ["Bundle.load", "cannot read"]),
         (lambda: posterity.Bundle.from_json("{}"), ["Bundle.from_json", "posterity bundle"]),
     ]

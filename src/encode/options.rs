@@ -418,6 +418,10 @@ pub struct EncodeOptions {
     /// How far back as-of training rows read (see `Horizon`); `None`: every
     /// strictly earlier time.
     pub horizon: Option<Horizon>,
+    /// The half-life and horizon were given as durations, counted in days (a Python
+    /// Timedelta): refused unless the time column holds dates or timestamps, whose
+    /// units are days.
+    pub durations_in_days: bool,
     pub time_ties: TimeTies,
     /// Exposure column of a Gamma target.
     pub exposure: Option<String>,
@@ -470,6 +474,7 @@ impl EncodeOptions {
             normalize_keys: false,
             half_life: None,
             horizon: None,
+            durations_in_days: false,
             time_ties: TimeTies::Strict,
             exposure: None,
             readers: None,

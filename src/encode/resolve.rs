@@ -497,6 +497,15 @@ async fn times_of(
         .as_ref()
         .and_then(|time| train.iter().find(|(n, _)| n == time))
         .and_then(|(_, d)| TimeUnits::of(d));
+    if let (Some(flag), Some(time), true) = (timed, &options.time_column, options.durations_in_days)
+    {
+        if time_units != Some(TimeUnits::Days) {
+            return usage(format!(
+                "{flag} was given as a duration, which counts days; --time-column '{time}' is \
+                 not dates or timestamps, so give {flag} as a number of its own units"
+            ));
+        }
+    }
     let time_range = match (timed, &options.time_column) {
         (Some(flag), Some(time)) => {
             let Some(units) = time_units else {

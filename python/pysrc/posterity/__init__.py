@@ -18,6 +18,7 @@ whose message names the function, the argument and what is allowed.
 from __future__ import annotations
 
 import atexit
+import datetime
 import json
 import os
 from types import SimpleNamespace
@@ -166,6 +167,20 @@ def _column_name(name: Any, what: str, kind: str) -> str:
                 f"({type(name).__name__})")
 
 
+def _days(value: Any):
+    """A duration (``datetime.timedelta``, ``pandas.Timedelta``, ``numpy.timedelta64``)
+    in days; ``None`` for anything else."""
+    if isinstance(value, datetime.timedelta):
+        return value / datetime.timedelta(days=1)
+    if type(value).__name__ == "timedelta64" and type(value).__module__ == "numpy":
+        import numpy as np
+
+        if np.isnat(value):
+            raise Error("encode: a half_life or horizon of NaT is no duration")
+        return float(value / np.timedelta64(1, "D"))
+    return None
+
+
 def _as_output(data, kind: str):
     if data is None:
         return None
@@ -265,8 +280,9 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     underscores: ``interactions=[["breed", "clinic"]]``, ``family``, ``prior`` ("fitted",
     "jeffreys", "uniform" or numbers), ``method`` ("kfold" or "time"; "time" by default when ``time_column`` is given), ``folds``, ``seed``,
     ``time_column`` (numbers, or dates and datetimes, whose half-lives and horizons count
-    days), ``half_life`` (time units, or "fitted": chosen per key), ``horizon`` (time units,
-    "matched": from ``score``'s times, or "none"), ``normalize_keys``, ``time_ties``, ``exposure``,
+    days), ``half_life`` (time units, a Timedelta for a time column of dates or datetimes, or
+    "fitted": chosen per key), ``horizon`` (time units, a Timedelta, "matched": from
+    ``score``'s times, or "none"), ``normalize_keys``, ``time_ties``, ``exposure``,
     ``readers=["mean", "sd"]`` (default ``["mean"]``, plus ``"sd"`` for a continuous key whose
     levels differ widely in spread; the summary's ``readers_reason`` says which), ``draws``, ``indicators``, ``indicator_min_rows``,
     ``treatment={"clinic": "levels"}``, ``hierarchy="postcode>district>region"`` (or a list of
@@ -284,6 +300,11 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     for option in ("time_column", "exposure"):
         if options.get(option) is not None:
             options[option] = _column_name(options[option], option, kind)
+    for option in ("half_life", "horizon"):
+        days = _days(options.get(option))
+        if days is not None:
+            options[option] = days
+            options["_durations_in_days"] = True
     inner = _posterity.encode_data(_as_input(train, "train"), target, list(columns),
                                    None if score is None else _as_input(score, "score"),
                                    **options)
