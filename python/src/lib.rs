@@ -444,7 +444,15 @@ impl EncodeResult {
     /// The summary as the shell prints it.
     #[getter]
     fn summary_text(&self) -> String {
-        encode::summary_table(&summary_in_python_words(&self.output.summary))
+        let summary = summary_in_python_words(&self.output.summary);
+        let mut text = encode::summary_table(&summary);
+        if let Some(unseen) = &self.output.unseen {
+            text.push_str(
+                "scored rows (rows at levels the training rows never saw get the prior):\n",
+            );
+            text.push_str(&encode::unseen_table(&summary, unseen));
+        }
+        text
     }
 
     /// Write the directory the shell's `--out` writes (whole, or not at all).

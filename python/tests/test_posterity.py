@@ -161,6 +161,10 @@ def test_encode_equals_the_shell(tmp_path):
         assert (tmp_path / "python" / f).read_bytes() == (tmp_path / "shell" / f).read_bytes(), f
     assert [s["key"] for s in enc.summary] == ["breed", "postcode_area", "vet", "breed_x_clinic"]
     assert enc.report is None
+    # Printed, the scored rows per key follow the summary, as the shell prints them.
+    printed = str(enc).splitlines()
+    at = printed.index(next(line for line in printed if line.startswith("scored rows")))
+    assert printed[at + 2].split() == ["breed", "3000", "3000", "0", "0"], printed
 
 
 def test_a_gzip_file_encodes_like_the_file_inside(tmp_path):
