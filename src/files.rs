@@ -1,5 +1,6 @@
 //! Registering files as tables: Parquet, CSV, TSV, NDJSON and JSON arrays, a file,
-//! a directory of files or a glob (a file or a directory's files also gzip-compressed),
+//! a directory of files (also partitioned by value, `year=2024/`, its path columns
+//! typed from their values) or a glob (a file or a directory's files also gzip-compressed),
 //! with checks the engine does not make (broken Parquet, empty CSV, unterminated
 //! quotes, CSV directories whose headers disagree) so that a broken file fails at
 //! registration with its name. Used by the shell and by every front end that reads

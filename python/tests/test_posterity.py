@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 import polars as pl
 import pyarrow as pa
+import pyarrow.csv as pacsv
 import pyarrow.parquet as pq
 import pytest
 from datafusion import col, lit
@@ -224,6 +225,35 @@ def test_csv_files_read_with_the_shells_csv_options(tmp_path):
     with pytest.raises(posterity.Error) as e:
         posterity.encode(frame, target="no_show", columns=["breed"], csv_null="NA")
     assert "csv_null is for CSV files given by path" in str(e.value), e.value
+
+
+def test_a_dataset_pyarrow_wrote_partitioned_reads_like_the_file(tmp_path):
+    # pyarrow writes a dataset as clinic=.../month=.../part.parquet (a missing clinic as
+    # __HIVE_DEFAULT_PARTITION__). Given as a path, the clinic key stays text, the
+    # missing clinic is a NULL key (the prior), and the whole-number month is a number a
+    # half-life can count: the per-level encodings equal the flat table's.
+    table = pacsv.read_csv(
+        SAMPLE, convert_options=pacsv.ConvertOptions(
+            column_types={"clinic": pa.string(), "day": pa.int64()}))
+    clinic = table.column("clinic").to_pylist()
+    clinic[:40] = [None] * 40
+    table = table.set_column(table.schema.get_field_index("clinic"), "clinic",
+                             pa.array(clinic, pa.string()))
+    month = [d // 30 for d in table.column("day").to_pylist()]
+    table = table.append_column("month", pa.array(month, pa.int64()))
+    root = tmp_path / "dataset"
+    pq.write_to_dataset(table, root, partition_cols=["clinic", "month"])
+    assert (root / "clinic=__HIVE_DEFAULT_PARTITION__").is_dir()
+    options = dict(target="no_show", columns=["clinic", "breed"], time_column="month",
+                   method="kfold", half_life=2)
+    flat = posterity.encode(table, **options)
+    parted = posterity.encode(root, **options)
+    for key in ["clinic", "breed"]:
+        want = sorted(flat.encodings[key].drop_columns(["p"]).to_pylist(), key=str)
+        got = sorted(parted.encodings[key].drop_columns(["p"]).to_pylist(), key=str)
+        same(got, want, key)
+    assert [s["rows"] for s in parted.summary] == [s["rows"] for s in flat.summary]
+    assert parted.summary[0]["levels"] == 12
 
 
 def test_fitted_half_life_is_reported_per_key():
