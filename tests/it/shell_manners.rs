@@ -329,6 +329,25 @@ impl Tmux {
         panic!("'{text}' never appeared:\n{}", self.screen());
     }
 
+    /// Wait until the last line on screen is an empty prompt `prompt` (up to 20 s).
+    /// Keys typed after a Ctrl-C but before the next prompt may be dropped with the
+    /// interrupted line (a loaded CI machine showed it), so a test waits for it.
+    fn wait_for_prompt(&self, prompt: &str) {
+        let last_line = |s: &str| {
+            s.lines()
+                .rev()
+                .find(|l| !l.trim().is_empty())
+                .map(|l| l.trim().to_string())
+        };
+        for _ in 0..200 {
+            if last_line(&self.screen()).as_deref() == Some(prompt) {
+                return;
+            }
+            std::thread::sleep(std::time::Duration::from_millis(100));
+        }
+        panic!("the prompt '{prompt}' never appeared:\n{}", self.screen());
+    }
+
     fn alive(&self) -> bool {
         let o = Command::new("tmux")
             .args(["display-message", "-p", "-t", &self.0, "#{pane_dead}"])
@@ -363,12 +382,15 @@ fn the_prompt_cancels_queries_and_keeps_tables() {
     tmux.wait_for("rows read");
     tmux.keys(&["C-c"]);
     tmux.wait_for("cancelled (Ctrl-C)");
+    tmux.wait_for_prompt("3 ▸");
     // Tab completes the table's name.
     tmux.keys(&["SELECT SUM(column1) AS total", "Enter", "FROM kep", "Tab"]);
     tmux.wait_for("FROM kept");
+    // Ctrl-C drops the part-typed statement: the next line starts a new one.
     tmux.keys(&["C-c"]);
+    tmux.wait_for_prompt("3 ▸");
     tmux.keys(&["SELECT SUM(column1) AS total", "Enter"]);
-    tmux.wait_for("┆");
+    tmux.wait_for_prompt("┆");
     tmux.keys(&["FROM kept;", "Enter"]);
     tmux.wait_for("| 6     |");
     // Ctrl-D with a statement typed but not ended: it runs, then the shell leaves.
