@@ -399,6 +399,34 @@ def test_pandas_and_polars_in_and_out(tmp_path):
     assert indexed.train_encoded["breed_mean"].tolist() == want
 
 
+def test_pandas_rows_come_back_with_their_index_and_types():
+    """A pandas user splits a shuffled frame and assigns feature columns back to it, which
+    pandas aligns by index: the rows must come back with their own index (a fresh 0..n one
+    would put every value on another row without a word) and their column types."""
+    frame = pd.read_csv(SAMPLE, dtype={"breed": "string", "clinic": "category"})
+    frame["no_show"] = frame["no_show"].astype("boolean")
+    frame.loc[frame.index[3], "no_show"] = pd.NA
+    shuffled = frame.sample(frac=1.0, random_state=7)
+    train, score = shuffled.iloc[:3000], shuffled.iloc[3000:3400]
+    options = dict(target="no_show", columns=["breed", "clinic"], indicators=0)
+    enc = posterity.encode(train, score=score, **options)
+    plain = posterity.encode(pa.Table.from_pandas(train, preserve_index=False),
+                             score=pa.Table.from_pandas(score, preserve_index=False), **options)
+    for got, rows, want in [(enc.train_encoded, train, plain.train_encoded),
+                            (enc.scored, score, plain.scored),
+                            (enc.bundle.score(score), score, plain.scored)]:
+        assert got.index.equals(rows.index)
+        assert got[list(rows.columns)].dtypes.equals(rows.dtypes)
+        assert got["no_show"].isna().sum() == rows["no_show"].isna().sum()
+        again = rows.copy()
+        again["breed_mean"] = got["breed_mean"]  # aligned by index, as pandas does
+        assert again["breed_mean"].tolist() == want.column("breed_mean").to_pylist()
+    # A named index stays the index; it was read as a column.
+    indexed = posterity.encode(train.set_index("breed"), **options)
+    assert indexed.train_encoded.index.name == "breed"
+    assert indexed.train_encoded["breed_mean"].tolist() == plain.train_encoded.column("breed_mean").to_pylist()
+
+
 def test_pandas_dates_and_categories():
     """What a pandas user has: keys and targets as the category dtype and the time as
     datetime64 (here in UTC, six hours into the day). Days count as the numeric day does;
@@ -492,7 +520,7 @@ def test_pandas_names_and_missing_targets_read_as_pandas_has_them():
     frame = pd.DataFrame({0: ["a", "b", "a", "b", "c"] * 20,
                           1: [1.0, 0.0, float("nan"), 1.0, 0.0] * 20})
     enc = posterity.encode(frame, target=1, columns=[0], prior=[1, 1])
-    assert list(enc.train_encoded.columns) == ["0", "1", "0_mean"]
+    assert list(enc.train_encoded.columns) == [0, 1, "0_mean"]
     assert enc.summary[0]["family"] == "beta"
     assert enc.summary[0]["rows"] == 80.0
 

@@ -181,10 +181,26 @@ def _days(value: Any):
     return None
 
 
-def _as_output(data, kind: str):
+def _as_output(data, kind: str, rows=None):
+    """``data`` in the kind that went in. Given ``rows`` (the pandas frame these are
+    the rows of, in the same order), the result is ``rows`` as they went in, with
+    their index and column types, and the feature columns appended: assigning a
+    feature column to the frame aligns it by index, so a fresh 0..n index would put
+    each value on another row of a shuffled or filtered frame."""
     if data is None:
         return None
     table = pa.table(data)
+    if kind == "pandas" and _kind(rows) == "pandas":
+        import pandas as pd
+
+        given = set(pa.Table.from_pandas(rows.head(0), preserve_index=False).column_names)
+        given.update(n for n in rows.index.names if n is not None)
+        features = table.select([n for n in table.column_names if n not in given]).to_pandas()
+        if len(features) != len(rows):
+            raise Error(f"posterity: {len(features)} rows came back for the {len(rows)} given; "
+                        "please report this")
+        features.index = rows.index
+        return pd.concat([rows, features], axis=1)
     if kind == "pandas":
         return table.to_pandas()
     if kind == "polars":
@@ -233,25 +249,29 @@ class Bundle:
         return self._inner.keys
 
     def score(self, rows):
-        """``rows`` (pandas, polars or pyarrow) with the feature columns appended."""
+        """``rows`` (pandas, polars or pyarrow; pandas with its own index and column types)
+        with the feature columns appended."""
         kind = _kind(rows)
         data = _as_input(rows, "Bundle.score")
         if isinstance(data, str):
             raise Error("Bundle.score: give the rows as a table (pandas, polars or pyarrow); "
                         "read the file first")
-        return _as_output(self._inner.score_data(data), kind)
+        return _as_output(self._inner.score_data(data), kind, rows)
 
     def __repr__(self) -> str:
         return f"Bundle(target={self.target!r}, family={self.family!r}, keys={self.keys!r})"
 
 
 class Encoded:
-    """What ``encode`` returns: tables in the kind that went in, and the bundle."""
+    """What ``encode`` returns: tables in the kind that went in (pandas rows with their own
+    index and column types, the feature columns appended), and the bundle."""
 
-    def __init__(self, inner, kind: str):
+    def __init__(self, inner, kind: str, train=None, score=None):
         self._inner = inner
-        self.train_encoded = _as_output(inner.train_encoded, kind)
-        self.scored = _as_output(inner.scored, kind)
+        self.train_encoded = _as_output(inner.train_encoded, kind, train)
+        # Scored rows come back in the kind they went in (a path: the training rows' kind).
+        score_kind = kind if score is None or isinstance(score, (str, os.PathLike)) else _kind(score)
+        self.scored = _as_output(inner.scored, score_kind, score)
         self.encodings = {k: _as_output(v, kind) for k, v in inner.encodings}
         self.bundle = Bundle(inner.bundle)
         self.summary = json.loads(inner.summary_json)
@@ -308,7 +328,7 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     inner = _posterity.encode_data(_as_input(train, "train"), target, list(columns),
                                    None if score is None else _as_input(score, "score"),
                                    **options)
-    result = Encoded(inner, kind)
+    result = Encoded(inner, kind, train, score)
     if out is not None:
         result.write(out, replace)
     return result
