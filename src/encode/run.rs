@@ -41,8 +41,12 @@ pub struct ColumnSummary {
     /// the column was pooled completely).
     pub at_bound: bool,
     pub levels: u64,
-    /// Rows with the key (weighted evidence).
-    pub rows: f64,
+    /// Training rows with the key and a target (and an exposure), the rows its fits read.
+    pub rows: u64,
+    /// The weight those rows hold in the encodings (`posterior_data_weight` summed
+    /// over levels): the rows themselves, unless a half-life decays older ones, an
+    /// exposure is the weight of counts, or a refresh adds the stored posteriors'.
+    pub weight: f64,
     /// Share of scored rows at levels never seen in training.
     pub unseen_share: Option<f64>,
     /// Levels given an indicator column (big enough, up to the limit).
@@ -68,6 +72,23 @@ pub struct ColumnSummary {
     /// Whether that strength was kept from a refreshed bundle (else fitted).
     pub parent_strength_kept: bool,
     pub warnings: Vec<String>,
+}
+
+impl ColumnSummary {
+    /// Why the key's weight in the encodings is not its row count, when it is not.
+    pub fn weight_differs(&self) -> Option<&'static str> {
+        let rows = self.rows as f64;
+        if (self.weight - rows).abs() <= 1e-9 * rows.max(1.0) {
+            return None;
+        }
+        Some(if self.half_life.is_some() {
+            "the half-life decays older rows"
+        } else if self.family == "gamma" {
+            "counts weigh their exposure"
+        } else {
+            "with the stored posteriors' weight"
+        })
+    }
 }
 
 /// The results of [`run`]: lazily evaluated tables (stream, collect or write them)
@@ -291,6 +312,7 @@ pub(super) async fn finish(
         .unwrap_or_else(|| vec![Reader::Mean]);
     let mut summary = Vec::new();
     let mut unseen = serde_json::Map::new();
+    let rows_read = rows_read(ctx, plan).await?;
     // Two classes read per class give columns that add to one: said once, on the
     // first key that has readers.
     let two_classes_said_on = plan
@@ -333,7 +355,7 @@ pub(super) async fn finish(
             None => BTreeMap::new(),
         };
         let mut levels = BTreeMap::new();
-        let mut rows = 0.0;
+        let mut weight = 0.0;
         for batch in ctx
             .sql(&format!("SELECT level, p FROM __enc{i} ORDER BY level"))
             .await?
@@ -344,7 +366,7 @@ pub(super) async fn finish(
             let names = names.as_string::<i32>();
             for r in 0..batch.num_rows() {
                 if let Some(p) = posterior_at(&batch, 1, r)? {
-                    rows += p.evidence();
+                    weight += p.evidence();
                     levels.insert(names.value(r).to_string(), p);
                 }
             }
@@ -485,7 +507,8 @@ pub(super) async fn finish(
             strength,
             at_bound,
             levels: levels.len() as u64,
-            rows,
+            rows: rows_read[i],
+            weight,
             unseen_share,
             indicators: indicators.len(),
             merged_levels,
@@ -599,6 +622,28 @@ fn prior_strength(prior: &AnyPosterior) -> f64 {
     }
 }
 
+/// Per key, the training rows its fits read: rows with the key and a target (and,
+/// for counts per exposure, an exposure), counted in one pass over the keyed rows.
+async fn rows_read(ctx: &SessionContext, plan: &EncodePlan) -> Result<Vec<u64>> {
+    let o = &plan.options;
+    let counts: Vec<String> = (0..plan.keys.len())
+        .map(|i| format!("COUNT(t.__k{i})"))
+        .collect();
+    let mut read = vec![format!("t.{} IS NOT NULL", super::quote(&o.target))];
+    if let Some(x) = &o.exposure {
+        read.push(format!("t.{} IS NOT NULL", super::quote(x)));
+    }
+    let sql = format!(
+        "SELECT {} FROM __keyed t WHERE {}",
+        counts.join(", "),
+        read.join(" AND ")
+    );
+    let batch = one_row(ctx, &sql).await?;
+    Ok((0..plan.keys.len())
+        .map(|i| batch.column(i).as_primitive::<Int64Type>().value(0).max(0) as u64)
+        .collect())
+}
+
 /// The summary as JSON, one object per key (`summary.json`).
 pub fn summary_json(summary: &[ColumnSummary]) -> Value {
     Value::Array(
@@ -608,6 +653,7 @@ pub fn summary_json(summary: &[ColumnSummary]) -> Value {
                 json!({
                     "key": s.key, "family": s.family, "prior": s.prior, "strength": s.strength,
                     "at_bound": s.at_bound, "levels": s.levels, "rows": s.rows,
+                    "weight": s.weight,
                     "indicators": s.indicators, "merged_levels": s.merged_levels,
                     "treatment": s.treatment.name(), "why": s.why,
                     "half_life": s.half_life, "recency": s.recency,
@@ -634,7 +680,7 @@ pub fn summary_table(summary: &[ColumnSummary]) -> String {
             s.treatment.name(),
             s.family,
             s.levels,
-            crate::render::short(s.rows),
+            s.rows,
             crate::render::short(s.strength),
             s.unseen_share
                 .map(|u| format!("{:.1}%", 100.0 * u))
@@ -665,6 +711,14 @@ pub fn summary_table(summary: &[ColumnSummary]) -> String {
                     ),
                     None => "but no level has a parent: the key's own prior".to_string(),
                 }
+            ));
+        }
+        if let Some(why) = s.weight_differs() {
+            out.push_str(&format!(
+                "{}: its {} rows weigh {} in the encodings ({why})\n",
+                s.key,
+                s.rows,
+                crate::render::short(s.weight)
             ));
         }
         for reason in [&s.readers_why, &s.horizon_why, &s.recency] {

@@ -110,10 +110,19 @@ padding:2px 8px;text-align:left}figure{margin:1em 0}figcaption{font-size:90%;col
 fn facts_table(s: &ColumnSummary) -> String {
     let mut rows = vec![
         ("levels", s.levels.to_string()),
-        ("rows with the key", short(s.rows)),
+        ("rows with the key", s.rows.to_string()),
         ("prior", s.prior_text.clone()),
         ("prior strength (rows)", short(s.strength)),
     ];
+    if let Some(why) = s.weight_differs() {
+        rows.insert(
+            2,
+            (
+                "their weight in the encodings",
+                format!("{} ({why})", short(s.weight)),
+            ),
+        );
+    }
     if let Some(unseen) = s.unseen_share {
         rows.push((
             "scored rows at unseen levels",

@@ -4220,3 +4220,112 @@ async fn integer_targets_that_are_not_counts_are_named() {
         "{e}"
     );
 }
+
+// The summary's rows are rows: the training rows with the key and a target (and an
+// exposure). What they weigh in the encodings is said beside them when it differs:
+// a half-life decays older rows, and counts weigh their exposure. Before, the summary
+// gave the weight under the name rows (18357 rows showed as 2398.35 with a 30-day
+// half-life).
+#[tokio::test]
+async fn the_summary_counts_rows_and_says_what_they_weigh() {
+    let dir = temp_dir("summary-rows");
+    let root = env!("CARGO_MANIFEST_DIR");
+    let appointments = format!("{root}/demo/sample/appointments.csv");
+    let pets = format!("{root}/demo/sample/pets.csv");
+    let ctx = SessionContext::new();
+    ctx.register_csv("a", &appointments, Default::default())
+        .await
+        .unwrap();
+    ctx.register_csv("p", &pets, Default::default())
+        .await
+        .unwrap();
+    let hand = |sql: &'static str| {
+        let ctx = ctx.clone();
+        async move {
+            let b = ctx.sql(sql).await.unwrap().collect().await.unwrap();
+            let v = |c: usize| {
+                datafusion::arrow::compute::cast(b[0].column(c), &DataType::Float64).unwrap()
+            };
+            (
+                v(0).as_primitive::<Float64Type>().value(0),
+                v(1).as_primitive::<Float64Type>().value(0),
+            )
+        }
+    };
+    let (rows, decayed) = hand(
+        "SELECT COUNT(*), SUM(power(0.5, ((SELECT MAX(day) FROM a) - day) / 30.0)) FROM a \
+         WHERE breed IS NOT NULL AND no_show IS NOT NULL",
+    )
+    .await;
+    let (pet_rows, exposure) = hand(
+        "SELECT COUNT(*), SUM(years_enrolled) FROM p \
+         WHERE breed IS NOT NULL AND visits IS NOT NULL AND years_enrolled IS NOT NULL",
+    )
+    .await;
+    let runs = [
+        (
+            "plain",
+            vec!["--train", &appointments, "--target", "no_show"],
+            rows,
+            rows,
+            None,
+        ),
+        (
+            "half-life",
+            vec![
+                "--train",
+                &appointments,
+                "--target",
+                "no_show",
+                "--time-column",
+                "day",
+                "--half-life",
+                "30",
+            ],
+            rows,
+            decayed,
+            Some("the half-life decays older rows"),
+        ),
+        (
+            "exposure",
+            vec![
+                "--train",
+                &pets,
+                "--target",
+                "visits",
+                "--exposure",
+                "years_enrolled",
+            ],
+            pet_rows,
+            exposure,
+            Some("counts weigh their exposure"),
+        ),
+    ];
+    for (name, mut args, want_rows, want_weight, why) in runs {
+        let out = dir.join(name);
+        let out_arg = out.display().to_string();
+        args.insert(0, "encode");
+        args.extend(["--columns", "breed", "--out", &out_arg]);
+        let o = encode_output(&args);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        let printed = String::from_utf8_lossy(&o.stdout).to_string();
+        let summary: serde_json::Value =
+            serde_json::from_str(&std::fs::read_to_string(out.join("summary.json")).unwrap())
+                .unwrap();
+        assert_eq!(
+            summary[0]["rows"].as_u64(),
+            Some(want_rows as u64),
+            "{name}"
+        );
+        let weight = summary[0]["weight"].as_f64().unwrap();
+        assert!(
+            (weight - want_weight).abs() <= 1e-9 * want_weight,
+            "{name}: {weight} against {want_weight}"
+        );
+        let line = printed.lines().find(|l| l.starts_with("breed: its "));
+        match why {
+            Some(why) => assert!(line.is_some_and(|l| l.contains(why)), "{name}: {printed}"),
+            None => assert!(line.is_none(), "{name}: {printed}"),
+        }
+    }
+}
