@@ -431,6 +431,17 @@ pub(super) async fn finish(
                 ));
             }
         }
+        // A target with one value is more often the wrong column or a filter gone
+        // wrong than data. Said once; a Normal target's fit says it for every key.
+        if let (0, true, Some(value)) = (i, plan.fitted, &rows_read.one_value) {
+            if plan.family != crate::layout::Kind::Nig {
+                warnings.push(format!(
+                    "every training row's target {} is {value}: the encodings cannot tell \
+                     levels apart (check the target column and the rows read)",
+                    plan.options.target
+                ));
+            }
+        }
         if two_classes_said_on == Some(i) {
             warnings.push(format!(
                 "target '{0}' has two classes ({1}, {2}): each class's columns are one minus \
@@ -507,7 +518,7 @@ pub(super) async fn finish(
             strength,
             at_bound,
             levels: levels.len() as u64,
-            rows: rows_read[i],
+            rows: rows_read.per_key[i],
             weight,
             unseen_share,
             indicators: indicators.len(),
@@ -622,26 +633,48 @@ fn prior_strength(prior: &AnyPosterior) -> f64 {
     }
 }
 
-/// Per key, the training rows its fits read: rows with the key and a target (and,
-/// for counts per exposure, an exposure), counted in one pass over the keyed rows.
-async fn rows_read(ctx: &SessionContext, plan: &EncodePlan) -> Result<Vec<u64>> {
+/// What the fits read of the training rows: per key, the rows with the key and a
+/// target (and, for counts per exposure, an exposure), and the target's value when
+/// every such row has the same one; counted in one pass over the keyed rows.
+struct RowsRead {
+    per_key: Vec<u64>,
+    one_value: Option<String>,
+}
+
+async fn rows_read(ctx: &SessionContext, plan: &EncodePlan) -> Result<RowsRead> {
     let o = &plan.options;
+    let y = format!("t.{}", super::quote(&o.target));
     let counts: Vec<String> = (0..plan.keys.len())
         .map(|i| format!("COUNT(t.__k{i})"))
         .collect();
-    let mut read = vec![format!("t.{} IS NOT NULL", super::quote(&o.target))];
+    let mut read = vec![format!("{y} IS NOT NULL")];
     if let Some(x) = &o.exposure {
         read.push(format!("t.{} IS NOT NULL", super::quote(x)));
     }
     let sql = format!(
-        "SELECT {} FROM __keyed t WHERE {}",
+        "SELECT MIN({y}), MAX({y}), {} FROM __keyed t WHERE {}",
         counts.join(", "),
         read.join(" AND ")
     );
     let batch = one_row(ctx, &sql).await?;
-    Ok((0..plan.keys.len())
-        .map(|i| batch.column(i).as_primitive::<Int64Type>().value(0).max(0) as u64)
-        .collect())
+    let text = |c: usize| -> Result<Option<String>> {
+        let c = cast(batch.column(c), &DataType::Utf8)?;
+        let c = c.as_string::<i32>();
+        Ok(c.is_valid(0).then(|| c.value(0).to_string()))
+    };
+    let (low, high) = (text(0)?, text(1)?);
+    Ok(RowsRead {
+        per_key: (0..plan.keys.len())
+            .map(|i| {
+                batch
+                    .column(i + 2)
+                    .as_primitive::<Int64Type>()
+                    .value(0)
+                    .max(0) as u64
+            })
+            .collect(),
+        one_value: low.filter(|low| Some(low) == high.as_ref()),
+    })
 }
 
 /// The summary as JSON, one object per key (`summary.json`).

@@ -4329,3 +4329,53 @@ async fn the_summary_counts_rows_and_says_what_they_weigh() {
         }
     }
 }
+
+// A target with one value in the training rows (the wrong column, or a filter that
+// kept one outcome) is said, for every family whose fit does not say it already;
+// a target with two values is not.
+#[test]
+fn a_target_with_one_value_is_said() {
+    let dir = temp_dir("one-value");
+    let mixed = random_key_csv(&dir, 400, 20);
+    let text = std::fs::read_to_string(&mixed).unwrap();
+    let same = |value: &str| {
+        let mut s = String::from("id,key,t,y\n");
+        for line in text.lines().skip(1) {
+            let (head, _) = line.rsplit_once(',').unwrap();
+            s.push_str(&format!("{head},{value}\n"));
+        }
+        let path = dir.join(format!("same-{value}.csv"));
+        std::fs::write(&path, s).unwrap();
+        path.display().to_string()
+    };
+    let cases = [
+        (mixed.clone(), vec![], false),
+        (same("0"), vec![], true),
+        (same("1"), vec![], true),
+        (same("0"), vec!["--family", "gamma"], true),
+        (same("missed"), vec![], true),
+    ];
+    for (i, (train, extra, said)) in cases.into_iter().enumerate() {
+        let out = dir.join(format!("out{i}")).display().to_string();
+        let mut args = vec![
+            "encode",
+            "--train",
+            &train,
+            "--target",
+            "y",
+            "--columns",
+            "key",
+            "--out",
+            &out,
+        ];
+        args.extend(extra);
+        let o = encode_output(&args);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        let printed = String::from_utf8_lossy(&o.stdout).to_string();
+        assert_eq!(
+            printed.contains("every training row's target y is"),
+            said,
+            "{train}: {printed}"
+        );
+    }
+}
