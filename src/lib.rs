@@ -25,6 +25,7 @@
 //! ```
 
 pub mod bundle;
+pub mod clauses;
 pub mod docs;
 pub mod encode;
 pub mod family;

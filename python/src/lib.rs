@@ -827,6 +827,19 @@ impl Bundle {
 
 /// Remove the copies of input files written for the engine (decompressed `.gz`
 /// files, JSON arrays as NDJSON); called when the interpreter exits.
+/// Refuse SQL that puts an aggregate or window clause on a scalar function, which
+/// the engine would drop without a word (`posterity::clauses`).
+#[pyfunction]
+fn check_sql(sql: &str) -> PyResult<()> {
+    posterity::clauses::check_sql_default(sql).map_err(|e| {
+        Error::new_err(
+            e.to_string()
+                .trim_start_matches("Error during planning: ")
+                .to_string(),
+        )
+    })
+}
+
 #[pyfunction]
 fn remove_temporaries() {
     posterity::files::remove_temporaries();
@@ -848,5 +861,6 @@ fn _posterity(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(engine_version, m)?)?;
     m.add_function(wrap_pyfunction!(encode_data, m)?)?;
     m.add_function(wrap_pyfunction!(remove_temporaries, m)?)?;
+    m.add_function(wrap_pyfunction!(check_sql, m)?)?;
     Ok(())
 }

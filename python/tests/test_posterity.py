@@ -607,6 +607,25 @@ def test_bad_input_is_a_python_error(ctx):
             assert f in str(e.value), f"{sql}: {f!r} not in {e.value}"
 
 
+def test_clauses_the_engine_would_drop_are_refused(ctx):
+    """FILTER or OVER written on a reader instead of on the fit: the engine drops the
+    clause without a word (every row read; one row for the table). ctx.sql refuses it by
+    name; on the fit the clause works."""
+    wrong = ("SELECT posterior_mean(beta_posterior(no_show, beta_prior(2, 18))) "
+             "FILTER (WHERE day < 0) AS m FROM a GROUP BY breed")
+    with pytest.raises(posterity.Error, match="posterior_mean: FILTER would be ignored"):
+        ctx.sql(wrong)
+    with pytest.raises(posterity.Error, match="posterior_mean: OVER would be ignored"):
+        ctx.sql_with_options("SELECT posterior_mean(beta_posterior(no_show, beta_prior(2, 18))) "
+                             "OVER (PARTITION BY breed) FROM a", datafusion.SQLOptions())
+    right = ctx.sql("SELECT posterior_mean(beta_posterior(no_show, beta_prior(2, 18)) "
+                    "FILTER (WHERE day < 0)) AS m FROM a GROUP BY breed").to_pandas()
+    assert len(right) > 10 and (right["m"] == 0.1).all()
+    # Registering twice checks once; a context's other methods are untouched.
+    posterity.register(ctx)
+    assert ctx.sql("SELECT 1 AS one").to_pandas()["one"].tolist() == [1]
+
+
 def test_the_interpreter_survives_every_function_with_wrong_arguments(ctx):
     # Every function, called with no argument, text, NULL, a number and a list: an
     # error or a value, never a crash (the test getting to its end is the check).

@@ -297,6 +297,8 @@ impl Shell {
     }
 
     pub async fn collect(&self, sql: &str) -> Result<Vec<RecordBatch>, Failure> {
+        crate::clauses::check_sql(&self.ctx, sql)
+            .map_err(|e| Failure::query(crate::render::engine_error(e)))?;
         let df = self
             .ctx
             .sql(sql)

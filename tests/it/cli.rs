@@ -573,6 +573,19 @@ fn exit_codes_and_one_line_errors() {
         stderr(&o)
     );
     assert!(!stderr(&o).contains("backtrace"));
+    // A window written on a reader instead of on the fit: the engine would drop it and
+    // print one row for the whole table; the shell refuses it by name.
+    let o = run(&[
+        "-c",
+        "SELECT posterior_mean(beta_posterior(x, beta_prior(1, 1))) OVER (ORDER BY x) \
+         FROM (VALUES (0), (1)) t(x)",
+    ]);
+    assert_eq!(o.status.code(), Some(1));
+    assert!(
+        stderr(&o).contains("posterior_mean: OVER would be ignored"),
+        "{}",
+        stderr(&o)
+    );
 }
 
 #[test]

@@ -1277,3 +1277,63 @@ async fn pool_before_through_the_foreign_interface_refuses_frames_by_name() {
         assert!(error(&native, &call(window)).await.contains("leave it out"));
     }
 }
+
+// The engine drops OVER, FILTER, DISTINCT and ORDER BY written on a scalar function
+// without a word (a reader around a fit, instead of on the fit): a wrong number with
+// no error. `clauses::check_sql` (run by the shell and by Python's ctx.sql) refuses
+// each, naming the function and the clause; written on the fit, the same clause is
+// accepted and does its work. The breeds' counts are the table's own.
+#[tokio::test]
+async fn clauses_the_engine_would_drop_are_refused() {
+    let ctx = ctx().await;
+    let refused = [
+        ("SELECT breed, posterior_mean(beta_posterior(no_show, beta_prior(2, 18))) FILTER (WHERE t < 0) FROM appts GROUP BY breed", "posterior_mean: FILTER"),
+        ("SELECT posterior_mean(beta_posterior(no_show, beta_prior(2, 18))) OVER (PARTITION BY breed ORDER BY t) FROM appts", "posterior_mean: OVER"),
+        ("SELECT posterior_sd(DISTINCT beta_prior(2, 18))", "posterior_sd: DISTINCT"),
+        ("SELECT posterior_quantile(beta_prior(2, 18), 0.5 ORDER BY 1)", "posterior_quantile: ORDER BY"),
+        ("SELECT abs(t) FILTER (WHERE t > 3) FROM appts", "abs: FILTER"),
+        ("EXPLAIN SELECT Posterior_Mean(beta_prior(2, 18)) OVER ()", "posterior_mean: OVER"),
+        ("COPY (SELECT posterior_mean(beta_prior(2, 18)) OVER () FROM appts) TO '/dev/null' STORED AS CSV", "posterior_mean: OVER"),
+        ("SELECT * FROM appts WHERE t IN (SELECT posterior_mean(beta_prior(1, 1)) FILTER (WHERE true))", "posterior_mean: FILTER"),
+    ];
+    for (sql, said) in refused {
+        let e = posterity::clauses::check_sql(&ctx, sql)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains(&format!("{said} would be ignored")),
+            "{sql}: {e}"
+        );
+        let e = posterity::clauses::check_sql_default(sql)
+            .unwrap_err()
+            .to_string();
+        assert!(
+            e.contains(&format!("{said} would be ignored")),
+            "{sql}: {e}"
+        );
+    }
+    // On the fit, each clause does its work and passes the check.
+    let on_the_fit = [
+        "SELECT posterior_mean(beta_posterior(no_show, beta_prior(2, 18)) FILTER (WHERE t < 0)) AS m, \
+         breed, COUNT(DISTINCT t) FROM appts GROUP BY breed",
+        "SELECT posterior_mean(beta_posterior(no_show, beta_prior(2, 18)) OVER (PARTITION BY breed)) FROM appts",
+    ];
+    for sql in on_the_fit {
+        posterity::clauses::check_sql(&ctx, sql).unwrap();
+        posterity::clauses::check_sql_default(sql).unwrap();
+    }
+    let filtered = floats(&ctx, on_the_fit[0]).await;
+    assert!(
+        filtered.len() == 4 && filtered.iter().all(|m| *m == Some(0.1)),
+        "{filtered:?}"
+    );
+    assert_eq!(floats(&ctx, on_the_fit[1]).await.len(), 40);
+    // The engine itself still drops the clause: when this fails, it refuses or honours
+    // it, and the check may go.
+    let dropped = one(
+        &ctx,
+        "SELECT posterior_mean(beta_posterior(no_show, beta_prior(2, 18))) FILTER (WHERE t < 0) FROM appts",
+    )
+    .await;
+    assert!((dropped - 0.1).abs() > 0.01, "{dropped}");
+}

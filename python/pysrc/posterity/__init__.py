@@ -107,6 +107,7 @@ def register(ctx) -> SimpleNamespace:
         udwf = WindowUDF.from_pycapsule(f)
         ctx.register_udwf(udwf)
         out[f.name] = udwf
+    _refuse_ignored_clauses(ctx)
     for name, udf in out.items():
         if name in docs:
             try:
@@ -114,6 +115,29 @@ def register(ctx) -> SimpleNamespace:
             except (AttributeError, TypeError):
                 pass
     return SimpleNamespace(**out)
+
+
+def _refuse_ignored_clauses(ctx) -> None:
+    """Check the SQL of ``ctx.sql`` and ``ctx.sql_with_options`` first. The engine drops
+    OVER, FILTER, DISTINCT and ORDER BY written on a scalar function without a word, so
+    ``posterior_mean(beta_posterior(y)) FILTER (WHERE c)`` would read every row; such a
+    statement is refused with the clause named (a ``posterity.Error``)."""
+    if getattr(ctx, "_posterity_checks_sql", False):
+        return
+    try:
+        for method in ("sql", "sql_with_options"):
+            unchecked = getattr(ctx, method)
+
+            def checked(query, *args, _unchecked=unchecked, **kwargs):
+                if isinstance(query, str):
+                    _posterity.check_sql(query)
+                return _unchecked(query, *args, **kwargs)
+
+            checked.__doc__ = unchecked.__doc__
+            setattr(ctx, method, checked)
+        ctx._posterity_checks_sql = True
+    except (AttributeError, TypeError):
+        pass  # a context that takes no attributes keeps the engine's own methods
 
 
 # ------------------------------------------------------------------ tables
