@@ -25,7 +25,7 @@ use posterity::datafusion::logical_expr::{AggregateUDF, ScalarUDF, WindowUDF};
 use posterity::datafusion::prelude::{DataFrame, SessionContext};
 use posterity::encode::{
     self, EncodeOptions, EncodeOutput, HalfLife, Horizon, Method, PriorChoice, Reader,
-    ScoreEvidence, TimeTies, Treatment,
+    ScoreEvidence, TimeTies, Treatment, UpdateOptions,
 };
 use posterity::files::CsvOptions;
 use posterity::layout::Kind;
@@ -466,7 +466,10 @@ impl EncodeResult {
 
 /// The options that say how CSV files given by path are read (the shell's `--csv-*`
 /// flags), taken out of `options`; with the first one's name, for messages.
-fn csv_options(options: &Bound<'_, pyo3::types::PyDict>) -> PyResult<Option<(String, CsvOptions)>> {
+fn csv_options(
+    options: &Bound<'_, pyo3::types::PyDict>,
+    function: &str,
+) -> PyResult<Option<(String, CsvOptions)>> {
     let mut csv = CsvOptions::default();
     let mut first = None;
     for key in [
@@ -484,7 +487,7 @@ fn csv_options(options: &Bound<'_, pyo3::types::PyDict>) -> PyResult<Option<(Str
             continue;
         }
         first.get_or_insert_with(|| key.to_string());
-        let wrong = |what: &str| error(format!("encode: {key} must be {what}"));
+        let wrong = |what: &str| error(format!("{function}: {key} must be {what}"));
         match key {
             "csv_no_header" => {
                 csv.header = !value
@@ -494,7 +497,7 @@ fn csv_options(options: &Bound<'_, pyo3::types::PyDict>) -> PyResult<Option<(Str
             "csv_delimiter" => {
                 let text: String = value.extract().map_err(|_| wrong("one character"))?;
                 csv.delimiter = CsvOptions::parse_delimiter(&text)
-                    .map_err(|e| error(format!("encode: {key} {e}")))?
+                    .map_err(|e| error(format!("{function}: {key} {e}")))?
             }
             "csv_null" => csv.null = Some(value.extract().map_err(|_| wrong("text, e.g. 'NA'"))?),
             "csv_infer_rows" => {
@@ -506,7 +509,7 @@ fn csv_options(options: &Bound<'_, pyo3::types::PyDict>) -> PyResult<Option<(Str
                 };
                 csv.infer_rows = Some(
                     CsvOptions::parse_infer_rows(&text)
-                        .map_err(|e| error(format!("encode: {key}: {e}")))?,
+                        .map_err(|e| error(format!("{function}: {key}: {e}")))?,
                 )
             }
             _ => {
@@ -679,7 +682,7 @@ fn encode_data(
     o.columns = columns;
     let mut csv = None;
     if let Some(options) = options {
-        csv = csv_options(options)?;
+        csv = csv_options(options, "encode")?;
         parse_options(options, &mut o)?;
     }
     let train = Input::from_python(train, "train")?;
@@ -702,7 +705,7 @@ fn encode_data(
         .cloned()
         .collect();
     let rt = runtime()?;
-    let (output, train_encoded, scored, encodings) = py
+    let output = py
         .detach(|| {
             rt.block_on(async {
                 let ctx = SessionContext::new();
@@ -717,28 +720,126 @@ fn encode_data(
                 }
                 let plan = encode::resolve(&ctx, &o).await.map_err(|e| e.to_string())?;
                 let output = encode::run(&ctx, &plan).await.map_err(|e| e.to_string())?;
-                let train_encoded = collect_some(&output.train_encoded).await?;
-                let scored = collect_some(&output.scored).await?;
-                let mut encodings = Vec::new();
-                for (name, df) in &output.encodings {
-                    encodings.push((
-                        name.clone(),
-                        collect(df.clone()).await.map_err(|e| e.to_string())?,
-                    ));
-                }
-                Ok::<_, String>((output, train_encoded, scored, encodings))
+                Collected::of(output).await
             })
         })
         .map_err(in_python_words)?;
-    Ok(EncodeResult {
-        output,
-        train_encoded: train_encoded.map(|d| Py::new(py, d)).transpose()?,
-        scored: scored.map(|d| Py::new(py, d)).transpose()?,
-        encodings: encodings
-            .into_iter()
-            .map(|(k, d)| Ok((k, Py::new(py, d)?)))
-            .collect::<PyResult<_>>()?,
-    })
+    output.into_python(py)
+}
+
+/// An encode output with its tables collected, ready to cross into Python.
+struct Collected {
+    output: EncodeOutput,
+    train_encoded: Option<ArrowData>,
+    scored: Option<ArrowData>,
+    encodings: Vec<(String, ArrowData)>,
+}
+
+impl Collected {
+    async fn of(output: EncodeOutput) -> Result<Collected, String> {
+        let train_encoded = collect_some(&output.train_encoded).await?;
+        let scored = collect_some(&output.scored).await?;
+        let mut encodings = Vec::new();
+        for (name, df) in &output.encodings {
+            encodings.push((
+                name.clone(),
+                collect(df.clone()).await.map_err(|e| e.to_string())?,
+            ));
+        }
+        Ok(Collected {
+            output,
+            train_encoded,
+            scored,
+            encodings,
+        })
+    }
+
+    fn into_python(self, py: Python<'_>) -> PyResult<EncodeResult> {
+        Ok(EncodeResult {
+            output: self.output,
+            train_encoded: self.train_encoded.map(|d| Py::new(py, d)).transpose()?,
+            scored: self.scored.map(|d| Py::new(py, d)).transpose()?,
+            encodings: self
+                .encodings
+                .into_iter()
+                .map(|(k, d)| Ok((k, Py::new(py, d)?)))
+                .collect::<PyResult<_>>()?,
+        })
+    }
+}
+
+/// Refresh a previous run's bundle with new rows (`train`), as the shell's
+/// `encode --update` does: its posteriors pooled with the new rows under its stored
+/// priors, no refit.
+#[pyfunction]
+#[pyo3(signature = (previous, train, score=None, exposure=None, decay=None, **options))]
+fn update_data(
+    py: Python<'_>,
+    previous: &Bundle,
+    train: &Bound<'_, PyAny>,
+    score: Option<&Bound<'_, PyAny>>,
+    exposure: Option<String>,
+    decay: Option<f64>,
+    options: Option<&Bound<'_, pyo3::types::PyDict>>,
+) -> PyResult<EncodeResult> {
+    const TRAIN: &str = "train";
+    const SCORE: &str = "score";
+    let mut csv = None;
+    if let Some(options) = options {
+        csv = csv_options(options, "update")?;
+        if let Some((key, _)) = options.iter().next() {
+            return Err(error(format!(
+                "update: unknown option {key}; a refresh takes the new rows, score, exposure, \
+                 decay and the csv_* options (the previous bundle fixes the target, keys, \
+                 family, priors and readers)"
+            )));
+        }
+    }
+    let train = Input::from_python(train, "train")?;
+    let score = score.map(|s| Input::from_python(s, "score")).transpose()?;
+    let paths = matches!(train, Input::Path(_)) || matches!(score, Some(Input::Path(_)));
+    if let (Some((named, _)), false) = (&csv, paths) {
+        return Err(error(format!(
+            "update: {named} is for CSV files given by path; train and score here are \
+             tables already read (give the reading options to the reader that made them)"
+        )));
+    }
+    let csv = csv.map(|(_, csv)| csv).unwrap_or_default();
+    let key_columns: Vec<String> = previous
+        .inner
+        .columns
+        .values()
+        .flat_map(|c| c.key_columns.clone())
+        .collect();
+    let options = UpdateOptions {
+        previous: previous.inner.clone(),
+        train: TRAIN.into(),
+        exposure,
+        decay,
+        score: score.as_ref().map(|_| SCORE.to_string()),
+    };
+    let rt = runtime()?;
+    let output = py
+        .detach(|| {
+            rt.block_on(async {
+                let ctx = SessionContext::new();
+                posterity::register(&ctx);
+                train
+                    .register(&ctx, TRAIN, "train", &csv, &key_columns)
+                    .await?;
+                if let Some(score) = score {
+                    score
+                        .register(&ctx, SCORE, "score", &csv, &key_columns)
+                        .await?;
+                }
+                let output = encode::update(&ctx, &options)
+                    .await
+                    .map_err(|e| e.to_string())?;
+                Collected::of(output).await
+            })
+        })
+        .map_err(in_python_words)?;
+    output.into_python(py)
 }
 
 // ------------------------------------------------------------------ bundle
@@ -862,5 +963,6 @@ fn _posterity(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(encode_data, m)?)?;
     m.add_function(wrap_pyfunction!(remove_temporaries, m)?)?;
     m.add_function(wrap_pyfunction!(check_sql, m)?)?;
+    m.add_function(wrap_pyfunction!(update_data, m)?)?;
     Ok(())
 }

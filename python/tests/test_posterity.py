@@ -355,6 +355,40 @@ def test_hierarchy_equals_the_shell(tmp_path):
         posterity.encode(str(path), target="no_show", columns=["postcode_area"], hierarchy=3)
 
 
+def test_update_equals_the_shells_refresh(tmp_path):
+    """A refresh from Python (new rows as a pandas frame, the previous run as an Encoded
+    result, a Bundle or its directory) gives the shell's `encode --update` numbers."""
+    frame = pd.read_csv(SAMPLE, dtype={"breed": "string", "clinic": "string"})
+    old, new = frame[frame.day < 200], frame[frame.day >= 200]
+    old_path, new_path = tmp_path / "old.csv", tmp_path / "new.csv"
+    old.to_csv(old_path, index=False)
+    new.to_csv(new_path, index=False)
+    shell = tmp_path / "shell"
+    for args in (["--train", str(old_path), "--target", "no_show", "--columns", "breed,clinic",
+                  "--out", str(shell / "old")],
+                 ["--update", str(shell / "old"), "--train", str(new_path), "--score",
+                  str(new_path), "--decay", "0.5", "--out", str(shell / "new")]):
+        subprocess.run([shell_binary(), "-q", "encode", *args], check=True, capture_output=True)
+    want = pq.read_table(shell / "new" / "scored.parquet").column("breed_mean").to_pylist()
+    first = posterity.encode(str(old_path), target="no_show", columns=["breed", "clinic"])
+    for previous in (first, first.bundle, shell / "old"):
+        refreshed = posterity.update(previous, new, score=new, decay=0.5)
+        assert refreshed.train_encoded is None
+        assert refreshed.scored.index.equals(new.index)
+        assert refreshed.scored["breed_mean"].tolist() == want
+    assert refreshed.bundle.to_json() == posterity.Bundle.load(shell / "new").to_json()
+    refreshed.write(tmp_path / "py")
+    assert (tmp_path / "py" / "bundle.json").exists()
+    with pytest.raises(posterity.Error, match="update: unknown option target"):
+        posterity.update(first, new, target="no_show")
+    with pytest.raises(posterity.Error, match="decay"):
+        posterity.update(first, new, decay=2.0)
+    with pytest.raises(posterity.Error, match="update: csv_null is for CSV files given by path"):
+        posterity.update(first, new, csv_null="NA")
+    with pytest.raises(posterity.Error, match="update: previous must be"):
+        posterity.update(42, new)
+
+
 def test_report_equals_the_shell(tmp_path):
     shell_encode(tmp_path / "shell", extra=["--report"])
     enc = posterity.encode(SAMPLE, target="no_show", score=SAMPLE, report=True, **OPTIONS)

@@ -356,3 +356,38 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     if out is not None:
         result.write(out, replace)
     return result
+
+
+def update(previous, train, score=None, out=None, replace: bool = False, exposure=None,
+           decay=None, **options) -> Encoded:
+    """Refresh a previous ``encode`` with new rows, without refitting (the shell's
+    ``encode --update``): each level's stored posterior is pooled with the new rows under
+    the stored priors, so the result equals a fit on old and new rows together under the
+    same priors. ``train`` holds the new rows only.
+
+    ``previous``: an ``Encoded``, a ``Bundle``, or the path of an output directory (or its
+    ``bundle.json``). It fixes the target, keys, family, priors and readers. ``decay``
+    (in (0, 1]) multiplies the stored evidence first: 0.5 after one half-life of age.
+    ``score``, ``out``, ``replace``, ``exposure`` and the ``csv_*`` options are as for
+    ``encode``. A refresh gives the encodings, the bundle and (with ``score``) scored rows;
+    ``train_encoded`` is None (leak-free training features come from ``encode``).
+    """
+    if isinstance(previous, Encoded):
+        bundle = previous.bundle
+    elif isinstance(previous, Bundle):
+        bundle = previous
+    elif isinstance(previous, (str, os.PathLike)):
+        bundle = Bundle.load(previous)
+    else:
+        raise Error(f"update: previous must be an Encoded result, a Bundle or the path of an "
+                    f"output directory; got {type(previous).__name__}")
+    kind = _kind(train)
+    if exposure is not None:
+        exposure = _column_name(exposure, "exposure", kind)
+    inner = _posterity.update_data(bundle._inner, _as_input(train, "train"),
+                                   None if score is None else _as_input(score, "score"),
+                                   exposure=exposure, decay=decay, **options)
+    result = Encoded(inner, kind, train, score)
+    if out is not None:
+        result.write(out, replace)
+    return result
