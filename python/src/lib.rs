@@ -676,8 +676,6 @@ fn encode_data(
     score: Option<&Bound<'_, PyAny>>,
     options: Option<&Bound<'_, pyo3::types::PyDict>>,
 ) -> PyResult<EncodeResult> {
-    const TRAIN: &str = "train";
-    const SCORE: &str = "score";
     let mut o = EncodeOptions::new(TRAIN, &target, &[]);
     o.columns = columns;
     let mut csv = None;
@@ -708,16 +706,7 @@ fn encode_data(
     let output = py
         .detach(|| {
             rt.block_on(async {
-                let ctx = SessionContext::new();
-                posterity::register(&ctx);
-                train
-                    .register(&ctx, TRAIN, "train", &csv, &key_columns)
-                    .await?;
-                if let Some(score) = score {
-                    score
-                        .register(&ctx, SCORE, "score", &csv, &key_columns)
-                        .await?;
-                }
+                let ctx = session_with(train, score, &csv, &key_columns).await?;
                 let plan = encode::resolve(&ctx, &o).await.map_err(|e| e.to_string())?;
                 let output = encode::run(&ctx, &plan).await.map_err(|e| e.to_string())?;
                 Collected::of(output).await
@@ -725,6 +714,31 @@ fn encode_data(
         })
         .map_err(in_python_words)?;
     output.into_python(py)
+}
+
+/// What the Python functions register their inputs as.
+const TRAIN: &str = "train";
+const SCORE: &str = "score";
+
+/// A session with posterity's functions and the inputs registered as `train` and
+/// (when given) `score`, read as the shell reads them.
+async fn session_with(
+    train: Input,
+    score: Option<Input>,
+    csv: &CsvOptions,
+    key_columns: &[String],
+) -> Result<SessionContext, String> {
+    let ctx = SessionContext::new();
+    posterity::register(&ctx);
+    train
+        .register(&ctx, TRAIN, "train", csv, key_columns)
+        .await?;
+    if let Some(score) = score {
+        score
+            .register(&ctx, SCORE, "score", csv, key_columns)
+            .await?;
+    }
+    Ok(ctx)
 }
 
 /// An encode output with its tables collected, ready to cross into Python.
@@ -782,8 +796,6 @@ fn update_data(
     decay: Option<f64>,
     options: Option<&Bound<'_, pyo3::types::PyDict>>,
 ) -> PyResult<EncodeResult> {
-    const TRAIN: &str = "train";
-    const SCORE: &str = "score";
     let mut csv = None;
     if let Some(options) = options {
         csv = csv_options(options, "update")?;
@@ -822,16 +834,7 @@ fn update_data(
     let output = py
         .detach(|| {
             rt.block_on(async {
-                let ctx = SessionContext::new();
-                posterity::register(&ctx);
-                train
-                    .register(&ctx, TRAIN, "train", &csv, &key_columns)
-                    .await?;
-                if let Some(score) = score {
-                    score
-                        .register(&ctx, SCORE, "score", &csv, &key_columns)
-                        .await?;
-                }
+                let ctx = session_with(train, score, &csv, &key_columns).await?;
                 let output = encode::update(&ctx, &options)
                     .await
                     .map_err(|e| e.to_string())?;
