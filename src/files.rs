@@ -413,24 +413,12 @@ fn decompressed_copy(path: &str) -> Result<String, String> {
         decompress_file(path, &copy)?;
         return Ok(copy.display().to_string());
     }
-    let mut files: Vec<_> = std::fs::read_dir(path)
-        .map_err(|e| format!("cannot list {path}: {e}"))?
-        .filter_map(|e| e.ok().map(|e| e.path()))
-        .filter(|f| {
-            let name = f
-                .file_name()
-                .unwrap_or_default()
-                .to_string_lossy()
-                .to_string();
-            let gzip = name.to_ascii_lowercase().ends_with(".gz");
-            f.is_file() && gzip && !name.starts_with('.') && !name.starts_with('_')
-        })
-        .collect();
-    files.sort();
+    let mut files = Vec::new();
+    gzip_files(Path::new(path), Path::new(""), &mut files)?;
     // Every name checked before anything is decompressed.
     let inner: Vec<String> = files
         .iter()
-        .map(|f| inner_name(&f.display().to_string()).map(|(inner, _)| inner))
+        .map(|(f, _)| inner_name(&f.display().to_string()).map(|(inner, _)| inner))
         .collect::<Result<_, _>>()?;
     if inner
         .iter()
@@ -440,13 +428,36 @@ fn decompressed_copy(path: &str) -> Result<String, String> {
             "'{path}' holds gzip files of more than one format; give a directory of one format"
         ));
     }
+    // The copies keep the tree, so a partitioned dataset keeps its path columns.
     let copies = temporary_path(path, "d")?;
     std::fs::create_dir(&copies).map_err(|e| format!("cannot create {}: {e}", copies.display()))?;
-    for (file, inner) in files.iter().zip(&inner) {
+    for ((file, under), inner) in files.iter().zip(&inner) {
+        let to = copies.join(under);
+        std::fs::create_dir_all(&to).map_err(|e| format!("cannot create {}: {e}", to.display()))?;
         let name = Path::new(inner).file_name().unwrap_or_default();
-        decompress_file(&file.display().to_string(), &copies.join(name))?;
+        decompress_file(&file.display().to_string(), &to.join(name))?;
     }
     Ok(copies.display().to_string())
+}
+
+/// Every gzip file in the tree under `dir` (as a listing reads it: names starting
+/// with `.` or `_` skipped), sorted, with its directory relative to the top. A plain
+/// data file among them is refused: a listing of the copies would not hold it.
+fn gzip_files(dir: &Path, under: &Path, out: &mut Vec<(PathBuf, PathBuf)>) -> Result<(), String> {
+    for (name, path) in visible_entries(dir)? {
+        if path.is_dir() {
+            gzip_files(&path, &under.join(&name), out)?;
+        } else if name.to_ascii_lowercase().ends_with(".gz") {
+            out.push((path, under.to_path_buf()));
+        } else if kind_of_name(&name).is_some() {
+            return Err(format!(
+                "'{}' holds both gzip and uncompressed data files, and only one kind would be \
+                 read; keep one kind in the directory",
+                dir.display()
+            ));
+        }
+    }
+    Ok(())
 }
 
 /// `name.csv` and `csv` for `name.csv.gz`; refused when the name hides the format.
@@ -681,9 +692,8 @@ struct Directory {
 }
 
 impl Source {
-    /// The source at `path`. A directory holding both gzip and plain data files, or
-    /// partitioned into directories of gzip files, is refused: the listing would read
-    /// one kind and skip the other without a word.
+    /// The source at `path`. A directory holding both gzip and plain data files is
+    /// refused: the listing would read one kind and skip the other without a word.
     fn of(path: &str) -> Result<Source, String> {
         if !Path::new(path).is_dir() {
             return Ok(Source {
@@ -702,13 +712,6 @@ impl Source {
             .iter()
             .any(|n| n.to_ascii_lowercase().ends_with(".gz"));
         let gzip = match (kind.is_some(), gzip_inside) {
-            (false, true) if !partitions.columns.is_empty() => {
-                return Err(format!(
-                    "'{path}' is partitioned into directories of gzip files, which are not \
-                     read; decompress them, or give each directory of gzip files as a table \
-                     of its own"
-                ))
-            }
             (true, true) => {
                 return Err(format!(
                     "'{path}' holds both gzip and uncompressed data files, and only one kind \

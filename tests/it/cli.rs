@@ -396,7 +396,7 @@ fn partitioned_directories_give_their_path_columns() {
     std::fs::remove_file(stray).unwrap();
 
     // A level mixing partition directories with files would read part of the rows
-    // without their column; gzip files in partitions are not read: both refused.
+    // without their column: refused.
     std::fs::write(csv_dir.join("stray.csv"), "no_show,amount\n1,2\n").unwrap();
     let o = fit(&csv_dir, true);
     assert!(
@@ -405,12 +405,44 @@ fn partitioned_directories_give_their_path_columns() {
         stderr(&o)
     );
     std::fs::remove_file(csv_dir.join("stray.csv")).unwrap();
-    let gz_dir = dir.join("gz/breed=beagle");
-    std::fs::create_dir_all(&gz_dir).unwrap();
-    std::fs::write(gz_dir.join("part-0.csv.gz"), b"").unwrap();
-    let o = fit(&dir.join("gz"), false);
+    // The same tree with every part gzip-compressed, as Spark writes a compressed
+    // CSV dataset: read from decompressed copies of the tree, with its path columns.
+    let gz_dir = dir.join("gz");
+    for entry in std::fs::read_dir(&csv_dir).unwrap() {
+        let part = entry.unwrap().path();
+        if !part.is_dir() {
+            continue;
+        }
+        let to = gz_dir.join(part.file_name().unwrap());
+        std::fs::create_dir_all(&to).unwrap();
+        let mut encoder = flate2::write::GzEncoder::new(
+            std::fs::File::create(to.join("part-0.csv.gz")).unwrap(),
+            Default::default(),
+        );
+        use std::io::Write as _;
+        encoder
+            .write_all(&std::fs::read(part.join("part-0.csv")).unwrap())
+            .unwrap();
+        encoder.finish().unwrap();
+    }
+    std::fs::write(gz_dir.join("_SUCCESS"), "").unwrap();
+    let (o, copies) = run_and_temporaries(&[
+        "--table",
+        &format!("s={}", gz_dir.display()),
+        "--format",
+        "csv",
+        "-c",
+        FIT,
+    ]);
+    assert!(o.status.success(), "{}", stderr(&o));
+    assert_eq!(stdout(&o), expected);
+    assert!(!copies.exists(), "{} left behind", copies.display());
+    // A plain part beside the gzip parts would be left out of the copies: refused.
+    let beside = gz_dir.join("breed=beagle/part-1.csv");
+    std::fs::write(&beside, "no_show,amount\n1,2\n").unwrap();
+    let o = fit(&gz_dir, false);
     assert!(
-        stderr(&o).contains("partitioned into directories of gzip files"),
+        stderr(&o).contains("holds both gzip and uncompressed data files"),
         "{}",
         stderr(&o)
     );
