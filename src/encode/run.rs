@@ -86,7 +86,7 @@ impl ColumnSummary {
         } else if self.family == "gamma" {
             "counts weigh their exposure"
         } else {
-            "with the stored posteriors' weight"
+            "the new rows pooled with the stored posteriors"
         })
     }
 }
@@ -748,10 +748,10 @@ pub fn summary_table(summary: &[ColumnSummary]) -> String {
         }
         if let Some(why) = s.weight_differs() {
             out.push_str(&format!(
-                "{}: its {} rows weigh {} in the encodings ({why})\n",
+                "{}: the encodings hold a weight of {} from its {} rows ({why})\n",
                 s.key,
-                s.rows,
-                crate::render::short(s.weight)
+                crate::render::short(s.weight),
+                s.rows
             ));
         }
         for reason in [&s.readers_why, &s.horizon_why, &s.recency] {

@@ -4322,12 +4322,36 @@ async fn the_summary_counts_rows_and_says_what_they_weigh() {
             (weight - want_weight).abs() <= 1e-9 * want_weight,
             "{name}: {weight} against {want_weight}"
         );
-        let line = printed.lines().find(|l| l.starts_with("breed: its "));
+        let line = printed
+            .lines()
+            .find(|l| l.starts_with("breed: the encodings hold a weight of "));
         match why {
             Some(why) => assert!(line.is_some_and(|l| l.contains(why)), "{name}: {printed}"),
             None => assert!(line.is_none(), "{name}: {printed}"),
         }
     }
+    // A refresh with the same rows again: its rows are the new rows, and the encodings
+    // weigh old and new together.
+    let (previous, refreshed) = (dir.join("plain"), dir.join("refreshed"));
+    let o = encode_output(&[
+        "encode",
+        "--update",
+        previous.to_str().unwrap(),
+        "--train",
+        &appointments,
+        "--out",
+        refreshed.to_str().unwrap(),
+    ]);
+    assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+    let summary: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(refreshed.join("summary.json")).unwrap())
+            .unwrap();
+    assert_eq!(summary[0]["rows"].as_u64(), Some(rows as u64));
+    assert_eq!(summary[0]["weight"].as_f64(), Some(2.0 * rows));
+    assert!(String::from_utf8_lossy(&o.stdout).contains(&format!(
+        "the encodings hold a weight of {} from its {rows} rows (the new rows pooled with the stored posteriors)",
+        2.0 * rows
+    )));
 }
 
 // A target with one value in the training rows (the wrong column, or a filter that
