@@ -683,16 +683,7 @@ fn encode_data(
         csv = csv_options(options, "encode")?;
         parse_options(options, &mut o)?;
     }
-    let train = Input::from_python(train, "train")?;
-    let score = score.map(|s| Input::from_python(s, "score")).transpose()?;
-    let paths = matches!(train, Input::Path(_)) || matches!(score, Some(Input::Path(_)));
-    if let (Some((named, _)), false) = (&csv, paths) {
-        return Err(error(format!(
-            "encode: {named} is for CSV files given by path; train and score here are \
-             tables already read (give the reading options to the reader that made them)"
-        )));
-    }
-    let csv = csv.map(|(_, csv)| csv).unwrap_or_default();
+    let (train, score, csv) = inputs("encode", train, score, csv)?;
     if score.is_some() {
         o.score = Some(SCORE.to_string());
     }
@@ -714,6 +705,26 @@ fn encode_data(
         })
         .map_err(in_python_words)?;
     output.into_python(py)
+}
+
+/// The inputs of `function` (`encode` or `update`) and the CSV options for the
+/// files among them; the options are refused when no input is a file.
+fn inputs(
+    function: &str,
+    train: &Bound<'_, PyAny>,
+    score: Option<&Bound<'_, PyAny>>,
+    csv: Option<(String, CsvOptions)>,
+) -> PyResult<(Input, Option<Input>, CsvOptions)> {
+    let train = Input::from_python(train, "train")?;
+    let score = score.map(|s| Input::from_python(s, "score")).transpose()?;
+    let paths = matches!(train, Input::Path(_)) || matches!(score, Some(Input::Path(_)));
+    if let (Some((named, _)), false) = (&csv, paths) {
+        return Err(error(format!(
+            "{function}: {named} is for CSV files given by path; train and score here are \
+             tables already read (give the reading options to the reader that made them)"
+        )));
+    }
+    Ok((train, score, csv.map(|(_, csv)| csv).unwrap_or_default()))
 }
 
 /// What the Python functions register their inputs as.
@@ -807,16 +818,7 @@ fn update_data(
             )));
         }
     }
-    let train = Input::from_python(train, "train")?;
-    let score = score.map(|s| Input::from_python(s, "score")).transpose()?;
-    let paths = matches!(train, Input::Path(_)) || matches!(score, Some(Input::Path(_)));
-    if let (Some((named, _)), false) = (&csv, paths) {
-        return Err(error(format!(
-            "update: {named} is for CSV files given by path; train and score here are \
-             tables already read (give the reading options to the reader that made them)"
-        )));
-    }
-    let csv = csv.map(|(_, csv)| csv).unwrap_or_default();
+    let (train, score, csv) = inputs("update", train, score, csv)?;
     let key_columns: Vec<String> = previous
         .inner
         .columns
