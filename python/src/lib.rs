@@ -51,6 +51,17 @@ fn in_python_words(message: impl Display) -> PyErr {
     error(python_words(&message.to_string()))
 }
 
+/// A message of the workflow `function` (`encode`, `update`) in a Python user's
+/// words, naming the function first as every refusal does.
+fn from_workflow(function: &str, message: impl Display) -> PyErr {
+    let message = python_words(&message.to_string());
+    if message.starts_with(function) {
+        error(message)
+    } else {
+        error(format!("{function}: {message}"))
+    }
+}
+
 /// `message` with each shell flag (`--` at the start or after a character that is
 /// not part of a name, then lowercase letters and dashes) written as its keyword
 /// argument; a `--` inside a name (a key called `a--b`) is left as it is.
@@ -681,9 +692,11 @@ fn encode_data(
     let mut csv = None;
     if let Some(options) = options {
         csv = csv_options(options, "encode")?;
-        parse_options(options, &mut o)?;
+        // Option parsers share the shell's words: given here in Python's.
+        parse_options(options, &mut o).map_err(|e| from_workflow("encode", e.value(py)))?;
     }
-    let (train, score, csv) = inputs("encode", train, score, csv)?;
+    let (train, score, csv) =
+        inputs("encode", train, score, csv).map_err(|e| from_workflow("encode", e.value(py)))?;
     if score.is_some() {
         o.score = Some(SCORE.to_string());
     }
@@ -703,7 +716,7 @@ fn encode_data(
                 Collected::of(output).await
             })
         })
-        .map_err(in_python_words)?;
+        .map_err(|e| from_workflow("encode", e))?;
     output.into_python(py)
 }
 
@@ -818,7 +831,8 @@ fn update_data(
             )));
         }
     }
-    let (train, score, csv) = inputs("update", train, score, csv)?;
+    let (train, score, csv) =
+        inputs("update", train, score, csv).map_err(|e| from_workflow("update", e.value(py)))?;
     let key_columns: Vec<String> = previous
         .inner
         .columns
@@ -843,7 +857,7 @@ fn update_data(
                 Collected::of(output).await
             })
         })
-        .map_err(in_python_words)?;
+        .map_err(|e| from_workflow("update", e))?;
     output.into_python(py)
 }
 

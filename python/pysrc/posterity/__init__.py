@@ -349,8 +349,8 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
         if days is not None:
             options[option] = days
             options["_durations_in_days"] = True
-    inner = _posterity.encode_data(_as_input(train, "train"), target, list(columns),
-                                   None if score is None else _as_input(score, "score"),
+    inner = _posterity.encode_data(_as_input(train, "encode: train"), target, list(columns),
+                                   None if score is None else _as_input(score, "encode: score"),
                                    **options)
     result = Encoded(inner, kind, train, score)
     if out is not None:
@@ -384,8 +384,8 @@ def update(previous, train, score=None, out=None, replace: bool = False, exposur
     kind = _kind(train)
     if exposure is not None:
         exposure = _column_name(exposure, "exposure", kind)
-    inner = _posterity.update_data(bundle._inner, _as_input(train, "train"),
-                                   None if score is None else _as_input(score, "score"),
+    inner = _posterity.update_data(bundle._inner, _as_input(train, "update: train"),
+                                   None if score is None else _as_input(score, "update: score"),
                                    exposure=exposure, decay=decay, **options)
     result = Encoded(inner, kind, train, score)
     if out is not None:
