@@ -306,6 +306,15 @@ pub struct Bundle {
 }
 
 impl Bundle {
+    /// Every column the bundle's keys read (an interaction reads several), as a
+    /// refresh registers its new rows with them.
+    pub fn key_columns(&self) -> Vec<String> {
+        self.columns
+            .values()
+            .flat_map(|c| c.key_columns.clone())
+            .collect()
+    }
+
     /// The encoded keys in the order the run wrote their columns.
     pub fn keys_in_order(&self) -> impl Iterator<Item = (&String, &ColumnEncoding)> {
         let listed = self

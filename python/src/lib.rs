@@ -833,12 +833,7 @@ fn update_data(
     }
     let (train, score, csv) =
         inputs("update", train, score, csv).map_err(|e| from_workflow("update", e.value(py)))?;
-    let key_columns: Vec<String> = previous
-        .inner
-        .columns
-        .values()
-        .flat_map(|c| c.key_columns.clone())
-        .collect();
+    let key_columns = previous.inner.key_columns();
     let options = UpdateOptions {
         previous: previous.inner.clone(),
         train: TRAIN.into(),
@@ -945,21 +940,16 @@ impl Bundle {
     }
 }
 
-/// Remove the copies of input files written for the engine (decompressed `.gz`
-/// files, JSON arrays as NDJSON); called when the interpreter exits.
 /// Refuse SQL that puts an aggregate or window clause on a scalar function, which
 /// the engine would drop without a word (`posterity::clauses`).
 #[pyfunction]
 fn check_sql(sql: &str) -> PyResult<()> {
-    posterity::clauses::check_sql_default(sql).map_err(|e| {
-        Error::new_err(
-            e.to_string()
-                .trim_start_matches("Error during planning: ")
-                .to_string(),
-        )
-    })
+    posterity::clauses::check_sql_default(sql)
+        .map_err(|e| error(posterity::render::engine_error(e)))
 }
 
+/// Remove the copies of input files written for the engine (decompressed `.gz`
+/// files, JSON arrays as NDJSON); called when the interpreter exits.
 #[pyfunction]
 fn remove_temporaries() {
     posterity::files::remove_temporaries();

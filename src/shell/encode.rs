@@ -380,11 +380,7 @@ async fn update(shell: &Shell, args: &EncodeArgs, previous: &PathBuf) -> Result<
         .map_err(|e| Failure::usage(format!("--update: cannot read {}: {e}", path.display())))?;
     let bundle = Bundle::from_json(&text)
         .map_err(|e| Failure::usage(format!("--update {}: {e}", path.display())))?;
-    let key_columns: Vec<String> = bundle
-        .columns
-        .values()
-        .flat_map(|c| c.key_columns.clone())
-        .collect();
+    let key_columns = bundle.key_columns();
     register_inputs(shell, args, &key_columns).await?;
     let options = UpdateOptions {
         previous: bundle,

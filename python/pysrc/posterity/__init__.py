@@ -217,8 +217,10 @@ def _as_output(data, kind: str, rows=None):
     if kind == "pandas" and _kind(rows) == "pandas":
         import pandas as pd
 
-        given = set(pa.Table.from_pandas(rows.head(0), preserve_index=False).column_names)
-        given.update(n for n in rows.index.names if n is not None)
+        # The input's columns as its Arrow form names them (by their text), and its
+        # named index levels, which were read as columns.
+        given = {str(c) for c in rows.columns}
+        given.update(str(n) for n in rows.index.names if n is not None)
         features = table.select([n for n in table.column_names if n not in given]).to_pandas()
         if len(features) != len(rows):
             raise Error(f"posterity: {len(features)} rows came back for the {len(rows)} given; "
