@@ -23,13 +23,6 @@ fn stderr(o: &Output) -> String {
     String::from_utf8_lossy(&o.stderr).to_string()
 }
 
-fn temp_dir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("posterity-cli-{name}-{}", std::process::id()));
-    std::fs::remove_dir_all(&d).ok();
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
 const FIT: &str = "SELECT breed, posterior_mean(beta_posterior(no_show, beta_prior(1, 1))) AS m FROM s GROUP BY breed ORDER BY breed";
 
 #[test]
@@ -119,7 +112,7 @@ fn json_ndjson_tsv_and_table_formats() {
 
 #[test]
 fn script_file_and_stdin() {
-    let dir = temp_dir("script");
+    let dir = scratch!("script");
     let script = dir.join("fit.sql");
     std::fs::write(
         &script,
@@ -196,7 +189,7 @@ fn run_and_temporaries(args: &[&str]) -> (Output, PathBuf) {
 #[test]
 fn gzip_files_read_like_the_files_inside() {
     use std::io::Write as _;
-    let dir = temp_dir("gzip");
+    let dir = scratch!("gzip");
     let plain = std::fs::read(data("small.csv")).unwrap();
     let gz = dir.join("small.csv.gz");
     let mut encoder =
@@ -275,7 +268,7 @@ fn partitioned_directories_give_their_path_columns() {
     // A dataset written partitioned by value (breed=beagle/part-0.csv, as Spark,
     // pyarrow and polars write them) reads with the path's column, as text; CSV and
     // Parquet, with and without a NULL marker, give the numbers of the flat file.
-    let dir = temp_dir("partitioned");
+    let dir = scratch!("partitioned");
     let text = std::fs::read_to_string(data("small.csv")).unwrap();
     let csv_dir = dir.join("csv");
     for line in text.lines().skip(1) {
@@ -452,7 +445,7 @@ fn partitioned_directories_give_their_path_columns() {
 fn a_late_value_of_another_type_names_the_inference() {
     // Types are inferred from a file's first rows: a fraction at row 3001 of a column
     // of whole numbers fails the read. The error says why and what reads it.
-    let dir = temp_dir("late-value");
+    let dir = scratch!("late-value");
     let mut csv = String::from("k,amount\n");
     for i in 0..3000 {
         csv.push_str(&format!("k{},{i}\n", i % 10));
@@ -494,7 +487,7 @@ fn a_late_value_of_another_type_names_the_inference() {
 fn json_arrays_with_one_file_name_stay_apart() {
     // Each JSON array is read through its own NDJSON copy: two files named alike in
     // different directories once shared one copy, and both tables read the last one.
-    let dir = temp_dir("json-names");
+    let dir = scratch!("json-names");
     for (sub, rows) in [
         ("x", r#"[{"a":1},{"a":2}]"#),
         ("y", r#"[{"a":10},{"a":20},{"a":30}]"#),
@@ -519,7 +512,7 @@ fn json_arrays_with_one_file_name_stay_apart() {
 
 #[test]
 fn copy_to_parquet_and_read_back() {
-    let dir = temp_dir("copy");
+    let dir = scratch!("copy");
     let out = dir.join("enc.parquet");
     let o = run(&[
         "-t",
@@ -546,7 +539,7 @@ fn copy_to_parquet_and_read_back() {
 
 #[test]
 fn output_is_atomic() {
-    let dir = temp_dir("atomic");
+    let dir = scratch!("atomic");
     let out = dir.join("result.csv");
     let o = run(&[
         "--format",
@@ -634,7 +627,7 @@ fn functions_reference_lists_everything() {
 
 #[test]
 fn demo_runs_end_to_end() {
-    let dir = temp_dir("demo");
+    let dir = scratch!("demo");
     let o = run(&["demo", "--rows", "5000", "--dir", dir.to_str().unwrap()]);
     assert!(o.status.success(), "{}", stderr(&o));
     let text = stdout(&o);

@@ -92,10 +92,7 @@ impl Cluster {
     /// (short only where a test kills one: on a busy machine heartbeats run late).
     fn start(name: &str, executors: usize, plain: bool, timeout: u64) -> Cluster {
         let bins = cluster_binaries();
-        let dir =
-            std::env::temp_dir().join(format!("posterity-cluster-{name}-{}", std::process::id()));
-        std::fs::remove_dir_all(&dir).ok();
-        std::fs::create_dir_all(&dir).unwrap();
+        let dir = scratch!(name);
         let port = free_port();
         let scheduler = Command::new(bins.join("posterity-scheduler"))
             .args(["--bind-host", "127.0.0.1", "--external-host", "127.0.0.1"])
@@ -181,10 +178,7 @@ fn local(args: &[&str]) -> Output {
 fn data_dir() -> &'static Path {
     static DIR: OnceLock<PathBuf> = OnceLock::new();
     DIR.get_or_init(|| {
-        let dir =
-            std::env::temp_dir().join(format!("posterity-cluster-data-{}", std::process::id()));
-        std::fs::remove_dir_all(&dir).ok();
-        std::fs::create_dir_all(&dir).unwrap();
+        let dir = scratch!("data");
         let mut state = 11u64;
         let mut next = || {
             state = posterity::family::rng::mix64(state);
@@ -297,8 +291,7 @@ fn the_cluster_gives_the_single_process_numbers() {
     }
     // A gzip file is read from a copy on the client's machine, which other machines'
     // executors cannot see: refused in words instead of failing on a missing path.
-    let packed =
-        std::env::temp_dir().join(format!("posterity-cluster-{}.csv.gz", std::process::id()));
+    let packed = scratch!("packed").join("g.csv.gz");
     std::fs::write(&packed, [0x1f, 0x8b]).unwrap();
     let o = cluster.shell(&["-t", &format!("g={}", packed.display()), "-c", "SELECT 1"]);
     let err = String::from_utf8_lossy(&o.stderr);
@@ -393,8 +386,7 @@ fn a_killed_executor_leaves_no_partial_output() {
 #[test]
 fn encode_on_the_cluster_gives_the_single_process_outputs() {
     let cluster = Cluster::start("encode", 2, false, 120);
-    let dir = std::env::temp_dir().join(format!("posterity-cluster-enc-{}", std::process::id()));
-    std::fs::remove_dir_all(&dir).ok();
+    let dir = scratch!("outputs");
     let data = data_dir().display().to_string();
     for (name, extra) in [
         ("kfold", &[][..]),

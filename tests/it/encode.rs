@@ -2,7 +2,7 @@
 //! the JSON bundle against the SQL path, and determinism.
 
 use std::collections::HashMap;
-use std::path::{Path, PathBuf};
+use std::path::Path;
 use std::process::Command;
 
 use datafusion::arrow::array::{Array, AsArray};
@@ -11,13 +11,6 @@ use datafusion::arrow::datatypes::{DataType, Float64Type, Int64Type};
 use datafusion::prelude::{ParquetReadOptions, SessionContext};
 use posterity::bundle::Bundle;
 use posterity::family::rng::{mix64, uniform};
-
-fn temp_dir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("posterity-encode-{name}-{}", std::process::id()));
-    std::fs::remove_dir_all(&d).ok();
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
 
 fn encode(args: &[&str]) {
     let o = Command::new(env!("CARGO_BIN_EXE_posterity"))
@@ -113,7 +106,7 @@ fn corr(x: &[f64], y: &[f64]) -> f64 {
 // training target; out-of-fold, leave-one-out and as-of encodings do not.
 #[tokio::test]
 async fn leakage_on_a_random_key() {
-    let dir = temp_dir("leak");
+    let dir = scratch!("leak");
     let train = random_key_csv(&dir, 200_000, 10_000);
     let mut results = HashMap::new();
     for method in ["kfold", "time"] {
@@ -193,7 +186,7 @@ async fn leakage_on_a_random_key() {
 // out-of-fold mean = (1 + s_total - s_fold) / (2 + n_total - n_fold) under Beta(1, 1).
 #[tokio::test]
 async fn values_match_count_and_sum() {
-    let dir = temp_dir("values");
+    let dir = scratch!("values");
     let train = format!(
         "{}/demo/sample/appointments.csv",
         env!("CARGO_MANIFEST_DIR")
@@ -234,7 +227,7 @@ async fn values_match_count_and_sum() {
 // outputs are byte-identical across runs and thread counts.
 #[tokio::test]
 async fn bundle_matches_sql_and_outputs_are_deterministic() {
-    let dir = temp_dir("bundle");
+    let dir = scratch!("bundle");
     let train = format!(
         "{}/demo/sample/appointments.csv",
         env!("CARGO_MANIFEST_DIR")
@@ -370,7 +363,7 @@ async fn texts(path: &Path, name: &str) -> Vec<Option<String>> {
 // 123), and interaction keys of parts containing the separator do not collide.
 #[tokio::test]
 async fn keys_stay_as_written_and_interactions_do_not_collide() {
-    let dir = temp_dir("keys");
+    let dir = scratch!("keys");
     let train = dir.join("train.csv");
     std::fs::write(
         &train,
@@ -430,7 +423,7 @@ async fn keys_stay_as_written_and_interactions_do_not_collide() {
 // that must be refused, as must ordering as-of encodings by the target.
 #[test]
 fn leaky_keys_are_refused() {
-    let dir = temp_dir("leaky");
+    let dir = scratch!("leaky");
     let train = random_key_csv(&dir, 100, 5);
     let out = dir.join("out").display().to_string();
     let cases: [(&[&str], &str); 4] = [
@@ -468,7 +461,7 @@ fn leaky_keys_are_refused() {
 // double-underscore names, such as a pandas index, pass through.
 #[test]
 fn input_columns_named_like_working_columns_are_refused() {
-    let dir = temp_dir("working-names");
+    let dir = scratch!("working-names");
     let out = dir.join("out").display().to_string();
     let write = |name: &str, text: &str| {
         let path = dir.join(name);
@@ -526,7 +519,7 @@ fn input_columns_named_like_working_columns_are_refused() {
 // header: the refusal says which delimiter the header seems to use.
 #[test]
 fn a_csv_with_another_delimiter_is_named() {
-    let dir = temp_dir("delimiter");
+    let dir = scratch!("delimiter");
     let out = dir.join("out").display().to_string();
     for (text, shown) in [
         ("breed;no_show\nbeagle;1\n", "';'"),
@@ -557,7 +550,7 @@ fn a_csv_with_another_delimiter_is_named() {
 // count over the CSV (Beta(2, 18): mean = (2 + s) / (20 + n)).
 #[tokio::test]
 async fn as_of_encodings_see_only_earlier_times() {
-    let dir = temp_dir("asof");
+    let dir = scratch!("asof");
     let train = random_key_csv(&dir, 5_000, 40);
     let out = dir.join("strict");
     let run = |out: &Path, ties: &str| {
@@ -621,7 +614,7 @@ async fn as_of_encodings_see_only_earlier_times() {
 // exactly that prior (they got the default prior before), and class targets work.
 #[tokio::test]
 async fn as_of_first_rows_get_the_chosen_prior_in_every_family() {
-    let dir = temp_dir("asof-families");
+    let dir = scratch!("asof-families");
     let mut csv = String::from("key,t,y,amount,visits,outcome\n");
     for i in 0..60 {
         let outcome = ["attended", "no_show", "late_cancel"][i % 3];
@@ -676,7 +669,7 @@ async fn as_of_first_rows_get_the_chosen_prior_in_every_family() {
 // and on repeated runs (the fit statistics are compensated sums).
 #[test]
 fn float_targets_give_identical_bytes_at_any_thread_count() {
-    let dir = temp_dir("float-determinism");
+    let dir = scratch!("float-determinism");
     let mut csv = String::from("key,amount,events,exposure\n");
     let mut state = 11u64;
     for _ in 0..60_000 {
@@ -831,7 +824,7 @@ fn statements_match_the_snapshot() {
 // columns, classes and levels are only ever data.
 #[tokio::test]
 async fn names_from_the_data_are_never_templates() {
-    let dir = temp_dir("names");
+    let dir = scratch!("names");
     let train = dir.join("train.csv");
     let mut csv = String::from("\"a\"\"b\",naïve café,{y},{class}\n");
     for i in 0..60 {
@@ -880,7 +873,7 @@ async fn names_from_the_data_are_never_templates() {
 // `code`, `parent`) encodes like any other; its file names the level column `level`.
 #[tokio::test]
 async fn keys_named_like_the_encodings_columns() {
-    let dir = temp_dir("fixed-names");
+    let dir = scratch!("fixed-names");
     let train = dir.join("train.csv");
     let mut csv = String::from("p,top_rank,code,parent,y\n");
     for i in 0..600 {
@@ -941,7 +934,7 @@ async fn keys_named_like_the_encodings_columns() {
 #[tokio::test]
 async fn library_encode_equals_the_shell() {
     use posterity::encode::{self, EncodeOptions};
-    let dir = temp_dir("library");
+    let dir = scratch!("library");
     let ctx = SessionContext::new();
     posterity::register(&ctx);
     ctx.register_csv("appointments", &sample(), Default::default())
@@ -1004,7 +997,7 @@ fn split_sample(dir: &Path, day: i64) -> (String, String) {
 // gave other columns than the training table.
 #[tokio::test]
 async fn every_indicator_column_is_in_the_bundle() {
-    let dir = temp_dir("indicator-weights");
+    let dir = scratch!("indicator-weights");
     let mut s = String::from("clinic,day,no_show\n");
     for i in 0..600u64 {
         let y = if i % 5 == 0 {
@@ -1051,7 +1044,7 @@ async fn every_indicator_column_is_in_the_bundle() {
 // a run made with `--indicators 0`.
 #[tokio::test]
 async fn a_refresh_keeps_each_indicator_on_its_level() {
-    let dir = temp_dir("update-indicators");
+    let dir = scratch!("update-indicators");
     let write = |name: &str, rows: usize, largest_first: bool, target: bool| {
         let mut s = String::from(if target { "breed,no_show\n" } else { "breed\n" });
         for i in 0..rows {
@@ -1135,7 +1128,7 @@ async fn a_refresh_keeps_each_indicator_on_its_level() {
 // runs (it failed in the engine with "Execution error: dirichlet_posterior: ...").
 #[test]
 fn a_refresh_with_a_new_class_is_refused_in_words() {
-    let dir = temp_dir("update-class");
+    let dir = scratch!("update-class");
     let write = |name: &str, classes: &[&str]| {
         let mut s = String::from("clinic,outcome\n");
         for i in 0..90 {
@@ -1171,7 +1164,7 @@ fn a_refresh_with_a_new_class_is_refused_in_words() {
 // unit of exposure (means off by up to 0.3 on rates near 3), silently.
 #[test]
 fn a_refresh_reads_exposures_from_the_bundles_column() {
-    let dir = temp_dir("update-exposure");
+    let dir = scratch!("update-exposure");
     let csv = |name: &str, rows: std::ops::Range<u64>| {
         let mut s = String::from("clinic,visits,years\n");
         for i in rows {
@@ -1252,7 +1245,7 @@ fn a_refresh_reads_exposures_from_the_bundles_column() {
 // as the evidence is integer — for a chosen prior and for a fitted one.
 #[tokio::test]
 async fn update_equals_a_full_refit() {
-    let dir = temp_dir("update");
+    let dir = scratch!("update");
     let (old, new) = split_sample(&dir, 300);
     for prior in ["2,18", "fitted"] {
         let first = dir.join(format!("first-{prior}"));
@@ -1335,7 +1328,7 @@ async fn update_equals_a_full_refit() {
 // checks its new rows alike.
 #[test]
 fn targets_outside_the_family_are_refused_by_name() {
-    let dir = temp_dir("bad-targets");
+    let dir = scratch!("bad-targets");
     let train = dir.join("train.csv");
     let mut csv = String::from("k,real,count,outcome,exposure,class,day\n");
     for i in 0..40 {
@@ -1459,7 +1452,7 @@ fn targets_outside_the_family_are_refused_by_name() {
 // be numbered in the file's order on every scan).
 #[tokio::test]
 async fn a_target_of_numbers_with_a_missing_marker_is_refused_until_named() {
-    let dir = temp_dir("missing-marker");
+    let dir = scratch!("missing-marker");
     let (mut marked, mut empty) = (String::from("k,y\n"), String::from("k,y\n"));
     for i in 0..3000 {
         let y = ["0", "1", "NA", "1", "0"][(i * 7 + i / 13) % 5];
@@ -1521,7 +1514,7 @@ async fn a_target_of_numbers_with_a_missing_marker_is_refused_until_named() {
 // still counts: an exposure is only ever given for counts, so it sets the family.
 #[test]
 fn an_exposure_makes_zero_one_targets_counts() {
-    let dir = temp_dir("zero-one-counts");
+    let dir = scratch!("zero-one-counts");
     let train = dir.join("train.csv");
     let mut csv = String::from("k,events,years\n");
     for i in 0..200 {
@@ -1555,7 +1548,7 @@ fn an_exposure_makes_zero_one_targets_counts() {
 // ends up holding exactly one run's files.
 #[test]
 fn inputs_are_checked_first_and_outputs_replace_a_run_whole() {
-    let dir = temp_dir("checks");
+    let dir = scratch!("checks");
     let train = random_key_csv(&dir, 200, 7);
     let out = dir.join("out");
     let out_s = out.display().to_string();
@@ -1690,7 +1683,7 @@ fn inputs_are_checked_first_and_outputs_replace_a_run_whole() {
 // reader falls back to half the central 68 % interval.
 #[tokio::test]
 async fn outputs_are_finite_for_every_family_and_prior() {
-    let dir = temp_dir("finite");
+    let dir = scratch!("finite");
     let train = sample();
     let cases: [(&str, &str, &[&str]); 8] = [
         ("no_show", "beta", &["fitted", "jeffreys", "0.01,0.01"]),
@@ -1822,7 +1815,7 @@ fn breed_by_day(sample: &str) -> Vec<&str> {
 // in SQL.
 #[tokio::test]
 async fn half_life_weights_rows_by_age() {
-    let dir = temp_dir("half-life");
+    let dir = scratch!("half-life");
     let out = dir.join("out");
     let ctx = sample_encoded_with_half_life_60(
         &out,
@@ -1872,7 +1865,7 @@ async fn half_life_weights_rows_by_age() {
 // over the period is refused.
 #[tokio::test]
 async fn as_of_half_life_weights_earlier_rows_by_their_age() {
-    let dir = temp_dir("as-of-half-life");
+    let dir = scratch!("as-of-half-life");
     let out = dir.join("out");
     let ctx = sample_encoded_with_half_life_60(&out, &[], "train_encoded.parquet").await;
     let sql = "WITH g AS (SELECT DISTINCT breed, day FROM a WHERE breed IS NOT NULL),
@@ -1938,7 +1931,7 @@ async fn as_of_half_life_weights_earlier_rows_by_their_age() {
 // newest training row; bad horizons are refused by name with the allowed range.
 #[tokio::test]
 async fn as_of_horizon_reads_only_rows_that_old() {
-    let dir = temp_dir("as-of-horizon");
+    let dir = scratch!("as-of-horizon");
     let sample = sample();
     // Scored rows 1..30 days past the newest training day (364): median 15.5.
     let later = dir.join("later.csv");
@@ -2106,7 +2099,7 @@ async fn as_of_horizon_reads_only_rows_that_old() {
 // as ISO text too); a time of another type is refused by name where units count.
 #[tokio::test]
 async fn dates_and_timestamps_count_time_in_days() {
-    let dir = temp_dir("time-in-days");
+    let dir = scratch!("time-in-days");
     let (train, later) = (dir.join("train.parquet"), dir.join("later.parquet"));
     for (file, rows) in [(&train, "day < 300"), (&later, "day >= 300")] {
         let select = format!(
@@ -2212,7 +2205,7 @@ async fn dates_and_timestamps_count_time_in_days() {
 // (a struct, a map) is refused by name.
 #[tokio::test]
 async fn decimal_and_dictionary_columns_encode_as_their_values() {
-    let dir = temp_dir("column-types");
+    let dir = scratch!("column-types");
     let typed = dir.join("typed.parquet");
     let select =
         "SELECT breed, amount, outcome, no_show, CAST(amount AS DECIMAL(10, 2)) AS amount_d, \
@@ -2276,7 +2269,7 @@ async fn decimal_and_dictionary_columns_encode_as_their_values() {
 // level, the merge is reported, and the bundle scores raw spellings the same way.
 #[tokio::test]
 async fn normalized_keys_merge_spellings() {
-    let dir = temp_dir("normalize");
+    let dir = scratch!("normalize");
     let train = dir.join("train.csv");
     std::fs::write(
         &train,
@@ -2326,7 +2319,7 @@ async fn normalized_keys_merge_spellings() {
 // level. The summary says why; the bundle gives the same codes.
 #[tokio::test]
 async fn treatments_follow_the_data_and_the_user() {
-    let dir = temp_dir("treatments");
+    let dir = scratch!("treatments");
     let score = dir.join("score.csv");
     std::fs::write(
         &score,
@@ -2497,7 +2490,7 @@ async fn treatments_follow_the_data_and_the_user() {
 // interaction, a Dirichlet target, unseen levels and NULL keys.
 #[tokio::test]
 async fn scoring_with_the_bundle_equals_the_scored_file() {
-    let dir = temp_dir("serve");
+    let dir = scratch!("serve");
     let score = dir.join("score.csv");
     let mut rows = std::fs::read_to_string(sample()).unwrap();
     rows.push_str(
@@ -2610,7 +2603,7 @@ async fn scoring_with_the_bundle_equals_the_scored_file() {
 async fn training_rows_stream_in_file_order_without_a_sort() {
     use datafusion::physical_plan::displayable;
     use posterity::encode::{self, EncodeOptions};
-    let dir = temp_dir("streamed");
+    let dir = scratch!("streamed");
     // Four files, so the scan has several parts.
     let text = std::fs::read_to_string(sample()).unwrap();
     let mut lines = text.lines();
@@ -2664,7 +2657,7 @@ async fn training_rows_stream_in_file_order_without_a_sort() {
 #[tokio::test]
 async fn a_work_directory_gives_the_same_outputs() {
     use posterity::encode::{self, EncodeOptions};
-    let dir = temp_dir("workdir");
+    let dir = scratch!("workdir");
     let mut written = Vec::new();
     for work in [None, Some(dir.join("work"))] {
         let ctx = SessionContext::new();
@@ -2780,7 +2773,7 @@ async fn a_fitted_half_life_names_its_scored_rows_by_date() {
 #[tokio::test]
 async fn fitted_half_life_follows_drift_per_key() {
     use posterity::encode::{self, EncodeOptions, HalfLife};
-    let dir = temp_dir("fitted-half-life");
+    let dir = scratch!("fitted-half-life");
     let ctx = SessionContext::new();
     posterity::register(&ctx);
     ctx.register_csv("rows", &drifting_csv(&dir), Default::default())
@@ -2946,7 +2939,7 @@ fn spread_csv(dir: &Path, name: &str, rows: usize, seed: u64) -> String {
 // and `--readers` given by the user is kept as given.
 #[tokio::test]
 async fn sd_reader_follows_the_levels_spread() {
-    let dir = temp_dir("spread");
+    let dir = scratch!("spread");
     let train = spread_csv(&dir, "train.csv", 4000, 11);
     let run = |extra: &[&str], out: &Path| {
         let mut args = vec![
@@ -3124,7 +3117,7 @@ fn crossed_sample(dir: &Path) -> (String, Vec<CrossedRow>) {
 #[tokio::test]
 async fn as_of_hierarchy_reads_parents_as_of_each_row() {
     use posterity::layout::AnyPosterior;
-    let dir = temp_dir("hierarchy-as-of");
+    let dir = scratch!("hierarchy-as-of");
     let (train, rows) = crossed_sample(&dir);
     // The parent most of a level's rows have (ties: the first name).
     let main_parent = |child: &dyn Fn(usize) -> String, parent: &dyn Fn(usize) -> String| {
@@ -3248,7 +3241,7 @@ async fn as_of_hierarchy_reads_parents_as_of_each_row() {
 #[tokio::test]
 async fn hierarchy_centres_levels_on_their_parents() {
     use posterity::layout::AnyPosterior;
-    let dir = temp_dir("hierarchy");
+    let dir = scratch!("hierarchy");
     let (train, score) = nested_sample(&dir, "train");
     let run = |train: &str, out: &Path| {
         encode(&[
@@ -3562,7 +3555,7 @@ async fn hierarchy_centres_levels_on_their_parents() {
 #[tokio::test]
 async fn refresh_recentres_levels_on_their_refreshed_parents() {
     use posterity::layout::AnyPosterior;
-    let dir = temp_dir("hierarchy-refresh");
+    let dir = scratch!("hierarchy-refresh");
     let (crossed, rows) = crossed_sample(&dir);
     let text = std::fs::read_to_string(&crossed).unwrap();
     let lines: Vec<&str> = text.lines().collect();
@@ -3697,7 +3690,7 @@ async fn refresh_recentres_levels_on_their_refreshed_parents() {
 // column with itself (the key again). Found by probing the options.
 #[test]
 fn options_that_carry_nothing_are_refused() {
-    let out = temp_dir("carry_nothing").join("out");
+    let out = scratch!("carry_nothing").join("out");
     let sample = sample();
     let base = [
         "--train",
@@ -3751,7 +3744,7 @@ fn options_that_carry_nothing_are_refused() {
 // with "Schema error: ... ambiguous"). Refused in words, nothing written.
 #[tokio::test]
 async fn output_names_that_repeat_an_input_column_are_refused() {
-    let dir = temp_dir("repeated-names");
+    let dir = scratch!("repeated-names");
     let out = dir.join("out");
     let scored_before = dir.join("scored_before.parquet");
     sample_to_parquet(
@@ -3799,7 +3792,7 @@ async fn output_names_that_repeat_an_input_column_are_refused() {
 // fraction, as it was trained: "12.0" is not its level "12", so such rows read the prior.
 #[tokio::test]
 async fn float_keys_meet_their_integer_levels() {
-    let dir = temp_dir("float-keys");
+    let dir = scratch!("float-keys");
     let train = dir.join("train.parquet");
     sample_to_parquet(
         "SELECT CAST(day % 40 AS BIGINT) AS slot, no_show FROM a WHERE day < 300",
@@ -3880,7 +3873,7 @@ async fn float_keys_meet_their_integer_levels() {
 // this build writes.
 #[tokio::test]
 async fn refresh_of_an_older_float_keyed_bundle_keeps_its_levels() {
-    let dir = temp_dir("float-refresh");
+    let dir = scratch!("float-refresh");
     let (old, new) = (dir.join("old.parquet"), dir.join("new.parquet"));
     let slot = "CAST(day % 40 AS DOUBLE) AS slot, clinic, no_show FROM a";
     sample_to_parquet(&format!("SELECT {slot} WHERE day < 200"), &old).await;
@@ -3957,7 +3950,7 @@ async fn refresh_of_an_older_float_keyed_bundle_keeps_its_levels() {
 // at its cap, the mean strength small) is not reported as pooled.
 #[tokio::test]
 async fn one_row_per_level_and_the_target_s_units() {
-    let dir = temp_dir("one-row-levels");
+    let dir = scratch!("one-row-levels");
     let mut means = Vec::new();
     for scale in [1.0, 1e6, 1e-6] {
         let file = dir.join(format!("train-{scale}.parquet"));
@@ -4032,7 +4025,7 @@ async fn one_row_per_level_and_the_target_s_units() {
 // way (here the clinics upper-cased) than new levels: the run warns, by key.
 #[test]
 fn scored_keys_that_all_miss_their_levels_are_reported() {
-    let dir = temp_dir("all-unseen");
+    let dir = scratch!("all-unseen");
     let upper = dir.join("upper.csv");
     let rows = std::fs::read_to_string(sample()).unwrap();
     std::fs::write(&upper, rows.replace("clinic_", "CLINIC_")).unwrap();
@@ -4228,7 +4221,7 @@ async fn integer_targets_that_are_not_counts_are_named() {
 // half-life).
 #[tokio::test]
 async fn the_summary_counts_rows_and_says_what_they_weigh() {
-    let dir = temp_dir("summary-rows");
+    let dir = scratch!("summary-rows");
     let root = env!("CARGO_MANIFEST_DIR");
     let appointments = format!("{root}/demo/sample/appointments.csv");
     let pets = format!("{root}/demo/sample/pets.csv");
@@ -4359,7 +4352,7 @@ async fn the_summary_counts_rows_and_says_what_they_weigh() {
 // a target with two values is not.
 #[test]
 fn a_target_with_one_value_is_said() {
-    let dir = temp_dir("one-value");
+    let dir = scratch!("one-value");
     let mixed = random_key_csv(&dir, 400, 20);
     let text = std::fs::read_to_string(&mixed).unwrap();
     let same = |value: &str| {

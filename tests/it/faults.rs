@@ -1,7 +1,6 @@
 //! Faults and limits at the shell: broken input files, writes killed midway,
 //! a memory limit, and determinism across thread counts.
 
-use std::path::PathBuf;
 use std::process::{Command, Stdio};
 use std::time::Duration;
 
@@ -9,16 +8,9 @@ fn bin() -> Command {
     Command::new(env!("CARGO_BIN_EXE_posterity"))
 }
 
-fn temp_dir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("posterity-faults-{name}-{}", std::process::id()));
-    std::fs::remove_dir_all(&d).ok();
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
 #[test]
 fn broken_files_fail_at_registration_naming_the_file() {
-    let d = temp_dir("files");
+    let d = scratch!("files");
     let write = |name: &str, bytes: &[u8]| std::fs::write(d.join(name), bytes).unwrap();
     write("ragged.csv", b"a,b\n1,2\n3\n4,5,6\n");
     write("quote.csv", b"a,b\n1,\"x\n2,y\n");
@@ -126,7 +118,7 @@ fn broken_files_fail_at_registration_naming_the_file() {
 // leaves either the old file or the complete new one, never a partial file.
 #[test]
 fn killed_writes_never_leave_partial_output() {
-    let d = temp_dir("kill");
+    let d = scratch!("kill");
     let out = d.join("result.csv");
     std::fs::write(&out, "old\n").unwrap();
     let sql = "SELECT value, value * 3 AS triple FROM generate_series(1, 1500000)";

@@ -67,7 +67,7 @@ pub fn json_rows(script: &str, args: &[&OsStr]) -> Vec<serde_json::Value> {
 
 #[test]
 fn no_encode_method_leaks_to_a_tree_learner() {
-    let work = std::env::temp_dir().join(format!("posterity-leakage-{}", std::process::id()));
+    let work = scratch!("work");
     let rows = json_rows(
         "leakage.py",
         &[env!("CARGO_BIN_EXE_posterity").as_ref(), work.as_os_str()],

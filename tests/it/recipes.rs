@@ -5,9 +5,7 @@ use std::path::PathBuf;
 use std::process::Command;
 
 fn run_recipe(name: &str) -> (PathBuf, Vec<Vec<String>>) {
-    let dir = std::env::temp_dir().join(format!("posterity-recipe-{name}-{}", std::process::id()));
-    std::fs::remove_dir_all(&dir).ok();
-    std::fs::create_dir_all(&dir).unwrap();
+    let dir = scratch!(name);
     let root = env!("CARGO_MANIFEST_DIR");
     let o = Command::new(env!("CARGO_BIN_EXE_posterity"))
         .current_dir(&dir)

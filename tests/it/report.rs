@@ -17,13 +17,6 @@ const PLOT_LEFT: f64 = 210.0;
 const PLOT_RIGHT: f64 = 750.0;
 const LEVEL_COLOUR: &str = "#0072B2";
 
-fn temp_dir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("posterity-report-{name}-{}", std::process::id()));
-    std::fs::remove_dir_all(&d).ok();
-    std::fs::create_dir_all(&d).unwrap();
-    d
-}
-
 fn posterity(args: &[&str]) -> std::process::Output {
     Command::new(env!("CARGO_BIN_EXE_posterity"))
         .args(args)
@@ -125,7 +118,7 @@ fn clinics_csv() -> String {
 
 #[test]
 fn every_picture_is_xml_with_one_mark_per_level_inside_its_axis() {
-    let dir = temp_dir("marks");
+    let dir = scratch!("marks");
     let (report, bundle) = encode_report(&dir, &clinics_csv(), "missed", "clinic,breed", &[]);
     let pictures = svgs(&report);
     // Three pictures per column.
@@ -185,7 +178,7 @@ fn every_picture_is_xml_with_one_mark_per_level_inside_its_axis() {
 #[test]
 fn the_same_inputs_give_the_same_bytes() {
     let a = encode_report(
-        &temp_dir("same-a"),
+        &scratch!("same-a"),
         &clinics_csv(),
         "missed",
         "clinic,breed",
@@ -193,7 +186,7 @@ fn the_same_inputs_give_the_same_bytes() {
     )
     .0;
     let b = encode_report(
-        &temp_dir("same-b"),
+        &scratch!("same-b"),
         &clinics_csv(),
         "missed",
         "clinic,breed",
@@ -229,7 +222,7 @@ fn degenerate_data_still_draws() {
         if !csv.starts_with("k,y") {
             csv.insert_str(0, "k,y\n");
         }
-        let dir = temp_dir(&name.replace([' ', '%'], "-"));
+        let dir = scratch!(&name.replace([' ', '%'], "-"));
         let (report, bundle) = encode_report(&dir, &csv, "y", "k", &extra);
         let levels = bundle.columns["k"].levels.len();
         let pictures = svgs(&report);
@@ -260,7 +253,7 @@ fn every_family_draws_on_its_own_scale() {
             10 + i % 5
         ));
     }
-    let dir = temp_dir("families");
+    let dir = scratch!("families");
     let cases: [(&str, &[&str], &str, usize); 3] = [
         ("amount", &[], "level mean (in units of the target)", 1),
         (
@@ -296,7 +289,7 @@ fn thirty_thousand_levels_stay_small() {
             csv.push_str(&format!("P{i:05},{}\n", u32::from((i + r) % 9 == 0)));
         }
     }
-    let dir = temp_dir("large");
+    let dir = scratch!("large");
     let (report, _) = encode_report(&dir, &csv, "y", "postcode", &["--prior", "jeffreys"]);
     assert!(report.len() < 5_000_000, "report is {} bytes", report.len());
     let pictures = svgs(&report);
@@ -306,7 +299,7 @@ fn thirty_thousand_levels_stay_small() {
 
 #[test]
 fn format_svg_draws_any_lookup() {
-    let dir = temp_dir("format-svg");
+    let dir = scratch!("format-svg");
     let csv = dir.join("visits.csv");
     std::fs::write(&csv, clinics_csv()).unwrap();
     let table = format!("v={}", csv.display());
@@ -408,7 +401,7 @@ fn chromium() -> PathBuf {
 /// not blank (headless flags as on this machine kind: no network, no GPU).
 #[test]
 fn a_browser_renders_the_report() {
-    let dir = temp_dir("browser");
+    let dir = scratch!("browser");
     encode_report(&dir, &clinics_csv(), "missed", "clinic,breed", &[]);
     let page = dir.join("out").join("report.html");
     let png = dir.join("report.png");

@@ -3,7 +3,6 @@
 //! through tmux (Ctrl-C cancels a query and the session keeps its tables).
 
 use std::io::Read;
-use std::path::PathBuf;
 use std::process::{Command, Stdio};
 
 fn bin() -> Command {
@@ -15,13 +14,6 @@ fn sample() -> String {
         "a={}/demo/sample/appointments.csv",
         env!("CARGO_MANIFEST_DIR")
     )
-}
-
-fn temp_dir(name: &str) -> PathBuf {
-    let d = std::env::temp_dir().join(format!("posterity-manners-{name}-{}", std::process::id()));
-    std::fs::remove_dir_all(&d).ok();
-    std::fs::create_dir_all(&d).unwrap();
-    d
 }
 
 // `posterity ... | head -3`: the reader goes away; the shell stops quietly with 0.
@@ -54,7 +46,7 @@ fn a_closed_pipe_ends_quietly() {
 // reads back with -t; CSV writes posteriors as JSON objects (the bundle's form).
 #[test]
 fn output_reads_back() {
-    let dir = temp_dir("readback");
+    let dir = scratch!("readback");
     let json = dir.join("enc.json");
     let o = bin()
         .args(["-t", &sample(), "-o", json.to_str().unwrap(), "-c"])
@@ -120,7 +112,7 @@ fn output_reads_back() {
 // replacing them with a regular file.
 #[test]
 fn output_onto_special_files() {
-    let dir = temp_dir("special");
+    let dir = scratch!("special");
     // A symbolic link: the file it names gets the result; the link stays a link.
     let target = dir.join("real.csv");
     std::fs::write(&target, "old").unwrap();
@@ -191,7 +183,7 @@ fn output_onto_special_files() {
 // Messages in the user's words, never an engine accumulator or an internal name.
 #[test]
 fn usage_errors_speak_the_users_words() {
-    let dir = temp_dir("words");
+    let dir = scratch!("words");
     let o = bin()
         .args(["demo", "--rows", "0", "--dir", dir.to_str().unwrap()])
         .output()
@@ -226,7 +218,7 @@ fn usage_errors_speak_the_users_words() {
 // COPY and CREATE TABLE say what they did, also under -c.
 #[test]
 fn statements_report_what_they_did() {
-    let dir = temp_dir("feedback");
+    let dir = scratch!("feedback");
     let out = dir.join("t.csv");
     let o = bin()
         .args(["-c"])

@@ -548,7 +548,7 @@ async fn out_of_fold_by_subtraction() {
 #[tokio::test]
 async fn parquet_round_trip() {
     let c = ctx().await;
-    let dir = std::env::temp_dir().join(format!("posterity-rt-{}", std::process::id()));
+    let dir = scratch!("round-trip");
     let path = dir.join("enc.parquet");
     std::fs::create_dir_all(&dir).unwrap();
     query(&c, &format!("COPY (SELECT breed, beta_posterior(no_show) AS b, nig_posterior(amount) AS n, dirichlet_posterior(outcome, dirichlet_prior(['attended', 'no_show', 'late_cancel'], 0.5)) AS d FROM appts GROUP BY breed) TO '{}' STORED AS PARQUET", path.display())).await;
