@@ -313,6 +313,7 @@ pub(super) async fn finish(
     let mut summary = Vec::new();
     let mut unseen = serde_json::Map::new();
     let rows_read = rows_read(ctx, plan).await?;
+    let scored_early = scored_within_training(ctx, plan).await?;
     // Two classes read per class give columns that add to one: said once, on the
     // first key that has readers.
     let two_classes_said_on = plan
@@ -441,6 +442,23 @@ pub(super) async fn finish(
                     plan.options.target
                 ));
             }
+        }
+        // Said once, on the first key read as of its rows' times.
+        if let Some((early, timed, newest)) = scored_early.filter(|_| {
+            plan.keys
+                .iter()
+                .position(|k| k.treatment == Treatment::Posterior)
+                == Some(i)
+        }) {
+            warnings.push(format!(
+                "{early} of the {timed} scored rows are not later in {time} than the newest \
+                 training row ({newest}): their encodings read every training row, later ones \
+                 too, while each training row read only earlier ones; to test a model on them \
+                 train on rows before them, or for a split that is not in time pass --method \
+                 kfold",
+                time = plan.options.time_column.as_deref().unwrap_or_default(),
+                newest = plan.time_units.show_time(newest),
+            ));
         }
         if two_classes_said_on == Some(i) {
             warnings.push(format!(
@@ -675,6 +693,50 @@ async fn rows_read(ctx: &SessionContext, plan: &EncodePlan) -> Result<RowsRead> 
             .collect(),
         one_value: low.filter(|low| Some(low) == high.as_ref()),
     })
+}
+
+/// As-of encodings: how many scored rows with a time are not later than the newest
+/// training row, how many have a time, and that newest time; `None` when none is, or the method, the
+/// scored table or its time column do not apply. A scored row reads every training
+/// row, so such rows see later rows that no training row saw: a backtest built
+/// that way scores features its model never trained on.
+async fn scored_within_training(
+    ctx: &SessionContext,
+    plan: &EncodePlan,
+) -> Result<Option<(i64, i64, f64)>> {
+    let (super::options::Method::Time, Some(_), Some(time)) =
+        (plan.method, &plan.options.score, &plan.options.time_column)
+    else {
+        return Ok(None);
+    };
+    let columns = super::checks::columns_of(ctx, SCORE).await?;
+    let same_units = columns
+        .iter()
+        .find(|(name, _)| name == time)
+        .and_then(|(_, d)| super::plan::TimeUnits::of(d));
+    if same_units != Some(plan.time_units) {
+        return Ok(None);
+    }
+    let t = plan.time_units.number(&format!("t.{}", super::quote(time)));
+    // Without a half-life or a horizon the plan did not read the training period.
+    let newest = match plan.newest_time {
+        Some(newest) => newest,
+        None => {
+            let b = one_row(ctx, &format!("SELECT MAX({t}) FROM {TRAIN} t")).await?;
+            let newest = b.column(0).as_primitive::<Float64Type>();
+            match newest.is_valid(0) {
+                true => newest.value(0),
+                false => return Ok(None),
+            }
+        }
+    };
+    let batch = one_row(
+        ctx,
+        &format!("SELECT COUNT(*) FILTER (WHERE {t} <= {newest:?}), COUNT({t}) FROM {SCORE} t"),
+    )
+    .await?;
+    let count = |c: usize| batch.column(c).as_primitive::<Int64Type>().value(0);
+    Ok((count(0) > 0).then(|| (count(0), count(1), newest)))
 }
 
 /// The summary as JSON, one object per key (`summary.json`).

@@ -4073,6 +4073,88 @@ fn scored_keys_that_all_miss_their_levels_are_reported() {
     }
 }
 
+// As-of encodings give a training row only earlier rows, and a scored row every
+// training row: scored rows inside the training period read later rows that no
+// training row did (a backtest on them scores features its model never saw). The
+// summary says how many; scored rows after the training period, and out-of-fold
+// encodings, say nothing. Counts against the sample's own days (hand SQL below).
+#[tokio::test]
+async fn scored_rows_inside_the_training_period_are_counted() {
+    let dir = scratch!("scored-inside");
+    let (early_train, late_score) = (dir.join("early.parquet"), dir.join("late.parquet"));
+    let (most, every_fifth) = (dir.join("most.parquet"), dir.join("fifth.parquet"));
+    sample_to_parquet("SELECT * FROM a WHERE day < 300", &early_train).await;
+    sample_to_parquet("SELECT * FROM a WHERE day >= 300", &late_score).await;
+    sample_to_parquet("SELECT * FROM a WHERE day % 5 <> 0 AND day < 330", &most).await;
+    sample_to_parquet("SELECT * FROM a WHERE day % 5 = 0", &every_fifth).await;
+    // The fifth days up to 329 (the newest training day), by hand.
+    let ctx = SessionContext::new();
+    ctx.register_csv("a", &sample(), Default::default())
+        .await
+        .unwrap();
+    let hand = ctx
+        .sql("SELECT COUNT(*) FILTER (WHERE day <= 329), COUNT(*) FROM a WHERE day % 5 = 0")
+        .await
+        .unwrap()
+        .collect()
+        .await
+        .unwrap();
+    let count = |c: usize| hand[0].column(c).as_primitive::<Int64Type>().value(0);
+    let (inside, all) = (count(0), count(1));
+    assert!(0 < inside && inside < all);
+    let warning = format!(
+        "{inside} of the {all} scored rows are not later in day than the newest training row \
+         (329)"
+    );
+    let dated = format!("{inside} of the {all} scored rows are not later in booked_on");
+    // Out-of-fold encodings with a half-life read time only for weights.
+    let kfold = ["--method", "kfold", "--half-life", "60"];
+    for (train, score, time, method, said) in [
+        (&most, &every_fifth, "day", &[][..], Some(&warning)),
+        (&most, &every_fifth, "booked_on", &[], Some(&dated)),
+        (&most, &every_fifth, "day", &kfold, None),
+        (&early_train, &late_score, "day", &[], None),
+    ] {
+        let out = dir.join("out");
+        let o = encode_output(
+            &[
+                "encode",
+                "--train",
+                train.to_str().unwrap(),
+                "--score",
+                score.to_str().unwrap(),
+                "--target",
+                "no_show",
+                "--columns",
+                "breed,clinic",
+                "--time-column",
+                time,
+                "--out",
+                out.to_str().unwrap(),
+                "--replace",
+            ]
+            .iter()
+            .chain(method)
+            .copied()
+            .collect::<Vec<_>>(),
+        );
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        let printed = String::from_utf8_lossy(&o.stdout);
+        let summary = std::fs::read_to_string(out.join("summary.json")).unwrap();
+        match said {
+            // Said once, on the first key.
+            Some(warning) => {
+                assert_eq!(printed.matches(warning.as_str()).count(), 1, "{printed}");
+                assert!(summary.contains(warning.as_str()), "{summary}");
+            }
+            None => assert!(
+                !printed.contains("not later in"),
+                "{time} {method:?}: {printed}"
+            ),
+        }
+    }
+}
+
 // A text target of two classes ('no', 'yes': common in open data) is read per class,
 // so each reader's two columns add to one; the summary says so once and how to get
 // one column per reader. Three classes carry no such warning.
