@@ -8,6 +8,10 @@
 //! `posterior_mean(beta_posterior(y, q)) OVER (PARTITION BY k)` gives one row for
 //! the whole table. [`check_sql`] finds such a clause before the statement is
 //! planned and names it; the shell and Python's `SessionContext.sql` run it.
+//!
+//! The same goes for the `SELECT *` a query that starts with `FROM` implies: the
+//! planner reads `FROM t` alone as a query of no columns, which the shell could
+//! only report as "done", so it is refused with the query to write instead.
 
 use std::ops::ControlFlow;
 
@@ -16,7 +20,7 @@ use datafusion::prelude::SessionContext;
 use datafusion::sql::parser::{CopyToSource, Statement};
 use datafusion::sql::sqlparser::ast::{
     visit_expressions, DuplicateTreatment, Expr, Function, FunctionArgumentClause,
-    FunctionArguments, NullTreatment,
+    FunctionArguments, NullTreatment, Query, SelectFlavor, SetExpr, Visit, Visitor,
 };
 
 /// Refuse `sql` when it puts an aggregate or window clause on a function `ctx`
@@ -64,9 +68,9 @@ pub fn ignored_clause(statement: &Statement, scalar_only: impl Fn(&str) -> bool)
         _ => ControlFlow::Continue(()),
     };
     let flow = match statement {
-        Statement::Statement(s) => visit_expressions(s.as_ref(), found),
+        Statement::Statement(s) => queries_then_calls(s.as_ref(), found),
         Statement::CopyTo(copy) => match &copy.source {
-            CopyToSource::Query(query) => visit_expressions(query.as_ref(), found),
+            CopyToSource::Query(query) => queries_then_calls(query.as_ref(), found),
             CopyToSource::Relation(_) => ControlFlow::Continue(()),
         },
         Statement::Explain(explain) => {
@@ -77,6 +81,45 @@ pub fn ignored_clause(statement: &Statement, scalar_only: impl Fn(&str) -> bool)
     match flow {
         ControlFlow::Break(why) => Some(why),
         ControlFlow::Continue(()) => None,
+    }
+}
+
+/// The first query without a SELECT in `node`, else the first call `found` breaks on.
+fn queries_then_calls<V: Visit>(
+    node: &V,
+    found: impl FnMut(&Expr) -> ControlFlow<String>,
+) -> ControlFlow<String> {
+    match node.visit(&mut FromWithoutSelect) {
+        ControlFlow::Continue(()) => visit_expressions(node, found),
+        refused => refused,
+    }
+}
+
+/// Finds a query, at any depth, that starts with `FROM` and has no `SELECT`.
+struct FromWithoutSelect;
+
+impl Visitor for FromWithoutSelect {
+    type Break = String;
+
+    fn pre_visit_query(&mut self, query: &Query) -> ControlFlow<String> {
+        fn lacks_select(body: &SetExpr) -> bool {
+            match body {
+                SetExpr::Select(select) => select.flavor == SelectFlavor::FromFirstNoSelect,
+                SetExpr::SetOperation { left, right, .. } => {
+                    lacks_select(left) || lacks_select(right)
+                }
+                SetExpr::Query(query) => lacks_select(&query.body),
+                _ => false,
+            }
+        }
+        match lacks_select(&query.body) {
+            true => ControlFlow::Break(
+                "a query that starts with FROM needs a SELECT: the engine reads FROM ... alone \
+                 as a query of no columns; write FROM ... SELECT * or SELECT * FROM ..."
+                    .to_string(),
+            ),
+            false => ControlFlow::Continue(()),
+        }
     }
 }
 

@@ -1337,3 +1337,49 @@ async fn clauses_the_engine_would_drop_are_refused() {
     .await;
     assert!((dropped - 0.1).abs() > 0.01, "{dropped}");
 }
+
+// A query that starts with FROM and has no SELECT is planned as one of no columns
+// (a shell could only say "done"): refused at any depth, with the query to write.
+// FROM ... SELECT passes.
+#[tokio::test]
+async fn a_query_of_from_alone_is_refused() {
+    let ctx = ctx().await;
+    for sql in [
+        "FROM appts",
+        "FROM appts LIMIT 2",
+        "SELECT COUNT(*) FROM (FROM appts)",
+        "WITH b AS (FROM appts) SELECT COUNT(*) FROM b",
+        "SELECT t FROM appts UNION ALL FROM appts",
+        "EXPLAIN FROM appts",
+        "COPY (FROM appts) TO '/dev/null' STORED AS CSV",
+    ] {
+        for e in [
+            posterity::clauses::check_sql(&ctx, sql),
+            posterity::clauses::check_sql_default(sql),
+        ] {
+            let e = e.unwrap_err().to_string();
+            assert!(
+                e.contains("a query that starts with FROM needs a SELECT")
+                    && e.contains("SELECT * FROM"),
+                "{sql}: {e}"
+            );
+        }
+    }
+    let passes = "FROM appts SELECT COUNT(*) AS n";
+    posterity::clauses::check_sql(&ctx, passes).unwrap();
+    posterity::clauses::check_sql_default(passes).unwrap();
+    assert_eq!(
+        one(&ctx, "FROM appts SELECT CAST(COUNT(*) AS DOUBLE)").await,
+        40.0
+    );
+    // The engine itself still plans FROM alone as no columns: when this fails, it
+    // reads it as SELECT * and the refusal may go.
+    let batches = ctx
+        .sql("FROM appts")
+        .await
+        .unwrap()
+        .collect()
+        .await
+        .unwrap();
+    assert!(batches.iter().all(|b| b.num_columns() == 0), "{batches:?}");
+}
