@@ -658,6 +658,10 @@ def test_clauses_the_engine_would_drop_are_refused(ctx):
     right = ctx.sql("SELECT posterior_mean(beta_posterior(no_show, beta_prior(2, 18)) "
                     "FILTER (WHERE day < 0)) AS m FROM a GROUP BY breed").to_pandas()
     assert len(right) > 10 and (right["m"] == 0.1).all()
+    # FROM alone would be a query of no columns.
+    with pytest.raises(posterity.Error, match="starts with FROM needs a SELECT"):
+        ctx.sql("FROM a")
+    assert len(ctx.sql("FROM a SELECT breed").to_pandas()) > 10
     # Registering twice checks once; a context's other methods are untouched.
     posterity.register(ctx)
     assert ctx.sql("SELECT 1 AS one").to_pandas()["one"].tolist() == [1]
