@@ -212,7 +212,7 @@ async fn register_plain(
     };
     let engine = |e: DataFusionError| FileError::Engine {
         path: path.to_string(),
-        message: e.to_string(),
+        message: crate::render::engine_error(e),
     };
     result.map_err(engine)?;
     match &source.directory {

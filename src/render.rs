@@ -93,5 +93,12 @@ pub fn engine_error(e: datafusion::error::DataFusionError) -> String {
              --csv-infer-rows all reads whole files first (--csv-text COLUMN reads one as text)",
         );
     }
+    // A file exported in a legacy encoding (Latin-1, Windows-1252) is common.
+    if text.contains("invalid utf-8") || text.contains("invalid UTF-8") {
+        text.push_str(
+            ". The file is not UTF-8 text (an export in Latin-1 or Windows-1252, say): convert \
+             it first, for example iconv -f windows-1252 -t utf-8 FILE > FILE-utf8.csv",
+        );
+    }
     text
 }

@@ -484,6 +484,47 @@ fn a_late_value_of_another_type_names_the_inference() {
 }
 
 #[test]
+fn text_that_is_not_utf8_is_named_with_the_way_out() {
+    // A spreadsheet's CSV export in Windows-1252 ('caf\xe9'): refused where the type
+    // inference reads it (the first rows) and where a query does (a later row), with
+    // the conversion to run, in the shell and in encode.
+    let dir = scratch!("not-utf8");
+    let early = dir.join("early.csv");
+    std::fs::write(&early, b"k,y\ncaf\xe9,1\nb,0\n").unwrap();
+    let mut later = b"k,y\n".to_vec();
+    for _ in 0..2000 {
+        later.extend_from_slice(b"b,0\n");
+    }
+    later.extend_from_slice(b"caf\xe9,1\n");
+    let late = dir.join("late.csv");
+    std::fs::write(&late, later).unwrap();
+    for file in [&early, &late] {
+        let table = format!("a={}", file.display());
+        let shell = run(&["-t", &table, "-c", "SELECT COUNT(*) FROM a"]);
+        let train = file.to_str().unwrap();
+        let out = dir.join("out");
+        let encode = run(&[
+            "encode",
+            "--train",
+            train,
+            "--target",
+            "y",
+            "--columns",
+            "k",
+            "--out",
+            out.to_str().unwrap(),
+        ]);
+        for o in [shell, encode] {
+            assert_eq!(o.status.code(), Some(1), "{}", stderr(&o));
+            for fragment in ["invalid UTF-8", "not UTF-8 text", "iconv -f windows-1252"] {
+                assert!(stderr(&o).contains(fragment), "{}", stderr(&o));
+            }
+            assert_eq!(stderr(&o).lines().count(), 1, "{}", stderr(&o));
+        }
+    }
+}
+
+#[test]
 fn json_arrays_with_one_file_name_stay_apart() {
     // Each JSON array is read through its own NDJSON copy: two files named alike in
     // different directories once shared one copy, and both tables read the last one.
