@@ -911,6 +911,29 @@ impl<K: FitKernel> FitAggregate<K> {
     }
 }
 
+/// Each fit aggregate's name, the index of its prior argument, and the prior it
+/// uses when the call gives none (`None` where a call must give one), for SQL
+/// written for an engine that cannot run [`crate::prior_binding`]
+/// ([`crate::window_priors`]).
+pub fn fit_priors() -> Vec<(&'static str, usize, Option<AnyPosterior>)> {
+    fn one<K: FitKernel>() -> (&'static str, usize, Option<AnyPosterior>) {
+        // The posterior of no rows is the prior.
+        let default = K::new(None).ok().and_then(|kernel| {
+            let column = kernel.finish(&vec![0.0; kernel.width()]).ok()?;
+            let column = crate::layout::PosteriorColumn::new(K::NAME, &column).ok()?;
+            column.get(0).ok().flatten()
+        });
+        (K::NAME, K::PRIOR_ARG, default)
+    }
+    vec![
+        one::<BetaOutcomes>(),
+        one::<BetaCounts>(),
+        one::<GammaCounts>(),
+        one::<NigValues>(),
+        one::<DirichletClasses>(),
+    ]
+}
+
 /// A fit aggregate that can be bound to the constant prior of one call.
 pub trait BindPrior {
     /// Index of the prior among the call's arguments.

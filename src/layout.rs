@@ -173,6 +173,37 @@ pub enum AnyPosterior {
 }
 
 impl AnyPosterior {
+    /// The constant SQL of this posterior's prior, with every parameter written so
+    /// that it reads back as the same f64 (Rust prints the shortest text that
+    /// round-trips).
+    pub fn prior_sql(&self) -> String {
+        match self {
+            AnyPosterior::Beta(b) => format!("beta_prior({}, {})", b.prior.a0, b.prior.b0),
+            AnyPosterior::Gamma(g) => {
+                format!("gamma_prior({}, {})", g.prior.shape0, g.prior.rate0)
+            }
+            AnyPosterior::Nig(n) => format!(
+                "nig_prior({}, {}, {}, {})",
+                n.prior.mu0, n.prior.kappa0, n.prior.alpha0, n.prior.beta0
+            ),
+            AnyPosterior::Dirichlet(d) => format!(
+                "dirichlet_prior([{}], [{}])",
+                d.prior
+                    .classes
+                    .iter()
+                    .map(|c| format!("'{}'", c.replace('\'', "''")))
+                    .collect::<Vec<_>>()
+                    .join(", "),
+                d.prior
+                    .alpha0
+                    .iter()
+                    .map(|a| format!("{a}"))
+                    .collect::<Vec<_>>()
+                    .join(", ")
+            ),
+        }
+    }
+
     pub fn kind(&self) -> Kind {
         match self {
             AnyPosterior::Beta(_) => Kind::Beta,

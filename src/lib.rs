@@ -14,7 +14,8 @@
 //! * [`files`] — registering Parquet, CSV and JSON files as tables, with checks;
 //! * [`prior_binding`] — a planning rule that binds fits to their constant prior;
 //! * [`read_before_join`] — a planning rule that reads posteriors before a join, once per level;
-//! * [`optimizer`] — a physical rule that builds joins on the (small) encoding side.
+//! * [`optimizer`] — a physical rule that builds joins on the (small) encoding side;
+//! * [`window_priors`] — SQL that gives empty window frames their prior where those rules cannot run.
 //!
 //! ```no_run
 //! # async fn demo() -> datafusion::error::Result<()> {
@@ -45,6 +46,7 @@ pub mod report;
 pub mod scalar;
 pub mod serve;
 pub mod shell;
+pub mod window_priors;
 
 pub use datafusion;
 
@@ -60,7 +62,8 @@ pub fn aggregates() -> Vec<AggregateUDF> {
 
 /// The aggregates for an engine reached through DataFusion's foreign-function
 /// interface (Python), which cannot run [`prior_binding`]: there an empty window
-/// frame or group gives NULL, and the fits say their result may be NULL.
+/// frame or group gives NULL, and the fits say their result may be NULL (SQL
+/// prepared by [`window_priors`] reads the call's prior there instead).
 pub fn foreign_aggregates() -> Vec<AggregateUDF> {
     aggregate_list(true)
 }

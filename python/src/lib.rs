@@ -940,12 +940,17 @@ impl Bundle {
     }
 }
 
-/// Refuse SQL that puts an aggregate or window clause on a scalar function, which
-/// the engine would drop without a word (`posterity::clauses`).
+/// The SQL to hand the engine for `sql`: refused when it puts an aggregate or
+/// window clause on a scalar function, which the engine would drop without a word
+/// (`posterity::clauses`); with each windowed fit falling back to its prior, which
+/// the engine cannot ask the function for (`posterity::window_priors`).
 #[pyfunction]
-fn check_sql(sql: &str) -> PyResult<()> {
-    posterity::clauses::check_sql_default(sql)
-        .map_err(|e| error(posterity::render::engine_error(e)))
+fn prepare_sql(sql: &str) -> PyResult<String> {
+    let refused = |e| error(posterity::render::engine_error(e));
+    posterity::clauses::check_sql_default(sql).map_err(refused)?;
+    Ok(posterity::window_priors::with_window_priors(sql)
+        .map_err(refused)?
+        .unwrap_or_else(|| sql.to_string()))
 }
 
 /// Remove the copies of input files written for the engine (decompressed `.gz`
@@ -971,7 +976,7 @@ fn _posterity(m: &Bound<'_, PyModule>) -> PyResult<()> {
     m.add_function(wrap_pyfunction!(engine_version, m)?)?;
     m.add_function(wrap_pyfunction!(encode_data, m)?)?;
     m.add_function(wrap_pyfunction!(remove_temporaries, m)?)?;
-    m.add_function(wrap_pyfunction!(check_sql, m)?)?;
+    m.add_function(wrap_pyfunction!(prepare_sql, m)?)?;
     m.add_function(wrap_pyfunction!(update_data, m)?)?;
     Ok(())
 }

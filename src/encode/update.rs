@@ -39,34 +39,6 @@ pub struct UpdateOptions {
     pub score: Option<String>,
 }
 
-/// The constant SQL of a prior, with every parameter written so that it reads
-/// back as the same f64 (Rust prints the shortest text that round-trips).
-pub fn prior_sql(p: &AnyPosterior) -> String {
-    match p {
-        AnyPosterior::Beta(b) => format!("beta_prior({}, {})", b.prior.a0, b.prior.b0),
-        AnyPosterior::Gamma(g) => format!("gamma_prior({}, {})", g.prior.shape0, g.prior.rate0),
-        AnyPosterior::Nig(n) => format!(
-            "nig_prior({}, {}, {}, {})",
-            n.prior.mu0, n.prior.kappa0, n.prior.alpha0, n.prior.beta0
-        ),
-        AnyPosterior::Dirichlet(d) => format!(
-            "dirichlet_prior([{}], [{}])",
-            d.prior
-                .classes
-                .iter()
-                .map(|c| text(c))
-                .collect::<Vec<_>>()
-                .join(", "),
-            d.prior
-                .alpha0
-                .iter()
-                .map(|a| format!("{a}"))
-                .collect::<Vec<_>>()
-                .join(", ")
-        ),
-    }
-}
-
 fn family_of(name: &str) -> Result<Kind> {
     Kind::from_short_name(name).ok_or_else(|| {
         EncodeError::Usage(format!(
@@ -144,7 +116,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
             ));
         }
         let mut key = KeyPlan::posterior(name.clone(), column.key_columns.clone(), &encode_options);
-        key.prior = Some(prior_sql(&column.prior));
+        key.prior = Some(column.prior.prior_sql());
         key.readers = previous
             .readers_of(column)
             .iter()
@@ -237,7 +209,7 @@ pub async fn update(ctx: &SessionContext, options: &UpdateOptions) -> Result<Enc
         family,
         method: Method::Kfold,
         classes,
-        base_prior: prior_sql(first_prior),
+        base_prior: first_prior.prior_sql(),
         fitted: false,
         keys,
         train_columns: train.into_iter().map(|(n, _)| n).collect(),

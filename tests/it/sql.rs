@@ -1338,6 +1338,87 @@ async fn clauses_the_engine_would_drop_are_refused() {
     assert!((dropped - 0.1).abs() > 0.01, "{dropped}");
 }
 
+// For Python's engine, which cannot ask a fit for its value on no rows, windowed
+// fits are written as COALESCE(fit, prior): the call's prior, or the function's
+// default (the shell's empty frames give the same, checked below). Nothing else is
+// touched, and on a session posterity plans for the rewrite changes no number.
+#[tokio::test]
+async fn windowed_fits_fall_back_to_their_prior_in_sql() {
+    use posterity::window_priors::with_window_priors;
+    let rewritten = |sql: &str| with_window_priors(sql).unwrap();
+    let windowed = "SELECT posterior_mean(beta_posterior(no_show, beta_prior(2, 18)) OVER \
+                    (PARTITION BY breed ORDER BY t ROWS BETWEEN UNBOUNDED PRECEDING AND 1 \
+                    PRECEDING)) AS m FROM appts ORDER BY t, breed";
+    let sql = rewritten(windowed).unwrap();
+    assert!(
+        sql.contains("COALESCE(beta_posterior(no_show, beta_prior(2, 18)) OVER (PARTITION BY breed ORDER BY t ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING), beta_prior(2, 18))"),
+        "{sql}"
+    );
+    // Defaults: the prior an empty frame gets in a session posterity plans for.
+    let ctx = ctx().await;
+    for (fit, data) in [
+        ("beta_posterior", "no_show"),
+        ("BETA_POSTERIOR_COUNTS", "no_show, 1"),
+        ("gamma_posterior", "visits, 1"),
+        ("nig_posterior", "amount"),
+    ] {
+        // t is unique: the first row by t is its breed's first, with an empty frame.
+        let first_row = format!(
+            "SELECT m FROM (SELECT t, posterior_mean({fit}({data}) OVER (PARTITION BY breed \
+             ORDER BY t ROWS BETWEEN UNBOUNDED PRECEDING AND 1 PRECEDING)) AS m FROM appts) \
+             ORDER BY t LIMIT 1"
+        );
+        let sql = rewritten(&first_row).unwrap();
+        assert!(
+            sql.contains(&format!("COALESCE({fit}({data}) OVER")),
+            "{sql}"
+        );
+        let no_rows = format!("SELECT posterior_mean({fit}({data})) FROM appts WHERE false");
+        let default = one(&ctx, &no_rows).await;
+        assert_eq!(one(&ctx, &first_row).await, default, "{first_row}");
+        assert_eq!(one(&ctx, &sql).await, default, "{sql}");
+    }
+    // The same numbers on a session posterity plans for.
+    assert_eq!(
+        floats(&ctx, windowed).await,
+        floats(&ctx, &rewritten(windowed).unwrap()).await
+    );
+    // A scalar subquery of one fit over its rows: decorrelated, a breed without
+    // rows there is a missing group (the engine correlates on equalities only).
+    let correlated = "SELECT posterior_mean((SELECT beta_posterior(i.no_show, \
+                      beta_prior(2, 18)) FROM appts i WHERE i.breed = o.breed AND i.t < 3)) \
+                      AS m FROM appts o ORDER BY o.t";
+    let sql = rewritten(correlated).unwrap();
+    assert!(
+        sql.contains("posterior_mean(COALESCE((SELECT beta_posterior(i.no_show, beta_prior(2, 18)) FROM appts i WHERE i.breed = o.breed AND i.t < 3), beta_prior(2, 18)))"),
+        "{sql}"
+    );
+    let (native, coalesced) = (floats(&ctx, correlated).await, floats(&ctx, &sql).await);
+    assert_eq!(native, coalesced);
+    // Collies (t = 3, 7, ...) have no rows before t = 3; the others one each.
+    assert_eq!(native[3], Some(0.1));
+    assert!(native[..3].iter().all(|m| *m != Some(0.1)), "{native:?}");
+    // EXPLAIN and COPY are rewritten inside; a window elsewhere, a plain fit, a fit
+    // without a prior of its own (Dirichlet), several statements and bad SQL are left.
+    for sql in [
+        &format!("EXPLAIN {windowed}"),
+        &format!("COPY ({windowed}) TO 'x.csv'"),
+    ] {
+        assert!(rewritten(sql).unwrap().contains("COALESCE("), "{sql}");
+    }
+    for sql in [
+        "SELECT SUM(t) OVER (ORDER BY t) FROM appts",
+        "SELECT breed, beta_posterior(no_show, beta_prior(2, 18)) FROM appts GROUP BY breed",
+        "SELECT dirichlet_posterior(outcome) OVER () FROM appts",
+        "SELECT (SELECT beta_posterior(no_show) FROM appts GROUP BY breed LIMIT 1)",
+        "SELECT (SELECT posterior_mean(beta_posterior(no_show)) FROM appts)",
+        "SELECT 1; SELECT beta_posterior(no_show) OVER () FROM appts",
+        "SELECT beta_posterior(no_show) OVER ( FROM",
+    ] {
+        assert_eq!(rewritten(sql), None, "{sql}");
+    }
+}
+
 // A query that starts with FROM and has no SELECT is planned as one of no columns
 // (a shell could only say "done"): refused at any depth, with the query to write.
 // FROM ... SELECT passes.

@@ -107,7 +107,7 @@ def register(ctx) -> SimpleNamespace:
         udwf = WindowUDF.from_pycapsule(f)
         ctx.register_udwf(udwf)
         out[f.name] = udwf
-    _refuse_ignored_clauses(ctx)
+    _prepare_sql(ctx)
     for name, udf in out.items():
         if name in docs:
             try:
@@ -117,11 +117,13 @@ def register(ctx) -> SimpleNamespace:
     return SimpleNamespace(**out)
 
 
-def _refuse_ignored_clauses(ctx) -> None:
-    """Check the SQL of ``ctx.sql`` and ``ctx.sql_with_options`` first. The engine drops
+def _prepare_sql(ctx) -> None:
+    """Prepare the SQL of ``ctx.sql`` and ``ctx.sql_with_options`` first. The engine drops
     OVER, FILTER, DISTINCT and ORDER BY written on a scalar function without a word, so
     ``posterior_mean(beta_posterior(y)) FILTER (WHERE c)`` would read every row; such a
-    statement is refused with the clause named (a ``posterity.Error``)."""
+    statement is refused with the clause named (a ``posterity.Error``). And the engine
+    cannot ask a fit for its prior when a window frame is empty, so each windowed fit is
+    written as ``COALESCE(fit, its prior)``."""
     if getattr(ctx, "_posterity_checks_sql", False):
         return
     try:
@@ -130,7 +132,7 @@ def _refuse_ignored_clauses(ctx) -> None:
 
             def checked(query, *args, _unchecked=unchecked, **kwargs):
                 if isinstance(query, str):
-                    _posterity.check_sql(query)
+                    query = _posterity.prepare_sql(query)
                 return _unchecked(query, *args, **kwargs)
 
             checked.__doc__ = unchecked.__doc__
