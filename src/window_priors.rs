@@ -13,7 +13,6 @@
 use std::collections::HashMap;
 use std::ops::ControlFlow;
 
-use datafusion::common::Result;
 use datafusion::sql::parser::{CopyToSource, DFParser, Statement};
 use datafusion::sql::sqlparser::ast::{
     visit_expressions_mut, Expr, Function, FunctionArg, FunctionArgExpr, FunctionArguments,
@@ -23,16 +22,13 @@ use datafusion::sql::sqlparser::dialect::GenericDialect;
 use datafusion::sql::sqlparser::parser::Parser;
 
 /// `sql` with every windowed fit call, and every scalar subquery of one fit,
-/// wrapped in `COALESCE(call, prior)`: the call's
-/// prior argument, or the function's default prior when it has none. `None` when
-/// nothing changes, `sql` does not parse (the engine then reports it in its own
-/// words) or holds more than one statement.
-pub fn with_window_priors(sql: &str) -> Result<Option<String>> {
-    let Ok(mut statements) = DFParser::parse_sql(sql) else {
-        return Ok(None);
-    };
+/// wrapped in `COALESCE(call, prior)`: the call's prior argument, or the function's
+/// default prior when it has none. `None` when nothing changes, `sql` does not parse
+/// (the engine then reports it in its own words) or holds more than one statement.
+pub fn with_window_priors(sql: &str) -> Option<String> {
+    let mut statements = DFParser::parse_sql(sql).ok()?;
     let (Some(mut statement), None) = (statements.pop_front(), statements.pop_front()) else {
-        return Ok(None);
+        return None;
     };
     let fits: HashMap<&str, (usize, Option<String>)> = crate::fit::fit_priors()
         .into_iter()
@@ -56,9 +52,10 @@ pub fn with_window_priors(sql: &str) -> Result<Option<String>> {
         ControlFlow::Continue(())
     };
     let flow = rewrite(&mut statement, &mut wrap);
-    Ok((changed && flow.is_continue()).then(|| statement.to_string()))
+    (changed && flow.is_continue()).then(|| statement.to_string())
 }
 
+/// Run `wrap` on every expression of `statement`, inside EXPLAIN and COPY too.
 fn rewrite(
     statement: &mut Statement,
     wrap: &mut impl FnMut(&mut Expr) -> ControlFlow<()>,

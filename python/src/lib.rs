@@ -948,9 +948,7 @@ impl Bundle {
 fn prepare_sql(sql: &str) -> PyResult<String> {
     let refused = |e| error(posterity::render::engine_error(e));
     posterity::clauses::check_sql_default(sql).map_err(refused)?;
-    Ok(posterity::window_priors::with_window_priors(sql)
-        .map_err(refused)?
-        .unwrap_or_else(|| sql.to_string()))
+    Ok(posterity::window_priors::with_window_priors(sql).unwrap_or_else(|| sql.to_string()))
 }
 
 /// Remove the copies of input files written for the engine (decompressed `.gz`

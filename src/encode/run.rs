@@ -696,10 +696,10 @@ async fn rows_read(ctx: &SessionContext, plan: &EncodePlan) -> Result<RowsRead> 
 }
 
 /// As-of encodings: how many scored rows with a time are not later than the newest
-/// training row, how many have a time, and that newest time; `None` when none is, or the method, the
-/// scored table or its time column do not apply. A scored row reads every training
-/// row, so such rows see later rows that no training row saw: a backtest built
-/// that way scores features its model never trained on.
+/// training row, how many have a time, and that newest time; `None` when none is,
+/// or the method, the scored table or its time column do not apply. A scored row
+/// reads every training row, so such rows see later rows that no training row saw:
+/// a backtest built that way scores features its model never trained on.
 async fn scored_within_training(
     ctx: &SessionContext,
     plan: &EncodePlan,
