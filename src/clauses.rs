@@ -124,7 +124,7 @@ impl Visitor for FromWithoutSelect {
 }
 
 /// The name the planner looks `f` up by: its last part, in lower case unless quoted.
-fn function_name(f: &Function) -> Option<String> {
+pub(crate) fn function_name(f: &Function) -> Option<String> {
     let ident = f.name.0.last()?.as_ident()?;
     Some(match ident.quote_style {
         Some(_) => ident.value.clone(),

@@ -191,7 +191,7 @@ impl AnyPosterior {
                 d.prior
                     .classes
                     .iter()
-                    .map(|c| format!("'{}'", c.replace('\'', "''")))
+                    .map(|c| crate::encode::text(c))
                     .collect::<Vec<_>>()
                     .join(", "),
                 d.prior

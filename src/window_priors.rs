@@ -12,11 +12,12 @@
 
 use std::collections::HashMap;
 use std::ops::ControlFlow;
+use std::sync::OnceLock;
 
 use datafusion::sql::parser::{CopyToSource, DFParser, Statement};
 use datafusion::sql::sqlparser::ast::{
     visit_expressions_mut, Expr, Function, FunctionArg, FunctionArgExpr, FunctionArguments,
-    GroupByExpr, ObjectNamePart, SelectItem, SetExpr,
+    GroupByExpr, SelectItem, SetExpr,
 };
 use datafusion::sql::sqlparser::dialect::GenericDialect;
 use datafusion::sql::sqlparser::parser::Parser;
@@ -30,13 +31,9 @@ pub fn with_window_priors(sql: &str) -> Option<String> {
     let (Some(mut statement), None) = (statements.pop_front(), statements.pop_front()) else {
         return None;
     };
-    let fits: HashMap<&str, (usize, Option<String>)> = crate::fit::fit_priors()
-        .into_iter()
-        .map(|(name, at, default)| (name, (at, default.map(|p| p.prior_sql()))))
-        .collect();
     let mut changed = false;
     let mut wrap = |expr: &mut Expr| -> ControlFlow<()> {
-        if let Some(fallback) = fallback_prior(expr, &fits) {
+        if let Some(fallback) = fallback_prior(expr) {
             let coalesced = format!("COALESCE({expr}, {fallback})");
             match Parser::new(&GenericDialect {})
                 .try_with_sql(&coalesced)
@@ -75,9 +72,9 @@ fn rewrite(
 /// scalar subquery whose one column is a fit over all its rows (decorrelated, the
 /// engine gives a missing group the function's value for no rows, too); `None`
 /// otherwise, or when the fit has no prior argument and its function no default.
-fn fallback_prior(expr: &Expr, fits: &HashMap<&str, (usize, Option<String>)>) -> Option<String> {
+fn fallback_prior(expr: &Expr) -> Option<String> {
     match expr {
-        Expr::Function(f) if f.over.is_some() => prior_of(f, fits),
+        Expr::Function(f) if f.over.is_some() => prior_of(f),
         Expr::Subquery(query) => {
             let SetExpr::Select(select) = query.body.as_ref() else {
                 return None;
@@ -92,24 +89,23 @@ fn fallback_prior(expr: &Expr, fits: &HashMap<&str, (usize, Option<String>)>) ->
             else {
                 return None;
             };
-            (whole && f.over.is_none())
-                .then(|| prior_of(f, fits))
-                .flatten()
+            (whole && f.over.is_none()).then(|| prior_of(f)).flatten()
         }
         _ => None,
     }
 }
 
 /// The prior SQL of fit call `f`: its prior argument, or its function's default.
-fn prior_of(f: &Function, fits: &HashMap<&str, (usize, Option<String>)>) -> Option<String> {
-    let ObjectNamePart::Identifier(ident) = f.name.0.last()? else {
-        return None;
-    };
-    let name = match ident.quote_style {
-        Some(_) => ident.value.clone(),
-        None => ident.value.to_ascii_lowercase(),
-    };
-    let (at, default) = fits.get(name.as_str())?;
+fn prior_of(f: &Function) -> Option<String> {
+    // Per fit function: the index of its prior argument and its default prior's SQL.
+    static FITS: OnceLock<HashMap<&'static str, (usize, Option<String>)>> = OnceLock::new();
+    let fits = FITS.get_or_init(|| {
+        crate::fit::fit_priors()
+            .into_iter()
+            .map(|(name, at, default)| (name, (at, default.map(|p| p.prior_sql()))))
+            .collect()
+    });
+    let (at, default) = fits.get(crate::clauses::function_name(f)?.as_str())?;
     let FunctionArguments::List(list) = &f.args else {
         return default.clone();
     };

@@ -313,7 +313,10 @@ pub(super) async fn finish(
     let mut summary = Vec::new();
     let mut unseen = serde_json::Map::new();
     let rows_read = rows_read(ctx, plan).await?;
-    let scored_early = scored_within_training(ctx, plan).await?;
+    let scored_early = match rows_read.newest {
+        Some(newest) => scored_within_training(ctx, plan, newest).await?,
+        None => None,
+    };
     // Two classes read per class give columns that add to one: said once, on the
     // first key that has readers.
     let two_classes_said_on = plan
@@ -652,11 +655,14 @@ fn prior_strength(prior: &AnyPosterior) -> f64 {
 }
 
 /// What the fits read of the training rows: per key, the rows with the key and a
-/// target (and, for counts per exposure, an exposure), and the target's value when
-/// every such row has the same one; counted in one pass over the keyed rows.
+/// target (and, for counts per exposure, an exposure), the target's value when
+/// every such row has the same one, and (as-of) their newest time; read in one
+/// pass over the keyed rows.
 struct RowsRead {
     per_key: Vec<u64>,
     one_value: Option<String>,
+    /// As-of encodings: the newest time among those rows (the column's units).
+    newest: Option<f64>,
 }
 
 async fn rows_read(ctx: &SessionContext, plan: &EncodePlan) -> Result<RowsRead> {
@@ -669,8 +675,21 @@ async fn rows_read(ctx: &SessionContext, plan: &EncodePlan) -> Result<RowsRead> 
     if let Some(x) = &o.exposure {
         read.push(format!("t.{} IS NOT NULL", super::quote(x)));
     }
+    // As-of encodings: the newest time the fits read, for the scored rows' check
+    // (times that count units: numbers, dates or timestamps).
+    let mut newest = "CAST(NULL AS DOUBLE)".to_string();
+    if let (super::options::Method::Time, Some(time)) = (plan.method, &o.time_column) {
+        let columns = super::checks::columns_of(ctx, TRAIN).await?;
+        let units = columns
+            .iter()
+            .find(|(name, _)| name == time)
+            .and_then(|(_, d)| super::plan::TimeUnits::of(d));
+        if units == Some(plan.time_units) {
+            newest = plan.time_units.number(&format!("t.{}", super::quote(time)));
+        }
+    }
     let sql = format!(
-        "SELECT MIN({y}), MAX({y}), {} FROM __keyed t WHERE {}",
+        "SELECT MIN({y}), MAX({y}), MAX({newest}), {} FROM __keyed t WHERE {}",
         counts.join(", "),
         read.join(" AND ")
     );
@@ -681,11 +700,14 @@ async fn rows_read(ctx: &SessionContext, plan: &EncodePlan) -> Result<RowsRead> 
         Ok(c.is_valid(0).then(|| c.value(0).to_string()))
     };
     let (low, high) = (text(0)?, text(1)?);
+    let newest = cast(batch.column(2), &DataType::Float64)?;
+    let newest = newest.as_primitive::<Float64Type>();
     Ok(RowsRead {
+        newest: newest.is_valid(0).then(|| newest.value(0)),
         per_key: (0..plan.keys.len())
             .map(|i| {
                 batch
-                    .column(i + 2)
+                    .column(i + 3)
                     .as_primitive::<Int64Type>()
                     .value(0)
                     .max(0) as u64
@@ -695,18 +717,18 @@ async fn rows_read(ctx: &SessionContext, plan: &EncodePlan) -> Result<RowsRead> 
     })
 }
 
-/// As-of encodings: how many scored rows with a time are not later than the newest
-/// training row, how many have a time, and that newest time; `None` when none is,
-/// or the method, the scored table or its time column do not apply. A scored row
-/// reads every training row, so such rows see later rows that no training row saw:
-/// a backtest built that way scores features its model never trained on.
+/// How many scored rows with a time are not later than `newest`, the newest
+/// training row's time under as-of encodings, and how many have a time; `None`
+/// when none is, or without scored rows or a time column of the same units there.
+/// A scored row reads every training row, so such rows see later rows that no
+/// training row saw: a backtest built that way scores features its model never
+/// trained on.
 async fn scored_within_training(
     ctx: &SessionContext,
     plan: &EncodePlan,
+    newest: f64,
 ) -> Result<Option<(i64, i64, f64)>> {
-    let (super::options::Method::Time, Some(_), Some(time)) =
-        (plan.method, &plan.options.score, &plan.options.time_column)
-    else {
+    let (Some(_), Some(time)) = (&plan.options.score, &plan.options.time_column) else {
         return Ok(None);
     };
     let columns = super::checks::columns_of(ctx, SCORE).await?;
@@ -718,18 +740,6 @@ async fn scored_within_training(
         return Ok(None);
     }
     let t = plan.time_units.number(&format!("t.{}", super::quote(time)));
-    // Without a half-life or a horizon the plan did not read the training period.
-    let newest = match plan.newest_time {
-        Some(newest) => newest,
-        None => {
-            let b = one_row(ctx, &format!("SELECT MAX({t}) FROM {TRAIN} t")).await?;
-            let newest = b.column(0).as_primitive::<Float64Type>();
-            match newest.is_valid(0) {
-                true => newest.value(0),
-                false => return Ok(None),
-            }
-        }
-    };
     let batch = one_row(
         ctx,
         &format!("SELECT COUNT(*) FILTER (WHERE {t} <= {newest:?}), COUNT({t}) FROM {SCORE} t"),
