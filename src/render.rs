@@ -93,6 +93,17 @@ pub fn engine_error(e: datafusion::error::DataFusionError) -> String {
              --csv-infer-rows all reads whole files first (--csv-text COLUMN reads one as text)",
         );
     }
+    // The engine lists every memory consumer before the one line a user needs.
+    if let Some(at) = text.find("Failed to allocate") {
+        if text.contains("Resources exhausted") {
+            text = format!(
+                "the work needs more memory than the memory limit allows ({}). Raise \
+                 --memory-limit, or give fewer --threads (each thread holds its own share of \
+                 a query's tables)",
+                text[at..].trim().trim_start_matches("Error: ")
+            );
+        }
+    }
     // A file exported in a legacy encoding (Latin-1, Windows-1252) is common.
     if text.contains("invalid utf-8") || text.contains("invalid UTF-8") {
         text.push_str(

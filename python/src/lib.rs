@@ -475,6 +475,57 @@ impl EncodeResult {
     }
 }
 
+/// How the engine runs a call: the shell's `--threads` and `--memory-limit`.
+#[derive(Default)]
+struct EngineOptions {
+    threads: Option<usize>,
+    memory_limit: Option<usize>,
+}
+
+/// `threads` (a whole number from 1) and `memory_limit` (bytes, or text such as
+/// "4G"), taken out of `options`.
+fn engine_options(
+    options: &Bound<'_, pyo3::types::PyDict>,
+    function: &str,
+) -> PyResult<EngineOptions> {
+    let mut engine = EngineOptions::default();
+    if let Some(value) = options.get_item("threads")? {
+        options.del_item("threads")?;
+        if !value.is_none() {
+            engine.threads = Some(
+                value
+                    .extract::<usize>()
+                    .ok()
+                    .filter(|n| *n >= 1 && !value.is_instance_of::<pyo3::types::PyBool>())
+                    .ok_or_else(|| {
+                        error(format!(
+                            "{function}: threads must be a whole number from 1; got {value}"
+                        ))
+                    })?,
+            );
+        }
+    }
+    if let Some(value) = options.get_item("memory_limit")? {
+        options.del_item("memory_limit")?;
+        if !value.is_none() {
+            let text = match value.extract::<u64>() {
+                Ok(bytes) if !value.is_instance_of::<pyo3::types::PyBool>() => bytes.to_string(),
+                _ => value.extract::<String>().map_err(|_| {
+                    error(format!(
+                        "{function}: memory_limit must be bytes or a size such as '4G'; got \
+                         {value}"
+                    ))
+                })?,
+            };
+            engine.memory_limit = Some(
+                posterity::shell::parse_size(&text)
+                    .map_err(|e| error(format!("{function}: memory_limit: {e}")))?,
+            );
+        }
+    }
+    Ok(engine)
+}
+
 /// The options that say how CSV files given by path are read (the shell's `--csv-*`
 /// flags), taken out of `options`; with the first one's name, for messages.
 fn csv_options(
@@ -690,8 +741,10 @@ fn encode_data(
     let mut o = EncodeOptions::new(TRAIN, &target, &[]);
     o.columns = columns;
     let mut csv = None;
+    let mut engine = EngineOptions::default();
     if let Some(options) = options {
         csv = csv_options(options, "encode")?;
+        engine = engine_options(options, "encode")?;
         // Option parsers share the shell's words: given here in Python's.
         parse_options(options, &mut o).map_err(|e| from_workflow("encode", e.value(py)))?;
     }
@@ -710,7 +763,7 @@ fn encode_data(
     let output = py
         .detach(|| {
             rt.block_on(async {
-                let ctx = session_with(train, score, &csv, &key_columns).await?;
+                let ctx = session_with(&engine, train, score, &csv, &key_columns).await?;
                 let plan = encode::resolve(&ctx, &o).await.map_err(|e| e.to_string())?;
                 let output = encode::run(&ctx, &plan).await.map_err(|e| e.to_string())?;
                 Collected::of(output).await
@@ -747,13 +800,15 @@ const SCORE: &str = "score";
 /// A session with posterity's functions and the inputs registered as `train` and
 /// (when given) `score`, read as the shell reads them.
 async fn session_with(
+    engine: &EngineOptions,
     train: Input,
     score: Option<Input>,
     csv: &CsvOptions,
     key_columns: &[String],
 ) -> Result<SessionContext, String> {
-    let ctx = SessionContext::new();
-    posterity::register(&ctx);
+    // The shell's session: its thread count and memory limit, and its join rule.
+    let ctx =
+        posterity::shell::session(engine.memory_limit, engine.threads).map_err(|e| e.message)?;
     train
         .register(&ctx, TRAIN, "train", csv, key_columns)
         .await?;
@@ -821,12 +876,14 @@ fn update_data(
     options: Option<&Bound<'_, pyo3::types::PyDict>>,
 ) -> PyResult<EncodeResult> {
     let mut csv = None;
+    let mut engine = EngineOptions::default();
     if let Some(options) = options {
         csv = csv_options(options, "update")?;
+        engine = engine_options(options, "update")?;
         if let Some((key, _)) = options.iter().next() {
             return Err(error(format!(
                 "update: unknown option {key}; a refresh takes the new rows, score, exposure, \
-                 decay and the csv_* options (the previous bundle fixes the target, keys, \
+                 decay, threads, memory_limit and the csv_* options (the previous bundle fixes the target, keys, \
                  family, priors and readers)"
             )));
         }
@@ -845,7 +902,7 @@ fn update_data(
     let output = py
         .detach(|| {
             rt.block_on(async {
-                let ctx = session_with(train, score, &csv, &key_columns).await?;
+                let ctx = session_with(&engine, train, score, &csv, &key_columns).await?;
                 let output = encode::update(&ctx, &options)
                     .await
                     .map_err(|e| e.to_string())?;

@@ -545,6 +545,33 @@ def test_key_types_nulls_and_empty():
         posterity.encode(rows.slice(0, 0), target="y", columns=["text"])
 
 
+def test_engine_options_streams_read_once_and_empty_scoring_tables():
+    """threads and memory_limit run the shell's engine settings and change no number; one
+    reader given as train and score is read once (a second read would give no rows); a
+    scoring table with no rows is said in the summary, as the shell says it."""
+    rows = pa.Table.from_pandas(pd.read_csv(SAMPLE))
+    options = dict(target="no_show", columns=["breed", "clinic"], score=rows)
+    plain = posterity.encode(rows, **options)
+    tuned = posterity.encode(rows, threads=1, memory_limit="512M", **options)
+    assert tuned.train_encoded.equals(plain.train_encoded)
+    assert tuned.scored.equals(plain.scored)
+    # Too little memory for the work is the engine's refusal, named, never a crash.
+    with pytest.raises(posterity.Error) as e:
+        posterity.encode(rows, memory_limit=1024, **options)
+    assert "more memory than the memory limit allows" in str(e.value)
+    assert "Raise memory_limit, or give fewer threads" in str(e.value)
+    reader = rows.to_reader()
+    once = posterity.encode(reader, target="no_show", columns=["breed", "clinic"], score=reader)
+    assert once.scored.num_rows == rows.num_rows
+    assert once.scored.equals(plain.scored)
+    assert not [w for s in plain.summary for w in s["warnings"] if "no rows" in w]
+    empty = posterity.encode(rows, target="no_show", columns=["breed", "clinic"],
+                             score=rows.slice(0, 0))
+    said = [w for s in empty.summary for w in s["warnings"] if "scoring table has no rows" in w]
+    assert len(said) == 1, empty.summary
+    assert "scoring table has no rows" in str(empty)
+
+
 # ------------------------------------------------------------------ bad input
 
 def test_pandas_names_and_missing_targets_read_as_pandas_has_them():
@@ -560,6 +587,7 @@ def test_pandas_names_and_missing_targets_read_as_pandas_has_them():
 
 
 def test_bad_input_is_a_python_error(ctx):
+    bundle = posterity.encode(SAMPLE, target="no_show", columns=["breed"]).bundle
     cases = [
         (lambda: posterity.encode(SAMPLE, target="no_show", columns=["no_such"]),
          ["key column 'no_such'", "training table"]),
@@ -610,6 +638,27 @@ def test_bad_input_is_a_python_error(ctx):
         (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"],
                                   time_column="booked_on", half_life=[3]),
          ["half_life must be a number > 0", "a Timedelta or 'fitted'"]),
+        # One column is not a table of rows: each is named, with the way to make one.
+        (lambda: posterity.encode(pd.read_csv(SAMPLE)["breed"], target="no_show",
+                                  columns=["breed"]), ["train", "pandas Series", ".to_frame()"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"],
+                                  score=pl.read_csv(SAMPLE)["breed"]),
+         ["score", "polars Series", ".to_frame()"]),
+        (lambda: posterity.encode(pa.chunked_array([["a"]]), target="y", columns=["k"]),
+         ["train", "pyarrow ChunkedArray", "pyarrow.table"]),
+        (lambda: bundle.score(pd.read_csv(SAMPLE)["breed"]),
+         ["Bundle.score", "pandas Series"]),
+        # Bundle.score takes tables only: no message may offer it a path.
+        (lambda: bundle.score(str(SAMPLE)),
+         ["Bundle.score", "not a file path", "read the file first"]),
+        (lambda: bundle.score(42), ["Bundle.score", "expected a pyarrow"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], threads=0),
+         ["encode: threads must be a whole number from 1", "got 0"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], threads=True),
+         ["encode: threads must be a whole number from 1"]),
+        (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"],
+                                  memory_limit="lots"),
+         ["encode: memory_limit", "invalid size 'lots'", "2G"]),
         (lambda: posterity.Bundle.load("/no/such/bundle.json"), ["Bundle.load", "cannot read"]),
         (lambda: posterity.Bundle.from_json("{}"), ["Bundle.from_json", "posterity bundle"]),
     ]
@@ -619,7 +668,8 @@ def test_bad_input_is_a_python_error(ctx):
         for f in fragments:
             assert f in str(e.value), f"{f!r} not in {e.value}"
         # Every refusal names the function first.
-        assert str(e.value).split(":")[0] in ("encode", "Bundle.load", "Bundle.from_json"), \
+        assert str(e.value).split(":")[0] in ("encode", "Bundle.load", "Bundle.from_json",
+                                              "Bundle.score"), \
             str(e.value)
     # SQL errors from the functions carry their messages through the engine.
     for sql, fragments in [

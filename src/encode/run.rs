@@ -388,6 +388,15 @@ pub(super) async fn finish(
             Some(df) => {
                 let b = df.clone().collect().await?;
                 let v = |c: usize| b[0].column(c).as_primitive::<Int64Type>().value(0);
+                // No scored rows at all is an empty file, a filter that kept nothing or a
+                // stream already read: said once, as the table's zeros are easy to miss.
+                if i == 0 && v(0) == 0 {
+                    warnings.push(
+                        "the scoring table has no rows, so nothing was scored (an empty file, \
+                         a filter that kept no rows, or a stream that was already read)"
+                            .to_string(),
+                    );
+                }
                 // Every scored key unseen is more often a mismatch of how the two tables
                 // write the key than a batch of new levels: say so.
                 if v(1) >= MANY_UNSEEN_ROWS && v(2) == v(1) && !levels.is_empty() {

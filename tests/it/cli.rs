@@ -631,6 +631,23 @@ fn exit_codes_and_one_line_errors() {
     assert_eq!(o.status.code(), Some(2));
     let o = run(&["--memory-limit", "lots", "-c", "SELECT 1"]);
     assert_eq!(o.status.code(), Some(2));
+    // Too little memory: the allocation that failed and the way out, without the
+    // engine's list of every memory consumer.
+    let o = run(&[
+        "--memory-limit",
+        "1K",
+        "-c",
+        "SELECT v % 7 AS k, COUNT(*) FROM generate_series(1, 10000) g(v) GROUP BY v % 7",
+    ]);
+    assert_eq!(o.status.code(), Some(1));
+    for said in [
+        "error: -c: the work needs more memory than the memory limit allows (Failed to allocate",
+        "pool_size: 1024.0 B",
+        "Raise --memory-limit, or give fewer --threads",
+    ] {
+        assert!(stderr(&o).contains(said), "{said}: {}", stderr(&o));
+    }
+    assert!(!stderr(&o).contains("consumers"), "{}", stderr(&o));
     let o = run(&["-c", "SELECT posterior_quantile(beta_prior(1, 1), 2)"]);
     assert_eq!(o.status.code(), Some(1));
     assert!(

@@ -4155,6 +4155,39 @@ async fn scored_rows_inside_the_training_period_are_counted() {
     }
 }
 
+// A scoring table without rows (a filter that kept none) is easy to miss as zeros in
+// the scored-rows table: the summary says it once.
+#[tokio::test]
+async fn a_scoring_table_without_rows_is_said() {
+    let dir = scratch!("empty-score");
+    let (none, some) = (dir.join("none.parquet"), dir.join("some.parquet"));
+    sample_to_parquet("SELECT * FROM a WHERE day > 1000", &none).await;
+    sample_to_parquet("SELECT * FROM a WHERE day > 300", &some).await;
+    for (score, said) in [(&none, 1), (&some, 0)] {
+        let out = dir.join("out");
+        let o = encode_output(&[
+            "encode",
+            "--train",
+            sample().as_str(),
+            "--score",
+            score.to_str().unwrap(),
+            "--target",
+            "no_show",
+            "--columns",
+            "breed,clinic",
+            "--out",
+            out.to_str().unwrap(),
+            "--replace",
+        ]);
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        let printed = String::from_utf8_lossy(&o.stdout);
+        let warning = "the scoring table has no rows, so nothing was scored";
+        assert_eq!(printed.matches(warning).count(), said, "{printed}");
+        let summary = std::fs::read_to_string(out.join("summary.json")).unwrap();
+        assert_eq!(summary.matches(warning).count(), said, "{summary}");
+    }
+}
+
 // A text target of two classes ('no', 'yes': common in open data) is read per class,
 // so each reader's two columns add to one; the summary says so once and how to get
 // one column per reader. Three classes carry no such warning.

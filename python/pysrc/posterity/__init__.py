@@ -153,10 +153,20 @@ def _kind(data: Any) -> str:
     return "arrow"
 
 
-def _as_input(data: Any, what: str):
-    """A path (str or PathLike) as text, or an object with ``__arrow_c_stream__``."""
+def _as_input(data: Any, what: str, paths: bool = True):
+    """A path (str or PathLike) as text (where ``paths``), or an object with
+    ``__arrow_c_stream__``."""
     if isinstance(data, (str, os.PathLike)):
+        if not paths:
+            raise Error(f"{what}: give the rows as a table (pandas, polars or pyarrow), not a "
+                        "file path; read the file first (for example pandas.read_parquet)")
         return os.fspath(data)
+    if _kind(data) in ("pandas", "polars") and type(data).__name__ == "Series":
+        raise Error(f"{what}: expected a table of rows; got a {_kind(data)} Series (one "
+                    "column): make it a table with .to_frame()")
+    if isinstance(data, (pa.Array, pa.ChunkedArray)):
+        raise Error(f"{what}: expected a table of rows; got a pyarrow {type(data).__name__} "
+                    "(one column): make it a table with pyarrow.table({'name': array})")
     if _kind(data) == "pandas":
         # An unnamed index is not data; a named one (``set_index("breed")``) is a column,
         # as in pandas' own Arrow form.
@@ -178,8 +188,17 @@ def _as_input(data: Any, what: str):
         return data
     if isinstance(data, pa.dataset.Dataset):
         return data.scanner().to_reader()  # streamed, batch by batch
-    raise Error(f"{what}: expected a file path, a pyarrow Table or Dataset, a pandas or a polars "
-                f"DataFrame or LazyFrame; got {type(data).__name__}")
+    raise Error(f"{what}: expected {'a file path, ' if paths else ''}a pyarrow Table or "
+                f"Dataset, a pandas or a polars DataFrame or LazyFrame; got "
+                f"{type(data).__name__}")
+
+
+def _read_once(train: Any, score: Any):
+    """``train`` and ``score``, with one stream given as both read into a table first: a
+    ``RecordBatchReader`` can be read once, so the scored rows would be none."""
+    if score is train and isinstance(train, pa.RecordBatchReader):
+        train = score = train.read_all()
+    return train, score
 
 
 def _column_name(name: Any, what: str, kind: str) -> str:
@@ -280,10 +299,7 @@ class Bundle:
         """``rows`` (pandas, polars or pyarrow; pandas with its own index and column types)
         with the feature columns appended."""
         kind = _kind(rows)
-        data = _as_input(rows, "Bundle.score")
-        if isinstance(data, str):
-            raise Error("Bundle.score: give the rows as a table (pandas, polars or pyarrow); "
-                        "read the file first")
+        data = _as_input(rows, "Bundle.score", paths=False)
         return _as_output(self._inner.score_data(data), kind, rows)
 
     def __repr__(self) -> str:
@@ -337,8 +353,10 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     such chains, finest first; k-fold and as-of encodings), ``score_evidence`` ("matched" or "full"),
     ``report=True`` (the HTML report: ``Encoded.report``, ``report.html``). CSV files given by
     path are read with ``csv_null`` ("NA"), ``csv_delimiter``, ``csv_no_header``,
-    ``csv_infer_rows`` (a number or "all") and ``csv_text`` (columns read as text). The same
-    inputs give the shell's numbers. With ``out``, the outputs are also written there.
+    ``csv_infer_rows`` (a number or "all") and ``csv_text`` (columns read as text). The engine
+    runs with ``threads`` (default: every core) and ``memory_limit`` (bytes or "4G"; default
+    none), as the shell's ``--threads`` and ``--memory-limit``. The same inputs give the shell's
+    numbers. With ``out``, the outputs are also written there.
     """
     kind = _kind(train)
     target = _column_name(target, "target", kind)
@@ -353,6 +371,7 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
         if days is not None:
             options[option] = days
             options["_durations_in_days"] = True
+    train, score = _read_once(train, score)
     inner = _posterity.encode_data(_as_input(train, "encode: train"), target, list(columns),
                                    None if score is None else _as_input(score, "encode: score"),
                                    **options)
@@ -372,8 +391,8 @@ def update(previous, train, score=None, out=None, replace: bool = False, exposur
     ``previous``: an ``Encoded``, a ``Bundle``, or the path of an output directory (or its
     ``bundle.json``). It fixes the target, keys, family, priors and readers. ``decay``
     (in (0, 1]) multiplies the stored evidence first: 0.5 after one half-life of age.
-    ``score``, ``out``, ``replace``, ``exposure`` and the ``csv_*`` options are as for
-    ``encode``. A refresh gives the encodings, the bundle and (with ``score``) scored rows;
+    ``score``, ``out``, ``replace``, ``exposure``, ``threads``, ``memory_limit`` and the
+    ``csv_*`` options are as for ``encode``. A refresh gives the encodings, the bundle and (with ``score``) scored rows;
     ``train_encoded`` is None (leak-free training features come from ``encode``).
     """
     if isinstance(previous, Encoded):
@@ -388,6 +407,7 @@ def update(previous, train, score=None, out=None, replace: bool = False, exposur
     kind = _kind(train)
     if exposure is not None:
         exposure = _column_name(exposure, "exposure", kind)
+    train, score = _read_once(train, score)
     inner = _posterity.update_data(bundle._inner, _as_input(train, "update: train"),
                                    None if score is None else _as_input(score, "update: score"),
                                    exposure=exposure, decay=decay, **options)
