@@ -426,11 +426,31 @@ impl Bundle {
                 c.get("prior")
                     .ok_or_else(|| bad(format!("column '{name}' has no prior")))?,
             )?;
+            // A hand-made or altered bundle must not score silently as something else:
+            // every level is a posterior of the prior's family (and classes).
             let mut levels = BTreeMap::new();
-            if let Some(map) = c.get("levels").and_then(Value::as_object) {
-                for (level, p) in map {
-                    levels.insert(level.clone(), posterior_from_json(p)?);
+            let map = c.get("levels").and_then(Value::as_object).ok_or_else(|| {
+                bad(format!(
+                    "column '{name}': 'levels' is missing or not an object of level to posterior"
+                ))
+            })?;
+            for (level, p) in map {
+                let p = posterior_from_json(p)?;
+                if !same_family(&prior, &p) {
+                    return Err(bad(format!(
+                        "column '{name}': level '{level}' is a {} posterior, the prior a {} one",
+                        family_words(&p),
+                        family_words(&prior)
+                    )));
                 }
+                levels.insert(level.clone(), p);
+            }
+            for reader in c
+                .get("readers")
+                .map(|r| texts_of(Some(r)))
+                .unwrap_or_default()
+            {
+                check_reader(&reader).map_err(|e| bad(format!("column '{name}': {e}")))?;
             }
             let key_columns = match c.get("key") {
                 Some(key) => {
@@ -442,6 +462,9 @@ impl Bundle {
                         .map(|c| c.as_str().map(str::to_string))
                         .collect::<Option<Vec<_>>>()
                         .ok_or_else(|| bad(format!("column '{name}': a key column is not text")))?;
+                    if columns.is_empty() {
+                        return Err(bad(format!("column '{name}': its key names no columns")));
+                    }
                     let form = key.get("form").and_then(Value::as_str);
                     let expected = if columns.len() > 1 {
                         "length_prefixed"
@@ -537,6 +560,16 @@ impl Bundle {
                 )));
             }
         }
+        let key_order = texts_of(v.get("key_order"));
+        if let Some(unknown) = key_order.iter().find(|k| !columns.contains_key(*k)) {
+            return Err(bad(format!(
+                "key_order names '{unknown}', which is not a column of the bundle"
+            )));
+        }
+        let readers = texts_of(v.get("readers"));
+        for reader in &readers {
+            check_reader(reader).map_err(bad)?;
+        }
         Ok(Bundle {
             target: text_of("target"),
             family: text_of("family"),
@@ -544,11 +577,35 @@ impl Bundle {
                 .get("exposure")
                 .and_then(Value::as_str)
                 .map(str::to_string),
-            key_order: texts_of(v.get("key_order")),
-            readers: texts_of(v.get("readers")),
+            key_order,
+            readers,
             columns,
         })
     }
+}
+
+/// Whether `p` is a posterior of `prior`'s family (for Dirichlet: of its classes).
+fn same_family(prior: &AnyPosterior, p: &AnyPosterior) -> bool {
+    match (prior, p) {
+        (AnyPosterior::Dirichlet(a), AnyPosterior::Dirichlet(b)) => {
+            a.prior.classes == b.prior.classes
+        }
+        _ => prior.kind() == p.kind(),
+    }
+}
+
+fn family_words(p: &AnyPosterior) -> String {
+    match p {
+        AnyPosterior::Dirichlet(d) => format!("Dirichlet (classes {:?})", d.prior.classes),
+        other => other.kind().name().to_string(),
+    }
+}
+
+/// A reader's name as this build reads it, or why not.
+fn check_reader(reader: &str) -> Result<(), String> {
+    crate::encode::Reader::parse(reader).map(|_| ()).map_err(|_| {
+        format!("reader '{reader}' is not one this build reads (mean, sd, var, data_weight, qNN, above:T)")
+    })
 }
 
 /// A child column's parent levels and data outside them (`"parent": {"levels":

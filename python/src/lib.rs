@@ -975,17 +975,23 @@ impl Bundle {
     /// key's feature columns appended.
     fn score_data(&self, py: Python<'_>, data: &Bound<'_, PyAny>) -> PyResult<ArrowData> {
         let (schema, batches) = read_stream(data, "Bundle.score")?;
+        // The scorer's messages name `score` (or a reader): here the method is named.
+        let named = |e: encode::EncodeError| {
+            let message = e.to_string();
+            let message = message.strip_prefix("score: ").unwrap_or(&message);
+            error(format!("Bundle.score: {message}"))
+        };
         py.detach(|| {
             let mut out = Vec::with_capacity(batches.len());
             for batch in &batches {
-                out.push(posterity::serve::score(&self.inner, batch).map_err(error)?);
+                out.push(posterity::serve::score(&self.inner, batch).map_err(named)?);
             }
             let schema = match out.first() {
                 Some(b) => b.schema(),
                 None => {
                     let empty = RecordBatch::new_empty(schema);
                     posterity::serve::score(&self.inner, &empty)
-                        .map_err(error)?
+                        .map_err(named)?
                         .schema()
                 }
             };

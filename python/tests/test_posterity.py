@@ -652,6 +652,11 @@ def test_bad_input_is_a_python_error(ctx):
         (lambda: bundle.score(str(SAMPLE)),
          ["Bundle.score", "not a file path", "read the file first"]),
         (lambda: bundle.score(42), ["Bundle.score", "expected a pyarrow"]),
+        # The scorer's own refusals name the method too.
+        (lambda: bundle.score(pd.DataFrame({"clinic": ["x"]})),
+         ["Bundle.score: key 'breed' needs column 'breed'"]),
+        (lambda: posterity.Bundle.from_json(bundle.to_json().replace('"levels": {', '"levels": [], "x": {')),
+         ["Bundle.from_json", "'levels' is missing or not an object"]),
         (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], threads=0),
          ["encode: threads must be a whole number from 1", "got 0"]),
         (lambda: posterity.encode(SAMPLE, target="no_show", columns=["breed"], threads=True),

@@ -2488,6 +2488,108 @@ async fn treatments_follow_the_data_and_the_user() {
 // order (it once appended keys by name) and types,
 // the same values (1e-12 relative), for posterior, levels and codes keys, an
 // interaction, a Dirichlet target, unseen levels and NULL keys.
+// A bundle edited by hand or written by another program must not score as
+// something else without a word: each thing wrong is refused by name on reading.
+#[test]
+fn an_altered_bundle_is_refused_by_what_is_wrong() {
+    let dir = scratch!("altered-bundle");
+    let (beta, classes) = (dir.join("beta"), dir.join("classes"));
+    for (out, target) in [(&beta, "no_show"), (&classes, "outcome")] {
+        encode(&[
+            "--train",
+            &sample(),
+            "--target",
+            target,
+            "--columns",
+            "breed,clinic",
+            "--out",
+            out.to_str().unwrap(),
+        ]);
+    }
+    let json = |out: &Path| -> serde_json::Value {
+        serde_json::from_str(&std::fs::read_to_string(out.join("bundle.json")).unwrap()).unwrap()
+    };
+    let (beta, classes) = (json(&beta), json(&classes));
+    let level = |v: &serde_json::Value, key: &str| {
+        v["columns"][key]["levels"]
+            .as_object()
+            .unwrap()
+            .values()
+            .next()
+            .unwrap()
+            .clone()
+    };
+    let (beta_level, class_level) = (level(&beta, "breed"), level(&classes, "breed"));
+    let mut fewer_classes = class_level.clone();
+    for field in ["classes", "a0", "counts"] {
+        let list = fewer_classes[field].as_array_mut().unwrap();
+        list.pop();
+    }
+    type Change = Box<dyn Fn(&mut serde_json::Value)>;
+    let cases: Vec<(&serde_json::Value, Change, &str)> = vec![
+        (
+            &beta,
+            Box::new(|v| v["columns"]["breed"]["levels"] = serde_json::json!([])),
+            "column 'breed': 'levels' is missing or not an object of level to posterior",
+        ),
+        (
+            &beta,
+            Box::new(|v| {
+                v["columns"]["clinic"]
+                    .as_object_mut()
+                    .unwrap()
+                    .remove("levels");
+            }),
+            "column 'clinic': 'levels' is missing",
+        ),
+        (
+            &beta,
+            Box::new(move |v| v["columns"]["breed"]["levels"]["breed_000"] = class_level.clone()),
+            "column 'breed': level 'breed_000' is a Dirichlet (classes",
+        ),
+        (
+            &classes,
+            Box::new(move |v| v["columns"]["breed"]["levels"]["breed_000"] = beta_level.clone()),
+            "level 'breed_000' is a Beta posterior, the prior a Dirichlet",
+        ),
+        (
+            &classes,
+            Box::new(move |v| v["columns"]["breed"]["levels"]["breed_000"] = fewer_classes.clone()),
+            "level 'breed_000' is a Dirichlet (classes",
+        ),
+        (
+            &beta,
+            Box::new(|v| v["columns"]["breed"]["key"]["columns"] = serde_json::json!([])),
+            "column 'breed': its key names no columns",
+        ),
+        (
+            &beta,
+            Box::new(|v| v["key_order"] = serde_json::json!(["breed", "vet"])),
+            "key_order names 'vet', which is not a column of the bundle",
+        ),
+        (
+            &beta,
+            Box::new(|v| v["readers"] = serde_json::json!(["mean", "median"])),
+            "reader 'median' is not one this build reads",
+        ),
+        (
+            &beta,
+            Box::new(|v| v["columns"]["clinic"]["readers"] = serde_json::json!(["q150"])),
+            "column 'clinic': reader 'q150' is not one this build reads",
+        ),
+    ];
+    for (original, change, said) in cases {
+        assert!(Bundle::from_json(&original.to_string()).is_ok());
+        let mut altered = original.clone();
+        change(&mut altered);
+        let e = Bundle::from_json(&altered.to_string())
+            .err()
+            .unwrap_or_else(|| panic!("accepted: {said}"))
+            .to_string();
+        assert!(e.contains(said), "{said}: {e}");
+    }
+}
+
 #[tokio::test]
 async fn scoring_with_the_bundle_equals_the_scored_file() {
     let dir = scratch!("serve");
