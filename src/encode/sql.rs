@@ -340,7 +340,7 @@ impl EncodePlan {
                         format!("COALESCE({source}.{q}, {})", self.prior_reader(i, &q, fallback))
                     }
                     OutputColumn::Indicator { rank } => {
-                        format!("CAST(COALESCE(top{i}.rank = {rank}, false) AS INT)")
+                        format!("CAST(COALESCE(top{i}.rank, 0) = {rank} AS INT)")
                     }
                     OutputColumn::Code => format!("COALESCE(code{i}.code, -1)"),
                     OutputColumn::Draw { class } => {
