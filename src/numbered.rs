@@ -22,7 +22,7 @@ use std::sync::Arc;
 
 use async_trait::async_trait;
 use datafusion::arrow::array::{ArrayRef, Int64Array, RecordBatch, RecordBatchOptions};
-use datafusion::arrow::compute::SortOptions;
+use datafusion::arrow::compute::{cast, SortOptions};
 use datafusion::arrow::datatypes::{DataType, Field, Schema, SchemaRef};
 use datafusion::catalog::Session;
 use datafusion::common::stats::Precision;
@@ -67,12 +67,7 @@ impl NumberedTable {
     /// `source` numbered from the first row number of each of its scan's parts
     /// (`starts`, with the total at the end) when scanned in `parts` parts.
     pub fn new(source: Arc<dyn TableProvider>, starts: Vec<i64>, parts: usize) -> Self {
-        let mut fields: Vec<Field> = source
-            .schema()
-            .fields()
-            .iter()
-            .map(|f| f.as_ref().clone())
-            .collect();
+        let mut fields: Vec<Field> = source.schema().fields().iter().map(|f| plain(f)).collect();
         fields.push(Field::new(ROW, DataType::Int64, false));
         NumberedTable {
             source,
@@ -271,7 +266,7 @@ impl NumberedScan {
         let fields: Vec<Field> = sources
             .iter()
             .map(|s| match s {
-                Some(i) => inner_schema.field(*i).clone(),
+                Some(i) => plain(inner_schema.field(*i)),
                 None => Field::new(ROW, DataType::Int64, false),
             })
             .collect();
@@ -433,11 +428,15 @@ impl NumberedScan {
             }
             let columns: Vec<ArrayRef> = sources
                 .iter()
-                .map(|s| match s {
-                    Some(i) => batch.column(*i).clone(),
-                    None => Arc::new(Int64Array::from_iter_values(next..next + n)) as ArrayRef,
+                .zip(schema.fields())
+                .map(|(s, field)| match s {
+                    Some(i) if batch.column(*i).data_type() != field.data_type() => {
+                        Ok(cast(batch.column(*i), field.data_type())?)
+                    }
+                    Some(i) => Ok(batch.column(*i).clone()),
+                    None => Ok(Arc::new(Int64Array::from_iter_values(next..next + n)) as ArrayRef),
                 })
-                .collect();
+                .collect::<Result<_>>()?;
             counter.store(next + n, Ordering::Relaxed);
             let options = RecordBatchOptions::new().with_row_count(Some(n as usize));
             Ok(RecordBatch::try_new_with_options(
@@ -452,6 +451,19 @@ impl NumberedScan {
         })
         .filter_map(futures::future::ready);
         Ok(numbered.chain(short).boxed())
+    }
+}
+
+/// `field` with string and binary views read as plain strings and bytes. A view
+/// array that a hash join gathers keeps every buffer of its input, and encode's
+/// chain of joins (one or two per key) multiplied them: 20 keys read as of their
+/// times on 200,000 rows of a Parquet file written with views held 23 GB
+/// (BENCHMARKS.md, "with many keys").
+fn plain(field: &Field) -> Field {
+    match field.data_type() {
+        DataType::Utf8View => field.clone().with_data_type(DataType::Utf8),
+        DataType::BinaryView => field.clone().with_data_type(DataType::Binary),
+        _ => field.clone(),
     }
 }
 
