@@ -20,8 +20,8 @@ use datafusion::arrow::error::ArrowError;
 /// from, which no text could recover); larger ones keep their float text.
 const INTEGER_RANGE: f64 = 9_223_372_036_854_775_808.0;
 
-/// Each value's key text (see the module documentation) as `text_type` (Utf8View,
-/// what SQL's `CAST(x AS VARCHAR)` gives, or Utf8 for the bundle's lookups); NULL
+/// Each value's key text (see the module documentation) as `text_type` (Utf8, what
+/// the SQL function `key_text` and the bundle's lookups give, or Utf8View); NULL
 /// stays NULL. Text already of that type is returned as it is.
 pub fn key_text(values: &ArrayRef, text_type: &DataType) -> Result<ArrayRef, ArrowError> {
     match values.data_type() {

@@ -419,7 +419,7 @@ impl ScalarUDFImpl for ScalarFunction {
             Op::Read(_) | Op::DecayWeight => DataType::Float64,
             Op::FoldOf => DataType::Int64,
             Op::NormalizeKey => DataType::Utf8,
-            Op::KeyText => DataType::Utf8View,
+            Op::KeyText => DataType::Utf8,
             Op::Combine(_) | Op::Without | Op::Scale | Op::WithPrior | Op::Under => {
                 self.posterior("p", &t[0])?.data_type()
             }
@@ -445,7 +445,7 @@ impl ScalarUDFImpl for ScalarFunction {
             Op::Under => self.under(&arrays, rows)?,
             Op::FoldOf => self.fold_of(&arrays, rows)?,
             Op::DecayWeight => self.decay_weight(&arrays, rows)?,
-            Op::KeyText => crate::key_text::key_text(&arrays[0], &DataType::Utf8View)?,
+            Op::KeyText => crate::key_text::key_text(&arrays[0], &DataType::Utf8)?,
             Op::NormalizeKey => {
                 let text = arrays[0].as_string::<i32>();
                 Arc::new(
