@@ -1112,6 +1112,7 @@ impl<K: FitKernel> AggregateUDFImpl for FitAggregate<K> {
     }
 
     fn accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {
+        crate::distinct::refuse(K::NAME, args.is_distinct)?;
         Ok(Box::new(FitAccumulator {
             groups: FitGroups::new(self.kernel_for(&args)?),
         }))
@@ -1129,6 +1130,7 @@ impl<K: FitKernel> AggregateUDFImpl for FitAggregate<K> {
         &self,
         args: AccumulatorArgs,
     ) -> Result<Box<dyn GroupsAccumulator>> {
+        crate::distinct::refuse(K::NAME, args.is_distinct)?;
         Ok(Box::new(FitGroups::new(self.kernel_for(&args)?)))
     }
 

@@ -58,6 +58,7 @@ impl AggregateUDFImpl for PosteriorPool {
     }
 
     fn accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {
+        crate::distinct::refuse(NAME, args.is_distinct)?;
         Ok(Box::new(PoolAccumulator(PoolGroups::new(
             args.return_type(),
         )?)))
@@ -86,6 +87,7 @@ impl AggregateUDFImpl for PosteriorPool {
         &self,
         args: AccumulatorArgs,
     ) -> Result<Box<dyn GroupsAccumulator>> {
+        crate::distinct::refuse(NAME, args.is_distinct)?;
         Ok(Box::new(PoolGroups::new(args.return_type())?))
     }
 

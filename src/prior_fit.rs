@@ -77,6 +77,7 @@ impl AggregateUDFImpl for FitPrior {
     }
 
     fn accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {
+        crate::distinct::refuse(self.function(), args.is_distinct)?;
         let kind = Kind::expect(self.function(), "p", args.expr_fields[0].data_type())?;
         Ok(Box::new(FitPriorAccumulator {
             function: self.function(),
@@ -332,6 +333,7 @@ impl AggregateUDFImpl for FitStrength {
     }
 
     fn accumulator(&self, args: AccumulatorArgs) -> Result<Box<dyn Accumulator>> {
+        crate::distinct::refuse(FIT_STRENGTH, args.is_distinct)?;
         let kind = Kind::expect(FIT_STRENGTH, "p", args.expr_fields[0].data_type())?;
         Ok(Box::new(FitStrengthAccumulator {
             kind,

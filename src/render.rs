@@ -66,6 +66,13 @@ pub fn describe(p: &crate::layout::AnyPosterior) -> String {
 
 /// DataFusion errors without the engine's internal prefixes or backtraces.
 pub fn engine_error(e: datafusion::error::DataFusionError) -> String {
+    use datafusion::error::DataFusionError;
+    // The engine prefixes a planning rule's error with the rule's name; posterity's
+    // own rules name the function and argument themselves.
+    let e = match e {
+        DataFusionError::Context(rule, inner) if rule.starts_with("posterity_") => *inner,
+        e => e,
+    };
     let text = e.to_string();
     let mut text = text
         .split("\n\nbacktrace")

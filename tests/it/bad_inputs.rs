@@ -136,7 +136,42 @@ fn cases() -> Vec<(String, Vec<&'static str>)> {
         ("SELECT beta_posterior(y, p) FROM (VALUES (1)) t(y), (SELECT beta_prior(1, 1) AS p)".into(), vec!["beta_posterior", "must be a constant", "posterior_with_prior"]),
         ("SELECT beta_posterior(1, gamma_prior(1, 1))".into(), vec!["beta_posterior", "argument prior", "Beta prior"]),
         ("SELECT beta_posterior(1, beta_prior(1, 1), 1, 1)".into(), vec!["beta_posterior", "takes 1 to 3 arguments"]),
+        // DISTINCT: without a GROUP BY the engine left it to the function, which ignored
+        // it; with one it counted each outcome value once. Both refused.
+        ("SELECT beta_posterior(DISTINCT y) FROM (VALUES (1), (1), (0)) t(y)".into(), vec!["beta_posterior: DISTINCT is not supported", "subquery"]),
+        ("SELECT k, beta_posterior(DISTINCT y) FROM (VALUES ('a', 1), ('a', 1)) t(k, y) GROUP BY k".into(), vec!["beta_posterior: DISTINCT is not supported"]),
+        ("SELECT nig_posterior(DISTINCT y) OVER (ORDER BY y) FROM (VALUES (1.0), (1.0)) t(y)".into(), vec!["nig_posterior: DISTINCT is not supported"]),
+        (format!("SELECT posterior_pool(DISTINCT p) FROM {p}"), vec!["posterior_pool: DISTINCT is not supported"]),
+        (format!("SELECT fit_prior(DISTINCT p) FROM {p}"), vec!["fit_prior: DISTINCT is not supported"]),
+        (format!("SELECT posterior_pool_before(DISTINCT p, 1) OVER (ORDER BY 1) FROM {p}"), vec!["posterior_pool_before: DISTINCT is not supported"]),
     ]
+}
+
+/// An engine given the aggregates without the planning rule (Python's) still
+/// refuses DISTINCT where the function sees it: beside another aggregate, or in a
+/// window. (A lone DISTINCT aggregate is rewritten by the engine into a grouping
+/// of the distinct values, which the function cannot tell from plain rows.)
+#[tokio::test]
+async fn distinct_is_refused_without_the_planning_rule() {
+    let ctx = SessionContext::new();
+    for f in posterity::foreign_aggregates() {
+        ctx.register_udaf(f);
+    }
+    for sql in [
+        "SELECT beta_posterior(DISTINCT y), beta_posterior(y) FROM (VALUES (1), (1), (0)) t(y)",
+        "SELECT k, beta_posterior(DISTINCT y), count(y) FROM (VALUES ('a', 1)) t(k, y) GROUP BY k",
+        "SELECT gamma_posterior(DISTINCT y) OVER (ORDER BY y) FROM (VALUES (1), (1)) t(y)",
+    ] {
+        let result = match ctx.sql(sql).await {
+            Ok(df) => df.collect().await.map(|_| ()),
+            Err(e) => Err(e),
+        };
+        let message = result.expect_err(sql).to_string();
+        assert!(
+            message.contains("DISTINCT is not supported"),
+            "{sql}: {message}"
+        );
+    }
 }
 
 #[tokio::test]
