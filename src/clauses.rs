@@ -9,6 +9,9 @@
 //! the whole table. [`check_sql`] finds such a clause before the statement is
 //! planned and names it; the shell and Python's `SessionContext.sql` run it.
 //!
+//! DISTINCT in a call of one of posterity's aggregates is refused here too
+//! ([`crate::distinct`]).
+//!
 //! The same goes for the `SELECT *` a query that starts with `FROM` implies: the
 //! planner reads `FROM t` alone as a query of no columns, which the shell could
 //! only report as "done", so it is refused with the query to write instead.
@@ -17,6 +20,8 @@ use std::ops::ControlFlow;
 
 use datafusion::common::{plan_err, Result};
 use datafusion::prelude::SessionContext;
+
+use crate::distinct::counts_every_row;
 use datafusion::sql::parser::{CopyToSource, Statement};
 use datafusion::sql::sqlparser::ast::{
     visit_expressions, DuplicateTreatment, Expr, Function, FunctionArgumentClause,
@@ -47,9 +52,18 @@ pub fn check_sql(ctx: &SessionContext, sql: &str) -> Result<()> {
 /// `scalar_only(name)` holds (names as the planner looks them up: unquoted names
 /// in lower case), described for the user; `None` when there is none.
 pub fn ignored_clause(statement: &Statement, scalar_only: impl Fn(&str) -> bool) -> Option<String> {
-    let found = |expr: &Expr| match expr {
-        Expr::Function(f) => match (function_name(f), clause_of(f)) {
-            (Some(name), Some(clause)) if scalar_only(&name) => {
+    let found = |expr: &Expr| {
+        let Expr::Function(f) = expr else {
+            return ControlFlow::Continue(());
+        };
+        let Some(name) = function_name(f) else {
+            return ControlFlow::Continue(());
+        };
+        if is_distinct(f) && counts_every_row(&name) {
+            return ControlFlow::Break(crate::distinct::refusal(&name));
+        }
+        match clause_of(f) {
+            Some(clause) if scalar_only(&name) => {
                 let example = match clause {
                     "OVER" => ", as in posterior_mean(beta_posterior(y, prior) OVER (...))",
                     "FILTER" => {
@@ -64,8 +78,7 @@ pub fn ignored_clause(statement: &Statement, scalar_only: impl Fn(&str) -> bool)
                 ))
             }
             _ => ControlFlow::Continue(()),
-        },
-        _ => ControlFlow::Continue(()),
+        }
     };
     let flow = match statement {
         Statement::Statement(s) => queries_then_calls(s.as_ref(), found),
@@ -132,6 +145,12 @@ pub(crate) fn function_name(f: &Function) -> Option<String> {
     })
 }
 
+/// Whether call `f` reads `DISTINCT` arguments.
+fn is_distinct(f: &Function) -> bool {
+    matches!(&f.args, FunctionArguments::List(list)
+        if list.duplicate_treatment == Some(DuplicateTreatment::Distinct))
+}
+
 /// The aggregate or window clause on call `f`, in the words of the SQL, if any.
 fn clause_of(f: &Function) -> Option<&'static str> {
     if f.over.is_some() {
@@ -146,12 +165,12 @@ fn clause_of(f: &Function) -> Option<&'static str> {
     if f.null_treatment == Some(NullTreatment::IgnoreNulls) {
         return Some("IGNORE NULLS");
     }
+    if is_distinct(f) {
+        return Some("DISTINCT");
+    }
     let FunctionArguments::List(list) = &f.args else {
         return None;
     };
-    if list.duplicate_treatment == Some(DuplicateTreatment::Distinct) {
-        return Some("DISTINCT");
-    }
     list.clauses.iter().find_map(|c| match c {
         FunctionArgumentClause::OrderBy(_) => Some("ORDER BY"),
         FunctionArgumentClause::IgnoreOrRespectNulls(NullTreatment::IgnoreNulls) => {

@@ -7,19 +7,47 @@
 //! window) is handed the flag — and an aggregate that ignored it silently gave the
 //! plain posterior. So every call is refused, in the planning
 //! rule ([`crate::prior_binding`]) before the engine rewrites a lone DISTINCT
-//! aggregate into a grouping of the distinct values, and by each accumulator for
-//! engines without that rule (Python, where the rewritten form still runs).
+//! aggregate into a grouping of the distinct values, by the SQL check that the
+//! shell and Python's `ctx.sql` run ([`crate::clauses`]), and by each accumulator
+//! for engines that run neither (Python's DataFrame API).
+
+use std::collections::HashSet;
+use std::sync::OnceLock;
 
 use datafusion::common::{plan_err, Result};
 
 /// Refuse a call of aggregate `name` whose arguments are DISTINCT.
 pub fn refuse(name: &str, distinct: bool) -> Result<()> {
-    if distinct {
-        return plan_err!(
-            "{name}: DISTINCT is not supported: {name} counts every row it is given, and \
-             DISTINCT would count repeated values once. To count each distinct row once, select \
-             the distinct rows in a subquery first"
-        );
+    match distinct {
+        true => plan_err!("{}", refusal(name)),
+        false => Ok(()),
     }
-    Ok(())
+}
+
+/// Why a DISTINCT call of `name` is refused, for the user.
+pub fn refusal(name: &str) -> String {
+    format!(
+        "{name}: DISTINCT is not supported: {name} counts every row it is given, and DISTINCT \
+         would count repeated values once. To count each distinct row once, select the \
+         distinct rows in a subquery first"
+    )
+}
+
+/// Whether `name` (as the planner looks it up) is one of posterity's aggregate or
+/// window functions, which refuse DISTINCT. The SQL check ([`crate::clauses`])
+/// uses it to refuse the call before an engine without the planning rule
+/// (Python's) rewrites a lone DISTINCT aggregate into plain rows.
+pub fn counts_every_row(name: &str) -> bool {
+    static NAMES: OnceLock<HashSet<String>> = OnceLock::new();
+    NAMES
+        .get_or_init(|| {
+            let aggregates = crate::aggregates()
+                .into_iter()
+                .map(|f| f.name().to_string());
+            let windows = crate::window_functions()
+                .into_iter()
+                .map(|f| f.name().to_string());
+            aggregates.chain(windows).collect()
+        })
+        .contains(name)
 }

@@ -1328,6 +1328,19 @@ async fn clauses_the_engine_would_drop_are_refused() {
         "{filtered:?}"
     );
     assert_eq!(floats(&ctx, on_the_fit[1]).await.len(), 40);
+    // DISTINCT on a fit itself is refused by the check too: through Python's engine a
+    // lone DISTINCT fit is rewritten into plain rows before the fit could refuse it.
+    let lone = "SELECT posterior_mean(beta_posterior(DISTINCT no_show)) FROM appts";
+    for e in [
+        posterity::clauses::check_sql(&ctx, lone),
+        posterity::clauses::check_sql_default(lone),
+    ] {
+        let e = e.unwrap_err().to_string();
+        assert!(
+            e.contains("beta_posterior: DISTINCT is not supported"),
+            "{e}"
+        );
+    }
     // The engine itself still drops the clause: when this fails, it refuses or honours
     // it, and the check may go.
     let dropped = one(
