@@ -9,7 +9,8 @@
 //! rule ([`crate::prior_binding`]) before the engine rewrites a lone DISTINCT
 //! aggregate into a grouping of the distinct values, by the SQL check that the
 //! shell and Python's `ctx.sql` run ([`crate::clauses`]), and by each accumulator
-//! for engines that run neither (Python's DataFrame API).
+//! for engines that run neither (Python's DataFrame API; an engine given the
+//! functions alone would still rewrite a lone DISTINCT call into plain rows).
 
 use std::collections::HashSet;
 use std::sync::OnceLock;
@@ -35,8 +36,8 @@ pub fn refusal(name: &str) -> String {
 
 /// Whether `name` (as the planner looks it up) is one of posterity's aggregate or
 /// window functions, which refuse DISTINCT. The SQL check ([`crate::clauses`])
-/// uses it to refuse the call before an engine without the planning rule
-/// (Python's) rewrites a lone DISTINCT aggregate into plain rows.
+/// uses it to refuse the call before an engine without the planning rule could
+/// rewrite a lone DISTINCT aggregate into plain rows.
 pub fn counts_every_row(name: &str) -> bool {
     static NAMES: OnceLock<HashSet<String>> = OnceLock::new();
     NAMES

@@ -717,6 +717,14 @@ def test_clauses_the_engine_would_drop_are_refused(ctx):
     with pytest.raises(posterity.Error, match="starts with FROM needs a SELECT"):
         ctx.sql("FROM a")
     assert len(ctx.sql("FROM a SELECT breed").to_pandas()) > 10
+    # DISTINCT on a fit: refused in SQL, and on a DataFrame call beside another
+    # aggregate (where the fit would have ignored it).
+    with pytest.raises(posterity.Error, match="beta_posterior: DISTINCT is not supported"):
+        ctx.sql("SELECT beta_posterior(DISTINCT no_show) FROM a")
+    fit = ctx.udaf("beta_posterior")
+    both = [fit(col("no_show")).distinct().build(), datafusion.functions.count(col("day"))]
+    with pytest.raises(Exception, match="beta_posterior: DISTINCT is not supported"):
+        ctx.table("a").aggregate([], both).collect()
     # Registering twice checks once; a context's other methods are untouched.
     posterity.register(ctx)
     assert ctx.sql("SELECT 1 AS one").to_pandas()["one"].tolist() == [1]

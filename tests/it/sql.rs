@@ -1328,8 +1328,9 @@ async fn clauses_the_engine_would_drop_are_refused() {
         "{filtered:?}"
     );
     assert_eq!(floats(&ctx, on_the_fit[1]).await.len(), 40);
-    // DISTINCT on a fit itself is refused by the check too: through Python's engine a
-    // lone DISTINCT fit is rewritten into plain rows before the fit could refuse it.
+    // DISTINCT on a fit itself is refused by the check too: an engine without the
+    // planning rule rewrites a lone DISTINCT fit into plain rows before the fit
+    // could refuse it.
     let lone = "SELECT posterior_mean(beta_posterior(DISTINCT no_show)) FROM appts";
     for e in [
         posterity::clauses::check_sql(&ctx, lone),
