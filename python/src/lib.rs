@@ -7,6 +7,9 @@
 //! Nothing here panics on user input: every failure becomes a `posterity.Error`
 //! with the library's message.
 
+#[global_allocator]
+static ALLOCATOR: mimalloc::MiMalloc = mimalloc::MiMalloc;
+
 use std::fmt::Display;
 use std::path::PathBuf;
 use std::sync::{Arc, OnceLock};
@@ -1023,6 +1026,8 @@ fn remove_temporaries() {
 
 #[pymodule]
 fn _posterity(m: &Bound<'_, PyModule>) -> PyResult<()> {
+    // As in the shell: mimalloc on huge pages faulted most of encode's time away.
+    posterity::shell::without_huge_pages();
     m.add("Error", m.py().get_type::<Error>())?;
     m.add_class::<ScalarFunction>()?;
     m.add_class::<AggregateFunction>()?;

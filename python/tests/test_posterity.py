@@ -810,3 +810,12 @@ def test_a_polars_column_of_only_nulls_is_read():
     assert scored["clinic_mean"].is_finite().all()
     with pytest.raises(posterity.Error, match="columns k: no training row has both"):
         posterity.encode(rows.lazy(), target="y", columns=["k"])
+
+
+@pytest.mark.skipif(not os.path.exists("/proc/self/status"), reason="Linux only")
+def test_importing_turns_transparent_huge_pages_off():
+    """With huge pages the extension's allocator spent most of an as-of encode in the
+    kernel zeroing pages (BENCHMARKS.md, "Transparent huge pages off"); the import turns
+    them off for the process (prctl PR_GET_THP_DISABLE is 42)."""
+    import ctypes
+    assert ctypes.CDLL(None).prctl(42, 0, 0, 0, 0) == 1

@@ -105,26 +105,10 @@ pub type Connect =
 /// The binary built with the cluster client, next to this one.
 const CLUSTER_SHELL: &str = "posterity-cluster";
 
-/// Transparent huge pages off for this process. The binaries allocate with
-/// mimalloc, which hands freed memory back to the system in pieces; where the
-/// system backs memory with huge pages (`always`, as on this project's machines),
-/// every piece touched again faulted in and zeroed a whole 2 MiB page, and as-of
-/// encodings spent most of their time in the kernel (4 keys on 2 M rows: 19.5 s,
-/// 18 s of it system time; 7.2 s without huge pages; BENCHMARKS.md). mimalloc
-/// does the same when its `allow_thp` option is off, which it reads before `main`.
-fn without_huge_pages() {
-    #[cfg(target_os = "linux")]
-    // SAFETY: prctl with PR_SET_THP_DISABLE only sets a flag of this process; an
-    // error (an old kernel) leaves the default, which is still correct.
-    unsafe {
-        libc::prctl(libc::PR_SET_THP_DISABLE, 1, 0, 0, 0);
-    }
-}
-
 /// The whole command line: parse, run, report. `connect` makes cluster sessions
 /// (`None` in the plain shell, which hands `--cluster` to `posterity-cluster`).
 pub fn main(connect: Option<Connect>) -> ExitCode {
-    without_huge_pages();
+    super::without_huge_pages();
     let args = Args::parse();
     if args.cluster.is_some() && connect.is_none() {
         return hand_to_cluster_shell();

@@ -116,6 +116,24 @@ pub fn parse_size(s: &str) -> Result<usize, String> {
         })
 }
 
+/// Transparent huge pages off for this process; the shell and the Python
+/// extension call it first. Both allocate with mimalloc, which hands freed memory
+/// back to the system in pieces; where the system backs memory with huge pages
+/// (`always`, as on this project's machines), every piece touched again faulted in
+/// and zeroed a whole 2 MiB page, and as-of encodings spent most of their time in
+/// the kernel (4 keys on 2 M rows: 19.5 s, 18 s of it system time; 6 s without
+/// huge pages; BENCHMARKS.md). It is what mimalloc does itself when its
+/// `allow_thp` option is off, which it reads before any code of ours runs. Huge
+/// pages are a speed hint only: nothing else changes.
+pub fn without_huge_pages() {
+    #[cfg(target_os = "linux")]
+    // SAFETY: prctl with PR_SET_THP_DISABLE only sets a flag of this process; an
+    // error (an old kernel) leaves the default, which is still correct.
+    unsafe {
+        libc::prctl(libc::PR_SET_THP_DISABLE, 1, 0, 0, 0);
+    }
+}
+
 /// A session with posterity registered, the memory limit and thread count applied.
 pub fn session(
     memory_limit: Option<usize>,
