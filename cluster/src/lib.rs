@@ -276,10 +276,12 @@ pub async fn connect(url: &str) -> Result<SessionContext> {
 /// deep plan (a join per key and per indicator table, dozens of columns); planning,
 /// encoding and decoding it recurse further than tokio's 2 MiB worker stacks allow
 /// in a debug build (the scheduler aborted with a stack overflow), so workers get
-/// 64 MiB (address space, touched only as deep as a plan goes).
+/// 64 MiB (address space, touched only as deep as a plan goes). Huge pages are off,
+/// as in the shell (the processes allocate with mimalloc too).
 pub fn run_process(
     serve: impl std::future::Future<Output = std::process::ExitCode>,
 ) -> std::process::ExitCode {
+    posterity::shell::without_huge_pages();
     let runtime = tokio::runtime::Builder::new_multi_thread()
         .thread_stack_size(64 << 20)
         .enable_all()

@@ -1,6 +1,11 @@
 //! `posterity-executor`: a Ballista executor whose function registry holds every
 //! posterity function and whose plan codec carries the fits' bound priors.
 
+// The shell's allocator: the engine allocates and frees large Arrow buffers all
+// the time (see `posterity::shell::without_huge_pages`).
+#[global_allocator]
+static ALLOCATOR: mimalloc::MiMalloc = mimalloc::MiMalloc;
+
 use std::process::ExitCode;
 use std::sync::Arc;
 

@@ -1,6 +1,11 @@
 //! `posterity-scheduler`: a Ballista scheduler that plans with every posterity
 //! function, the prior-binding rule and posterity's join rule.
 
+// The shell's allocator: the engine allocates and frees large Arrow buffers all
+// the time (see `posterity::shell::without_huge_pages`).
+#[global_allocator]
+static ALLOCATOR: mimalloc::MiMalloc = mimalloc::MiMalloc;
+
 use std::net::SocketAddr;
 use std::process::ExitCode;
 use std::sync::Arc;
