@@ -20,13 +20,13 @@ use std::ops::ControlFlow;
 
 use datafusion::common::{plan_err, Result};
 use datafusion::prelude::SessionContext;
-
-use crate::distinct::counts_every_row;
 use datafusion::sql::parser::{CopyToSource, Statement};
 use datafusion::sql::sqlparser::ast::{
     visit_expressions, DuplicateTreatment, Expr, Function, FunctionArgumentClause,
     FunctionArguments, NullTreatment, Query, SelectFlavor, SetExpr, Visit, Visitor,
 };
+
+use crate::distinct::counts_every_row;
 
 /// Refuse `sql` when it puts an aggregate or window clause on a function `ctx`
 /// knows only as a scalar function. A statement that does not parse is left to

@@ -5,12 +5,12 @@
 //! engine also gives DISTINCT two meanings by the query's shape: a lone DISTINCT
 //! aggregate sees the distinct values, one beside other aggregates (or in a
 //! window) is handed the flag — and an aggregate that ignored it silently gave the
-//! plain posterior. So every call is refused, in the planning
-//! rule ([`crate::prior_binding`]) before the engine rewrites a lone DISTINCT
-//! aggregate into a grouping of the distinct values, by the SQL check that the
-//! shell and Python's `ctx.sql` run ([`crate::clauses`]), and by each accumulator
-//! for engines that run neither (Python's DataFrame API; an engine given the
-//! functions alone would still rewrite a lone DISTINCT call into plain rows).
+//! plain posterior. So every call is refused: in the planning rule
+//! ([`crate::prior_binding`]), before the engine rewrites a lone DISTINCT
+//! aggregate into a grouping of the distinct values; by the SQL check that the
+//! shell and Python's `ctx.sql` run ([`crate::clauses`]); and by each accumulator,
+//! for engines that run neither (Python's DataFrame API, where a lone DISTINCT
+//! call is still rewritten into plain rows first).
 
 use std::collections::HashSet;
 use std::sync::OnceLock;

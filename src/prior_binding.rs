@@ -12,8 +12,9 @@
 //! A prior that does not fold to a constant is left alone: the fit then refuses
 //! it when it runs ("the prior must be a constant").
 //!
-//! The same walk refuses DISTINCT in any posterity aggregate's call, before the
-//! engine rewrites a grouped DISTINCT away ([`crate::distinct`]).
+//! The same walk refuses DISTINCT in a call of any posterity aggregate or window
+//! function, before the engine rewrites a lone DISTINCT call away
+//! ([`crate::distinct`]).
 
 use std::sync::Arc;
 
@@ -27,12 +28,10 @@ use datafusion::optimizer::analyzer::AnalyzerRule;
 use datafusion::optimizer::simplify_expressions::ExprSimplifier;
 use datafusion::prelude::SessionContext;
 
+use crate::distinct::counts_every_row;
 use crate::fit::{
     BetaCounts, BetaOutcomes, BindPrior, DirichletClasses, FitAggregate, GammaCounts, NigValues,
 };
-use crate::pool::PosteriorPool;
-use crate::pool_window::PosteriorPoolBefore;
-use crate::prior_fit::{FitPrior, FitStrength};
 
 /// The analyzer rule; [`crate::register`] installs it.
 #[derive(Debug, Default)]
@@ -140,19 +139,10 @@ fn drop_prior(f: &AggregateUDF, args: &mut [Expr]) {
     }
 }
 
-/// Whether `f` is one of posterity's aggregates (see [`crate::distinct`]).
-fn is_posterity(f: &AggregateUDF) -> bool {
-    let inner = f.inner().as_ref();
-    as_fit(f).is_some()
-        || inner.downcast_ref::<PosteriorPool>().is_some()
-        || inner.downcast_ref::<FitPrior>().is_some()
-        || inner.downcast_ref::<FitStrength>().is_some()
-}
-
 fn bind_expr(e: Expr, config: &Arc<ConfigOptions>) -> Result<Transformed<Expr>> {
     match e {
         Expr::AggregateFunction(AggregateFunction { func, mut params }) => {
-            if is_posterity(&func) {
+            if counts_every_row(func.name()) {
                 crate::distinct::refuse(func.name(), params.distinct)?;
             }
             match bound(&func, &params.args, config)? {
@@ -169,15 +159,10 @@ fn bind_expr(e: Expr, config: &Arc<ConfigOptions>) -> Result<Transformed<Expr>> 
         }
         Expr::WindowFunction(mut w) => {
             let WindowFunction { fun, params } = w.as_mut();
-            if let WindowFunctionDefinition::WindowUDF(f) = fun {
-                if f.inner().downcast_ref::<PosteriorPoolBefore>().is_some() {
-                    crate::distinct::refuse(f.name(), params.distinct)?;
-                }
+            if counts_every_row(fun.name()) {
+                crate::distinct::refuse(fun.name(), params.distinct)?;
             }
             if let WindowFunctionDefinition::AggregateUDF(f) = fun {
-                if is_posterity(f) {
-                    crate::distinct::refuse(f.name(), params.distinct)?;
-                }
                 if let Some(b) = bound(f, &params.args, config)? {
                     drop_prior(&b, &mut params.args);
                     *fun = WindowFunctionDefinition::AggregateUDF(b);
