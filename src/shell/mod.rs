@@ -116,8 +116,8 @@ pub fn parse_size(s: &str) -> Result<usize, String> {
         })
 }
 
-/// Transparent huge pages off for this process; the shell and the Python
-/// extension call it first. Both allocate with mimalloc, which hands freed memory
+/// Transparent huge pages off for this process; the shell, the cluster's
+/// processes and the Python extension call it first. All allocate with mimalloc, which hands freed memory
 /// back to the system in pieces; where the system backs memory with huge pages
 /// (`always`, as on this project's machines), every piece touched again faulted in
 /// and zeroed a whole 2 MiB page, and as-of encodings spent most of their time in
