@@ -4,6 +4,7 @@
 use datafusion::arrow::array::{Array, AsArray};
 use datafusion::arrow::compute::cast;
 use datafusion::arrow::datatypes::{DataType, Float64Type, Int64Type};
+use datafusion::arrow::util::display::array_value_to_string;
 use datafusion::prelude::SessionContext;
 
 use super::checks::{
@@ -447,7 +448,9 @@ async fn base_prior_of(
 }
 
 /// As-of encodings order rows by time and recency weights age them: a NaN or
-/// infinite time has no place in either.
+/// infinite time has no place in either, and text is ordered as written, which is
+/// the order of time only for ISO dates and times (text orders "10/1/2024" before
+/// "9/1/2024"); other types have no order of time at all.
 async fn check_time_values(
     ctx: &SessionContext,
     options: &EncodeOptions,
@@ -455,6 +458,17 @@ async fn check_time_values(
 ) -> Result<()> {
     let from = quote(&options.train);
     if let Some(time) = &options.time_column {
+        match train.iter().find(|(n, _)| n == time) {
+            Some((_, d)) if is_text(d) => check_text_times(ctx, &from, time).await?,
+            Some((_, d)) if TimeUnits::of(d).is_none() => {
+                return usage(format!(
+                    "--time-column '{time}' is {}; allowed: numbers (days, hours, ...), dates, \
+                     timestamps or text of ISO dates and times (2024-01-31, 2024-01-31T08:30:00)",
+                    time_type_words(d)
+                ));
+            }
+            _ => {}
+        }
         if train.iter().any(|(n, d)| n == time && d.is_floating()) {
             let t = quote(time);
             let b = one_row(
@@ -475,6 +489,62 @@ async fn check_time_values(
         }
     }
     Ok(())
+}
+
+fn is_text(d: &DataType) -> bool {
+    match d {
+        DataType::Dictionary(_, v) => v.is_string(),
+        d => d.is_string(),
+    }
+}
+
+/// A text time column must hold ISO dates and times whose order as text is their
+/// order in time (one offset from UTC, or none).
+async fn check_text_times(ctx: &SessionContext, from: &str, time: &str) -> Result<()> {
+    let t = quote(time);
+    let b = one_row(
+        ctx,
+        &format!(
+            "SELECT COUNT(*) FILTER (WHERE at IS NULL), MIN(v) FILTER (WHERE at IS NULL), \
+               COUNT(*) FILTER (WHERE at < before), MIN(v) FILTER (WHERE at < before) \
+             FROM (SELECT v, at, LAG(at) OVER (ORDER BY v) AS before FROM \
+               (SELECT DISTINCT CAST({t} AS VARCHAR) AS v, TRY_CAST({t} AS TIMESTAMP) AS at \
+                FROM {from} WHERE {t} IS NOT NULL))"
+        ),
+    )
+    .await?;
+    let count = |c: usize| b.column(c).as_primitive::<Int64Type>().value(0);
+    let example = |c: usize| array_value_to_string(b.column(c), 0).unwrap_or_default();
+    if count(0) > 0 {
+        return usage(format!(
+            "--time-column '{time}' is text, and {} distinct values of it are not ISO dates or times \
+             (for example '{}'); allowed: numbers (days, hours, ...), dates, timestamps or text \
+             of ISO dates and times (2024-01-31, 2024-01-31T08:30:00): convert the column first",
+            count(0),
+            example(1)
+        ));
+    }
+    if count(2) > 0 {
+        return usage(format!(
+            "--time-column '{time}' is text whose order as written is not its order in time \
+             (for example '{}', written with another offset from UTC); convert the column to \
+             timestamps first",
+            example(3)
+        ));
+    }
+    Ok(())
+}
+
+/// A time column's type as its user knows it.
+fn time_type_words(d: &DataType) -> String {
+    match d {
+        DataType::Boolean => "true/false".to_string(),
+        DataType::List(_) | DataType::LargeList(_) | DataType::FixedSizeList(..) => {
+            "a list".to_string()
+        }
+        DataType::Binary | DataType::LargeBinary | DataType::BinaryView => "bytes".to_string(),
+        other => crate::layout::describe_type(other),
+    }
 }
 
 /// The time column's units and, when half-lives or horizons count them, the

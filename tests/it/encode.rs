@@ -2054,9 +2054,10 @@ async fn as_of_horizon_reads_only_rows_that_old() {
             &["--horizon", "matched", "--score", no_time.to_str().unwrap()],
             "--horizon matched needs the --time-column 'day' in the scoring table, of numbers as in the training table",
         ),
+        // Text is ordered as written, the order of time only for ISO dates and times.
         (
-            &["--horizon", "30", "--time-column", "channel"],
-            "--horizon needs a --time-column of numbers (days, hours, ...), dates or timestamps (counted in days); 'channel' is neither",
+            &["--time-column", "channel"],
+            "--time-column 'channel' is text, and 5 distinct values of it are not ISO dates or times (for example 'app')",
         ),
     ] {
         let mut args = vec![
@@ -2104,7 +2105,9 @@ async fn dates_and_timestamps_count_time_in_days() {
     for (file, rows) in [(&train, "day < 300"), (&later, "day >= 300")] {
         let select = format!(
             "SELECT *, CAST(booked_on AS TIMESTAMP) + INTERVAL '6 hours' AS booked_at, \
-             CAST(booked_on AS VARCHAR) AS booked_text FROM a WHERE {rows}"
+             CAST(booked_on AS VARCHAR) AS booked_text, no_show = 1 AS late, \
+             CAST(booked_on AS VARCHAR) || CASE WHEN appointment_id % 2 = 0 THEN 'T08:00:00+02:00' \
+               ELSE 'T07:00:00Z' END AS booked_offset FROM a WHERE {rows}"
         );
         sample_to_parquet(&select, file).await;
     }
@@ -2171,19 +2174,34 @@ async fn dates_and_timestamps_count_time_in_days() {
         }
     }
     let bad = dir.join("bad");
-    let (bad, time) = (bad.to_str().unwrap(), "channel");
-    let refused = [
-        &breed[..],
-        &["--time-column", time, "--horizon", "7", "--out", bad],
-    ];
-    let stderr = encode_refusal(&refused.concat());
-    assert!(
-        stderr.contains(
+    let bad = bad.to_str().unwrap();
+    // ISO text is ordered as written, which as-of encodings can use, but it counts
+    // no days for a horizon; text written with differing offsets from UTC is not in
+    // time order as written, and a true/false column has no order of time.
+    for (time, extra, expected) in [
+        (
+            "booked_text",
+            &["--horizon", "7"][..],
             "--horizon needs a --time-column of numbers (days, hours, ...), dates or timestamps \
-             (counted in days); 'channel' is neither"
+             (counted in days); 'booked_text' is neither",
         ),
-        "{stderr}"
-    );
+        (
+            "booked_offset",
+            &[],
+            "--time-column 'booked_offset' is text whose order as written is not its order in \
+             time (for example '2025-01-01T08:00:00+02:00', written with another offset from UTC)",
+        ),
+        (
+            "late",
+            &[],
+            "--time-column 'late' is true/false; allowed: numbers (days, hours, ...), dates, \
+             timestamps or text of ISO dates and times",
+        ),
+    ] {
+        let refused = [&breed[..], &["--time-column", time, "--out", bad], extra];
+        let stderr = encode_refusal(&refused.concat());
+        assert!(stderr.contains(expected), "{time}: {stderr}");
+    }
     // An as-of half-life too short for the period is refused in days too.
     let short = [
         &breed[..],
