@@ -477,6 +477,15 @@ def test_pandas_dates_and_categories():
     assert len(want) == len(got) == len(frame)
     assert (want - got).abs().max() < 1e-12
     assert by_date.summary[0]["horizon"] == 7
+    # read_csv leaves ISO dates as text: they count days as the dates they spell, and
+    # durations apply; text that is no ISO date is refused with an example.
+    assert pd.api.types.is_string_dtype(frame["booked_on"])
+    by_text = posterity.encode(frame, target="no_show", columns=["breed"], time_column="booked_on",
+                               half_life=pd.Timedelta(days=30), horizon=7)
+    assert (by_text.train_encoded["breed_mean"] - want).abs().max() < 1e-12
+    us_dates = frame.assign(booked_on=pd.to_datetime(frame["booked_on"]).dt.strftime("%m/%d/%Y"))
+    with pytest.raises(posterity.Error, match="not ISO dates or times .for example '01/01/2025'"):
+        posterity.encode(us_dates, target="no_show", columns=["breed"], time_column="booked_on")
     scored = by_date.bundle.score(typed.head(50))
     assert scored["breed_mean"].tolist() == by_day.bundle.score(frame.head(50))["breed_mean"].tolist()
     # A category target is read by its values: text classes, or 0/1.

@@ -137,8 +137,9 @@ pub struct EncodePlan {
 }
 
 /// What one unit of `--time-column` is: a number's own unit (days, hours, seasons),
-/// or for a date or timestamp a day, so `--horizon 30` reads rows at least thirty
-/// days older whatever the column's type. Timestamps count from 1970-01-01 UTC.
+/// or for a date, a timestamp or text of ISO dates and times a day, so `--horizon 30`
+/// reads rows at least thirty days older whatever the column's type. Timestamps
+/// count from 1970-01-01 UTC.
 #[derive(Debug, Clone, Copy, PartialEq, Default)]
 pub enum TimeUnits {
     #[default]
@@ -146,8 +147,19 @@ pub enum TimeUnits {
     Days,
 }
 
+/// Text, plain or dictionary-encoded.
+pub(super) fn is_text(d: &DataType) -> bool {
+    match d {
+        DataType::Dictionary(_, v) => v.is_string(),
+        d => d.is_string(),
+    }
+}
+
 impl TimeUnits {
-    /// The units of a column of type `d`; `None` for a type that is no time.
+    /// The units of a column of type `d`; `None` for a type that is no time. Text
+    /// counts days as the timestamps it spells (the engine reads ISO text as
+    /// timestamps); encode checks before it runs that every value is one and that
+    /// their order as written is their order in time.
     pub fn of(d: &DataType) -> Option<TimeUnits> {
         match d {
             d if d.is_numeric() => Some(TimeUnits::Numbers),
@@ -155,6 +167,7 @@ impl TimeUnits {
             DataType::Date32 | DataType::Date64 | DataType::Timestamp(_, _) => {
                 Some(TimeUnits::Days)
             }
+            d if is_text(d) => Some(TimeUnits::Days),
             _ => None,
         }
     }

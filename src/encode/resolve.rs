@@ -16,7 +16,7 @@ use super::choose::{choose_readers, choose_reading, choose_treatments};
 use super::options::{
     EncodeOptions, HalfLife, Horizon, Method, PriorChoice, ScoreEvidence, TimeTies, Treatment,
 };
-use super::plan::{EncodePlan, KeyPlan, TimeUnits};
+use super::plan::{is_text, EncodePlan, KeyPlan, TimeUnits};
 use super::{quote, sanitize, text, usage, EncodeError, Result};
 use crate::layout::Kind;
 
@@ -186,7 +186,7 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
     let family = family_of(ctx, options, &train).await?;
     let classes = classes_of(ctx, options, family).await?;
     let base_prior = base_prior_of(ctx, options, family, &classes).await?;
-    check_time_values(ctx, options, &train).await?;
+    check_time_values(ctx, options, method, &train).await?;
     let (time_units, time_range) = times_of(ctx, options, method, &train).await?;
     let (oldest_time, newest_time) = time_range.unzip();
     let score_scale = match (method, options.score_evidence) {
@@ -450,16 +450,20 @@ async fn base_prior_of(
 /// As-of encodings order rows by time and recency weights age them: a NaN or
 /// infinite time has no place in either, and text is ordered as written, which is
 /// the order of time only for ISO dates and times (text orders "10/1/2024" before
-/// "9/1/2024"); other types have no order of time at all.
+/// "9/1/2024"); other types have no order of time at all. A scoring table's text
+/// times are read as times too where the scored rows' times count (as-of encodings).
 async fn check_time_values(
     ctx: &SessionContext,
     options: &EncodeOptions,
+    method: Method,
     train: &[(String, DataType)],
 ) -> Result<()> {
     let from = quote(&options.train);
     if let Some(time) = &options.time_column {
         match train.iter().find(|(n, _)| n == time) {
-            Some((_, d)) if is_text(d) => check_text_times(ctx, &from, time).await?,
+            Some((_, d)) if is_text(d) => {
+                check_text_times(ctx, "training table", &from, time).await?
+            }
             Some((_, d)) if TimeUnits::of(d).is_none() => {
                 return usage(format!(
                     "--time-column '{time}' is {}; allowed: numbers (days, hours, ...), dates, \
@@ -468,6 +472,12 @@ async fn check_time_values(
                 ));
             }
             _ => {}
+        }
+        if let (Method::Time, Some(score)) = (method, &options.score) {
+            let columns = columns_of(ctx, score).await?;
+            if columns.iter().any(|(n, d)| n == time && is_text(d)) {
+                check_text_times(ctx, "scoring table", &quote(score), time).await?;
+            }
         }
         if train.iter().any(|(n, d)| n == time && d.is_floating()) {
             let t = quote(time);
@@ -491,22 +501,15 @@ async fn check_time_values(
     Ok(())
 }
 
-fn is_text(d: &DataType) -> bool {
-    match d {
-        DataType::Dictionary(_, v) => v.is_string(),
-        d => d.is_string(),
-    }
-}
-
 /// A text time column must hold ISO dates and times whose order as text is their
 /// order in time (one offset from UTC, or none).
-async fn check_text_times(ctx: &SessionContext, from: &str, time: &str) -> Result<()> {
+async fn check_text_times(ctx: &SessionContext, what: &str, from: &str, time: &str) -> Result<()> {
     let t = quote(time);
     let b = one_row(
         ctx,
         &format!(
             "SELECT COUNT(*) FILTER (WHERE at IS NULL), MIN(v) FILTER (WHERE at IS NULL), \
-               COUNT(*) FILTER (WHERE at < before), MIN(v) FILTER (WHERE at < before) \
+               COUNT(*) FILTER (WHERE at <= before), MIN(v) FILTER (WHERE at <= before) \
              FROM (SELECT v, at, LAG(at) OVER (ORDER BY v) AS before FROM \
                (SELECT DISTINCT CAST({t} AS VARCHAR) AS v, TRY_CAST({t} AS TIMESTAMP) AS at \
                 FROM {from} WHERE {t} IS NOT NULL))"
@@ -517,18 +520,22 @@ async fn check_text_times(ctx: &SessionContext, from: &str, time: &str) -> Resul
     let example = |c: usize| array_value_to_string(b.column(c), 0).unwrap_or_default();
     if count(0) > 0 {
         return usage(format!(
-            "--time-column '{time}' is text, and {} distinct values of it are not ISO dates or times \
+            "--time-column '{time}' of the {what} is text, and {} \
              (for example '{}'); allowed: numbers (days, hours, ...), dates, timestamps or text \
              of ISO dates and times (2024-01-31, 2024-01-31T08:30:00): convert the column first",
-            count(0),
+            match count(0) {
+                1 => "one value of it is not an ISO date or time".to_string(),
+                n => format!("{n} distinct values of it are not ISO dates or times"),
+            },
             example(1)
         ));
     }
     if count(2) > 0 {
         return usage(format!(
-            "--time-column '{time}' is text whose order as written is not its order in time \
-             (for example '{}', written with another offset from UTC); convert the column to \
-             timestamps first",
+            "--time-column '{time}' of the {what} is text whose order as written is not its \
+             order in time: '{}' is no later than a value before it as text (another offset \
+             from UTC, or another spelling of one time); convert the column to timestamps \
+             first",
             example(3)
         ));
     }

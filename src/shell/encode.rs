@@ -88,7 +88,7 @@ pub struct EncodeArgs {
     #[arg(long, default_value_t = 5)]
     pub folds: u32,
     /// Column giving the time order for --method time (the default with it) and the ages
-    /// for --half-life.
+    /// for --half-life: numbers, dates, timestamps or ISO date text (2024-01-31).
     #[arg(long)]
     pub time_column: Option<String>,
     /// Recency weighting: a row this many time units older than the row encoded (with

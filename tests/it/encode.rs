@@ -2057,7 +2057,7 @@ async fn as_of_horizon_reads_only_rows_that_old() {
         // Text is ordered as written, the order of time only for ISO dates and times.
         (
             &["--time-column", "channel"],
-            "--time-column 'channel' is text, and 5 distinct values of it are not ISO dates or times (for example 'app')",
+            "--time-column 'channel' of the training table is text, and 5 distinct values of it are not ISO dates or times (for example 'app')",
         ),
     ] {
         let mut args = vec![
@@ -2129,12 +2129,10 @@ async fn dates_and_timestamps_count_time_in_days() {
         "--columns",
         "breed",
     ];
-    let days = ["day", "booked_on", "booked_at"];
+    // ISO text counts days as the dates it spells.
+    let days = ["day", "booked_on", "booked_at", "booked_text"];
     let options: [(&[&str], &[&str]); 4] = [
-        (
-            &["--method", "time"],
-            &["day", "booked_on", "booked_at", "booked_text"],
-        ),
+        (&["--method", "time"], &days),
         (&["--half-life", "30", "--method", "kfold"], &days),
         (&["--half-life", "30", "--horizon", "7"], &days),
         (&["--horizon", "matched", "--score", later], &days),
@@ -2175,21 +2173,24 @@ async fn dates_and_timestamps_count_time_in_days() {
     }
     let bad = dir.join("bad");
     let bad = bad.to_str().unwrap();
-    // ISO text is ordered as written, which as-of encodings can use, but it counts
-    // no days for a horizon; text written with differing offsets from UTC is not in
-    // time order as written, and a true/false column has no order of time.
+    // Text written with differing offsets from UTC is not in time order as written,
+    // and a true/false column has no order of time; scored rows' text times are
+    // checked as the training rows' are.
+    let us_dates = dir.join("us_dates.csv");
+    std::fs::write(&us_dates, "breed,booked_text\nbreed_001,1/5/2026\n").unwrap();
     for (time, extra, expected) in [
         (
             "booked_text",
-            &["--horizon", "7"][..],
-            "--horizon needs a --time-column of numbers (days, hours, ...), dates or timestamps \
-             (counted in days); 'booked_text' is neither",
+            &["--score", us_dates.to_str().unwrap()][..],
+            "--time-column 'booked_text' of the scoring table is text, and one value of it is \
+             not an ISO date or time (for example '1/5/2026')",
         ),
         (
             "booked_offset",
-            &[],
-            "--time-column 'booked_offset' is text whose order as written is not its order in \
-             time (for example '2025-01-01T08:00:00+02:00', written with another offset from UTC)",
+            &[][..],
+            "--time-column 'booked_offset' of the training table is text whose order as \
+             written is not its order in time: '2025-01-01T08:00:00+02:00' is no later than a \
+             value before it as text",
         ),
         (
             "late",

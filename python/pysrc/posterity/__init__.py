@@ -343,8 +343,8 @@ def encode(train, target: str, columns: list[str], score=None, out=None, replace
     LazyFrame. The options are the shell's ``encode`` flags with
     underscores: ``interactions=[["breed", "clinic"]]``, ``family``, ``prior`` ("fitted",
     "jeffreys", "uniform" or numbers), ``method`` ("kfold" or "time"; "time" by default when ``time_column`` is given), ``folds``, ``seed``,
-    ``time_column`` (numbers, or dates and datetimes, whose half-lives and horizons count
-    days), ``half_life`` (time units, a Timedelta for a time column of dates or datetimes, or
+    ``time_column`` (numbers, or dates, datetimes or ISO date text, whose half-lives and
+    horizons count days), ``half_life`` (time units, a Timedelta for a time column of dates or datetimes, or
     "fitted": chosen per key), ``horizon`` (time units, a Timedelta, "matched": from
     ``score``'s times, or "none"), ``normalize_keys``, ``time_ties``, ``exposure``,
     ``readers=["mean", "sd"]`` (default ``["mean"]``, plus ``"sd"`` for a continuous key whose
