@@ -384,6 +384,12 @@ pub fn read_from_copy(path: &str) -> Option<&'static str> {
     (source.kind == Some(FileKind::Json) && is_json_array(path)).then_some("a JSON array")
 }
 
+/// Whether `path` names text files (CSV, TSV, NDJSON or a JSON array, also
+/// gzip-compressed), which every scan parses in full.
+pub(crate) fn is_text_source(path: &str) -> bool {
+    Source::of(path).is_ok_and(|s| s.kind.is_some_and(|k| k != FileKind::Parquet))
+}
+
 /// Whether the file at `path` starts with '[' (a JSON array, not NDJSON).
 fn is_json_array(path: &str) -> bool {
     use std::io::Read as _;
@@ -528,7 +534,7 @@ fn decompress(mut reader: impl std::io::Read, to: &Path) -> Result<(), Side> {
 /// decompressed gzip file), named after `original` so that messages stay readable.
 /// Each call gets its own name: two files with one name in different directories
 /// must not share a copy. Kept until `remove_temporaries` or the system's temp cleaning.
-fn temporary_path(original: &str, extension: &str) -> Result<PathBuf, String> {
+pub(crate) fn temporary_path(original: &str, extension: &str) -> Result<PathBuf, String> {
     use std::sync::atomic::{AtomicU64, Ordering};
     static NEXT: AtomicU64 = AtomicU64::new(0);
     let dir = temporary_dir();

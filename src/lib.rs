@@ -27,6 +27,7 @@
 
 pub mod bundle;
 pub mod clauses;
+pub mod columnar_copy;
 pub mod distinct;
 pub mod docs;
 pub mod encode;

@@ -18,6 +18,7 @@ use datafusion_ffi::udaf::FFI_AggregateUDF;
 use datafusion_ffi::udf::FFI_ScalarUDF;
 use datafusion_ffi::udwf::FFI_WindowUDF;
 use posterity::bundle::Bundle as RustBundle;
+use posterity::columnar_copy::{replace_text_table, ColumnarCopy};
 use posterity::datafusion::arrow::array::{RecordBatch, RecordBatchIterator};
 use posterity::datafusion::arrow::compute::cast;
 use posterity::datafusion::arrow::datatypes::{DataType, SchemaRef};
@@ -378,6 +379,14 @@ impl Input {
         Ok(Input::Batches(schema, batches))
     }
 
+    /// The path of an input given as a file.
+    fn path(&self) -> Option<String> {
+        match self {
+            Input::Path(path) => Some(path.clone()),
+            Input::Batches(..) => None,
+        }
+    }
+
     /// Register the input as table `name`; a CSV file is read with `csv`, its key
     /// columns as text.
     async fn register(
@@ -414,6 +423,9 @@ struct EncodeResult {
     train_encoded: Option<Py<ArrowData>>,
     scored: Option<Py<ArrowData>>,
     encodings: Vec<(String, Py<ArrowData>)>,
+    /// The Parquet copies of text inputs that `output`'s tables read (`write` runs
+    /// them again): removed with the result.
+    _copies: Vec<ColumnarCopy>,
 }
 
 #[pymethods]
@@ -766,10 +778,23 @@ fn encode_data(
     let output = py
         .detach(|| {
             rt.block_on(async {
+                let mut files = Vec::new();
+                files.extend(train.path().map(|p| (TRAIN, p)));
+                files.extend(score.as_ref().and_then(Input::path).map(|p| (SCORE, p)));
                 let ctx = session_with(&engine, train, score, &csv, &key_columns).await?;
+                // A misspelt column is refused before text files are copied.
+                encode::check_columns(&ctx, &o)
+                    .await
+                    .map_err(|e| e.to_string())?;
+                let mut copies = Vec::new();
+                for (table, path) in &files {
+                    copies.extend(replace_text_table(&ctx, table, path).await);
+                }
                 let plan = encode::resolve(&ctx, &o).await.map_err(|e| e.to_string())?;
                 let output = encode::run(&ctx, &plan).await.map_err(|e| e.to_string())?;
-                Collected::of(output).await
+                let mut collected = Collected::of(output).await?;
+                collected.copies = copies;
+                Ok::<_, String>(collected)
             })
         })
         .map_err(|e| from_workflow("encode", e))?;
@@ -829,6 +854,7 @@ struct Collected {
     train_encoded: Option<ArrowData>,
     scored: Option<ArrowData>,
     encodings: Vec<(String, ArrowData)>,
+    copies: Vec<ColumnarCopy>,
 }
 
 impl Collected {
@@ -847,6 +873,7 @@ impl Collected {
             train_encoded,
             scored,
             encodings,
+            copies: Vec::new(),
         })
     }
 
@@ -860,6 +887,7 @@ impl Collected {
                 .into_iter()
                 .map(|(k, d)| Ok((k, Py::new(py, d)?)))
                 .collect::<PyResult<_>>()?,
+            _copies: self.copies,
         })
     }
 }

@@ -154,7 +154,10 @@ pub(super) async fn check_target_values(
 }
 
 /// How many rows of `table` have a non-NULL `column` that fails `ok`, and the
-/// smallest such value as text (for the message).
+/// smallest such value as text (for the message). The test is a FILTER, never a
+/// WHERE: Parquet statistics leave NaN out, and the engine skips the row groups
+/// whose statistics rule a WHERE out, NaNs and all (DataFusion 55: `WHERE NOT (x >=
+/// 0)` counted none of a file's NaNs).
 pub(super) async fn rows_failing(
     ctx: &SessionContext,
     table: &str,
@@ -162,11 +165,12 @@ pub(super) async fn rows_failing(
     ok: &str,
 ) -> Result<(i64, String)> {
     let from = datafusion::common::TableReference::from(table).to_quoted_string();
+    let failing = format!("{column} IS NOT NULL AND NOT ({ok})");
     let b = one_row(
         ctx,
         &format!(
-            "SELECT COUNT(*), MIN(CAST({column} AS VARCHAR)) FROM {from} \
-             WHERE {column} IS NOT NULL AND NOT ({ok})"
+            "SELECT COUNT(*) FILTER (WHERE {failing}), \
+               MIN(CAST({column} AS VARCHAR)) FILTER (WHERE {failing}) FROM {from}"
         ),
     )
     .await?;

@@ -46,7 +46,7 @@ pub use options::{
     TimeTies, Treatment, LOO_REFUSED,
 };
 pub use plan::{feature_columns, EncodePlan, KeyPlan, OutputColumn};
-pub use resolve::resolve;
+pub use resolve::{check_columns, resolve};
 pub use run::{
     run, run_with_progress, summary_json, summary_table, unseen_table, write, ColumnSummary,
     EncodeOutput,

@@ -150,11 +150,25 @@ pub(super) async fn one_row(
         .ok_or_else(|| EncodeError::Query(format!("no result from {sql}")))
 }
 
-/// Check the options against the tables and settle the plan.
-pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<EncodePlan> {
+/// What the checks of the tables' columns found.
+struct Columns {
+    method: Method,
+    keys: Vec<KeyPlan>,
+    train: Vec<(String, DataType)>,
+    score: Vec<String>,
+}
+
+/// Check the options against the tables' columns and types, reading no rows: a
+/// front end that copies the rows first (text files, `columnar_copy`) runs this
+/// before, so that a misspelt column is refused at once. [`resolve`] runs it too.
+pub async fn check_columns(ctx: &SessionContext, options: &EncodeOptions) -> Result<()> {
+    columns_checked(ctx, options).await.map(|_| ())
+}
+
+async fn columns_checked(ctx: &SessionContext, options: &EncodeOptions) -> Result<Columns> {
     let method = options.method()?;
     check_numbers(options)?;
-    let mut keys = keys_of(options)?;
+    let keys = keys_of(options)?;
     refuse_leaky_keys(options, &keys)?;
     let train = columns_of(ctx, &options.train).await?;
     let target = &options.target;
@@ -178,10 +192,26 @@ pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<En
             ),
     )?;
     require_key_types("training table", &train, &keys)?;
+    let score = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
+    check_input_names(&train, &score)?;
+    Ok(Columns {
+        method,
+        keys,
+        train,
+        score,
+    })
+}
+
+/// Check the options against the tables and settle the plan.
+pub async fn resolve(ctx: &SessionContext, options: &EncodeOptions) -> Result<EncodePlan> {
+    let Columns {
+        method,
+        mut keys,
+        train,
+        score: score_columns,
+    } = columns_checked(ctx, options).await?;
     choose_treatments(ctx, options, &mut keys).await?;
     link_hierarchy(options, method, &mut keys)?;
-    let score_columns = scoring_columns(ctx, options.score.as_deref(), &keys).await?;
-    check_input_names(&train, &score_columns)?;
 
     let family = family_of(ctx, options, &train).await?;
     let classes = classes_of(ctx, options, family).await?;
@@ -481,11 +511,13 @@ async fn check_time_values(
         }
         if train.iter().any(|(n, d)| n == time && d.is_floating()) {
             let t = quote(time);
+            // A FILTER, not a WHERE, for the NaNs (`checks::rows_failing`).
             let b = one_row(
                 ctx,
                 &format!(
-                    "SELECT COUNT(*) FROM {from} WHERE {t} IS NOT NULL AND NOT \
-                     ({t} > CAST('-Infinity' AS DOUBLE) AND {t} < CAST('Infinity' AS DOUBLE))"
+                    "SELECT COUNT(*) FILTER (WHERE {t} IS NOT NULL AND NOT \
+                     ({t} > CAST('-Infinity' AS DOUBLE) AND {t} < CAST('Infinity' AS DOUBLE))) \
+                     FROM {from}"
                 ),
             )
             .await?;

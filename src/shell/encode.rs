@@ -5,6 +5,7 @@ use std::io::IsTerminal;
 use std::path::PathBuf;
 
 use crate::bundle::Bundle;
+use crate::columnar_copy::{replace_text_table, ColumnarCopy};
 use crate::encode::{
     self, EncodeError, EncodeOptions, Method, PriorChoice, Reader, Treatment, UpdateOptions,
 };
@@ -281,15 +282,34 @@ async fn register_inputs(
     args: &EncodeArgs,
     key_columns: &[String],
 ) -> Result<(), Failure> {
-    shell
-        .register_file(TRAIN_TABLE, args.train.trim(), "--train", key_columns)
-        .await?;
-    if let Some(score) = &args.score {
+    for (table, path, option) in inputs(args) {
         shell
-            .register_file(SCORE_TABLE, score.trim(), "--score", key_columns)
+            .register_file(table, path, option, key_columns)
             .await?;
     }
     Ok(())
+}
+
+/// Each input's table, path and option.
+fn inputs(args: &EncodeArgs) -> impl Iterator<Item = (&'static str, &str, &'static str)> {
+    let score = args
+        .score
+        .as_deref()
+        .map(|s| (SCORE_TABLE, s.trim(), "--score"));
+    std::iter::once((TRAIN_TABLE, args.train.trim(), "--train")).chain(score)
+}
+
+/// The inputs read from text files, read once into Parquet copies for encode's
+/// repeated scans (kept while the copies are); not on a cluster, whose executors
+/// read the paths given.
+async fn columnar_copies(shell: &Shell, args: &EncodeArgs) -> Vec<ColumnarCopy> {
+    let mut copies = Vec::new();
+    if !shell.cluster {
+        for (table, path, _) in inputs(args) {
+            copies.extend(replace_text_table(&shell.ctx, table, path).await);
+        }
+    }
+    copies
 }
 
 /// A one-line progress report at a terminal; nothing otherwise.
@@ -321,6 +341,9 @@ pub async fn run(shell: &Shell, args: &EncodeArgs) -> Result<(), Failure> {
         .cloned()
         .collect();
     register_inputs(shell, args, &key_columns).await?;
+    // A misspelt column is refused before the rows are copied.
+    encode::check_columns(&shell.ctx, &options).await?;
+    let _copies = columnar_copies(shell, args).await;
     let plan = encode::resolve(&shell.ctx, &options).await?;
     if args.show_sql {
         for s in plan.statements() {

@@ -4632,3 +4632,61 @@ fn a_target_with_one_value_is_said() {
         );
     }
 }
+
+/// A text input is read once into a Parquet copy in file order, as encode scans its
+/// rows once per statement (BENCHMARKS.md). The copy changes no byte of the
+/// outputs: a run that cannot write it (its temporary directory is a file) reads
+/// the CSV itself and writes the same files. The library's copy holds the same rows
+/// in the same order and is removed with its guard.
+#[tokio::test]
+async fn text_inputs_are_read_through_a_parquet_copy() {
+    use datafusion::arrow::util::pretty::pretty_format_batches;
+    use datafusion::prelude::SessionConfig;
+    let dir = scratch!("columnar-copy");
+    let sample = sample();
+    let blocked = dir.join("a-file-not-a-directory");
+    std::fs::write(&blocked, "").unwrap();
+    let mut written = Vec::new();
+    for (name, temporary) in [("copied", None), ("read", Some(&blocked))] {
+        let out = dir.join(name);
+        let mut run = Command::new(env!("CARGO_BIN_EXE_posterity"));
+        run.args(["encode", "--train", &sample, "--target", "no_show"])
+            .args(["--columns", "breed,vet", "--time-column", "booked_on"])
+            .args(["--score", &sample, "--out", out.to_str().unwrap()]);
+        if let Some(t) = temporary {
+            run.env("TMPDIR", t);
+        }
+        let o = run.output().unwrap();
+        assert!(o.status.success(), "{}", String::from_utf8_lossy(&o.stderr));
+        written.push(
+            ["train_encoded.parquet", "scored.parquet", "bundle.json"]
+                .map(|f| std::fs::read(out.join(f)).unwrap()),
+        );
+    }
+    assert!(written[0] == written[1], "the copy changed the outputs");
+
+    let ctx = SessionContext::new_with_config(SessionConfig::new().with_target_partitions(1));
+    let csv = posterity::files::CsvOptions::default();
+    posterity::files::register(&ctx, "rows", &sample, &csv)
+        .await
+        .unwrap();
+    let shown = || async {
+        let rows = ctx.sql("SELECT * FROM rows").await.unwrap();
+        pretty_format_batches(&rows.collect().await.unwrap())
+            .unwrap()
+            .to_string()
+    };
+    let before = shown().await;
+    let copy = posterity::columnar_copy::replace_text_table(&ctx, "rows", &sample)
+        .await
+        .expect("a CSV file is copied");
+    let file = copy.path().to_path_buf();
+    assert!(file.exists());
+    assert_eq!(
+        shown().await,
+        before,
+        "the copy's rows differ from the file's"
+    );
+    drop(copy);
+    assert!(!file.exists(), "the copy outlived its guard");
+}
