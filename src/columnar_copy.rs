@@ -2,8 +2,8 @@
 //!
 //! encode scans its training rows once per statement (a key's fit, its fold fits,
 //! the output) and its scoring rows several times, and each scan of a CSV, TSV or
-//! NDJSON file parses every byte of it again: four keys on 2 M CSV rows took 9.0 s,
-//! the same rows from Parquet 5.5 s (BENCHMARKS.md). The copy is parsed once, in
+//! NDJSON file parses every byte of it again: four keys on 2 M CSV rows took 5.8 s,
+//! the same rows from Parquet 3.3 s (BENCHMARKS.md). The copy is parsed once, in
 //! file order (encode's row numbers, and so its folds, follow that order), and
 //! later scans read only the columns they need.
 
