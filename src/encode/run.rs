@@ -685,17 +685,10 @@ async fn rows_read(ctx: &SessionContext, plan: &EncodePlan) -> Result<RowsRead> 
         read.push(format!("t.{} IS NOT NULL", super::quote(x)));
     }
     // As-of encodings: the newest time the fits read, for the scored rows' check
-    // (times that count units: numbers, dates or timestamps).
+    // (resolve refused every time column without units).
     let mut newest = "CAST(NULL AS DOUBLE)".to_string();
     if let (super::options::Method::Time, Some(time)) = (plan.method, &o.time_column) {
-        let columns = super::checks::columns_of(ctx, TRAIN).await?;
-        let units = columns
-            .iter()
-            .find(|(name, _)| name == time)
-            .and_then(|(_, d)| super::plan::TimeUnits::of(d));
-        if units == Some(plan.time_units) {
-            newest = plan.time_units.number(&format!("t.{}", super::quote(time)));
-        }
+        newest = plan.time_units.number(&format!("t.{}", super::quote(time)));
     }
     let sql = format!(
         "SELECT MIN({y}), MAX({y}), MAX({newest}), {} FROM __keyed t WHERE {}",
