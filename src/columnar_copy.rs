@@ -61,7 +61,7 @@ async fn write_copy(ctx: &SessionContext, name: &str, file: &Path) -> Result<()>
         .schema()
         .fields()
         .iter()
-        .map(|f| format!("\"{}\"", f.name().replace('"', "\"\"")))
+        .map(|f| crate::encode::quote(f.name()))
         .collect();
     let written = async {
         // The numbered scan is in order within each part, so this merges, not sorts.

@@ -10,7 +10,7 @@ use datafusion::prelude::SessionContext;
 use super::checks::{
     check_as_of_half_life, check_input_names, check_missing_marker, check_output_names,
     check_target_values, check_thresholds, columns_of, refuse_leaky_keys, require_columns,
-    require_key_types, scoring_columns,
+    require_key_types, rows_failing, scoring_columns,
 };
 use super::choose::{choose_readers, choose_reading, choose_treatments};
 use super::options::{
@@ -511,17 +511,9 @@ async fn check_time_values(
         }
         if train.iter().any(|(n, d)| n == time && d.is_floating()) {
             let t = quote(time);
-            // A FILTER, not a WHERE, for the NaNs (`checks::rows_failing`).
-            let b = one_row(
-                ctx,
-                &format!(
-                    "SELECT COUNT(*) FILTER (WHERE {t} IS NOT NULL AND NOT \
-                     ({t} > CAST('-Infinity' AS DOUBLE) AND {t} < CAST('Infinity' AS DOUBLE))) \
-                     FROM {from}"
-                ),
-            )
-            .await?;
-            let bad = b.column(0).as_primitive::<Int64Type>().value(0);
+            let finite =
+                format!("{t} > CAST('-Infinity' AS DOUBLE) AND {t} < CAST('Infinity' AS DOUBLE)");
+            let (bad, _) = rows_failing(ctx, &options.train, &t, &finite).await?;
             if bad > 0 {
                 return usage(format!(
                     "--time-column '{time}' has {bad} row(s) with NaN or an infinite time; \
